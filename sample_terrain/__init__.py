@@ -1,0 +1,1 @@
+"""The bundled, invented sample site (see README.md in this folder)."""

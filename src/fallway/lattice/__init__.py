@@ -1,0 +1,1 @@
+"""Lattice search: stencils, the label-setting kernel and its Python front."""
