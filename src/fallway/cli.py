@@ -1,16 +1,348 @@
-"""The ``fallway`` command line: thin click commands over the library."""
+"""The ``fallway`` command line: thin click commands over the library.
+
+Each command parses its options, builds a :class:`fallway.scenario.Scenario`, calls the
+library and prints.  Library errors are translated here, at the edge, into one line on
+stderr and an exit code: 0 success, 1 a clear error, 2 usage, 3 no feasible line.
+"""
 
 from __future__ import annotations
+
+import functools
+import logging
+import sys
+from pathlib import Path
 
 import click
 
 from . import __version__
+from .errors import FallwayError, NoFeasibleLine
+
+log = logging.getLogger("fallway")
+
+EXIT_ERROR = 1
+EXIT_NO_LINE = 3
 
 
+# --------------------------------------------------------------------------- helpers
+def _fail(message: str, code: int) -> None:
+    click.echo(f"fallway: error: {message}", err=True)
+    sys.exit(code)
+
+
+def _guard(fn):
+    """Translate library errors into one-line messages and exit codes."""
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        try:
+            return fn(*args, **kwargs)
+        except NoFeasibleLine as err:
+            msg = str(err)
+            if err.closest is not None:
+                msg += f" (closest reach: x={err.closest[0]:.1f}, y={err.closest[1]:.1f})"
+            _fail(msg, EXIT_NO_LINE)
+        except FallwayError as err:
+            _fail(str(err).splitlines()[0] if str(err) else type(err).__name__, EXIT_ERROR)
+        except KeyboardInterrupt:
+            _fail("interrupted; no outputs were written", 130)
+        except MemoryError:
+            _fail("out of memory; read a smaller area (bounds) or a coarser grid (--resolution)", EXIT_ERROR)
+        except click.exceptions.Exit:
+            raise
+        except click.ClickException:
+            raise
+        except Exception as err:  # a bug: still one line, the traceback only with -v
+            if log.isEnabledFor(logging.DEBUG):
+                raise
+            _fail(f"unexpected {type(err).__name__}: {err} (run with -v for details and please report it)", EXIT_ERROR)
+
+    return wrapper
+
+
+def _setup_logging(quiet: bool, verbose: int) -> None:
+    level = logging.WARNING
+    if quiet:
+        level = logging.ERROR
+    elif verbose >= 2:
+        level = logging.DEBUG
+    elif verbose == 1:
+        level = logging.INFO
+    logging.basicConfig(level=level, format="fallway: %(message)s", stream=sys.stderr, force=True)
+
+
+def _stages(total: int, quiet: bool):
+    """A stage progress bar on stderr, silent when stderr is not a terminal."""
+    from tqdm import tqdm
+
+    return tqdm(total=total, file=sys.stderr, leave=False, unit="stage",
+                disable=quiet or not sys.stderr.isatty(), bar_format="{desc} {bar} {n}/{total}")
+
+
+class _FloatPair(click.ParamType):
+    name = "X Y"
+
+
+def _common_options(fn):
+    """Physics, limit and line options shared by route, reach and compare."""
+    opts = [
+        click.option("--scenario", "scenario_path", type=click.Path(dir_okay=False), help="TOML scenario; flags override it."),
+        click.option("--lonlat", is_flag=True, default=None, help="Points are WGS 84 longitude latitude, whatever the DEM's CRS."),
+        click.option("--mu", type=float, help="Coulomb friction coefficient (sliding or rolling)."),
+        click.option("--drag", type=float, help="Quadratic drag coefficient k in 1/m (rho*Cd*A/2m)."),
+        click.option("--v0", type=float, help="Speed at the start, m/s."),
+        click.option("--g", "gravity", type=float, help="Acceleration of gravity, m/s² (default 9.80665)."),
+        click.option("--normal", type=click.Choice(["gravity", "full"]), help="Normal-force model (default full)."),
+        click.option("--neighbours", type=click.Choice(["8", "16", "32"]), help="Lattice stencil (default 16)."),
+        click.option("--min-grade", type=float, help="Smallest descent grade of any segment (0.05 = 5 % falling)."),
+        click.option("--max-grade", type=float, help="Largest descent grade of any segment."),
+        click.option("--max-speed", type=float, help="Speed limit, m/s."),
+        click.option("--stall-speed", type=float, help="The mover stops below this speed, m/s."),
+        click.option("--max-turn", type=float, help="Largest heading change per lattice step, degrees."),
+        click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons."),
+        click.option("-q", "--quiet", is_flag=True, help="Print errors only."),
+        click.option("-v", "--verbose", count=True, help="More log output (-vv for debug)."),
+    ]
+    for opt in reversed(opts):
+        fn = opt(fn)
+    return fn
+
+
+def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours,
+               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, **extra) -> dict:
+    """The flags given on the command line, in the scenario's nested layout."""
+    d: dict = {"points": {}, "mover": {}, "limits": {}, "search": {}, "line": {}, "envelope": {}}
+    if dem is not None:
+        d["dem"] = str(dem)
+    if keepout_path is not None:
+        d["keepout"] = str(keepout_path)
+    if start:
+        d["points"]["start"] = list(start)
+    if end:
+        d["points"]["end"] = list(end)
+    if via:
+        d["points"]["via"] = [list(p) for p in via]
+    if lonlat:
+        d["points"]["lonlat"] = True
+    for key, val in (("mu", mu), ("drag", drag), ("v0", v0), ("g", gravity), ("normal", normal),
+                     ("max_speed", max_speed), ("stall_speed", stall_speed)):
+        if val is not None:
+            d["mover"][key] = val
+    for key, val in (("min_grade", min_grade), ("max_grade", max_grade), ("max_turn_deg", max_turn),
+                     ("min_radius_m", extra.get("min_radius"))):
+        if val is not None:
+            d["limits"][key] = val
+    if neighbours is not None:
+        d["search"]["neighbours"] = int(neighbours)
+    if extra.get("no_refine"):
+        d["search"]["refine"] = False
+    for key in ("kind", "clearance", "start_height", "end_height"):
+        if extra.get(key) is not None:
+            d["line"][key] = list(extra[key]) if key == "clearance" else extra[key]
+    if extra.get("mu_range") is not None:
+        d["envelope"]["mu_range"] = list(extra["mu_range"])
+    return d
+
+
+def _merge(base: dict, over: dict) -> dict:
+    out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in base.items()}
+    for k, v in over.items():
+        if isinstance(v, dict):
+            out.setdefault(k, {})
+            out[k].update(v)
+        else:
+            out[k] = v
+    return {k: v for k, v in out.items() if v != {}}
+
+
+def _resolve(scenario_path, overrides: dict):
+    """Scenario file (if any) + flags -> validated Scenario."""
+    from .scenario import Scenario, load_scenario
+
+    base: dict = {}
+    base_dir = None
+    if scenario_path is not None:
+        base = load_scenario(scenario_path).to_dict()
+    return Scenario.from_dict(_merge(base, overrides), base_dir=base_dir)
+
+
+def _prepare(sc, *, need_end: bool):
+    """Load the terrain around the scenario's points and move the points into its CRS."""
+    from .errors import ParameterError
+    from .points import WGS84, dem_crs, to_terrain_crs
+    from .terrain import load_terrain
+
+    if sc.dem is None:
+        raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    if sc.start is None:
+        raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
+    if need_end and sc.end is None:
+        raise ParameterError("no end point: pass --end X Y or set points.end in the scenario")
+    src_crs = dem_crs(sc.dem)
+    pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
+    if sc.lonlat or src_crs.is_geographic:
+        src = WGS84
+    else:
+        src = src_crs
+    bounds = None
+    if need_end and not src_crs.is_geographic:
+        native = to_terrain_crs(pts, src, src_crs)
+        xs = [p[0] for p in native]
+        ys = [p[1] for p in native]
+        bounds = (min(xs), min(ys), max(xs), max(ys))
+    terrain = load_terrain(sc.dem, bounds=bounds)
+    pts = to_terrain_crs(pts, src, terrain.crs)
+    start = pts[0]
+    end = pts[-1] if sc.end is not None else None
+    via = tuple(pts[1:1 + len(sc.via)])
+    keepout = None
+    if sc.keepout is not None:
+        from .limits import Keepout
+
+        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
+    return terrain, start, end, via, keepout
+
+
+# --------------------------------------------------------------------------- commands
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="fallway")
 def main() -> None:
-    """Minimum-time gravity descent lines across terrain (GeoTIFF DEMs)."""
+    """Minimum-time gravity descent lines across terrain (GeoTIFF DEMs).
+
+    A preliminary layout aid: have every line checked by a qualified engineer.
+    """
+
+
+_point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
+
+
+@main.command()
+@click.argument("dem", required=False, type=click.Path(dir_okay=False))
+@_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
+@_point_opt("--end", help="Discharge point.")
+@_point_opt("--via", multiple=True, help="A point the line must pass (repeatable, in order).")
+@_common_options
+@click.option("--line", "kind", type=click.Choice(["ground", "raised"]), help="On the ground, or raised (cable/trestle).")
+@click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m.")
+@click.option("--start-height", type=float, help="Raised line: height above ground at the start, m.")
+@click.option("--end-height", type=float, help="Raised line: height above ground at the end, m.")
+@click.option("--min-radius", type=float, help="Smallest bend radius of the refined line, m.")
+@click.option("--no-refine", is_flag=True, help="Report the lattice line only.")
+@click.option("--mu-range", type=(float, float), metavar="LO HI", help="Friction envelope to check the line against.")
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
+@_guard
+def route(out_dir, overwrite, scenario_path, quiet, verbose, **opts):
+    """Find the minimum-time line from --start to --end on DEM and write it to --out."""
+    _setup_logging(quiet, verbose)
+    sc = _resolve(scenario_path, _overrides(**opts))
+    from .export import OutputSet
+
+    with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
+        result = _run_route(sc, quiet=quiet)
+        written = _write_route(outs, sc, *result)
+    if not quiet:
+        _print_route(result[0], out_dir, written)
+
+
+def _run_route(sc, *, quiet: bool):
+    from .route import find_route
+
+    bar = _stages(3, quiet)
+    try:
+        bar.set_description("loading terrain")
+        terrain, start, end, via, keepout = _prepare(sc, need_end=True)
+        bar.update()
+        bar.set_description("searching and refining")
+        r = find_route(terrain, start, end, sc.mover, via=via, neighbours=sc.neighbours, limits=sc.limits,
+                       keepout=keepout, line=sc.line, refine=sc.refine, clearance=sc.clearance,
+                       start_height=sc.start_height, end_height=sc.end_height)
+        bar.update()
+        return r, terrain, keepout
+    finally:
+        bar.close()
+
+
+def _write_route(outs, sc, r, terrain, keepout, *, reach=None):
+    """Every output file of one route, into the output set (temporary until complete)."""
+    from . import export, plot, report
+
+    export.write_route_geojson(r, outs.path("route.geojson"), terrain.crs)
+    export.write_route_gpkg(r, outs.path("route.gpkg"), terrain.crs)
+    export.write_profile_csv(r, terrain, outs.path("profile.csv"))
+    export.write_summary_json(r, outs.path("summary.json"), extra={"scenario": sc.to_dict()})
+    with open(outs.path("scenario.toml"), "w", encoding="utf-8") as fh:
+        fh.write(sc.to_toml())
+    fig = plot.map_figure(terrain, r, reach=reach, keepout=keepout)
+    plot.save_figure(fig, outs.path("map.png"), outs.path("map.svg"))
+    fig = plot.profile_figure(r, terrain)
+    plot.save_figure(fig, outs.path("profile.png"), outs.path("profile.svg"))
+    report.write_report_html(r, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
+                             profile_png=outs.path("profile.png"), parameters=sc.to_dict())
+    return sorted(outs.names)
+
+
+def _print_route(r, out_dir, written) -> None:
+    s = r.summary
+    click.echo(f"travel time {s['travel_time_s']:.2f} s (lattice {s['lattice_time_s']:.2f} s), "
+               f"length {s['length_m']:.1f} m, drop {s['drop_m']:.1f} m, exit speed {s['exit_speed_m_s']:.2f} m/s, "
+               f"max speed {s['max_speed_m_s']:.2f} m/s")
+    click.echo(f"wrote {', '.join(written)} in {out_dir}")
+
+
+@main.command()
+@click.argument("dem", required=False, type=click.Path(dir_okay=False))
+@_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
+@_common_options
+@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Output GeoTIFF (2 bands: time s, speed m/s).")
+@click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
+@_guard
+def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
+    """Map the arrival time and speed from --start to every reachable cell of DEM."""
+    _setup_logging(quiet, verbose)
+    from .errors import OutputExistsError
+    from .route import reach as reach_map
+
+    out = Path(out_path)
+    if out.exists() and not overwrite:
+        raise OutputExistsError(f"{out} exists; pass --overwrite to replace it")
+    sc = _resolve(scenario_path, _overrides(end=None, via=(), **opts))
+    terrain, start, _, _, keepout = _prepare(sc, need_end=False)
+    rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout)
+    rm.to_geotiff(out)
+    if not quiet:
+        import numpy as np
+
+        n = int(np.isfinite(rm.time_s).sum())
+        click.echo(f"{n} of {rm.time_s.size} cells reachable; latest arrival {np.nanmax(rm.time_s):.1f} s; wrote {out}")
+
+
+@main.command()
+@click.option("--out", "out_dir", default="fallway-demo", show_default=True, type=click.Path(file_okay=False),
+              help="Output folder.")
+@click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
+@click.option("-q", "--quiet", is_flag=True, help="Print errors only.")
+@_guard
+def demo(out_dir, overwrite, quiet):
+    """Run the whole job on the bundled, invented sample site."""
+    _setup_logging(quiet, 0)
+    from importlib.resources import as_file, files
+
+    from .export import OutputSet
+    from .route import reach as reach_map
+    from .scenario import load_scenario
+
+    with as_file(files("fallway.sample_terrain")) as site:
+        sc = load_scenario(Path(site) / "scenario.toml")
+        with OutputSet(out_dir, overwrite=overwrite) as outs:
+            r, terrain, keepout = _run_route(sc, quiet=quiet)
+            rm = reach_map(terrain, r.line[0, :2], sc.mover, neighbours=sc.neighbours, limits=sc.limits,
+                           keepout=keepout)
+            rm.to_geotiff(outs.path("reach.tif"))
+            written = _write_route(outs, sc, r, terrain, keepout, reach=rm)
+    if not quiet:
+        click.echo("fallway demo: the invented sample site (quarry bench to valley floor), line kept clear of the no-go areas")
+        _print_route(r, out_dir, written)
+        click.echo("Preliminary layout aid only: have any real design checked by a qualified engineer.")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1,0 +1,321 @@
+"""Scenario files: everything a design run needs, in TOML, validated.
+
+A scenario holds what the command-line flags hold, so a run is reproducible: flags
+override the file, and the resolved scenario is written beside the outputs.
+
+Layout (every section and key optional; unknown keys are rejected)::
+
+    dem = "site.tif"                 # relative paths are relative to the scenario file
+    keepout = "keepout.geojson"
+
+    [points]
+    start = [512300.0, 5401200.0]    # map coordinates of the DEM (or lon/lat, see lonlat)
+    end = [512800.0, 5400900.0]
+    via = [[512500.0, 5401000.0]]
+    lonlat = false                   # true: the points are WGS 84 longitude, latitude
+
+    [mover]                          # fallway.Mover
+    mu = 0.15
+    drag = 0.0
+    v0 = 0.0
+    g = 9.80665
+    normal = "full"
+    stall_speed = 0.0
+    max_speed = 25.0
+
+    [limits]                         # fallway.Limits
+    min_grade = 0.0
+    max_grade = 1.0
+    max_turn_deg = 45.0
+    min_radius_m = 10.0
+
+    [search]
+    neighbours = 16
+    refine = true
+
+    [line]
+    kind = "ground"                  # or "raised"
+    clearance = [0.5, 15.0]
+    start_height = 0.0
+    end_height = 0.0
+
+    [envelope]
+    mu_range = [0.1, 0.2]
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import asdict, dataclass, field, fields
+from pathlib import Path
+from typing import Any
+
+from .errors import FallwayError, ParameterError, ScenarioError
+from .limits import Limits
+from .physics import Mover
+
+__all__ = ["Scenario", "load_scenario", "LINE_KINDS", "NEIGHBOURHOODS"]
+
+LINE_KINDS = ("ground", "raised")
+NEIGHBOURHOODS = (8, 16, 32)
+
+_SCHEMA: dict[str, Any] = {
+    "dem": str,
+    "keepout": str,
+    "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
+    "mover": {f.name: f.name for f in fields(Mover)},
+    "limits": {f.name: f.name for f in fields(Limits)},
+    "search": {"neighbours": int, "refine": bool},
+    "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
+    "envelope": {"mu_range": "pair"},
+}
+
+
+def _point(key: str, value) -> tuple[float, float]:
+    if not (isinstance(value, (list, tuple)) and len(value) == 2):
+        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}")
+    try:
+        x, y = float(value[0]), float(value[1])
+    except (TypeError, ValueError):
+        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}") from None
+    if not (math.isfinite(x) and math.isfinite(y)):
+        raise ScenarioError(f"{key} must be finite, got {value!r}")
+    return (x, y)
+
+
+def _number(key: str, value) -> float:
+    if isinstance(value, bool):
+        raise ScenarioError(f"{key} must be a number, got {value!r}")
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ScenarioError(f"{key} must be a number, got {value!r}") from None
+    if not math.isfinite(v):
+        raise ScenarioError(f"{key} must be a finite number, got {value!r}")
+    return v
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated design run: terrain, points, physics, limits and line kind.
+
+    Examples
+    --------
+    >>> s = Scenario.from_dict({"points": {"start": [0, 10], "end": [50, 0]},
+    ...                         "mover": {"mu": 0.1}})
+    >>> s.mover.mu, s.neighbours, s.line
+    (0.1, 16, 'ground')
+    >>> Scenario.from_dict({"mover": {"mass": 3}})
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ScenarioError: unknown key mover.mass; allowed: mu, drag, v0, g, normal, stall_speed, max_speed
+    """
+
+    dem: str | None = None
+    keepout: str | None = None
+    start: tuple[float, float] | None = None
+    end: tuple[float, float] | None = None
+    via: tuple[tuple[float, float], ...] = ()
+    lonlat: bool = False
+    mover: Mover = field(default_factory=Mover)
+    limits: Limits = field(default_factory=Limits)
+    neighbours: int = 16
+    refine: bool = True
+    line: str = "ground"
+    clearance: tuple[float, float] = (0.0, 0.0)
+    start_height: float = 0.0
+    end_height: float = 0.0
+    mu_range: tuple[float, float] | None = None
+
+    def __post_init__(self) -> None:
+        if self.neighbours not in NEIGHBOURHOODS:
+            raise ScenarioError(f"search.neighbours must be one of 8, 16, 32; got {self.neighbours!r}")
+        if self.line not in LINE_KINDS:
+            raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {self.line!r}")
+        lo, hi = self.clearance
+        if lo < 0 or hi < lo:
+            raise ScenarioError(f"line.clearance must be [min, max] with 0 <= min <= max; got [{lo:g}, {hi:g}]")
+        for name in ("start_height", "end_height"):
+            if getattr(self, name) < 0:
+                raise ScenarioError(f"line.{name} must be >= 0 m above ground; got {getattr(self, name):g}")
+        if self.line == "raised":
+            for name in ("start_height", "end_height"):
+                h = getattr(self, name)
+                if not (lo <= h <= hi) and h != 0.0:
+                    raise ScenarioError(f"line.{name} ({h:g} m) must lie in the clearance band [{lo:g}, {hi:g}] m")
+        if self.mu_range is not None:
+            a, b = self.mu_range
+            if not (0 <= a <= b):
+                raise ScenarioError(f"envelope.mu_range must be [low, high] with 0 <= low <= high; got [{a:g}, {b:g}]")
+
+    # ------------------------------------------------------------------ building
+    @classmethod
+    def from_dict(cls, data: dict, *, base_dir: str | Path | None = None) -> "Scenario":
+        """Validate a nested mapping (the TOML layout in the module docstring)."""
+        _check_keys(data, _SCHEMA, "")
+        kw: dict[str, Any] = {}
+        for key in ("dem", "keepout"):
+            if key in data:
+                if not isinstance(data[key], str):
+                    raise ScenarioError(f"{key} must be a file path (string), got {data[key]!r}")
+                p = Path(data[key]).expanduser()
+                if base_dir is not None and not p.is_absolute():
+                    p = Path(base_dir) / p
+                kw[key] = str(p)
+        pts = data.get("points", {})
+        if "start" in pts:
+            kw["start"] = _point("points.start", pts["start"])
+        if "end" in pts:
+            kw["end"] = _point("points.end", pts["end"])
+        if "via" in pts:
+            via = pts["via"]
+            if not isinstance(via, (list, tuple)):
+                raise ScenarioError(f"points.via must be a list of [x, y] pairs, got {via!r}")
+            kw["via"] = tuple(_point(f"points.via[{i}]", p) for i, p in enumerate(via))
+        if "lonlat" in pts:
+            kw["lonlat"] = _bool("points.lonlat", pts["lonlat"])
+        kw["mover"] = _build(Mover, "mover", data.get("mover", {}))
+        kw["limits"] = _build(Limits, "limits", data.get("limits", {}))
+        search = data.get("search", {})
+        if "neighbours" in search:
+            n = search["neighbours"]
+            if isinstance(n, bool) or not isinstance(n, int):
+                raise ScenarioError(f"search.neighbours must be one of 8, 16, 32; got {n!r}")
+            kw["neighbours"] = n
+        if "refine" in search:
+            kw["refine"] = _bool("search.refine", search["refine"])
+        line = data.get("line", {})
+        if "kind" in line:
+            kw["line"] = line["kind"]
+        if "clearance" in line:
+            kw["clearance"] = tuple(_number("line.clearance", v) for v in _pair("line.clearance", line["clearance"]))
+        for name in ("start_height", "end_height"):
+            if name in line:
+                kw[name] = _number(f"line.{name}", line[name])
+        env = data.get("envelope", {})
+        if "mu_range" in env:
+            kw["mu_range"] = tuple(_number("envelope.mu_range", v) for v in _pair("envelope.mu_range", env["mu_range"]))
+        return cls(**kw)
+
+    def to_dict(self) -> dict:
+        """The nested mapping that :meth:`from_dict` reads (None values left out)."""
+        d: dict[str, Any] = {}
+        if self.dem is not None:
+            d["dem"] = self.dem
+        if self.keepout is not None:
+            d["keepout"] = self.keepout
+        pts: dict[str, Any] = {"lonlat": self.lonlat}
+        if self.start is not None:
+            pts["start"] = list(self.start)
+        if self.end is not None:
+            pts["end"] = list(self.end)
+        if self.via:
+            pts["via"] = [list(p) for p in self.via]
+        d["points"] = pts
+        d["mover"] = {k: v for k, v in asdict(self.mover).items() if v is not None}
+        d["limits"] = {k: v for k, v in asdict(self.limits).items()
+                       if v is not None and not (isinstance(v, float) and math.isinf(v))}
+        d["search"] = {"neighbours": self.neighbours, "refine": self.refine}
+        d["line"] = {"kind": self.line, "clearance": list(self.clearance),
+                     "start_height": self.start_height, "end_height": self.end_height}
+        if self.mu_range is not None:
+            d["envelope"] = {"mu_range": list(self.mu_range)}
+        return d
+
+    def to_toml(self) -> str:
+        """The resolved scenario as TOML text (readable back with :func:`load_scenario`)."""
+        return dumps_toml(self.to_dict())
+
+
+def _bool(key: str, value) -> bool:
+    if not isinstance(value, bool):
+        raise ScenarioError(f"{key} must be true or false, got {value!r}")
+    return value
+
+
+def _pair(key: str, value) -> tuple:
+    if not (isinstance(value, (list, tuple)) and len(value) == 2):
+        raise ScenarioError(f"{key} must be a pair [low, high], got {value!r}")
+    return tuple(value)
+
+
+def _check_keys(data: dict, schema: dict, prefix: str) -> None:
+    if not isinstance(data, dict):
+        raise ScenarioError(f"{prefix.rstrip('.') or 'scenario'} must be a table, got {data!r}")
+    for key, value in data.items():
+        if key not in schema:
+            raise ScenarioError(f"unknown key {prefix}{key}; allowed: {', '.join(schema)}")
+        if isinstance(schema[key], dict):
+            _check_keys(value, schema[key], f"{prefix}{key}.")
+
+
+def _build(cls, section: str, values: dict):
+    kw = {}
+    for key, value in values.items():
+        if isinstance(value, bool):
+            raise ScenarioError(f"{section}.{key} must be a number, got {value!r}")
+        kw[key] = value
+    try:
+        return cls(**kw)
+    except ParameterError as err:
+        raise ScenarioError(f"{section}.{err}") from err
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a TOML scenario file.
+
+    Raises
+    ------
+    ScenarioError
+        For a file that is not valid TOML, an unknown key or an out-of-range value.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as err:
+        raise ScenarioError(f"cannot read scenario file {p}: {err.strerror or err}") from err
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ScenarioError(f"scenario file {p} is not valid TOML: {err}") from err
+    return Scenario.from_dict(data, base_dir=p.parent)
+
+
+def dumps_toml(data: dict) -> str:
+    """Serialise the scenario mapping (strings, numbers, booleans, lists) as TOML.
+
+    Only the value kinds a scenario holds are supported.
+
+    Examples
+    --------
+    >>> print(dumps_toml({"dem": "a.tif", "mover": {"mu": 0.1, "normal": "full"}}).strip())
+    dem = "a.tif"
+    <BLANKLINE>
+    [mover]
+    mu = 0.1
+    normal = "full"
+    """
+    top = [f"{k} = {_value(v)}" for k, v in data.items() if not isinstance(v, dict)]
+    parts = ["\n".join(top)] if top else []
+    for k, v in data.items():
+        if isinstance(v, dict):
+            body = "\n".join(f"{kk} = {_value(vv)}" for kk, vv in v.items())
+            parts.append(f"[{k}]\n{body}")
+    return "\n\n".join(parts) + "\n"
+
+
+def _value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, float):
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        return repr(v)
+    if isinstance(v, str):
+        return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_value(x) for x in v) + "]"
+    raise FallwayError(f"cannot write {type(v).__name__} to a scenario file")

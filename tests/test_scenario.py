@@ -1,0 +1,110 @@
+"""Scenario files: validation names the key and the range; TOML round trip (tomllib)."""
+
+import math
+import tomllib
+
+import pytest
+
+from fallway.errors import ScenarioError
+from fallway.scenario import Scenario, dumps_toml, load_scenario
+
+FULL = """
+dem = "site.tif"
+keepout = "no-go.geojson"
+
+[points]
+start = [100.0, 200.0]
+end = [400.0, 50.0]
+via = [[250.0, 120.0]]
+lonlat = false
+
+[mover]
+mu = 0.15
+drag = 0.002
+v0 = 1.5
+normal = "gravity"
+stall_speed = 0.2
+max_speed = 20.0
+
+[limits]
+min_grade = 0.02
+max_grade = 0.8
+max_turn_deg = 60.0
+min_radius_m = 8.0
+
+[search]
+neighbours = 32
+refine = false
+
+[line]
+kind = "raised"
+clearance = [0.0, 12.0]
+start_height = 5.0
+end_height = 0.0
+
+[envelope]
+mu_range = [0.1, 0.2]
+"""
+
+
+def test_full_file_resolves_relative_paths(tmp_path):
+    f = tmp_path / "run.toml"
+    f.write_text(FULL)
+    sc = load_scenario(f)
+    assert sc.dem == str(tmp_path / "site.tif")
+    assert sc.keepout == str(tmp_path / "no-go.geojson")
+    assert sc.via == ((250.0, 120.0),)
+    assert sc.mover.mu == 0.15 and sc.mover.normal == "gravity" and sc.mover.max_speed == 20.0
+    assert sc.limits.min_radius_m == 8.0 and sc.neighbours == 32 and sc.refine is False
+    assert sc.line == "raised" and sc.clearance == (0.0, 12.0) and sc.mu_range == (0.1, 0.2)
+
+
+def test_round_trip_through_tomllib(tmp_path):
+    # the writer's output must be TOML that the standard library (tomllib, TOML 1.0) reads back
+    f = tmp_path / "run.toml"
+    f.write_text(FULL)
+    sc = load_scenario(f)
+    again = Scenario.from_dict(tomllib.loads(sc.to_toml()))
+    assert again == sc
+
+
+def test_infinite_grade_limits_are_left_out_of_the_written_file():
+    text = Scenario().to_toml()
+    assert "inf" not in text
+    assert math.isinf(Scenario.from_dict(tomllib.loads(text)).limits.max_grade)
+
+
+@pytest.mark.parametrize("data, match", [
+    ({"mover": {"mass": 3}}, r"unknown key mover\.mass; allowed: mu, drag"),
+    ({"colour": "red"}, r"unknown key colour"),
+    ({"mover": {"mu": -0.1}}, r"mover\.mu must be a finite number >= 0"),
+    ({"mover": {"mu": "high"}}, r"mover\.mu must be a number"),
+    ({"mover": {"mu": True}}, r"mover\.mu must be a number"),
+    ({"mover": {"normal": "both"}}, r"mover\.normal must be one of gravity, full"),
+    ({"search": {"neighbours": 12}}, r"search\.neighbours must be one of 8, 16, 32"),
+    ({"search": {"refine": "yes"}}, r"search\.refine must be true or false"),
+    ({"line": {"kind": "flying"}}, r"line\.kind must be 'ground' or 'raised'"),
+    ({"line": {"clearance": [5.0, 1.0]}}, r"line\.clearance must be \[min, max\]"),
+    ({"points": {"start": [1.0]}}, r"points\.start must be a pair"),
+    ({"points": {"end": [1.0, math.nan]}}, r"points\.end must be finite"),
+    ({"limits": {"min_grade": 0.5, "max_grade": 0.1}}, r"limits\.min_grade \(0\.5\) must not exceed"),
+    ({"envelope": {"mu_range": [0.3, 0.1]}}, r"envelope\.mu_range must be \[low, high\]"),
+    ({"mover": 3}, r"mover must be a table"),
+])
+def test_bad_values_name_the_key_and_range(data, match):
+    with pytest.raises(ScenarioError, match=match):
+        Scenario.from_dict(data)
+
+
+def test_broken_toml_is_one_clear_error(tmp_path):
+    f = tmp_path / "bad.toml"
+    f.write_text("[mover\nmu = 0.1\n")
+    with pytest.raises(ScenarioError, match="is not valid TOML"):
+        load_scenario(f)
+    with pytest.raises(ScenarioError, match="cannot read scenario file"):
+        load_scenario(tmp_path / "missing.toml")
+
+
+def test_writer_escapes_strings():
+    text = dumps_toml({"dem": 'a "quoted" \\ path'})
+    assert tomllib.loads(text)["dem"] == 'a "quoted" \\ path'
