@@ -76,7 +76,19 @@ def segment_law(v2_in, drop_m, plan_m, length_m, g, mu, k, v2_stall):
         return v2_out, 2.0 * s / (va + vb), -1.0
     if a > 0.0:
         vt = math.sqrt(c)
-        t = s / vt + math.log1p((vb - va) / (vt + va)) / (k * vt)
+        if va <= vt:
+            # accelerating towards (or at) the terminal speed: both terms positive
+            t = s / vt + math.log1p((vb - va) / (vt + va)) / (k * vt)
+        else:
+            # above the terminal speed: artanh(vt/vb) - artanh(vt/va) folded into one
+            # artanh so that a tiny terminal speed (a -> 0+) does not cancel.
+            dv = -(v2_in - c) * math.expm1(-2.0 * ks) / (va + vb)
+            den = vb * dv + (v2_in - c) * math.exp(-2.0 * ks)
+            arg = vt * dv / den
+            if arg < 1e-6:
+                t = dv / (k * den) * (1.0 + arg * arg / 3.0)
+            else:
+                t = math.atanh(arg) / (k * vt)
     elif a < 0.0:
         w = math.sqrt(-c)
         t = math.atan2((va - vb) * w, w * w + va * vb) / (k * w)

@@ -1,6 +1,25 @@
 """Motion of a point mass along a 3D line: gravity, Coulomb friction, drag, curvature.
 
-(Parameter and result types; ``traverse`` is filled in by the motion-model work.)
+The public front of the motion model: :class:`Mover` (what moves), :func:`segment` (one
+straight segment, closed form), :func:`traverse` (a whole polyline, returning a
+:class:`Profile`) and :func:`normal_gravity` (local gravity, WGS 84).  The numerical work
+is done by jitted kernels in :mod:`fallway._segment` and :mod:`fallway._traverse`, which
+the lattice search and the refinement call directly.
+
+Normal-force models
+-------------------
+``"gravity"``
+    The normal force is gravity's component across the path, ``g * plan / length`` on a
+    straight segment, so friction work is ``mu * g * plan length``.  Exact closed form
+    per segment (with and without drag).
+``"full"``
+    The normal force is the vector the line supplies, ``N = v² kappa n - g_perp``, and
+    friction is ``mu * |N|``.  Curvature is the limit of a smooth interpolant of the
+    vertices: each interior vertex's turning angle ``phi`` is spread over the two
+    half-segments around it (``|kappa| = phi / l`` with ``l`` the mean of the adjoining
+    segment lengths), so a densely sampled curve converges to the continuous answer
+    and a short sharp corner is a capstan: ``v_out = v_in * exp(-mu * phi)``.  See
+    :func:`traverse`.
 """
 
 from __future__ import annotations
@@ -12,7 +31,8 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["Mover", "Profile", "STANDARD_GRAVITY"]
+__all__ = ["Mover", "Profile", "SegmentResult", "STANDARD_GRAVITY", "normal_gravity", "segment",
+           "traverse"]
 
 #: Standard acceleration of gravity, m/s² (3rd CGPM, 1901).
 STANDARD_GRAVITY = 9.80665
@@ -46,7 +66,8 @@ class Mover:
     v0 : float
         Speed at the start, m/s.
     g : float
-        Acceleration of gravity, m/s² (standard gravity by default).
+        Acceleration of gravity, m/s² (standard gravity by default; for local gravity
+        use ``Mover(g=normal_gravity(lat_deg, height_m))``).
     normal : {"full", "gravity"}
         ``"gravity"``: the normal force is gravity's component across the path, so
         friction work is mu * g * plan length.  ``"full"``: the normal force is the
@@ -117,20 +138,30 @@ class Profile:
     station_m : ndarray (N,)
         Distance along the 3D line from the start.
     speed_m_s : ndarray (N,)
-        Speed at each vertex (NaN after a stall).
+        Speed at each vertex (NaN at the vertices after a stall; every vertex before
+        the stall has a finite value).
     time_s : ndarray (N,)
         Cumulative time at each vertex (NaN after a stall).
     grade : ndarray (N,)
         Descent grade (drop / plan length) of the segment that *leaves* each vertex
-        (the last entry repeats the last segment's); positive downhill.
+        (the last entry repeats the last segment's); positive downhill, +-inf on a
+        vertical segment.
     normal_ratio : ndarray (N,)
-        Normal force over g at each vertex.
+        Normal force over g at each vertex: ``"gravity"`` model, gravity's cross
+        component on the segment leaving the vertex (``plan / length``); ``"full"``
+        model, ``|v² kappa n - g_perp| / g`` with the vertex's discrete curvature and
+        the bisector tangent (NaN after a stall).
     stalled_at_m : float or None
         Station where the mover stalls, or None.
     liftoff : ndarray of float
-        Stations where an open chute would need a pulling normal force (convex crest).
+        Stations of the vertices where an open chute would need a pulling normal force:
+        on a convex crest in the vertical plane ``v² kappa_vertical`` exceeds gravity's
+        cross component ``g cos(slope)`` and the mass would leave the ground (computed
+        with either normal model; after lift-off the profile assumes the line still
+        guides the mass, as a closed chute or a cable would).
     overspeed : ndarray of float
-        Stations where the speed exceeds ``Mover.max_speed``.
+        Stations where the speed exceeds ``Mover.max_speed``: vertices, and with the
+        ``"full"`` model segment midpoints (where a bend's peak can lie).
     """
 
     points: np.ndarray
@@ -157,3 +188,277 @@ class Profile:
     def exit_speed_m_s(self) -> float:
         """Speed at the end (NaN after a stall)."""
         return float(self.speed_m_s[-1])
+
+
+# ---------------------------------------------------------------------------
+# one straight segment
+
+@dataclass(frozen=True)
+class SegmentResult:
+    """Motion along one straight segment.
+
+    Attributes
+    ----------
+    v_out_m_s : float
+        Speed at the end (NaN when the mover stalls).
+    time_s : float
+        Time to the end (inf when the mover stalls).
+    stalled_at_m : float or None
+        Distance along the segment where the mover stalls, or None.
+    length_m : float
+        3D length of the segment.
+    """
+
+    v_out_m_s: float
+    time_s: float
+    stalled_at_m: float | None
+    length_m: float
+
+    @property
+    def feasible(self) -> bool:
+        """True when the mover reaches the end of the segment."""
+        return self.stalled_at_m is None
+
+
+def segment(v_in_m_s: float, drop_m: float, plan_m: float, mover: "Mover") -> SegmentResult:
+    """Closed-form motion along one straight segment.
+
+    On a straight segment both normal models agree (no curvature): the along-path
+    acceleration without drag is ``a = g (drop - mu plan) / length`` and with drag
+    ``d(v²)/dσ = 2a - 2k v²`` is solved exactly (:func:`fallway._segment.segment_law`,
+    the jitted kernel the lattice search shares).
+
+    Parameters
+    ----------
+    v_in_m_s : float
+        Speed at the start, m/s (>= 0).
+    drop_m : float
+        Height lost along the segment, m (negative uphill).
+    plan_m : float
+        Horizontal length, m (>= 0).
+    mover : Mover
+        Friction, drag, gravity and stall speed (``mover.v0`` is not used).
+
+    Returns
+    -------
+    SegmentResult
+
+    Examples
+    --------
+    30° incline, mu = 0.2, 50 m from rest (a = g (sin 30° - 0.2 cos 30°)):
+
+    >>> import math
+    >>> r = segment(0.0, 25.0, 50 * math.cos(math.radians(30)), Mover(mu=0.2))
+    >>> print(f"{r.v_out_m_s:.4f} m/s in {r.time_s:.4f} s")
+    17.9019 m/s in 5.5860 s
+    >>> segment(1.0, -1.0, 10.0, Mover(mu=0.1)).stalled_at_m is not None
+    True
+    """
+    from ._segment import segment_law
+
+    _check_mover(mover)
+    _check_number("v_in_m_s", v_in_m_s)
+    _check_number("plan_m", plan_m)
+    _check_number("drop_m", drop_m, low=-math.inf)
+    v_in, drop, plan = float(v_in_m_s), float(drop_m), float(plan_m)
+    length = math.hypot(drop, plan)
+    v2, t, at = segment_law(v_in * v_in, drop, plan, length, mover.g, mover.mu, mover.drag,
+                            mover.stall_speed ** 2)
+    if at >= 0.0:
+        return SegmentResult(math.nan, math.inf, float(at), length)
+    return SegmentResult(math.sqrt(v2), float(t), None, length)
+
+
+# ---------------------------------------------------------------------------
+# a whole line
+
+#: Consecutive points closer than this (m) are one vertex (a zero-length segment).
+MIN_SEGMENT_M = 1e-9
+
+
+def _check_mover(mover) -> None:
+    if not isinstance(mover, Mover):
+        raise ParameterError(f"mover must be a fallway.physics.Mover, got {type(mover).__name__}")
+
+
+def _readonly(a: np.ndarray) -> np.ndarray:
+    a.flags.writeable = False
+    return a
+
+
+def traverse(points, mover: Mover) -> Profile:
+    """Speed and time of a point mass along a 3D polyline.
+
+    Parameters
+    ----------
+    points : array_like (N, 3)
+        Vertices x, y, z in metres (projected CRS, z up), N >= 2, all finite.
+        Consecutive repeated points (closer than 1 nm) are one vertex: zero-length
+        segments are skipped, and the repeated rows get the values of the vertex they
+        repeat.
+    mover : Mover
+        Friction, drag, start speed, gravity, normal-force model and speed window.
+
+    Returns
+    -------
+    Profile
+        One entry per input row (see :class:`Profile`).
+
+    Raises
+    ------
+    ParameterError
+        Fewer than two distinct points, NaN/inf coordinates, a wrong shape, or a mover
+        that is not a :class:`Mover`.
+
+    Notes
+    -----
+    Along the line ``d(v²)/dσ = 2 g drop/s - 2 mu |N| - 2 k v²``.
+
+    ``normal="gravity"``: ``|N| = g plan / s`` per straight segment; the exact
+    closed-form segment law is chained over the segments.
+
+    ``normal="full"``: ``N = v² kappa n - g_perp`` (vector; its magnitude gives the
+    friction), ``g_perp`` gravity's component across the tangent.  Discretisation: at
+    each interior vertex i the turning angle ``phi_i`` between the adjoining segment
+    directions (3D) defines a curvature vector ``kappa_i n_i``, ``|kappa_i| = phi_i /
+    l_i``, ``l_i = (s_{i-1} + s_i) / 2``, ``n_i`` along ``T_i - T_{i-1}``.  The bend is
+    carried by the two half-segments either side of the vertex, so the integral of
+    ``kappa`` over it is exactly ``phi_i``.  On each half-segment the coefficients are
+    constant and ``v²`` obeys an autonomous ODE, integrated by RK4 substeps (about 0.1
+    of stiffness ``(2 mu kappa + 2k) * length`` per substep; the exact segment law where
+    ``kappa = 0``); a substep's time is ``2 h / (v_a + v_b)``.  This is the limit of a
+    smooth interpolant of the vertices: a dense polyline along a curve converges to the
+    continuous answer (second order in the spacing).  **Corners**: a sparse polyline's
+    sharp vertex is a bend of angle ``phi`` spread over the half-segments around it;
+    when the adjoining segments are short (centripetal part dominant) this gives the
+    belt-friction (capstan) law ``v_out = v_in exp(-mu phi)``, its short-bend limit.
+    Refine or round a polyline whose corners are not meant to be tight bends.
+
+    Stalls: the mover stalls where it slows below ``stall_speed`` (or comes to rest).
+    A line that starts at rest (or below the stall speed) on an upslope or a level
+    segment with friction stalls at station 0.  That is a result, not an error:
+    ``stalled_at_m`` is set, ``speed_m_s`` and ``time_s`` are NaN at every vertex after
+    the stall and finite at every vertex before it.
+
+    Examples
+    --------
+    A 30° incline, mu = 0.2, 50 m from rest, in five collinear pieces:
+
+    >>> import numpy as np
+    >>> c, s = np.cos(np.radians(30)), np.sin(np.radians(30))
+    >>> pts = np.outer(np.linspace(0, 50, 6), [c, 0, -s])
+    >>> p = traverse(pts, Mover(mu=0.2))
+    >>> print(f"{p.exit_speed_m_s:.4f} m/s, {p.travel_time_s:.4f} s")
+    17.9019 m/s, 5.5860 s
+    >>> traverse([[0, 0, 0], [10, 0, 1]], Mover(mu=0.1)).stalled_at_m
+    0.0
+    """
+    from ._traverse import traverse_kernel
+
+    _check_mover(mover)
+    try:
+        pts = np.array(points, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise ParameterError("points must be an (N, 3) array of numbers x, y, z in metres") from None
+    if pts.ndim != 2 or pts.shape[1] != 3:
+        raise ParameterError(f"points must have shape (N, 3) (x, y, z in metres), got {pts.shape}")
+    n = pts.shape[0]
+    if n < 2:
+        raise ParameterError(f"points needs at least two vertices, got {n}")
+    bad = ~np.isfinite(pts).all(axis=1)
+    if bad.any():
+        raise ParameterError(f"points row {int(np.flatnonzero(bad)[0])} has a NaN or infinite "
+                             "coordinate; drop or fill it first")
+    seg = np.sqrt((np.diff(pts, axis=0) ** 2).sum(axis=1))
+    keep = np.empty(n, dtype=bool)
+    keep[0] = True
+    keep[1:] = seg > MIN_SEGMENT_M
+    uniq = np.ascontiguousarray(pts[keep])
+    m = uniq.shape[0]
+    if m < 2:
+        raise ParameterError("points has fewer than two distinct vertices; give a line with some length")
+    station = np.empty(m)
+    v2 = np.empty(m)
+    time = np.empty(m)
+    grade = np.empty(m)
+    ratio = np.empty(m)
+    lift = np.empty(m, dtype=np.int8)
+    v2_mid = np.empty(m - 1)
+    stall = traverse_kernel(uniq, mover.g, mover.mu, mover.drag, mover.v0 ** 2, mover.stall_speed ** 2,
+                            mover.normal == "full", station, v2, time, grade, ratio, lift, v2_mid)
+    speed = np.sqrt(v2)
+    liftoff = station[lift.astype(bool)]
+    if mover.max_speed is None:
+        overspeed = np.empty(0)
+    else:
+        vmax2 = mover.max_speed ** 2
+        with np.errstate(invalid="ignore"):
+            over = np.concatenate([station[v2 > vmax2],
+                                   (0.5 * (station[:-1] + station[1:]))[v2_mid > vmax2]])
+        overspeed = np.unique(over)
+    idx = np.cumsum(keep) - 1
+    return Profile(
+        points=_readonly(pts),
+        station_m=_readonly(station[idx]),
+        speed_m_s=_readonly(speed[idx]),
+        time_s=_readonly(time[idx]),
+        grade=_readonly(grade[idx]),
+        normal_ratio=_readonly(ratio[idx]),
+        stalled_at_m=None if stall < 0.0 else float(stall),
+        liftoff=_readonly(liftoff),
+        overspeed=_readonly(overspeed),
+    )
+
+
+# ---------------------------------------------------------------------------
+# local gravity
+
+#: WGS 84 normal-gravity constants (NIMA TR8350.2, 3rd ed., 2000, ch. 3-4).
+_WGS84_A = 6378137.0                 # semi-major axis, m
+_WGS84_F = 1.0 / 298.257223563       # flattening
+_WGS84_M = 0.00344978650684          # m = omega² a² b / GM
+_GAMMA_E = 9.7803253359              # normal gravity at the equator, m/s²
+_SOMIGLIANA_K = 0.00193185265241     # Somigliana constant
+_WGS84_E2 = 0.00669437999013         # first eccentricity squared
+
+
+def normal_gravity(lat_deg: float, height_m: float = 0.0) -> float:
+    """WGS 84 normal gravity (m/s²) at a geodetic latitude and ellipsoidal height.
+
+    Somigliana's closed formula on the ellipsoid (NIMA TR8350.2 eq. 4-1)::
+
+        gamma = gamma_e (1 + k sin² lat) / sqrt(1 - e² sin² lat)
+
+    and the second-order free-air series above it (TR8350.2 eq. 4-3)::
+
+        gamma_h = gamma [1 - (2/a)(1 + f + m - 2 f sin² lat) h + (3/a²) h²]
+
+    meant for heights near the Earth's surface.  The default gravity of a
+    :class:`Mover` stays standard gravity (9.80665 m/s²); pass
+    ``Mover(g=normal_gravity(lat_deg, height_m))`` for local gravity.
+
+    Parameters
+    ----------
+    lat_deg : float
+        Geodetic latitude in degrees, -90 to 90.
+    height_m : float
+        Height above the WGS 84 ellipsoid, m (-20 km to 20 km).
+
+    Examples
+    --------
+    >>> print(f"{normal_gravity(0.0):.9f} {normal_gravity(90.0):.9f}")
+    9.780325336 9.832184938
+    >>> print(f"{normal_gravity(45.0, 1000.0):.6f}")
+    9.803113
+    """
+    _check_number("lat_deg", lat_deg, low=-90.0)
+    if float(lat_deg) > 90.0:
+        raise ParameterError(f"lat_deg must be a latitude between -90 and 90 degrees, got {lat_deg!r}")
+    _check_number("height_m", height_m, low=-20000.0)
+    if float(height_m) > 20000.0:
+        raise ParameterError(f"height_m must be between -20000 and 20000 m (near the surface), got {height_m!r}")
+    s2 = math.sin(math.radians(float(lat_deg))) ** 2
+    gamma = _GAMMA_E * (1.0 + _SOMIGLIANA_K * s2) / math.sqrt(1.0 - _WGS84_E2 * s2)
+    h = float(height_m)
+    a, f = _WGS84_A, _WGS84_F
+    return gamma * (1.0 - (2.0 / a) * (1.0 + f + _WGS84_M - 2.0 * f * s2) * h + 3.0 * h * h / (a * a))
