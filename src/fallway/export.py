@@ -1,0 +1,714 @@
+"""Files a GIS, a CAD package or a spreadsheet opens: GeoJSON, GeoPackage, CSV, JSON.
+
+Every writer here goes through :func:`atomic_path`: the file is written under a
+temporary name in the destination folder and renamed over the final name only when it
+is complete, so a crash never leaves half a file behind.  :class:`OutputSet` does the
+same for a whole folder of results: a run leaves either the complete set or nothing.
+
+The reach raster is written by :meth:`fallway.route.ReachMap.to_geotiff`, not here.
+
+Conventions
+-----------
+- Floats are written with fixed rules (rounded, shortest round-trip repr in JSON; fixed
+  decimals in CSV) and no timestamps, so the same inputs give byte-identical GeoJSON,
+  CSV and JSON files.
+- Non-finite numbers (``inf`` for "no limit", ``NaN`` after a stall) become JSON
+  ``null`` and empty CSV cells, so every file stays valid for strict readers.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import json
+import math
+import os
+import shutil
+import tempfile
+import uuid
+from pathlib import Path
+from typing import Any, Iterator
+
+import numpy as np
+
+from .caution import CAUTION
+from .errors import FallwayIOError, OutputExistsError, ParameterError
+
+__all__ = [
+    "RESULT_FILES",
+    "OutputSet",
+    "atomic_path",
+    "atomic_write",
+    "crs_label",
+    "profile_flags",
+    "summary_document",
+    "to_jsonable",
+    "write_profile_csv",
+    "write_route_geojson",
+    "write_route_gpkg",
+    "write_summary_json",
+]
+
+#: File names a route run writes into its output folder.  :class:`OutputSet` refuses to
+#: write over any of them unless asked to overwrite.
+RESULT_FILES = (
+    "route.geojson",
+    "route.gpkg",
+    "profile.csv",
+    "summary.json",
+    "map.png",
+    "map.svg",
+    "profile.png",
+    "profile.svg",
+    "report.html",
+    "scenario.toml",
+)
+
+#: Decimal places of longitude/latitude in GeoJSON (1e-9 degree is about 0.1 mm).
+GEOJSON_LONLAT_DECIMALS = 9
+#: Decimal places of heights in GeoJSON (millimetres).
+GEOJSON_Z_DECIMALS = 3
+
+_PROFILE_COLUMNS = ("station_m", "x", "y", "z_ground", "z_line", "grade", "speed_m_s",
+                    "time_s", "normal_ratio", "flags")
+
+
+# --------------------------------------------------------------------------- atomic files
+
+def _io_error(action: str, path, err: OSError) -> FallwayIOError:
+    reason = err.strerror or type(err).__name__
+    return FallwayIOError(f"cannot {action} {os.fspath(path)}: {reason}; "
+                          "choose another output folder or fix its permissions")
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
+    """Yield a temporary path beside ``path``; rename it over ``path`` on success.
+
+    The temporary name keeps the suffix of ``path`` (some writers pick their format from
+    it).  On any exception, KeyboardInterrupt included, the temporary file is removed
+    and ``path`` is left as it was.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> with atomic_path(d / "a.txt") as tmp:
+    ...     _ = tmp.write_text("done")
+    >>> (d / "a.txt").read_text(), sorted(p.name for p in d.iterdir())
+    ('done', ['a.txt'])
+    """
+    path = Path(path)
+    folder = path.parent
+    if not folder.is_dir():
+        raise FallwayIOError(f"cannot write {path}: folder {folder} does not exist; create it first")
+    tmp = folder / f".{path.stem}.{uuid.uuid4().hex[:12]}.tmp{path.suffix}"
+    try:
+        yield tmp
+        if not tmp.exists():
+            raise FallwayIOError(f"nothing was written to {path}")
+        os.replace(tmp, path)
+    except OSError as err:
+        _remove_quietly(tmp)
+        if isinstance(err, FallwayIOError):
+            raise
+        raise _io_error("write", path, err) from err
+    except BaseException:
+        _remove_quietly(tmp)
+        raise
+
+
+@contextlib.contextmanager
+def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str = "utf-8",
+                 newline: str | None = "") -> Iterator[Any]:
+    """Open a file for writing that appears under ``path`` only once it is complete.
+
+    Parameters
+    ----------
+    path : path-like
+        Final file name.
+    mode : {"w", "wb"}
+        Text or binary.
+    encoding, newline
+        For text mode; ``newline=""`` writes line ends exactly as given.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "b.txt"
+    >>> with atomic_write(p) as f:
+    ...     _ = f.write("x\\n")
+    >>> p.read_bytes()
+    b'x\\n'
+    """
+    if mode not in ("w", "wb"):
+        raise ParameterError(f"mode must be 'w' or 'wb', got {mode!r}")
+    with atomic_path(path) as tmp:
+        if mode == "wb":
+            f = open(tmp, "wb")
+        else:
+            f = open(tmp, "w", encoding=encoding, newline=newline)
+        with f:
+            yield f
+            f.flush()
+            os.fsync(f.fileno())
+
+
+def _remove_quietly(path: Path) -> None:
+    try:
+        if path.is_dir() and not path.is_symlink():
+            shutil.rmtree(path, ignore_errors=True)
+        else:
+            path.unlink()
+    except FileNotFoundError:
+        pass
+    except OSError:
+        pass
+
+
+class OutputSet:
+    """A folder of results that appears complete or not at all.
+
+    Files are written into a fresh hidden folder inside ``out_dir`` (same filesystem,
+    so the final renames are atomic); on a successful exit each is moved into
+    ``out_dir`` with :func:`os.replace`.  On an exception or KeyboardInterrupt the
+    hidden folder is removed and ``out_dir`` is left exactly as it was (a folder the set
+    created is removed again).  With ``overwrite=True``, result files of an earlier run
+    that this run did not write are removed at commit, so the folder never mixes two
+    runs.
+
+    Parameters
+    ----------
+    out_dir : path-like
+        Destination folder (created if missing).
+    overwrite : bool
+        Replace earlier results; otherwise refuse with :class:`OutputExistsError`.
+    result_names : sequence of str
+        File names that count as results (default :data:`RESULT_FILES`).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp()) / "run"
+    >>> with OutputSet(d) as out:
+    ...     _ = out.path("summary.json").write_text("{}")
+    >>> sorted(p.name for p in d.iterdir())
+    ['summary.json']
+    >>> OutputSet(d).__enter__()  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    fallway.errors.OutputExistsError: ... already holds summary.json; pass --overwrite to replace it or choose another folder
+    """
+
+    def __init__(self, out_dir: str | os.PathLike, overwrite: bool = False,
+                 result_names: tuple[str, ...] | list[str] = RESULT_FILES) -> None:
+        self.out_dir = Path(out_dir)
+        self.overwrite = bool(overwrite)
+        self.result_names = tuple(result_names)
+        self.tmp_dir: Path | None = None
+        self._created_dir = False
+        self._names: list[str] = []
+
+    # -- helpers
+    def existing(self) -> list[str]:
+        """Result file names already present in ``out_dir``."""
+        if not self.out_dir.is_dir():
+            return []
+        return [n for n in self.result_names if (self.out_dir / n).exists()]
+
+    def _refuse(self, names) -> OutputExistsError:
+        names = list(names)
+        what = ", ".join(names)
+        it = "it" if len(names) == 1 else "them"
+        return OutputExistsError(f"{self.out_dir} already holds {what}; pass --overwrite to replace "
+                                 f"{it} or choose another folder")
+
+    def path(self, name: str) -> Path:
+        """Where to write the result file ``name`` during the run (inside the temporary folder)."""
+        if self.tmp_dir is None:
+            raise FallwayIOError("OutputSet.path() is only available inside the 'with' block")
+        if not name or Path(name).name != name or name.startswith("."):
+            raise ParameterError(f"result file name must be a plain file name, got {name!r}")
+        if name not in self._names:
+            self._names.append(name)
+        return self.tmp_dir / name
+
+    # -- context manager
+    def __enter__(self) -> "OutputSet":
+        if self.out_dir.exists() and not self.out_dir.is_dir():
+            raise FallwayIOError(f"cannot write results to {self.out_dir}: it is a file, not a folder; "
+                                 "choose another output folder")
+        if not self.overwrite:
+            present = self.existing()
+            if present:
+                raise self._refuse(present)
+        try:
+            if not self.out_dir.exists():
+                self.out_dir.mkdir(parents=True)
+                self._created_dir = True
+            self.tmp_dir = Path(tempfile.mkdtemp(prefix=".fallway-", dir=self.out_dir))
+        except OSError as err:
+            if self._created_dir:
+                _remove_quietly(self.out_dir)
+                self._created_dir = False
+            raise _io_error("write results to", self.out_dir, err) from err
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> bool:
+        try:
+            if exc_type is None:
+                self._commit()
+        except BaseException:
+            self._abort()
+            raise
+        if exc_type is not None:
+            self._abort()
+        else:
+            _remove_quietly(self.tmp_dir)
+        self.tmp_dir = None
+        return False
+
+    def _abort(self) -> None:
+        if self.tmp_dir is not None:
+            _remove_quietly(self.tmp_dir)
+            self.tmp_dir = None
+        if self._created_dir:
+            with contextlib.suppress(OSError):
+                self.out_dir.rmdir()
+
+    def _commit(self) -> None:
+        assert self.tmp_dir is not None
+        written = [n for n in self._names if (self.tmp_dir / n).exists()]
+        missing = [n for n in self._names if n not in written]
+        if missing:
+            raise FallwayIOError(f"results were not written: {', '.join(missing)}; nothing was changed in {self.out_dir}")
+        if not self.overwrite:
+            clash = [n for n in written if (self.out_dir / n).exists()]
+            if clash:
+                raise self._refuse(clash)
+        try:
+            for n in written:
+                os.replace(self.tmp_dir / n, self.out_dir / n)
+            if self.overwrite:
+                for n in self.result_names:
+                    if n not in written and (self.out_dir / n).is_file():
+                        (self.out_dir / n).unlink()
+        except OSError as err:
+            raise _io_error("move results into", self.out_dir, err) from err
+
+
+# --------------------------------------------------------------------------- small helpers
+
+def to_jsonable(obj: Any) -> Any:
+    """Plain JSON types for summaries: numpy scalars and arrays, tuples, dataclasses.
+
+    Non-finite floats become ``None`` (JSON ``null``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> to_jsonable({"a": np.float64(1.5), "b": (1, float("inf")), "c": np.arange(2)})
+    {'a': 1.5, 'b': [1, None], 'c': [0, 1]}
+    """
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: to_jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, dict):
+        return {str(k): to_jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [to_jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if obj is None or isinstance(obj, str):
+        return obj
+    if isinstance(obj, os.PathLike):
+        return os.fspath(obj)
+    return str(obj)
+
+
+def _pyproj_crs(crs):
+    import pyproj
+
+    if crs is None:
+        raise ParameterError("the terrain has no CRS; assign one to the DEM (e.g. gdal_edit.py -a_srs EPSG:...)")
+    try:
+        return pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError as err:
+        raise ParameterError(f"cannot interpret the CRS {crs!r}: {err}") from err
+
+
+def crs_label(crs) -> str:
+    """``"EPSG:n"`` when the CRS has an EPSG code, otherwise its WKT.
+
+    Examples
+    --------
+    >>> crs_label("EPSG:32633")
+    'EPSG:32633'
+    """
+    c = _pyproj_crs(crs)
+    code = c.to_epsg()
+    if code is not None:
+        return f"EPSG:{code}"
+    return c.to_wkt()
+
+
+def _route_points(route) -> np.ndarray:
+    pts = np.asarray(route.profile.points if route.profile is not None else route.line, dtype=float)
+    if pts.ndim != 2 or pts.shape[1] != 3 or len(pts) < 2:
+        raise ParameterError(f"a route line must be an (N, 3) array with N >= 2, got shape {pts.shape}")
+    return pts
+
+
+def _nearest_vertices(station_m: np.ndarray, stations) -> np.ndarray:
+    stations = np.atleast_1d(np.asarray(stations, dtype=float))
+    stations = stations[np.isfinite(stations)]
+    if stations.size == 0 or station_m.size == 0:
+        return np.zeros(0, dtype=int)
+    idx = np.searchsorted(station_m, stations)
+    idx = np.clip(idx, 1, len(station_m) - 1)
+    left = station_m[idx - 1]
+    right = station_m[idx]
+    return np.where(np.abs(stations - left) <= np.abs(right - stations), idx - 1, idx)
+
+
+def profile_flags(profile, mover=None) -> list[str]:
+    """One flag string per vertex: ``"stall"``, ``"overspeed"``, ``"liftoff"`` joined by ``;``.
+
+    - ``stall``: the vertex that starts the segment where the mover stalls and every
+      vertex after it;
+    - ``overspeed``: the speed exceeds ``mover.max_speed``, or the vertex nearest to a
+      station listed in ``profile.overspeed``;
+    - ``liftoff``: the vertex nearest to a station listed in ``profile.liftoff``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.physics import Profile
+    >>> s = np.array([0.0, 1.0, 2.0, 3.0])
+    >>> p = Profile(np.zeros((4, 3)), s, np.array([0, 1, 2, np.nan]), s, s, s, 2.5,
+    ...             np.array([1.1]), np.array([]))
+    >>> profile_flags(p)
+    ['', 'liftoff', 'stall', 'stall']
+    """
+    station = np.asarray(profile.station_m, dtype=float)
+    n = station.size
+    flags: list[list[str]] = [[] for _ in range(n)]
+    stall = np.zeros(n, dtype=bool)
+    if profile.stalled_at_m is not None:
+        first = max(int(np.searchsorted(station, float(profile.stalled_at_m), side="right")) - 1, 0)
+        stall[first:] = True
+    over = np.zeros(n, dtype=bool)
+    over[_nearest_vertices(station, profile.overspeed)] = True
+    vmax = getattr(mover, "max_speed", None)
+    if vmax is not None:
+        with np.errstate(invalid="ignore"):
+            over |= np.asarray(profile.speed_m_s, dtype=float) > vmax
+    lift = np.zeros(n, dtype=bool)
+    lift[_nearest_vertices(station, profile.liftoff)] = True
+    for i in range(n):
+        if stall[i]:
+            flags[i].append("stall")
+        if over[i]:
+            flags[i].append("overspeed")
+        if lift[i]:
+            flags[i].append("liftoff")
+    return [";".join(f) for f in flags]
+
+
+# --------------------------------------------------------------------------- GeoJSON
+
+def _split_antimeridian(lonlatz: np.ndarray) -> list[np.ndarray]:
+    """Split a lon/lat line where it crosses ±180° (RFC 7946 §3.1.9)."""
+    parts = []
+    current = [lonlatz[0]]
+    for a, b in zip(lonlatz[:-1], lonlatz[1:]):
+        d = b[0] - a[0]
+        if abs(d) > 180.0:
+            # unwrap b next to a, interpolate the crossing of ±180
+            bu = b.copy()
+            bu[0] += -360.0 if d > 0 else 360.0
+            edge = 180.0 if bu[0] > a[0] else -180.0
+            f = (edge - a[0]) / (bu[0] - a[0])
+            cross = a + f * (bu - a)
+            cross[0] = edge
+            current.append(cross)
+            parts.append(np.array(current))
+            other = cross.copy()
+            other[0] = -edge
+            current = [other]
+        current.append(b)
+    parts.append(np.array(current))
+    return parts
+
+
+def _geojson_coords(part: np.ndarray) -> list[list[float]]:
+    out = []
+    for lon, lat, z in part:
+        out.append([round(float(lon), GEOJSON_LONLAT_DECIMALS) + 0.0,
+                    round(float(lat), GEOJSON_LONLAT_DECIMALS) + 0.0,
+                    round(float(z), GEOJSON_Z_DECIMALS) + 0.0])
+    return out
+
+
+def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
+    """Write the route as RFC 7946 GeoJSON: WGS 84 lon/lat, a LineString with z.
+
+    A FeatureCollection with one Feature whose properties are the route summary; no
+    ``crs`` member.  The reprojection is pyproj's (``always_xy``); heights are the
+    DEM's, unchanged (RFC 7946 asks for ellipsoidal heights: a DEM's orthometric
+    heights differ by the geoid undulation; the ``height_reference`` property says
+    so).  A line crossing the antimeridian becomes a MultiLineString (RFC 7946 §3.1.9).
+
+    Parameters
+    ----------
+    route : Route
+        The route; its ``profile.points`` (= ``line``) are written.
+    path : path-like
+        Destination file.
+    crs
+        CRS of the route coordinates (rasterio or pyproj CRS, ``"EPSG:n"``, WKT).
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    import pyproj
+
+    pts = _route_points(route)
+    if not np.all(np.isfinite(pts)):
+        raise ParameterError("the route line has non-finite coordinates; it cannot be exported")
+    src = _pyproj_crs(crs)
+    tr = pyproj.Transformer.from_crs(src, pyproj.CRS.from_epsg(4326), always_xy=True)
+    lon, lat = tr.transform(pts[:, 0], pts[:, 1], errcheck=True)
+    lonlatz = np.column_stack([lon, lat, pts[:, 2]])
+    if not np.all(np.isfinite(lonlatz)):
+        raise ParameterError("the route could not be reprojected to WGS 84; check the terrain CRS")
+    parts = _split_antimeridian(lonlatz)
+    if len(parts) == 1:
+        geometry = {"type": "LineString", "coordinates": _geojson_coords(parts[0])}
+    else:
+        geometry = {"type": "MultiLineString", "coordinates": [_geojson_coords(p) for p in parts]}
+    props = to_jsonable(dict(route.summary))
+    props.setdefault("height_reference", "heights as in the DEM (not converted to WGS 84 ellipsoidal heights)")
+    all_coords = np.concatenate(parts)
+    bbox = [round(float(all_coords[:, 0].min()), GEOJSON_LONLAT_DECIMALS),
+            round(float(all_coords[:, 1].min()), GEOJSON_LONLAT_DECIMALS),
+            round(float(all_coords[:, 2].min()), GEOJSON_Z_DECIMALS),
+            round(float(all_coords[:, 0].max()), GEOJSON_LONLAT_DECIMALS),
+            round(float(all_coords[:, 1].max()), GEOJSON_LONLAT_DECIMALS),
+            round(float(all_coords[:, 2].max()), GEOJSON_Z_DECIMALS)]
+    if len(parts) > 1:
+        bbox = None  # a bbox across the antimeridian needs west > east; leave it out
+    doc = {"type": "FeatureCollection",
+           "features": [{"type": "Feature", "properties": props, "geometry": geometry}]}
+    if bbox is not None:
+        doc["bbox"] = bbox
+    text = json.dumps(doc, sort_keys=True, indent=1, allow_nan=False, ensure_ascii=False)
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write(text + "\n")
+    return path
+
+
+# --------------------------------------------------------------------------- GeoPackage
+
+def _flatten(d: dict, prefix: str = "") -> dict:
+    out = {}
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.update(_flatten(v, key + "_"))
+        else:
+            out[key] = v
+    return out
+
+
+def _field_arrays(values: dict) -> tuple[list[str], list[np.ndarray]]:
+    names, arrays = [], []
+    for k, v in values.items():
+        v = to_jsonable(v)
+        if isinstance(v, bool):
+            arr = np.array([v], dtype=bool)
+        elif isinstance(v, int):
+            arr = np.array([v], dtype=np.int64)
+        elif isinstance(v, float) or v is None:
+            arr = np.array([np.nan if v is None else v], dtype=np.float64)
+        elif isinstance(v, str):
+            arr = np.array([v], dtype=object)
+        else:
+            arr = np.array([json.dumps(v, sort_keys=True)], dtype=object)
+        names.append(k)
+        arrays.append(arr)
+    return names, arrays
+
+
+def _line_numbers(points: np.ndarray, profile=None) -> dict:
+    d = np.diff(points, axis=0)
+    plan = np.hypot(d[:, 0], d[:, 1])
+    out = {"length_m": float(np.sum(np.sqrt(plan ** 2 + d[:, 2] ** 2))),
+           "plan_length_m": float(np.sum(plan)),
+           "drop_m": float(points[0, 2] - points[-1, 2]),
+           "n_vertices": int(len(points))}
+    if profile is not None:
+        out["travel_time_s"] = float(profile.travel_time_s)
+        out["exit_speed_m_s"] = float(profile.exit_speed_m_s)
+    return out
+
+
+def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
+    """Write the route as a GeoPackage in the terrain CRS, with two LineString Z layers.
+
+    Layers: ``line`` (the reported line; fields = the route summary, nested entries
+    flattened with ``_``, lists as JSON text) and ``lattice`` (the lattice line;
+    fields time_s, length_m, plan_length_m, drop_m, n_vertices, travel_time_s,
+    exit_speed_m_s).
+
+    Parameters
+    ----------
+    route : Route
+    path : path-like
+    crs
+        CRS of the route coordinates (written to the layers as WKT).
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    import pyogrio.raw
+    import shapely
+
+    pts = _route_points(route)
+    wkt = _pyproj_crs(crs).to_wkt()
+    line_wkb = np.array([shapely.to_wkb(shapely.linestrings(pts), output_dimension=3)], dtype=object)
+    fields_line = _flatten(to_jsonable(dict(route.summary)))
+    fields_line.update({f"line_{k}": v for k, v in _line_numbers(pts, route.profile).items()})
+    names1, arrays1 = _field_arrays(fields_line)
+    lat_pts = np.asarray(route.lattice.points, dtype=float)
+    lat_wkb = np.array([shapely.to_wkb(shapely.linestrings(lat_pts), output_dimension=3)], dtype=object)
+    fields_lat = {"time_s": float(route.lattice.time_s)}
+    fields_lat.update(_line_numbers(lat_pts, route.lattice.profile))
+    names2, arrays2 = _field_arrays(fields_lat)
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        try:
+            pyogrio.raw.write(tmp, line_wkb, arrays1, names1, layer="line", driver="GPKG",
+                              geometry_type="LineString Z", crs=wkt)
+            pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
+                              geometry_type="LineString Z", crs=wkt, append=True)
+        except OSError:
+            raise
+        except Exception as err:  # pyogrio's DataSourceError / FieldError
+            raise FallwayIOError(f"cannot write {path}: {err}") from err
+    return path
+
+
+# --------------------------------------------------------------------------- CSV
+
+def _fmt(v: float, decimals: int) -> str:
+    v = float(v)
+    if not math.isfinite(v):
+        return ""
+    s = f"{v:.{decimals}f}"
+    if s.startswith("-") and float(s) == 0.0:
+        s = s[1:]
+    return s
+
+
+def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
+    """Write the long-section table: one row per vertex of the reported line.
+
+    Columns: ``station_m, x, y, z_ground, z_line, grade, speed_m_s, time_s,
+    normal_ratio, flags``.  Fixed decimals (6 for lengths, speeds, times and ratios);
+    empty cells for values that do not exist (speed and time after a stall, ground
+    outside the DEM); ``flags`` from :func:`profile_flags`.
+
+    Parameters
+    ----------
+    route : Route
+    terrain : Terrain
+        Gives ``z_ground`` (bilinear, the lattice's own interpolation).
+    path : path-like
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    p = route.profile
+    pts = _route_points(route)
+    z_ground = np.atleast_1d(terrain.sample_linear(pts[:, 0], pts[:, 1]))
+    flags = profile_flags(p, route.mover)
+    cols = [np.asarray(p.station_m, float), pts[:, 0], pts[:, 1], z_ground, pts[:, 2],
+            np.asarray(p.grade, float), np.asarray(p.speed_m_s, float), np.asarray(p.time_s, float),
+            np.asarray(p.normal_ratio, float)]
+    n = len(pts)
+    if any(len(c) != n for c in cols) or len(flags) != n:
+        raise ParameterError("the route profile and its line have different vertex counts")
+    lines = [",".join(_PROFILE_COLUMNS)]
+    for i in range(n):
+        row = [_fmt(c[i], 6) for c in cols]
+        row.append(flags[i])
+        lines.append(",".join(row))
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write("\n".join(lines) + "\n")
+    return path
+
+
+# --------------------------------------------------------------------------- summary JSON
+
+def write_summary_json(route, path: str | os.PathLike, extra: dict | None = None, *,
+                       crs=None) -> Path:
+    """Write the route's numbers, its parameters and the caution as sorted, stable JSON.
+
+    Top-level keys: every entry of ``route.summary``; ``mover`` and ``limits``
+    (``dataclasses.asdict``); ``start`` and ``end`` ([x, y, z] of the first and last
+    vertex, map coordinates); ``crs`` (``"EPSG:n"`` or WKT, when given); ``caution``
+    (:data:`fallway.caution.CAUTION`); then ``extra`` (e.g. the scenario, search
+    statistics), which wins on equal keys.  ``inf`` and ``NaN`` are written as
+    ``null`` (a limit of ``null`` means no limit).  Same inputs, same bytes.
+
+    Parameters
+    ----------
+    route : Route
+    path : path-like
+    extra : dict, optional
+        More JSON-ready entries.
+    crs : optional
+        CRS of the map coordinates.
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    doc = summary_document(route, extra, crs=crs)
+    text = json.dumps(doc, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False)
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write(text + "\n")
+    return path
+
+
+def summary_document(route, extra: dict | None = None, *, crs=None) -> dict:
+    """The JSON-ready dictionary :func:`write_summary_json` writes."""
+    pts = _route_points(route)
+    doc: dict[str, Any] = dict(to_jsonable(dict(route.summary)))
+    doc["mover"] = to_jsonable(dataclasses.asdict(route.mover))
+    doc["limits"] = to_jsonable(dataclasses.asdict(route.limits))
+    doc["start"] = to_jsonable(pts[0])
+    doc["end"] = to_jsonable(pts[-1])
+    if crs is not None:
+        doc["crs"] = crs_label(crs)
+    doc["caution"] = CAUTION
+    if extra:
+        doc.update(to_jsonable(dict(extra)))
+    return doc
