@@ -1,16 +1,16 @@
-"""Constraints on a line: grade window, turn and bend limits, no-go areas.
-
-(Parameter types; keep-out reading and rasterising are filled in by the lattice work.)
-"""
+"""Constraints on a line: grade window, turn and bend limits, no-go areas."""
 
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 
-from .errors import ParameterError
+import numpy as np
 
-__all__ = ["Limits"]
+from .errors import FallwayIOError, ParameterError
+
+__all__ = ["Limits", "Keepout"]
 
 
 @dataclass(frozen=True)
@@ -67,3 +67,153 @@ class Limits:
             if not (math.isfinite(v) and v > 0.0):
                 raise ParameterError(f"min_radius_m must be a finite number > 0, got {self.min_radius_m!r}")
             object.__setattr__(self, "min_radius_m", v)
+
+
+_POLYGONAL = ("Polygon", "MultiPolygon")
+
+
+def _to_pyproj(crs):
+    import pyproj
+
+    if crs is None:
+        return None
+    if isinstance(crs, pyproj.CRS):
+        return crs
+    try:
+        return pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError:
+        if hasattr(crs, "to_wkt"):
+            return pyproj.CRS.from_wkt(crs.to_wkt())
+        raise ParameterError(f"cannot read the CRS {crs!r}; give an EPSG code or WKT") from None
+
+
+@dataclass(frozen=True, eq=False)
+class Keepout:
+    """No-go areas: polygons the line must not enter.
+
+    Parameters
+    ----------
+    geometry : shapely Polygon or MultiPolygon
+        The areas (invalid rings are repaired with ``shapely.make_valid``).
+    crs : pyproj.CRS, rasterio CRS, EPSG code or WKT, or None
+        CRS of the coordinates; None means "the terrain's CRS".
+
+    Notes
+    -----
+    On the lattice a cell is blocked when the polygons *touch* it at all
+    (``rasterio.features.rasterize`` with ``all_touched=True``): a keep-out is never
+    entered by a cell centre nor cut across by a lattice edge, at the price of blocking up
+    to one cell beyond its boundary.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> k = Keepout(shapely.box(0, 0, 10, 10), None)
+    >>> k.signed_distance([5.0, 15.0], [5.0, 5.0]).tolist()
+    [-5.0, 5.0]
+    """
+
+    geometry: object
+    crs: object = None
+
+    def __post_init__(self) -> None:
+        import shapely
+
+        g = self.geometry
+        if not isinstance(g, shapely.Geometry):
+            raise ParameterError(f"keep-out geometry must be a shapely geometry, got {type(g).__name__}")
+        if g.geom_type == "GeometryCollection":
+            parts = [p for p in shapely.get_parts(g)]
+            bad = sorted({p.geom_type for p in parts if p.geom_type not in _POLYGONAL})
+            if bad:
+                raise ParameterError(f"keep-out areas must be polygons, got {', '.join(bad)}; buffer lines or points first")
+            g = shapely.union_all(parts)
+        if g.geom_type not in _POLYGONAL:
+            raise ParameterError(f"keep-out areas must be polygons, got {g.geom_type}; buffer lines or points first")
+        if g.is_empty:
+            raise ParameterError("keep-out geometry is empty; give at least one polygon")
+        if not g.is_valid:
+            g = shapely.make_valid(g)
+            polys = [p for p in shapely.get_parts(g) if p.geom_type in _POLYGONAL]
+            g = shapely.union_all(polys)
+        object.__setattr__(self, "geometry", g)
+        object.__setattr__(self, "crs", _to_pyproj(self.crs))
+
+    @classmethod
+    def from_file(cls, path, layer=None) -> "Keepout":
+        """Read polygons from a GeoJSON or GeoPackage file (all features, unioned).
+
+        GeoJSON without a CRS is lon/lat (RFC 7946: WGS 84, EPSG:4326).
+
+        Raises
+        ------
+        FallwayIOError
+            The file is missing or unreadable.
+        ParameterError
+            It holds no features or non-polygon geometry.
+        """
+        import pyogrio
+        import shapely
+
+        p = os.fspath(path)
+        if not os.path.exists(p):
+            raise FallwayIOError(f"keep-out file not found: {p}")
+        try:
+            meta, _, geoms, _ = pyogrio.raw.read(p, layer=layer, read_geometry=True, columns=[])
+        except Exception as err:  # pyogrio raises several DataSource/Layer error types
+            raise FallwayIOError(f"cannot read keep-out file {p}: {err}; give a GeoJSON or GeoPackage of polygons") from err
+        if geoms is None or len(geoms) == 0:
+            raise ParameterError(f"keep-out file {p} holds no features; add at least one polygon")
+        shapes = shapely.from_wkb(geoms)
+        shapes = shapes[~shapely.is_missing(shapes)]
+        if len(shapes) == 0:
+            raise ParameterError(f"keep-out file {p} holds no geometry; add at least one polygon")
+        kinds = sorted({s.geom_type for s in shapes if s.geom_type not in _POLYGONAL})
+        if kinds:
+            raise ParameterError(f"keep-out file {p} holds {', '.join(kinds)}; only polygons can be keep-out areas")
+        crs = meta.get("crs")
+        if crs is None and p.lower().endswith((".geojson", ".json")):
+            crs = "EPSG:4326"
+        # drop a third coordinate: keep-out areas are plan polygons
+        shapes = shapely.force_2d(shapes)
+        return cls(shapely.union_all(shapes), crs)
+
+    def in_crs(self, crs) -> "Keepout":
+        """The same areas in another CRS (no-op when either CRS is None or both agree)."""
+        import pyproj
+        import shapely
+
+        target = _to_pyproj(crs)
+        if target is None or self.crs is None or target == self.crs:
+            return self if target is None or self.crs is None else Keepout(self.geometry, target)
+        tr = pyproj.Transformer.from_crs(self.crs, target, always_xy=True)
+
+        def fn(xy):
+            x, y = tr.transform(xy[:, 0], xy[:, 1])
+            return np.column_stack([x, y])
+
+        # densify first so that long lon/lat edges follow their true shape once projected
+        g = self.geometry
+        if self.crs.is_geographic:
+            g = shapely.segmentize(g, 0.0005)
+        return Keepout(shapely.transform(g, fn), target)
+
+    def mask(self, terrain) -> np.ndarray:
+        """Bool array of the terrain's shape, True on every cell the areas touch."""
+        from rasterio import features
+
+        k = self.in_crs(terrain.crs) if terrain.crs is not None else self
+        out = features.rasterize([(k.geometry, 1)], out_shape=terrain.shape, transform=terrain.transform,
+                                 fill=0, all_touched=True, dtype="uint8")
+        return out.astype(bool)
+
+    def signed_distance(self, x, y) -> np.ndarray:
+        """Distance from points to the area boundary: positive outside, negative inside."""
+        import shapely
+
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        pts = shapely.points(x, y)
+        d = shapely.distance(self.geometry.boundary, pts)
+        inside = shapely.contains_xy(self.geometry, x, y)
+        return np.where(inside, -d, d)

@@ -1,15 +1,21 @@
-"""Result types: a lattice line, a route and a reach map."""
+"""Result types (a lattice line, a route, a reach map) and :func:`find_route`."""
 
 from __future__ import annotations
 
+import math
+import os
+import tempfile
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from .physics import Mover, Profile
+from .errors import FallwayIOError, ParameterError
+from .physics import Mover, Profile, traverse
 from .limits import Limits
 
-__all__ = ["LatticeLine", "Route", "ReachMap"]
+__all__ = ["LatticeLine", "Route", "ReachMap", "find_route"]
+
+_LINE_KINDS = ("ground", "raised")
 
 
 @dataclass(frozen=True, eq=False)
@@ -27,12 +33,15 @@ class LatticeLine:
         Motion along ``points`` with the gravity-normal model the search uses.
     time_s : float
         Travel time found by the search.
+    stats : dict
+        Search statistics (labels created/settled/dominated, rejections, seconds).
     """
 
     cells: np.ndarray
     points: np.ndarray
     profile: Profile
     time_s: float
+    stats: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True, eq=False)
@@ -90,3 +99,173 @@ class ReachMap:
     crs: object
     start: tuple
     stats: dict
+
+    def to_geotiff(self, path) -> None:
+        """Write a two-band float32 GeoTIFF: band 1 arrival time (s), band 2 speed (m/s).
+
+        NaN is the nodata value (unreachable cells).  The file is written under a
+        temporary name in the same folder and renamed when complete.
+
+        Examples
+        --------
+        >>> import numpy as np, tempfile, os, rasterio
+        >>> from affine import Affine
+        >>> rm = ReachMap(np.array([[0.0, 1.0]]), np.array([[0.0, np.nan]]), Affine(1, 0, 0, 0, -1, 1),
+        ...               None, (0.5, 0.5), {})
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     rm.to_geotiff(os.path.join(d, "reach.tif"))
+        ...     with rasterio.open(os.path.join(d, "reach.tif")) as src:
+        ...         print(src.count, src.dtypes[0], src.descriptions)
+        2 float32 ('arrival_time_s', 'arrival_speed_m_s')
+        """
+        import rasterio
+
+        path = os.fspath(path)
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise FallwayIOError(f"output folder {folder} does not exist; create it first")
+        rows, cols = np.shape(self.time_s)
+        fd, tmp = tempfile.mkstemp(prefix=".reach-", suffix=".tif", dir=folder)
+        os.close(fd)
+        try:
+            profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
+                           transform=self.transform, nodata=float("nan"), compress="deflate",
+                           tiled=rows >= 256 and cols >= 256)
+            if self.crs is not None:
+                profile["crs"] = self.crs
+            with rasterio.open(tmp, "w", **profile) as dst:
+                dst.write(np.asarray(self.time_s, dtype=np.float32), 1)
+                dst.write(np.asarray(self.speed_m_s, dtype=np.float32), 2)
+                dst.set_band_description(1, "arrival_time_s")
+                dst.set_band_description(2, "arrival_speed_m_s")
+                dst.update_tags(start_x=str(self.start[0]), start_y=str(self.start[1]))
+            os.replace(tmp, path)
+        except BaseException:
+            if os.path.exists(tmp):
+                os.remove(tmp)
+            raise
+
+
+def _min_radius(points: np.ndarray) -> float:
+    """Smallest circumradius of three consecutive plan vertices (inf when straight)."""
+    xy = np.asarray(points, dtype=float)[:, :2]
+    if len(xy) > 1:
+        keep = np.concatenate([[True], np.hypot(*np.diff(xy, axis=0).T) > 1e-9])
+        xy = xy[keep]
+    if len(xy) < 3:
+        return math.inf
+    a = np.hypot(*(xy[1:-1] - xy[:-2]).T)
+    b = np.hypot(*(xy[2:] - xy[1:-1]).T)
+    c = np.hypot(*(xy[2:] - xy[:-2]).T)
+    cross = np.abs((xy[1:-1, 0] - xy[:-2, 0]) * (xy[2:, 1] - xy[:-2, 1])
+                   - (xy[1:-1, 1] - xy[:-2, 1]) * (xy[2:, 0] - xy[:-2, 0]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = a * b * c / (2.0 * cross)
+    r = r[cross > 1e-12 * np.maximum(a * b, 1e-300)]
+    return float(r.min()) if len(r) else math.inf
+
+
+def _num(v) -> float | None:
+    v = float(v)
+    return None if math.isnan(v) else v
+
+
+def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
+               keepout=None, line: str = "ground", refine: bool = True, heuristic: bool = True,
+               energy_tol: float | None = None, max_labels: int | None = None, **refine_options) -> Route:
+    """The minimum-time line from ``start`` to ``end``: lattice search, then refinement.
+
+    Parameters
+    ----------
+    terrain : Terrain
+    start, end : (x, y)
+        Map coordinates in the terrain CRS; each snaps to the nearest cell centre.
+    mover : Mover
+    via : sequence of (x, y)
+        Points to pass through in order (energy carried through them).
+    neighbours : {8, 16, 32}
+        Lattice stencil.
+    limits : Limits, optional
+    keepout : Keepout or bool mask, optional
+    line : {"ground", "raised"}
+        Passed to the refinement.
+    refine : bool
+        Refine the lattice line when the refinement module is available; otherwise (or
+        False) the route is the lattice line and ``summary["refined"]`` is False.
+    heuristic, energy_tol, max_labels
+        Search options (see :func:`fallway.lattice.search.lattice_line`).
+    **refine_options
+        Passed to ``fallway.refine.refine_line`` (e.g. ``clearance``, ``start_height``).
+
+    Returns
+    -------
+    Route
+        ``profile`` is :func:`fallway.physics.traverse` of ``line`` with ``mover`` (the
+        full normal-force model when asked); ``lattice`` the lattice answer on its own.
+
+    Raises
+    ------
+    NoFeasibleLine
+        No lattice line satisfies the physics and limits (``reason``, ``closest``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.terrain import Terrain
+    >>> z = -0.5 * np.add.outer(np.arange(6.0), np.arange(6.0))
+    >>> t = Terrain.from_array(z, (1.0, 0, 0, 0, -1.0, 6.0))
+    >>> r = find_route(t, (0.5, 5.5), (5.5, 0.5), Mover(mu=0.1, normal="gravity"), refine=False)
+    >>> print(f"{r.summary['lattice_time_s']:.4f} {r.summary['drop_m']:.1f}")
+    1.8876 5.0
+    """
+    from .caution import CAUTION
+    from .lattice.search import lattice_line
+
+    if line not in _LINE_KINDS:
+        raise ParameterError(f"line must be one of {', '.join(_LINE_KINDS)}; got {line!r}")
+    limits = Limits() if limits is None else limits
+    lat = lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits, keepout=keepout,
+                       heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)
+    final = lat.points
+    refined = False
+    extra: dict = {}
+    if refine:
+        try:
+            from .refine import refine_line
+        except ImportError:
+            refine_line = None
+        if refine_line is not None:
+            rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=keepout, line=line, **refine_options)
+            final = np.asarray(rr.line, dtype=float)
+            refined = True
+            extra = {"refine_iterations": int(rr.iterations), "refine_residual": _num(rr.residual),
+                     "refine_converged": bool(rr.converged), "refine_time_before_s": _num(rr.time_before_s),
+                     "refine_time_after_s": _num(rr.time_after_s), "refine_message": str(rr.message)}
+    profile = traverse(final, mover)
+    d = np.diff(final, axis=0)
+    plan = np.hypot(d[:, 0], d[:, 1])
+    st = lat.stats
+    summary = {
+        "travel_time_s": _num(profile.travel_time_s),
+        "lattice_time_s": float(lat.time_s),
+        "feasible": bool(profile.feasible),
+        "length_m": float(np.sqrt(plan ** 2 + d[:, 2] ** 2).sum()),
+        "plan_length_m": float(plan.sum()),
+        "drop_m": float(final[0, 2] - final[-1, 2]),
+        "exit_speed_m_s": _num(profile.exit_speed_m_s),
+        "max_speed_m_s": _num(np.nanmax(profile.speed_m_s)),
+        "min_radius_m": _min_radius(final),
+        "max_grade": _num(np.nanmax(profile.grade)),
+        "labels_created": int(st.get("labels_created", 0)),
+        "labels_settled": int(st.get("labels_settled", 0)),
+        "search_s": float(st.get("search_s", 0.0)),
+        "neighbours": int(neighbours),
+        "start": [float(v) for v in lat.points[0, :2]],
+        "end": [float(v) for v in lat.points[-1, :2]],
+        "via": [[float(a), float(b)] for a, b in via],
+        "refined": refined,
+        "line": line,
+        "caution": CAUTION,
+    }
+    summary.update(extra)
+    return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=limits)

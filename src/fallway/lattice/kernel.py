@@ -1,0 +1,426 @@
+"""The label-setting search on the terrain lattice (numba; flat arrays, status codes).
+
+One kernel serves the reach map (no target), point-to-point queries and chains of via
+points.  Nothing here raises or allocates Python objects per edge; the Python front
+(:mod:`fallway.lattice.search`) validates the inputs and translates the status.
+
+Labels
+------
+A label is (t, v², node, parent, leg, heading): arrival time, squared speed, the flat cell
+index, the label it was extended from, the index of the via-leg it belongs to and the
+stencil offset of the step that led to it (-1 at the start; used only with a turn
+limit).  Labels live in a pool of parallel arrays that doubles when full.  Each
+(leg, node) keeps a linked list (through ``nxt``) of its non-dominated labels.
+
+Dominance: label 1 dominates label 2 at the same (leg, node [, heading]) when
+``t1 <= t2`` and ``v2_1 >= v2_2 - tol``.  It is sound because on every segment the exit
+speed rises and the time falls with the entry speed (gravity, Coulomb friction and drag
+losses are monotone), so whatever label 2 can still do, label 1 does no later.  ``tol``
+(the *declared* energy tolerance, in m²/s²) stops floating-point noise alone from keeping
+twin labels; it may drop a label that is better by less than ``tol`` in v², which changes
+the answer by a relative amount of order ``tol / v²`` per step (see the front for the
+default).  With ``max_speed`` set dominance is no longer exact in principle (more speed
+can overspeed later where less would not); overspeeding labels are pruned.
+
+A* bound
+--------
+Mechanical energy never grows along a line (friction and drag only remove it), so at any
+point ``v² <= v0² + 2 g (z_start - z)`` <= ``V² = v0² + 2 g (z_start - z_min)``, and never
+more than ``max_speed²`` when that is set.  Any line from node n to the target is at
+least the straight 3D distance ``D(n)`` long, so its time is at least ``h(n) = D(n) / V``:
+admissible.  Along an edge n->m of 3D length ``s`` (>= |D(n) - D(m)| by the triangle
+inequality) the time is at least ``s / V``, so ``h(n) <= c(n, m) + h(m)``: consistent.
+The keys ``t + h`` therefore never fall along a line, labels settle in key order, and
+the first label settled at the target is optimal (dominance only removes labels whose
+every continuation is matched by the dominating label).  For via legs ``D`` adds the
+straight distances of the remaining legs, which keeps both properties (at the switch
+from leg i to i+1 at via point i the bound is unchanged).
+
+Via points: a leg-i label settled at via point i is copied into leg i+1 (same t, v²,
+heading), so the whole Pareto set of arrivals at a via point seeds the next leg, not just
+the fastest one.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .._segment import segment_law
+
+# status codes
+OK = 0
+NOT_REACHED = 1
+LABEL_BUDGET = 2
+
+# counters (index into the returned int64 array)
+C_CREATED = 0
+C_SETTLED = 1
+C_DOMINATED = 2
+C_GRID = 3
+C_BLOCKED = 4
+C_GRADE = 5
+C_STALL = 6
+C_SPEED = 7
+C_TURN = 8
+C_UPHILL = 9
+N_COUNTERS = 10
+
+
+@njit(cache=True, nogil=True)
+def _heap_push(hkey, hidx, size, key, idx):
+    i = size
+    while i > 0:
+        p = (i - 1) >> 1
+        if hkey[p] <= key:
+            break
+        hkey[i] = hkey[p]
+        hidx[i] = hidx[p]
+        i = p
+    hkey[i] = key
+    hidx[i] = idx
+    return size + 1
+
+
+@njit(cache=True, nogil=True)
+def _heap_pop(hkey, hidx, size):
+    top = hidx[0]
+    size -= 1
+    if size > 0:
+        key = hkey[size]
+        idx = hidx[size]
+        i = 0
+        while True:
+            c = 2 * i + 1
+            if c >= size:
+                break
+            if c + 1 < size and hkey[c + 1] < hkey[c]:
+                c += 1
+            if hkey[c] >= key:
+                break
+            hkey[i] = hkey[c]
+            hidx[i] = hidx[c]
+            i = c
+        hkey[i] = key
+        hidx[i] = idx
+    return top, size
+
+
+@njit(cache=True, nogil=True)
+def _grow_f8(a, n):
+    b = np.empty(n, dtype=a.dtype)
+    b[: a.shape[0]] = a
+    return b
+
+
+@njit(cache=True, nogil=True)
+def _grow_i4(a, n):
+    b = np.empty(n, dtype=a.dtype)
+    b[: a.shape[0]] = a
+    return b
+
+
+@njit(cache=True, nogil=True)
+def _grow_i1(a, n):
+    b = np.empty(n, dtype=a.dtype)
+    b[: a.shape[0]] = a
+    return b
+
+
+@njit(cache=True, nogil=True)
+def _heuristic(node, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v):
+    if inv_v == 0.0:
+        return 0.0
+    r = node // cols
+    c = node - r * cols
+    dx = (c - tgt_c[leg]) * cell
+    dy = (r - tgt_r[leg]) * cell
+    dz = z[node] - tgt_z[leg]
+    return (math.sqrt(dx * dx + dy * dy + dz * dz) + remaining[leg]) * inv_v
+
+
+@njit(cache=True, nogil=True)
+def search(z, blocked, rows, cols, cell,
+           off_dr, off_dc, off_plan,
+           brk_start, brk_u, brk_fa, brk_fb, brk_w,
+           tch_start, tch_flat,
+           turn_ok, use_heading,
+           g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
+           start, v2_start, targets, remaining, inv_v,
+           tol, max_labels, init_cap):
+    """Run the label-setting search.
+
+    ``targets`` empty: reach mode (every cell, no heuristic).  Otherwise the legs end at
+    ``targets[i]`` (flat indices) and the search stops at the first label settled at the
+    last target.  ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the
+    edge's start cell (valid because every referenced cell lies inside the edge's
+    bounding box, which is inside the grid when both ends are).
+
+    Returns
+    -------
+    status, final_label, n_labels, t, v2, node, parent, leg, best_t, best_v2,
+    closest_node, counters
+    """
+    ncell = rows * cols
+    nk = off_dr.shape[0]
+    nlegs = targets.shape[0]
+    reach_mode = nlegs == 0
+    nstate = ncell if reach_mode else ncell * nlegs
+    counters = np.zeros(N_COUNTERS, dtype=np.int64)
+
+    tgt_r = np.empty(max(nlegs, 1), dtype=np.int64)
+    tgt_c = np.empty(max(nlegs, 1), dtype=np.int64)
+    tgt_z = np.empty(max(nlegs, 1), dtype=np.float64)
+    for i in range(nlegs):
+        tgt_r[i] = targets[i] // cols
+        tgt_c[i] = targets[i] - tgt_r[i] * cols
+        tgt_z[i] = z[targets[i]]
+
+    cap = init_cap
+    Lt = np.empty(cap, dtype=np.float64)
+    Lv2 = np.empty(cap, dtype=np.float64)
+    Lnode = np.empty(cap, dtype=np.int32)
+    Lpar = np.empty(cap, dtype=np.int32)
+    Lnext = np.empty(cap, dtype=np.int32)
+    Lleg = np.empty(cap, dtype=np.int8)
+    Lhd = np.empty(cap, dtype=np.int8)
+    Lstate = np.empty(cap, dtype=np.int8)  # 0 open, 1 settled, 2 dead
+    hcap = init_cap
+    hkey = np.empty(hcap, dtype=np.float64)
+    hidx = np.empty(hcap, dtype=np.int32)
+    hsize = 0
+    head = np.full(nstate, -1, dtype=np.int32)
+    if reach_mode:
+        best_t = np.full(ncell, np.nan)
+        best_v2 = np.full(ncell, np.nan)
+    else:
+        best_t = np.full(1, np.nan)
+        best_v2 = np.full(1, np.nan)
+
+    # start label
+    Lt[0] = 0.0
+    Lv2[0] = v2_start
+    Lnode[0] = start
+    Lpar[0] = -1
+    Lnext[0] = -1
+    Lleg[0] = 0
+    Lhd[0] = -1
+    Lstate[0] = 0
+    head[start] = 0
+    n_lab = 1
+    counters[C_CREATED] = 1
+    key0 = 0.0
+    if not reach_mode:
+        key0 = _heuristic(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+    hsize = _heap_push(hkey, hidx, hsize, key0, 0)
+
+    status = NOT_REACHED
+    final = -1
+    closest = start
+    closest_leg = 0
+    closest_d = math.inf
+
+    while hsize > 0:
+        li, hsize = _heap_pop(hkey, hidx, hsize)
+        if Lstate[li] == 2:
+            continue
+        Lstate[li] = 1
+        counters[C_SETTLED] += 1
+        n = Lnode[li]
+        leg = Lleg[li]
+        t0 = Lt[li]
+        v20 = Lv2[li]
+        hd = Lhd[li]
+        r = n // cols
+        c = n - r * cols
+
+        if reach_mode:
+            if math.isnan(best_t[n]):
+                best_t[n] = t0
+                best_v2[n] = v20
+        else:
+            dr_ = r - tgt_r[leg]
+            dc_ = c - tgt_c[leg]
+            dd = math.sqrt(dr_ * dr_ + dc_ * dc_)
+            if leg > closest_leg or (leg == closest_leg and dd < closest_d):
+                closest_leg = leg
+                closest_d = dd
+                closest = n
+            if n == targets[leg]:
+                if leg == nlegs - 1:
+                    status = OK
+                    final = li
+                    break
+                # switch legs: seed the next leg with this arrival (the whole Pareto
+                # set at the via point passes through here, one label at a time)
+                nleg = leg + 1
+                s = nleg * ncell + n
+                dominated = False
+                p = head[s]
+                while p >= 0:
+                    if (not use_heading or Lhd[p] == hd) and Lt[p] <= t0 and Lv2[p] >= v20 - tol:
+                        dominated = True
+                        break
+                    p = Lnext[p]
+                if dominated:
+                    counters[C_DOMINATED] += 1
+                    continue
+                if n_lab >= cap:
+                    cap *= 2
+                    Lt = _grow_f8(Lt, cap)
+                    Lv2 = _grow_f8(Lv2, cap)
+                    Lnode = _grow_i4(Lnode, cap)
+                    Lpar = _grow_i4(Lpar, cap)
+                    Lnext = _grow_i4(Lnext, cap)
+                    Lleg = _grow_i1(Lleg, cap)
+                    Lhd = _grow_i1(Lhd, cap)
+                    Lstate = _grow_i1(Lstate, cap)
+                q = n_lab
+                n_lab += 1
+                counters[C_CREATED] += 1
+                Lt[q] = t0
+                Lv2[q] = v20
+                Lnode[q] = n
+                Lpar[q] = li
+                Lleg[q] = nleg
+                Lhd[q] = hd
+                Lstate[q] = 0
+                Lnext[q] = head[s]
+                head[s] = q
+                if hsize >= hcap:
+                    hcap *= 2
+                    hkey = _grow_f8(hkey, hcap)
+                    hidx = _grow_i4(hidx, hcap)
+                hsize = _heap_push(hkey, hidx, hsize,
+                                   t0 + _heuristic(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v), q)
+                continue
+
+        if n_lab >= max_labels:
+            status = LABEL_BUDGET
+            break
+
+        zn = z[n]
+        for kk in range(nk):
+            if use_heading and hd >= 0 and not turn_ok[hd, kk]:
+                counters[C_TURN] += 1
+                continue
+            r2 = r + off_dr[kk]
+            c2 = c + off_dc[kk]
+            if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
+                counters[C_GRID] += 1
+                continue
+            m = r2 * cols + c2
+            bad = False
+            for q in range(tch_start[kk], tch_start[kk + 1]):
+                if blocked[n + tch_flat[q]]:
+                    bad = True
+                    break
+            if bad:
+                counters[C_BLOCKED] += 1
+                continue
+            # walk the sub-segments of the edge
+            v2 = v20
+            te = 0.0
+            zprev = zn
+            uprev = 0.0
+            plan_k = off_plan[kk] * cell
+            ok = True
+            b0 = brk_start[kk]
+            b1 = brk_start[kk + 1]
+            for q in range(b0, b1 + 1):
+                if q < b1:
+                    zq = brk_w[q] * z[n + brk_fa[q]] + (1.0 - brk_w[q]) * z[n + brk_fb[q]]
+                    uq = brk_u[q]
+                else:
+                    zq = z[m]
+                    uq = 1.0
+                plan = (uq - uprev) * plan_k
+                drop = zprev - zq
+                grade = drop / plan
+                if grade < min_grade or grade > max_grade:
+                    counters[C_GRADE] += 1
+                    ok = False
+                    break
+                length = math.sqrt(plan * plan + drop * drop)
+                v2o, dt, st = segment_law(v2, drop, plan, length, g, mu, kdrag, v2_stall)
+                if st >= 0.0:
+                    if mu == 0.0 and kdrag == 0.0:
+                        counters[C_UPHILL] += 1
+                    else:
+                        counters[C_STALL] += 1
+                    ok = False
+                    break
+                if v2o > v2_max:
+                    counters[C_SPEED] += 1
+                    ok = False
+                    break
+                v2 = v2o
+                te += dt
+                zprev = zq
+                uprev = uq
+            if not ok:
+                continue
+            tn = t0 + te
+            # dominance at (leg, m)
+            s = m if reach_mode else leg * ncell + m
+            prev = -1
+            p = head[s]
+            dominated = False
+            while p >= 0:
+                nx = Lnext[p]
+                if use_heading and Lhd[p] != kk:
+                    prev = p
+                    p = nx
+                    continue
+                if Lt[p] <= tn and Lv2[p] >= v2 - tol:
+                    dominated = True
+                    break
+                if tn <= Lt[p] and v2 >= Lv2[p] - tol:
+                    if Lstate[p] == 0:
+                        Lstate[p] = 2
+                    if prev < 0:
+                        head[s] = nx
+                    else:
+                        Lnext[prev] = nx
+                    p = nx
+                    continue
+                prev = p
+                p = nx
+            if dominated:
+                counters[C_DOMINATED] += 1
+                continue
+            if n_lab >= cap:
+                cap *= 2
+                Lt = _grow_f8(Lt, cap)
+                Lv2 = _grow_f8(Lv2, cap)
+                Lnode = _grow_i4(Lnode, cap)
+                Lpar = _grow_i4(Lpar, cap)
+                Lnext = _grow_i4(Lnext, cap)
+                Lleg = _grow_i1(Lleg, cap)
+                Lhd = _grow_i1(Lhd, cap)
+                Lstate = _grow_i1(Lstate, cap)
+            q = n_lab
+            n_lab += 1
+            counters[C_CREATED] += 1
+            Lt[q] = tn
+            Lv2[q] = v2
+            Lnode[q] = m
+            Lpar[q] = li
+            Lleg[q] = leg
+            Lhd[q] = kk
+            Lstate[q] = 0
+            Lnext[q] = head[s]
+            head[s] = q
+            key = tn
+            if not reach_mode:
+                key += _heuristic(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+            if hsize >= hcap:
+                hcap *= 2
+                hkey = _grow_f8(hkey, hcap)
+                hidx = _grow_i4(hidx, hcap)
+            hsize = _heap_push(hkey, hidx, hsize, key, q)
+
+    return (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2,
+            closest, counters)
