@@ -1,0 +1,170 @@
+"""Plots: the artists are there and in the right place; files are written (not pixels)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import shapely
+from hypothesis import given, settings, strategies as st
+
+from fallway.physics import Mover, Profile
+from fallway.plot import nice_step, plot_map, plot_profile, save_figure
+from fallway.route import ReachMap, Route
+
+# the route builders live beside the export tests (same synthetic site)
+from test_export import make_profile, make_route, make_terrain
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec (ISO/IEC 15948), section 5.2
+
+
+def by_gid(artists, gid):
+    return [a for a in artists if a.get_gid() == gid]
+
+
+def cone_reach(terrain, start, speed=5.0, radius=80.0):
+    """Arrival time = distance / speed inside a disc, unreachable outside."""
+    tr = terrain.transform
+    rows, cols = terrain.shape
+    xs = tr.c + (np.arange(cols) + 0.5) * tr.a
+    ys = tr.f + (np.arange(rows) + 0.5) * tr.e
+    xx, yy = np.meshgrid(xs, ys)
+    dist = np.hypot(xx - start[0], yy - start[1])
+    t = np.where(dist <= radius, dist / speed, np.nan)
+    return ReachMap(t, np.where(np.isfinite(t), speed, np.nan), tr, terrain.crs, start, {})
+
+
+@pytest.fixture
+def terrain():
+    return make_terrain()
+
+
+def test_map_has_lines_keepout_reach_and_furniture(terrain):
+    route = make_route(terrain)
+    x0, y0 = terrain.cell_center(10, 20)
+    keep = shapely.Polygon([(x0 - 20, y0 - 10), (x0 + 15, y0 - 10), (x0 + 15, y0 + 12), (x0 - 20, y0 + 12)],
+                           holes=[[(x0 - 5, y0 - 2), (x0 + 2, y0 - 2), (x0 + 2, y0 + 3)]])
+    start = terrain.cell_center(24, 20)
+    reach = cone_reach(terrain, start)
+    ax = plot_map(terrain, route, reach=reach, keepout=shapely.MultiPolygon([keep]))
+
+    (line,) = by_gid(ax.lines, "fallway-line")
+    np.testing.assert_array_equal(line.get_xydata(), route.line[:, :2])
+    (lat,) = by_gid(ax.lines, "fallway-lattice")
+    np.testing.assert_array_equal(lat.get_xydata(), route.lattice.points[:, :2])
+    assert by_gid(ax.lines, "fallway-start")[0].get_xydata()[0] == pytest.approx(route.line[0, :2])
+    assert by_gid(ax.lines, "fallway-end")[0].get_xydata()[0] == pytest.approx(route.line[-1, :2])
+    (img,) = by_gid(ax.images, "fallway-hillshade")
+    left, bottom, right, top = terrain.bounds
+    assert tuple(img.get_extent()) == pytest.approx((left, right, bottom, top))
+    (patch,) = by_gid(ax.patches, "fallway-keepout")
+    # the patch path holds the exterior and the hole: shoelace areas, exterior minus hole = shapely's area
+    verts = patch.get_path().vertices
+    codes = patch.get_path().codes
+    starts = list(np.flatnonzero(codes == 1)) + [len(verts)]  # 1 = MOVETO: a new ring
+    areas = []
+    for a, b in zip(starts[:-1], starts[1:]):
+        ring = verts[a:b]
+        areas.append(abs(0.5 * (np.dot(ring[:-1, 0], ring[1:, 1]) - np.dot(ring[1:, 0], ring[:-1, 1]))))
+    assert len(areas) == 2
+    assert max(areas) - min(areas) == pytest.approx(keep.area, rel=1e-12)
+    assert by_gid(ax.artists, "fallway-scalebar") and by_gid(ax.texts, "fallway-north")
+
+
+def _contour_xy(cs):
+    return np.concatenate([p.vertices for p in cs.get_paths() if len(p.vertices)])
+
+
+def test_isochrones_are_circles_around_the_start(terrain):
+    # on a cone t = r / v the isochrone of level T is the circle r = v T (geometry);
+    # the stall frontier is the edge of the reachable disc (within a cell of r = 80 m)
+    start = terrain.cell_center(24, 20)
+    reach = cone_reach(terrain, start, speed=5.0, radius=80.0)
+    ax = plot_map(terrain, reach=reach)
+    (iso,) = by_gid(ax.collections, "fallway-isochrones")
+    levels = list(iso.levels)
+    assert levels == [2.0, 4.0, 6.0, 8.0, 10.0, 12.0, 14.0]  # 1-2-5 step below t_max = 16 s
+    for level, path in zip(levels, iso.get_paths()):
+        if len(path.vertices) == 0:
+            continue
+        r = np.hypot(path.vertices[:, 0] - start[0], path.vertices[:, 1] - start[1])
+        # marching squares on a cone: linear interpolation error below a tenth of a cell
+        np.testing.assert_allclose(r, 5.0 * level, atol=0.5)
+    (front,) = by_gid(ax.collections, "fallway-frontier")
+    r = np.hypot(*(_contour_xy(front) - np.array(start)).T)
+    assert np.all(np.abs(r - 80.0) <= terrain.cell_size)
+
+
+def test_profile_plot_ground_line_speed_time_and_flags(terrain):
+    mover = Mover(mu=0.44, v0=7.0, normal="gravity", stall_speed=0.3, max_speed=6.5)
+    r = make_route(terrain, mover, raised=4.0)
+    p = r.profile
+    assert p.stalled_at_m is not None
+    p = Profile(p.points, p.station_m, p.speed_m_s, p.time_s, p.grade, p.normal_ratio, p.stalled_at_m,
+                np.array([p.station_m[3]]), np.array([]))
+    r = Route(r.line, p, r.lattice, r.summary, mover, r.limits)
+    ax = plot_profile(r, terrain)
+    fig = ax.figure
+    assert len(fig.axes) == 3  # heights, speed, time
+    (line,) = by_gid(ax.lines, "fallway-line-z")
+    np.testing.assert_array_equal(line.get_xdata(), p.station_m)
+    np.testing.assert_array_equal(line.get_ydata(), r.line[:, 2])
+    (ground,) = by_gid(ax.lines, "fallway-ground")
+    np.testing.assert_allclose(ground.get_ydata(), terrain.sample_linear(r.line[:, 0], r.line[:, 1]))
+    speed = [ln for a in fig.axes for ln in by_gid(a.lines, "fallway-speed")]
+    time = [ln for a in fig.axes for ln in by_gid(a.lines, "fallway-time")]
+    assert len(speed) == 1 and len(time) == 1
+    (sup,) = by_gid(ax.collections, "fallway-supports")
+    segs = sup.get_segments()
+    # a raised line: ticks from ground up to the line, their tallest one = the 4 m clearance
+    tallest = max(abs(s[1, 1] - s[0, 1]) for s in segs)
+    assert tallest == pytest.approx(4.0, abs=0.05)
+    (stall,) = by_gid(ax.patches, "fallway-stall")
+    xs = np.array([stall.get_x(), stall.get_x() + stall.get_width()])  # axvspan: a Rectangle (mpl >= 3.9)
+    assert xs.min() == pytest.approx(p.stalled_at_m) and xs.max() == pytest.approx(p.station_m[-1])
+    assert by_gid(ax.patches, "fallway-overspeed")  # the 7 m/s entry is above 6.5 m/s
+    (lift,) = by_gid(ax.lines, "fallway-liftoff")
+    assert lift.get_xdata()[0] == pytest.approx(p.station_m[3])
+
+
+def test_profile_plot_on_ground_line_has_no_supports(terrain):
+    r = make_route(terrain)
+    ax = plot_profile(r, terrain)
+    assert not by_gid(ax.collections, "fallway-supports")
+    assert not by_gid(ax.patches, "fallway-stall")
+
+
+def test_plot_into_given_axes(terrain):
+    from matplotlib.figure import Figure
+
+    fig = Figure()
+    a1, a2 = fig.subplots(1, 2)
+    r = make_route(terrain)
+    assert plot_map(terrain, r, ax=a1) is a1
+    assert plot_profile(r, terrain, ax=a2) is a2
+
+
+def test_save_figure_png_and_svg(terrain, tmp_path):
+    ax = plot_map(terrain, make_route(terrain))
+    paths = save_figure(ax.figure, tmp_path / "map.png")
+    assert [p.name for p in paths] == ["map.png", "map.svg"]
+    png = (tmp_path / "map.png").read_bytes()
+    assert png.startswith(PNG_SIGNATURE) and png[12:16] == b"IHDR"
+    svg = (tmp_path / "map.svg").read_text(encoding="utf-8")
+    assert svg.lstrip().startswith("<?xml") and "<svg" in svg
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["map.png", "map.svg"]  # no temp files left
+    save_figure(ax.figure, tmp_path / "again")
+    assert (tmp_path / "again.png").read_bytes() == png  # no timestamps: same figure, same bytes
+
+
+@given(st.floats(1e-3, 1e7))
+@settings(max_examples=100, deadline=None)
+def test_nice_step_is_the_smallest_round_step(span):
+    # property: a 1-2-5 series value, giving at most 5 parts; the next smaller value gives more
+    step = nice_step(span, 5)
+    mantissa = step / 10 ** math.floor(math.log10(step) + 1e-12)
+    assert min(abs(mantissa - m) for m in (1.0, 2.0, 5.0)) < 1e-9
+    assert span / step <= 5 * (1 + 1e-6)
+    smaller = {1.0: 0.5, 2.0: 0.5, 5.0: 0.4}[round(mantissa)] * step
+    assert span / smaller > 5 * (1 - 1e-6)
