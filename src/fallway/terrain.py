@@ -1,18 +1,51 @@
 """Terrain: the elevation grid, its georeferencing and a smooth interpolant.
 
-(Core value type; loading from GeoTIFF is added by the foundation work.)
+:class:`Terrain` is the value every other module works on (float64 heights in metres,
+NaN = nodata, row 0 north, square cells, projected CRS).  :func:`load_terrain` reads a
+GeoTIFF (or any raster GDAL reads) into one: it reads only the window that is needed,
+turns nodata into NaN, reprojects a geographic (or non-metre) CRS to the local UTM zone
+and resamples to square cells.
+
+Two interpolants live on a terrain:
+
+* :meth:`Terrain.sample_linear` -- bilinear between cell centres, the lattice search's
+  own interpolation;
+* :meth:`Terrain.sample` / :meth:`Terrain.gradient` -- an interpolating bicubic spline
+  (:class:`scipy.interpolate.RectBivariateSpline`, ``s=0``) for the continuous
+  refinement.  It is exact on planes (a cubic spline reproduces every polynomial of
+  degree <= 3).  Nodata cells are filled for the spline only, by linear extrapolation
+  from the nearest valid cell, so a plane stays exact right up to a hole; points whose
+  4 x 4 spline neighbourhood touches nodata, or that lie outside the hull of cell
+  centres, give NaN (see :meth:`Terrain.valid`).
 """
 
 from __future__ import annotations
 
+import math
+import os
+import warnings
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 from affine import Affine
 
-from .errors import TerrainError
+from .errors import FallwayIOError, ParameterError, TerrainError
 
-__all__ = ["Terrain"]
+__all__ = ["Terrain", "load_terrain", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS"]
+
+#: Margin (m) added around ``bounds`` when reading a window, so that lines that bulge a
+#: little beyond the start/end box still lie on data.
+DEFAULT_MARGIN_M = 200.0
+#: Upper limit on the cells of a loaded grid unless memory is tighter (200 M cells is
+#: 1.6 GB of float64 heights before working arrays).
+DEFAULT_MAX_CELLS = 200_000_000
+# bytes per cell: read buffer (value + mask) and float64 working arrays (heights, filled
+# copy for the spline, spline coefficients, masks) -- a deliberate overestimate.
+_READ_BYTES_PER_CELL = 16
+_OUT_BYTES_PER_CELL = 40
+# extrapolated nodata fill reaches at most this many cells before it is held constant
+_FILL_REACH_CELLS = 8.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -125,3 +158,489 @@ class Terrain:
         if np.ndim(x) == 0 and np.ndim(y) == 0:
             return float(out[0])
         return out
+
+    # -- smooth interpolant -------------------------------------------------------------
+
+    def _spline_parts(self):
+        """(spline, guard mask) built once and kept in ``_cache``."""
+        parts = self._cache.get("spline")
+        if parts is None:
+            from scipy.interpolate import RectBivariateSpline
+            from scipy.ndimage import binary_dilation
+
+            nodata = ~np.isfinite(self.z)
+            zf = _fill_nodata(self.z, nodata) if nodata.any() else self.z
+            rows, cols = self.shape
+            spline = RectBivariateSpline(np.arange(rows, dtype=float), np.arange(cols, dtype=float),
+                                         zf, kx=min(3, rows - 1), ky=min(3, cols - 1), s=0)
+            # a cell centre is "near nodata" when nodata lies in its 3 x 3 block; a point is
+            # usable when the four centres around it are not near nodata, i.e. its 4 x 4
+            # spline neighbourhood holds data only
+            near = binary_dilation(nodata, structure=np.ones((3, 3), bool)) if nodata.any() else nodata
+            parts = (spline, near)
+            self._cache["spline"] = parts
+        return parts
+
+    def _prepare(self, x, y):
+        r, c = self.rowcol(x, y)
+        r, c = np.broadcast_arrays(np.atleast_1d(r).astype(float), np.atleast_1d(c).astype(float))
+        return r, c, np.ndim(x) == 0 and np.ndim(y) == 0
+
+    def _valid_rc(self, r, c, near):
+        rows, cols = self.shape
+        eps = 1e-9
+        ok = (r >= -eps) & (r <= rows - 1 + eps) & (c >= -eps) & (c <= cols - 1 + eps)
+        ok &= np.isfinite(r) & np.isfinite(c)
+        if near.any() and ok.any():
+            rr = np.clip(r[ok], 0, rows - 1)
+            cc = np.clip(c[ok], 0, cols - 1)
+            r0 = np.minimum(np.floor(rr).astype(int), rows - 2)
+            c0 = np.minimum(np.floor(cc).astype(int), cols - 2)
+            bad = near[r0, c0] | near[r0 + 1, c0] | near[r0, c0 + 1] | near[r0 + 1, c0 + 1]
+            sub = ok[ok]
+            sub[bad] = False
+            ok[ok] = sub
+        return ok
+
+    def valid(self, x, y):
+        """True where :meth:`sample` and :meth:`gradient` are defined (vectorised).
+
+        A point is valid when it lies inside the hull of cell centres and no nodata cell
+        is in the 4 x 4 block of cells around it.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from affine import Affine
+        >>> z = np.zeros((8, 8)); z[0, 0] = np.nan
+        >>> t = Terrain.from_array(z, Affine(1.0, 0, 0.0, 0, -1.0, 8.0))
+        >>> t.valid([0.6, 6.5, 9.0], [7.4, 1.5, 1.5]).tolist()
+        [False, True, False]
+        """
+        spline, near = self._spline_parts()
+        r, c, scalar = self._prepare(x, y)
+        ok = self._valid_rc(r, c, near)
+        return bool(ok[0]) if scalar else ok
+
+    def sample(self, x, y):
+        """Heights (m) at map points on the smooth (bicubic spline) interpolant.
+
+        Vectorised over broadcastable ``x`` and ``y``; NaN where :meth:`valid` is False.
+        The spline passes through every cell-centre height and is exact on planes.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from affine import Affine
+        >>> rows, cols = np.mgrid[0:6, 0:7]
+        >>> t = Terrain.from_array(10.0 - 0.5 * cols, Affine(2.0, 0, 0.0, 0, -2.0, 12.0))
+        >>> print(f"{t.sample(6.0, 6.0):.6f}")
+        8.750000
+        """
+        spline, near = self._spline_parts()
+        r, c, scalar = self._prepare(x, y)
+        ok = self._valid_rc(r, c, near)
+        out = np.full(r.shape, np.nan)
+        if ok.any():
+            out[ok] = spline.ev(r[ok], c[ok])
+        return float(out.ravel()[0]) if scalar else out
+
+    def gradient(self, x, y):
+        """Slope components ``(dz/dx, dz/dy)`` of the smooth interpolant (vectorised).
+
+        ``x`` points east and ``y`` north, both in map units (m), so a surface rising
+        to the north has ``dz/dy > 0``.  NaN where :meth:`valid` is False.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from affine import Affine
+        >>> rows, cols = np.mgrid[0:6, 0:7]
+        >>> t = Terrain.from_array(0.25 * cols - 0.5 * rows, Affine(2.0, 0, 0.0, 0, -2.0, 12.0))
+        >>> gx, gy = t.gradient(5.0, 6.0)
+        >>> print(f"{gx:.4f} {gy:.4f}")
+        0.1250 0.2500
+        """
+        spline, near = self._spline_parts()
+        r, c, scalar = self._prepare(x, y)
+        ok = self._valid_rc(r, c, near)
+        gx = np.full(r.shape, np.nan)
+        gy = np.full(r.shape, np.nan)
+        if ok.any():
+            t = self.transform
+            # col = (x - c0)/a - 1/2 and row = (y - f)/e - 1/2, so d/dx = (1/a) d/dcol and
+            # d/dy = (1/e) d/drow (e < 0: row 0 is north)
+            gx[ok] = spline.ev(r[ok], c[ok], dy=1) / t.a
+            gy[ok] = spline.ev(r[ok], c[ok], dx=1) / t.e
+        if scalar:
+            return float(gx.ravel()[0]), float(gy.ravel()[0])
+        return gx, gy
+
+
+def _fill_nodata(z: np.ndarray, nodata: np.ndarray) -> np.ndarray:
+    """Fill nodata cells for the spline: linear extrapolation from the nearest valid cell.
+
+    The slope at the valid cell is taken from valid neighbours only (central difference,
+    else one-sided), so on a plane the fill is the plane itself and the spline stays exact
+    next to holes.  The extrapolation reaches at most ``_FILL_REACH_CELLS`` cells and is
+    held constant beyond, so large holes do not fill with runaway values.
+    """
+    from scipy.ndimage import distance_transform_edt
+
+    if nodata.all():
+        raise TerrainError("the elevation grid holds no valid heights; check the nodata value or the bounds")
+    gr = _valid_difference(z, axis=0)
+    gc = _valid_difference(z, axis=1)
+    _, (ir, ic) = distance_transform_edt(nodata, return_indices=True)
+    rows, cols = np.nonzero(nodata)
+    qr, qc = ir[rows, cols], ic[rows, cols]
+    dr = (rows - qr).astype(float)
+    dc = (cols - qc).astype(float)
+    dist = np.hypot(dr, dc)
+    shrink = np.minimum(1.0, _FILL_REACH_CELLS / np.maximum(dist, 1e-300))
+    out = z.copy()
+    out[rows, cols] = z[qr, qc] + shrink * (gr[qr, qc] * dr + gc[qr, qc] * dc)
+    return out
+
+
+def _valid_difference(z: np.ndarray, axis: int) -> np.ndarray:
+    """Per-cell derivative along ``axis`` from valid neighbours only (0 if none)."""
+    zz = np.moveaxis(z, axis, 0)
+    fwd = np.full(zz.shape, np.nan)
+    bwd = np.full(zz.shape, np.nan)
+    fwd[:-1] = zz[1:] - zz[:-1]
+    bwd[1:] = zz[1:] - zz[:-1]
+    d = np.where(np.isfinite(fwd) & np.isfinite(bwd), 0.5 * (fwd + bwd),
+                 np.where(np.isfinite(fwd), fwd, np.where(np.isfinite(bwd), bwd, 0.0)))
+    return np.moveaxis(d, 0, axis)
+
+
+# -- loading ----------------------------------------------------------------------------
+
+def _available_memory_bytes() -> int | None:
+    """MemAvailable from /proc/meminfo (Linux), else physical pages; None if unknown."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _positive(name: str, value, allow_none: bool = False) -> float | None:
+    if value is None and allow_none:
+        return None
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ParameterError(f"{name} must be a positive number, got {value!r}") from None
+    if not (math.isfinite(v) and v > 0):
+        raise ParameterError(f"{name} must be a positive finite number, got {value!r}")
+    return v
+
+
+def _cell_size_m(transform: Affine, crs, cx: float, cy: float) -> tuple[float, float]:
+    """Ground size (dx_m, dy_m) of one cell at map point (cx, cy), by pyproj geodesics."""
+    from pyproj import CRS as PCRS, Geod, Transformer
+
+    pcrs = PCRS.from_user_input(crs.to_wkt())
+    geo = pcrs.geodetic_crs
+    tr = Transformer.from_crs(pcrs, geo, always_xy=True)
+    a, e = abs(transform.a), abs(transform.e)
+    xs = np.array([cx - a / 2, cx + a / 2, cx, cx])
+    ys = np.array([cy, cy, cy - e / 2, cy + e / 2])
+    lon, lat = tr.transform(xs, ys)
+    geod = Geod(ellps="WGS84") if geo.ellipsoid is None else geo.get_geod()
+    _, _, dx = geod.inv(lon[0], lat[0], lon[1], lat[1])
+    _, _, dy = geod.inv(lon[2], lat[2], lon[3], lat[3])
+    return float(dx), float(dy)
+
+
+def _utm_crs(lon: float, lat: float):
+    """The UTM CRS (WGS 84) of the zone holding (lon, lat), via pyproj's query."""
+    from pyproj.aoi import AreaOfInterest
+    from pyproj.database import query_utm_crs_info
+    from rasterio.crs import CRS
+
+    lon = (lon + 180.0) % 360.0 - 180.0
+    info = query_utm_crs_info(datum_name="WGS 84",
+                              area_of_interest=AreaOfInterest(lon, lat, lon, lat))
+    if not info:
+        raise TerrainError(f"no UTM zone covers lon {lon:.4f}, lat {lat:.4f} (polar?); "
+                           "reproject the DEM to a local projected CRS in metres first")
+    return CRS.from_epsg(int(info[0].code))
+
+
+def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
+                 resolution_m: float | None = None, z_scale: float = 1.0,
+                 max_cells: int | None = None) -> Terrain:
+    """Read a GeoTIFF (any raster GDAL reads) into a :class:`Terrain`.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The raster.  Band 1 holds the heights; further bands are ignored.
+    bounds : (left, bottom, right, top), optional
+        Area of interest in the raster's own CRS (degrees for a geographic raster).
+        Only this box plus ``margin_m`` on every side is read.
+    margin_m : float, default 200
+        Margin around ``bounds`` in metres (converted to degrees for geographic rasters).
+    resolution_m : float, optional
+        Coarser cell size in metres.  Coarsening uses area-weighted *average*
+        resampling (every source cell contributes, so small bumps do not alias into the
+        coarse grid and nodata cells are left out); otherwise cells keep their native
+        size (the smaller edge of non-square cells).
+    z_scale : float, default 1
+        Factor from the raster's height unit to metres (0.3048 for feet).
+    max_cells : int, optional
+        Largest grid accepted; default the smaller of 200 M cells and what fits in half
+        the available memory.  The check is made on an estimate *before* any read.
+
+    Returns
+    -------
+    Terrain
+        Heights in metres (float64, NaN = nodata), north-up, square cells, in the
+        raster's CRS if that is projected in metres, else in the local UTM zone (WGS 84),
+        reprojected with *bilinear* resampling (or average when coarsening).
+
+    Raises
+    ------
+    FallwayIOError
+        The file is missing or is not a raster GDAL can read.
+    TerrainError
+        No CRS, a rotated or sheared transform, bounds outside the raster, no valid
+        heights, or a grid too large for memory (the message gives the size and the
+        options ``bounds`` and ``resolution_m``).
+    ParameterError
+        A bad ``margin_m``, ``resolution_m``, ``z_scale`` or ``max_cells``.
+
+    Examples
+    --------
+    >>> from importlib.resources import files
+    >>> t = load_terrain(files("fallway.sample_terrain") / "site.tif")  # doctest: +SKIP
+    """
+    import rasterio
+    from rasterio.errors import NotGeoreferencedWarning, RasterioError
+
+    z_scale = _positive("z_scale", z_scale)
+    resolution_m = _positive("resolution_m", resolution_m, allow_none=True)
+    try:
+        margin_m = float(margin_m)
+    except (TypeError, ValueError):
+        raise ParameterError(f"margin_m must be a number >= 0, got {margin_m!r}") from None
+    if not (math.isfinite(margin_m) and margin_m >= 0):
+        raise ParameterError(f"margin_m must be a finite number >= 0, got {margin_m!r}")
+    if max_cells is not None:
+        max_cells = int(_positive("max_cells", max_cells))
+
+    p = Path(os.fspath(path))
+    if not p.exists():
+        raise FallwayIOError(f"terrain file not found: {p}; check the path")
+    if p.is_dir():
+        raise FallwayIOError(f"terrain path is a folder, not a raster: {p}; give a GeoTIFF file")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            # rasterio 1.4 multiplies affines with `*`, which affine 3 flags as pending
+            # deprecation; not ours to fix, keep it out of the caller's warnings
+            warnings.filterwarnings("ignore", message="Use `@` matmul", category=PendingDeprecationWarning)
+            with rasterio.open(p) as src:
+                return _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells)
+    except RasterioError as err:
+        raise FallwayIOError(f"cannot read {p} as a raster ({err}); give a GeoTIFF or another "
+                             "GDAL-readable DEM") from err
+
+
+def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Terrain:
+    import rasterio.windows
+    from rasterio.enums import Resampling
+
+    if src.count < 1:
+        raise TerrainError(f"{p} has no raster bands; give a single-band elevation raster")
+    if src.crs is None:
+        raise TerrainError(f"{p} has no CRS; assign the right one first "
+                           "(e.g. gdal_edit.py -a_srs EPSG:32633 file.tif)")
+    t = src.transform
+    if t.b != 0 or t.d != 0:
+        raise TerrainError(f"{p} has a rotated or sheared transform; warp it to a north-up grid "
+                           "first (e.g. gdalwarp -t_srs <its CRS> in.tif out.tif)")
+    if t.a == 0 or t.e == 0:
+        raise TerrainError(f"{p} has a degenerate transform (zero cell size); fix its georeferencing")
+    geographic = bool(src.crs.is_geographic)
+    units = None
+    if not geographic:
+        try:
+            units = float(src.crs.linear_units_factor[1])
+        except Exception:  # noqa: BLE001 - CRS without usable linear units
+            units = None
+
+    # -- window ------------------------------------------------------------------
+    full = rasterio.windows.Window(0, 0, src.width, src.height)
+    if bounds is None:
+        window = full
+    else:
+        try:
+            left, bottom, right, top = (float(v) for v in bounds)
+        except (TypeError, ValueError):
+            raise ParameterError(f"bounds must be (left, bottom, right, top), got {bounds!r}") from None
+        if not (left < right and bottom < top):
+            raise ParameterError(f"bounds must satisfy left < right and bottom < top, got {bounds!r}")
+        if geographic:
+            lat_mid = math.radians(0.5 * (bottom + top))
+            mx = margin_m / (111_320.0 * max(math.cos(lat_mid), 1e-6))
+            my = margin_m / 110_574.0
+        else:
+            mx = my = margin_m / (units or 1.0)
+        inv = ~t
+        cols_, rows_ = zip(*(inv @ (x, y) for x in (left - mx, right + mx) for y in (bottom - my, top + my)))
+        c0 = max(0, math.floor(min(cols_)))
+        c1 = min(src.width, math.ceil(max(cols_)))
+        r0 = max(0, math.floor(min(rows_)))
+        r1 = min(src.height, math.ceil(max(rows_)))
+        if c1 - c0 < 2 or r1 - r0 < 2:
+            lb, bb, rb, tb = src.bounds
+            raise TerrainError(f"bounds {tuple(bounds)} do not overlap {p} (its bounds are "
+                               f"{lb:.6g}, {bb:.6g}, {rb:.6g}, {tb:.6g} in its CRS); give bounds in the raster's CRS")
+        window = rasterio.windows.Window(c0, r0, c1 - c0, r1 - r0)
+    # (rasterio.windows.transform multiplies affines with `*`, deprecated in affine 3)
+    wt = Affine(t.a, 0.0, t.c + window.col_off * t.a, 0.0, t.e, t.f + window.row_off * t.e)
+    h, w = int(window.height), int(window.width)
+
+    # -- target grid and size estimate (before any read) -------------------------------
+    cx, cy = wt @ (w / 2, h / 2)
+    try:
+        dx_m, dy_m = _cell_size_m(wt, src.crs, cx, cy)
+    except Exception as err:  # noqa: BLE001 - pyproj cannot place the raster on the Earth
+        if units is None:
+            raise TerrainError(f"{p}: cannot relate its CRS to the Earth ({err}); "
+                               "reproject it to a projected CRS in metres first") from err
+        dx_m, dy_m = abs(t.a) * units, abs(t.e) * units
+    # keep the raster's own CRS only when it is in metres and true to ground distance here
+    # (UTM, national grids); geographic, feet-based or strongly distorting CRSs (Web
+    # Mercator away from the equator) are reprojected to the local UTM zone
+    metric = (units is not None and abs(units - 1.0) < 1e-12
+              and abs(dx_m / abs(t.a) - 1.0) < 5e-3 and abs(dy_m / abs(t.e) - 1.0) < 5e-3)
+    if metric:
+        dx_m, dy_m = abs(t.a), abs(t.e)
+    native_m = min(dx_m, dy_m)
+    if resolution_m is not None and resolution_m < native_m * (1 - 1e-6):
+        raise ParameterError(f"resolution_m={resolution_m:g} is finer than the raster's {native_m:.4g} m "
+                             "cells; omit it (upsampling adds no information) or give a coarser value")
+    target_m = resolution_m if resolution_m is not None else native_m
+    # decimated read when coarsening by 2x or more: GDAL averages while reading
+    kx = max(1, int(target_m // dx_m)) if resolution_m is not None else 1
+    ky = max(1, int(target_m // dy_m)) if resolution_m is not None else 1
+    read_h, read_w = math.ceil(h / ky), math.ceil(w / kx)
+    out_cells = (w * dx_m) * (h * dy_m) / target_m ** 2
+    read_cells = read_h * read_w
+    need = _READ_BYTES_PER_CELL * read_cells + _OUT_BYTES_PER_CELL * out_cells
+    avail = _available_memory_bytes()
+    limit = max_cells if max_cells is not None else DEFAULT_MAX_CELLS
+    if max_cells is None and avail is not None:
+        limit = min(limit, int(0.5 * avail / _OUT_BYTES_PER_CELL))
+    cells = max(read_cells, out_cells)
+    if cells > limit or (avail is not None and need > avail):
+        raise TerrainError(
+            f"{p}: the grid to load is about {read_h} x {read_w} cells read, {out_cells / 1e6:.1f} M cells "
+            f"at {target_m:.3g} m (~{need / 1e9:.1f} GB working memory), over the limit of "
+            f"{limit / 1e6:.1f} M cells"
+            + (f" / {avail / 1e9:.1f} GB available" if avail is not None else "")
+            + "; pass bounds= to read a window around the site or a coarser resolution_m=")
+
+    # -- read ----------------------------------------------------------------------------
+    if (kx, ky) == (1, 1):
+        data = src.read(1, window=window, masked=True)
+        rt = wt
+    else:
+        data = src.read(1, window=window, masked=True, out_shape=(read_h, read_w),
+                        resampling=Resampling.average)
+        rt = wt @ Affine.scale(w / read_w, h / read_h)
+    z = np.ma.filled(data.astype(np.float64), np.nan)
+    z[~np.isfinite(z)] = np.nan
+    del data
+    # south-up (positive y step) and east-to-west rasters: flip to north-up, west-left
+    if rt.e > 0:
+        z = z[::-1]
+        rt = Affine(rt.a, 0.0, rt.c, 0.0, -rt.e, rt.f + z.shape[0] * rt.e)
+    if rt.a < 0:
+        z = z[:, ::-1]
+        rt = Affine(-rt.a, 0.0, rt.c + z.shape[1] * rt.a, 0.0, rt.e, rt.f)
+    if not np.isfinite(z).any():
+        raise TerrainError(f"{p} holds no valid heights in the window read (all nodata); "
+                           "check the bounds and the raster's nodata value")
+
+    src_crs = src.crs
+    if geographic:
+        # longitudes given as 0..360: shift so the grid's centre lies in [-180, 180)
+        lon_c = rt.c + 0.5 * z.shape[1] * rt.a
+        shift = 360.0 * math.floor((lon_c + 180.0) / 360.0)
+        if shift:
+            rt = Affine(rt.a, 0.0, rt.c - shift, 0.0, rt.e, rt.f)
+        west, east = rt.c, rt.c + z.shape[1] * rt.a
+        if west < -180.0 - 1e-9 or east > 180.0 + 1e-9:
+            raise TerrainError(f"{p} crosses the antimeridian (longitudes {west:.4f}..{east:.4f}); "
+                               "pass bounds= on one side of it")
+
+    need_reproject = not metric
+    square = abs(rt.a - abs(rt.e)) <= 1e-9 * rt.a
+    if need_reproject:
+        lon_c, lat_c = _center_lonlat(rt, z.shape, src_crs)
+        dst_crs = _utm_crs(lon_c, lat_c)
+        z, rt = _warp(z, rt, src_crs, dst_crs, target_m, resolution_m is not None and (kx, ky) == (1, 1)
+                      and target_m >= 2 * max(dx_m, dy_m))
+        crs = dst_crs
+    elif resolution_m is not None or not square:
+        res_units = target_m / units
+        if abs(rt.a - res_units) > 1e-9 * res_units or abs(abs(rt.e) - res_units) > 1e-9 * res_units:
+            coarsen = resolution_m is not None and res_units >= 1.5 * max(rt.a, abs(rt.e))
+            z, rt = _warp(z, rt, src_crs, src_crs, res_units, coarsen)
+        crs = src_crs
+    else:
+        crs = src_crs
+    if not np.isfinite(z).any():
+        raise TerrainError(f"{p} holds no valid heights after resampling; check the bounds")
+    if z_scale != 1.0:
+        z = z * z_scale
+    return Terrain(z, rt, crs)
+
+
+def _center_lonlat(rt: Affine, shape, crs) -> tuple[float, float]:
+    from pyproj import CRS as PCRS, Transformer
+
+    cx, cy = rt @ (shape[1] / 2, shape[0] / 2)
+    pcrs = PCRS.from_user_input(crs.to_wkt())
+    if pcrs.is_geographic:
+        return float(cx), float(cy)
+    tr = Transformer.from_crs(pcrs, pcrs.geodetic_crs, always_xy=True)
+    lon, lat = tr.transform(cx, cy)
+    return float(lon), float(lat)
+
+
+def _warp(z, rt, src_crs, dst_crs, res, average: bool):
+    """Reproject/resample ``z`` onto square ``res`` cells (NaN = nodata both sides)."""
+    from rasterio.enums import Resampling
+    from rasterio.warp import calculate_default_transform, reproject
+
+    rows, cols = z.shape
+    left, top = rt.c, rt.f
+    right, bottom = rt.c + cols * rt.a, rt.f + rows * rt.e
+    if src_crs == dst_crs:
+        # same CRS: keep the outer edges (to the nearest whole cell)
+        dw = max(1, int(round((right - left) / res)))
+        dh = max(1, int(round((top - bottom) / res)))
+        dt = Affine(res, 0.0, left, 0.0, -res, top)
+    else:
+        dt, dw, dh = calculate_default_transform(src_crs, dst_crs, cols, rows, left, bottom, right, top,
+                                                 resolution=(res, res))
+    if dw < 2 or dh < 2:
+        raise TerrainError(f"resolution {res:g} leaves fewer than 2 x 2 cells; choose a finer resolution_m")
+    dst = np.full((dh, dw), np.nan)
+    reproject(z, dst, src_transform=rt, src_crs=src_crs, src_nodata=np.nan,
+              dst_transform=dt, dst_crs=dst_crs, dst_nodata=np.nan,
+              resampling=Resampling.average if average else Resampling.bilinear)
+    return dst, dt
