@@ -62,6 +62,7 @@ RESULT_FILES = (
     "profile.svg",
     "report.html",
     "scenario.toml",
+    "reach.tif",
 )
 
 #: Decimal places of longitude/latitude in GeoJSON (1e-9 degree is about 0.1 mm).
@@ -377,6 +378,37 @@ def _nearest_vertices(station_m: np.ndarray, stations) -> np.ndarray:
     return np.where(np.abs(stations - left) <= np.abs(right - stations), idx - 1, idx)
 
 
+def _example_route():
+    """A tiny route for the docstring examples: 50 m down a 30 degree plane, mu = 0.2.
+
+    Returns (route, terrain); the time is the closed-form incline law (5.5860139 s).
+    """
+    from affine import Affine
+
+    from ._segment import segment_law
+    from .physics import Mover, Profile
+    from .route import LatticeLine, Route
+    from .terrain import Terrain
+
+    cell = 5.0
+    tan30 = math.tan(math.radians(30.0))
+    cols = np.arange(10)
+    z = np.tile(100.0 - tan30 * cell * cols, (3, 1))
+    terrain = Terrain.from_array(z, Affine(cell, 0, 500000.0, 0, -cell, 4500000.0), "EPSG:32633")
+    plan = 50.0 * math.cos(math.radians(30.0))
+    x0, y0 = terrain.cell_center(1, 0)
+    line = np.array([[x0, y0, z[1, 0]], [x0 + plan, y0, z[1, 0] - 25.0]])
+    mover = Mover(mu=0.2, normal="gravity")
+    v2, t, _ = segment_law(0.0, 25.0, plan, 50.0, mover.g, mover.mu, 0.0, 0.0)
+    prof = Profile(line, np.array([0.0, 50.0]), np.array([0.0, math.sqrt(v2)]), np.array([0.0, t]),
+                   np.array([tan30, tan30]), np.full(2, math.cos(math.radians(30.0))), None,
+                   np.array([]), np.array([]))
+    lattice = LatticeLine(np.array([[1, 0], [1, 7]]), line, prof, t)
+    summary = {"travel_time_s": t, "lattice_time_s": t, "length_m": 50.0, "plan_length_m": plan,
+               "drop_m": 25.0, "exit_speed_m_s": math.sqrt(v2)}
+    return Route(line, prof, lattice, summary, mover), terrain
+
+
 def profile_flags(profile, mover=None) -> list[str]:
     """One flag string per vertex: ``"stall"``, ``"overspeed"``, ``"liftoff"`` joined by ``;``.
 
@@ -478,6 +510,15 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
     -------
     Path
         The file written.
+
+    Examples
+    --------
+    >>> import json, tempfile, pathlib
+    >>> route, terrain = _example_route()
+    >>> p = write_route_geojson(route, pathlib.Path(tempfile.mkdtemp()) / "route.geojson", terrain.crs)
+    >>> f = json.loads(p.read_text())["features"][0]
+    >>> f["geometry"]["type"], len(f["geometry"]["coordinates"][0]), round(f["properties"]["travel_time_s"], 7)
+    ('LineString', 3, 5.5860139)
     """
     import pyproj
 
@@ -581,6 +622,14 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     -------
     Path
         The file written.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, pyogrio
+    >>> route, terrain = _example_route()
+    >>> p = write_route_gpkg(route, pathlib.Path(tempfile.mkdtemp()) / "route.gpkg", terrain.crs)
+    >>> [name for name, _ in pyogrio.list_layers(p)]
+    ['line', 'lattice']
     """
     import pyogrio.raw
     import shapely
@@ -641,6 +690,14 @@ def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
     -------
     Path
         The file written.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> route, terrain = _example_route()
+    >>> p = write_profile_csv(route, terrain, pathlib.Path(tempfile.mkdtemp()) / "profile.csv")
+    >>> print(p.read_text().splitlines()[2])
+    50.000000,500045.801270,4499992.500000,75.000000,75.000000,0.577350,17.901853,5.586014,0.866025,
     """
     p = route.profile
     pts = _route_points(route)
@@ -689,6 +746,15 @@ def write_summary_json(route, path: str | os.PathLike, extra: dict | None = None
     -------
     Path
         The file written.
+
+    Examples
+    --------
+    >>> import json, tempfile, pathlib
+    >>> route, terrain = _example_route()
+    >>> p = write_summary_json(route, pathlib.Path(tempfile.mkdtemp()) / "summary.json", crs=terrain.crs)
+    >>> doc = json.loads(p.read_text())
+    >>> doc["crs"], doc["limits"]["max_grade"], doc["mover"]["mu"]
+    ('EPSG:32633', None, 0.2)
     """
     doc = summary_document(route, extra, crs=crs)
     text = json.dumps(doc, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False)

@@ -264,6 +264,14 @@ def plot_profile(route, terrain, *, ax=None):
         The heights axes.  For a raised line (line above ground), vertical ticks from
         ground to line show the clearance at the vertices.  Flagged stretches: stall
         (from where the mover stops), overspeed (shaded), lift-off (marked).
+
+    Examples
+    --------
+    >>> from fallway.export import _example_route
+    >>> route, terrain = _example_route()
+    >>> ax = plot_profile(route, terrain)
+    >>> len(ax.figure.axes), [ln.get_gid() for ln in ax.lines][:2]
+    (3, ['fallway-ground', 'fallway-line-z'])
     """
     from .export import profile_flags
 
@@ -352,6 +360,15 @@ def save_figure(fig, path: str | os.PathLike, *, formats=("png", "svg"), dpi: in
     -------
     list of Path
         The files written.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from matplotlib.figure import Figure
+    >>> fig = Figure()
+    >>> _ = fig.add_subplot().plot([0, 1], [0, 1])
+    >>> [p.name for p in save_figure(fig, pathlib.Path(tempfile.mkdtemp()) / "map.png")]
+    ['map.png', 'map.svg']
     """
     from .export import atomic_path
 

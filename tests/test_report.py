@@ -1,0 +1,150 @@
+"""The HTML report: self-contained, complete, and rendered by a real browser."""
+
+from __future__ import annotations
+
+import base64
+import html
+import html.parser
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from fallway.caution import CAUTION
+from fallway.plot import plot_map, plot_profile, save_figure
+from fallway.report import report_html, write_report_html
+
+# the route builders live beside the export tests (same synthetic site)
+from test_export import make_route, make_terrain
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec (ISO/IEC 15948), section 5.2
+
+
+class _Collect(html.parser.HTMLParser):
+    """Every tag with its attributes, and the text of table cells."""
+
+    def __init__(self):
+        super().__init__()
+        self.tags = []
+        self.cells = []
+        self._in_cell = False
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag in ("td", "th"):
+            self._in_cell = True
+            self.cells.append("")
+
+    def handle_endtag(self, tag):
+        if tag in ("td", "th"):
+            self._in_cell = False
+
+    def handle_data(self, data):
+        if self._in_cell:
+            self.cells[-1] += data
+
+
+@pytest.fixture(scope="module")
+def site():
+    terrain = make_terrain()
+    return terrain, make_route(terrain, raised=3.0)
+
+
+@pytest.fixture(scope="module")
+def report(site, tmp_path_factory):
+    terrain, route = site
+    d = tmp_path_factory.mktemp("report")
+    map_png = save_figure(plot_map(terrain, route).figure, d / "map.png")[0]
+    prof_png = save_figure(plot_profile(route, terrain).figure, d / "profile.png")[0]
+    path = write_report_html(route, terrain, d / "report.html", map_png=map_png, profile_png=prof_png,
+                             parameters={"site": "synthetic slope", "search": {"neighbours": 16}})
+    return path
+
+
+def test_report_is_self_contained(report):
+    text = report.read_text(encoding="utf-8")
+    assert text.startswith("<!DOCTYPE html>")
+    low = text.lower()
+    for bad in ("http://", "https://", 'src="file', "src='file", "<script", "<link", "@import", "url("):
+        assert bad not in low, bad
+    p = _Collect()
+    p.feed(text)
+    imgs = [a for t, a in p.tags if t == "img"]
+    assert len(imgs) == 2
+    for a in imgs:
+        prefix = "data:image/png;base64,"
+        assert a["src"].startswith(prefix)
+        assert base64.b64decode(a["src"][len(prefix):], validate=True).startswith(PNG_SIGNATURE)
+        assert a.get("alt")
+    assert any(t == "style" for t, _ in p.tags)
+
+
+def test_report_has_numbers_parameters_and_caution(site, report):
+    terrain, route = site
+    text = report.read_text(encoding="utf-8")
+    assert html.escape(CAUTION) in text
+    p = _Collect()
+    p.feed(text)
+    cells = [c.strip() for c in p.cells]
+    i = cells.index("Travel time")
+    assert cells[i + 1] == f"{route.summary['travel_time_s']:.2f} s"
+    i = cells.index("Drop")
+    assert cells[i + 1] == f"{route.summary['drop_m']:.1f} m"
+    assert cells[cells.index("mu") + 1] == "0.1000"
+    assert cells[cells.index("max_grade") + 1] == "no limit"  # Limits default: inf
+    assert cells[cells.index("search.neighbours") + 1] == "16"
+    assert cells[cells.index("search.labels_created") + 1] == "1234"
+    assert "synthetic slope" in cells
+    assert cells[cells.index("refinement.residual") + 1] == "1.5e-07"  # small numbers keep their digits
+
+
+def test_report_draws_its_own_plots_and_escapes_text(site, tmp_path):
+    terrain, route = site
+    text = report_html(route, terrain, parameters={"note": "<b>a & b</b>"}, title="Line <1>")
+    assert "<b>a &amp; b</b>" not in text and "&lt;b&gt;a &amp; b&lt;/b&gt;" in text
+    assert "<title>Line &lt;1&gt;</title>" in text
+    assert text.count("data:image/png;base64,") == 2
+
+
+def test_report_states_a_stall(site):
+    from fallway.physics import Mover
+
+    terrain, _ = site
+    r = make_route(terrain, Mover(mu=0.44, v0=7.0, normal="gravity", stall_speed=0.3))
+    assert r.profile.stalled_at_m is not None
+    text = report_html(r, terrain, map_png=b"\x89PNG\r\n\x1a\n", profile_png=b"\x89PNG\r\n\x1a\n")
+    assert f"stops at station {r.profile.stalled_at_m:.1f} m" in text
+
+
+def _colour_fraction(img, rgb, tol=0.04):
+    return float(np.mean(np.all(np.abs(img[..., :3] - np.array(rgb) / 255.0) < tol, axis=-1)))
+
+
+@pytest.mark.slow
+def test_report_renders_in_headless_chromium(report, tmp_path):
+    exe = shutil.which("chromium") or shutil.which("chromium-browser")
+    if exe is None:
+        pytest.skip("chromium is not installed (Debian package 'chromium'; .ci/run installs it)")
+    from matplotlib.image import imread
+
+    shot = tmp_path / "shot.png"
+    cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+           "--disable-component-update", "--disable-sync", "--no-first-run", "--hide-scrollbars",
+           f"--user-data-dir={tmp_path / 'profile'}", f"--screenshot={shot}", "--window-size=1200,2000",
+           report.resolve().as_uri()]
+    res = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert shot.exists(), f"chromium wrote no screenshot (exit {res.returncode}): {res.stderr[-500:]}"
+    assert shot.read_bytes().startswith(PNG_SIGNATURE)
+    img = imread(shot)
+    assert img.shape[:2] == (2000, 1200)
+    rgb = img[..., :3]
+    nonwhite = np.mean(np.any(rgb < 0.95, axis=-1))
+    assert nonwhite > 0.2, f"screenshot nearly blank ({nonwhite:.1%} non-white)"
+    colours = np.unique((rgb * 255).astype(np.uint8).reshape(-1, 3), axis=0)
+    assert len(colours) > 500  # shaded plots: far more colours than text on a plain page
+    # the inline CSS took effect: caution border and table header colours are on screen
+    assert _colour_fraction(img, (0xB0, 0x3A, 0x2E)) > 1e-4
+    assert _colour_fraction(img, (0xEF, 0xE8, 0xDA)) > 1e-4
+    # the embedded map is drawn: its line colour (#c0392b) appears in the image
+    assert _colour_fraction(img, (0xC0, 0x39, 0x2B), tol=0.03) > 1e-4
