@@ -217,6 +217,43 @@ def test_level_bend_vector_normal_force():
     assert pg.exit_speed_m_s > p.exit_speed_m_s + 0.3
 
 
+def test_descending_helix_3d():
+    # helix x = r cos t, y = r sin t, z = −c t: κ = r/(r² + c²), principal normal horizontal
+    # (towards the axis) and so ⟂ g_perp: |N|² = (v²κ)² + (g cos α)², tan α = c/r
+    # (differential geometry of the helix); reference by solve_ivp
+    r, c, mu, k, v0 = 12.0, 2.5, 0.2, 0.004, 6.0
+    kappa = r / (r * r + c * c)
+    alpha = math.atan2(c, r)
+    turns = 1.5
+    length = 2 * math.pi * turns * math.hypot(r, c)
+    sol = ivp_along(lambda s, v2: 2 * G * math.sin(alpha)
+                    - 2 * mu * math.hypot(v2 * kappa, G * math.cos(alpha)) - 2 * k * v2, length, v0 * v0)
+    n = 6000
+    t = np.linspace(0, 2 * math.pi * turns, n + 1)
+    pts = np.column_stack([r * np.cos(t), r * np.sin(t), 500.0 - c * t])
+    p = traverse(pts, Mover(mu=mu, drag=k, v0=v0))
+    tol = mu * (t[1] - t[0])  # end-chord bound
+    assert p.exit_speed_m_s == pytest.approx(math.sqrt(sol.y[0, -1]), rel=tol)
+    assert p.travel_time_s == pytest.approx(sol.y[1, -1], rel=tol)
+    assert p.liftoff.size == 0
+
+
+def test_vertex_curvature_of_a_regular_polygon():
+    # an inscribed regular polygon turns by its central angle Δθ at each vertex and has
+    # chords 2R sin(Δθ/2) (elementary geometry): κ = Δθ / (2R sin(Δθ/2)), normal towards the centre
+    from fallway._traverse import vertex_geometry
+    R, n = 7.0, 12
+    th = np.linspace(0, 2 * math.pi * (n - 1) / n, n)
+    pts = np.ascontiguousarray(np.column_stack([R * np.cos(th), R * np.sin(th), np.zeros(n)]))
+    tang, seg, kap, nrm = np.empty((n - 1, 3)), np.empty(n - 1), np.empty(n), np.empty((n, 3))
+    vertex_geometry(pts, tang, seg, kap, nrm)
+    d = 2 * math.pi / n
+    np.testing.assert_allclose(seg, 2 * R * math.sin(d / 2), rtol=1e-13)
+    np.testing.assert_allclose(kap[1:-1], d / (2 * R * math.sin(d / 2)), rtol=1e-12)
+    assert kap[0] == 0.0 and kap[-1] == 0.0
+    np.testing.assert_allclose(nrm[1:-1], -pts[1:-1] / R, atol=1e-12)
+
+
 @pytest.mark.parametrize("phi_deg", [30.0, 90.0, 150.0])
 def test_short_sharp_bend_belt_friction(phi_deg):
     # Euler–Eytelwein (capstan / belt friction): v_out = v_in e^(−μφ) when the centripetal part

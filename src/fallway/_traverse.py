@@ -23,8 +23,15 @@ scalar ODE there; it is integrated with classical RK4 in σ, the number of subst
 from the stiffness ``(2 mu |kappa| + 2 k) * length`` (about 0.1 per substep, at least
 one); the time of each substep is ``2 h / (v_a + v_b)`` (exact for constant
 acceleration) improved by Richardson extrapolation over the two halves split at the
-Hermite midpoint.  Turning angles below 1e-12 rad count as straight.  A half-segment without curvature uses the exact segment law.
-Everything is deterministic: no adaptivity that depends on floating-point noise.
+Hermite midpoint.  Turning angles below 1e-12 rad count as straight.  A half-segment
+without curvature uses the exact segment law.  Everything is deterministic: no
+adaptivity that depends on floating-point noise.
+
+Ends: the line starts along its first segment and ends along its last (no curvature at
+the end vertices).  A smooth curve sampled with angular step dθ therefore loses the
+half-step of turning at each end, a bend of dθ in all: at most a factor exp(-mu dθ) on
+the speed, first order in the spacing but confined to the ends; the interior is second
+order.
 
 Building blocks (all ``@njit(cache=True, nogil=True)``, scalars and flat arrays):
 :func:`vertex_geometry` (directions, lengths, curvature per vertex), :func:`bend_kdg`,

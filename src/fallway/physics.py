@@ -332,7 +332,10 @@ def traverse(points, mover: Mover) -> Profile:
     sharp vertex is a bend of angle ``phi`` spread over the half-segments around it;
     when the adjoining segments are short (centripetal part dominant) this gives the
     belt-friction (capstan) law ``v_out = v_in exp(-mu phi)``, its short-bend limit.
-    Refine or round a polyline whose corners are not meant to be tight bends.
+    Refine or round a polyline whose corners are not meant to be tight bends.  The end
+    vertices carry no curvature (the line leaves along its first segment and arrives
+    along its last), so a curve sampled with angular step dθ misses a bend of dθ in all:
+    at most a factor ``exp(-mu dθ)`` on the speed.
 
     Stalls: the mover stalls where it slows below ``stall_speed`` (or comes to rest).
     A line that starts at rest (or below the stall speed) on an upslope or a level
@@ -456,7 +459,8 @@ def normal_gravity(lat_deg: float, height_m: float = 0.0) -> float:
         raise ParameterError(f"lat_deg must be a latitude between -90 and 90 degrees, got {lat_deg!r}")
     _check_number("height_m", height_m, low=-20000.0)
     if float(height_m) > 20000.0:
-        raise ParameterError(f"height_m must be between -20000 and 20000 m (near the surface), got {height_m!r}")
+        raise ParameterError(f"height_m must be between -20000 and 20000 m (near the surface), "
+                             f"got {height_m!r}")
     s2 = math.sin(math.radians(float(lat_deg))) ** 2
     gamma = _GAMMA_E * (1.0 + _SOMIGLIANA_K * s2) / math.sqrt(1.0 - _WGS84_E2 * s2)
     h = float(height_m)
