@@ -168,3 +168,42 @@ def test_nice_step_is_the_smallest_round_step(span):
     assert span / step <= 5 * (1 + 1e-6)
     smaller = {1.0: 0.5, 2.0: 0.5, 5.0: 0.4}[round(mantissa)] * step
     assert span / smaller > 5 * (1 - 1e-6)
+
+
+def test_large_grid_hillshade_is_thinned_on_cell_centres():
+    from affine import Affine
+
+    from fallway.terrain import Terrain
+
+    rows, cols = 3300, 8  # long side above the 1600-pixel cap: every 3rd cell is drawn
+    z = np.add.outer(np.arange(rows) * 0.5, np.arange(cols) * 0.1)
+    t = Terrain.from_array(z, Affine(2.0, 0, 1000.0, 0, -2.0, 9000.0), "EPSG:32633")
+    ax = plot_map(t)
+    (img,) = by_gid(ax.images, "fallway-hillshade")
+    arr = img.get_array()
+    assert arr.shape[:2] == (1100, 3)
+    x_left, x_right, y_bottom, y_top = img.get_extent()
+    # pixel i is centred on the cell it samples (cell 3 i): same x as Terrain.cell_center
+    px = (x_right - x_left) / arr.shape[1]
+    for i in range(arr.shape[1]):
+        assert x_left + (i + 0.5) * px == pytest.approx(t.cell_center(0, 3 * i)[0])
+    py = (y_top - y_bottom) / arr.shape[0]
+    assert y_top - 0.5 * py == pytest.approx(t.cell_center(0, 0)[1])
+    assert [float(v) for v in ax.get_xlim()] == [1000.0, 1016.0]
+
+
+def test_keepout_in_lonlat_is_drawn_in_map_coordinates(terrain):
+    import pyproj
+
+    from fallway.limits import Keepout
+
+    # a keep-out given in WGS 84 (as a lon/lat GeoJSON would be) lands where pyproj puts it
+    x0, y0 = terrain.cell_center(20, 20)
+    to_ll = pyproj.Transformer.from_crs("EPSG:32633", "EPSG:4326", always_xy=True)
+    ring = [(x0 - 15, y0 - 15), (x0 + 15, y0 - 15), (x0 + 15, y0 + 15), (x0 - 15, y0 + 15)]
+    ll = shapely.Polygon([to_ll.transform(x, y) for x, y in ring])
+    ax = plot_map(terrain, keepout=Keepout(ll, "EPSG:4326"))
+    (patch,) = by_gid(ax.patches, "fallway-keepout")
+    verts = patch.get_path().vertices
+    for x, y in ring:
+        assert np.min(np.hypot(verts[:, 0] - x, verts[:, 1] - y)) < 0.01  # within 1 cm

@@ -52,17 +52,24 @@ def nice_step(span: float, target: int = 5) -> float:
     return 10.0 * p  # pragma: no cover
 
 
+#: Largest hillshade raster drawn (pixels on the long side); larger grids are thinned,
+#: which is below the resolution of the saved figure anyway.
+_MAX_SHADE_PX = 1600
+
+
 def _hillshade_rgb(terrain):
+    """Tinted hillshade RGBA and the step (cells per pixel) it was thinned by."""
     from matplotlib.colors import LightSource, Normalize
     import matplotlib
 
-    z = np.array(terrain.z, dtype=float)
+    step = max(1, math.ceil(max(terrain.shape) / _MAX_SHADE_PX))
+    z = np.array(terrain.z[::step, ::step], dtype=float)
     nodata = ~np.isfinite(z)
     if nodata.all():
         raise ParameterError("the terrain has no valid heights to draw")
     fill = np.where(nodata, np.nanmean(z), z)
     ls = LightSource(azdeg=315.0, altdeg=45.0)
-    cell = terrain.cell_size
+    cell = terrain.cell_size * step
     lo, hi = np.nanpercentile(z, [1, 99])
     if hi <= lo:
         hi = lo + 1.0
@@ -72,7 +79,7 @@ def _hillshade_rgb(terrain):
     if rgba.shape[-1] == 3:
         rgba = np.concatenate([rgba, np.ones(rgba.shape[:2] + (1,))], axis=-1)
     rgba[nodata, 3] = 0.0
-    return rgba
+    return rgba, step
 
 
 def _geometries(keepout):
@@ -141,7 +148,8 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
         Isochrones (contours of ``time_s`` at round intervals) and the stall frontier
         (the edge of the reachable area).
     keepout : Keepout or shapely geometry, optional
-        No-go polygons in the terrain CRS (``keepout.geometry``), hatched.
+        No-go polygons, hatched: a :class:`fallway.limits.Keepout` (reprojected to the
+        terrain CRS with ``Keepout.in_crs``) or shapely polygons in the terrain CRS.
     ax : matplotlib Axes, optional
 
     Returns
@@ -162,12 +170,21 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
     """
     ax = _new_axes(ax, (8.0, 7.0))
     left, bottom, right, top = (float(v) for v in terrain.bounds)
-    img = ax.imshow(_hillshade_rgb(terrain), extent=(left, right, bottom, top), origin="upper",
+    rgba, step = _hillshade_rgb(terrain)
+    # a thinned raster: each pixel is a block of step x step cells, sampled at its first cell
+    size = terrain.cell_size * step
+    px_left = left + 0.5 * terrain.cell_size - 0.5 * size
+    px_top = top - 0.5 * terrain.cell_size + 0.5 * size
+    extent = (px_left, px_left + rgba.shape[1] * size, px_top - rgba.shape[0] * size, px_top)
+    img = ax.imshow(rgba, extent=extent, origin="upper",
                     interpolation="bilinear", zorder=0)
     img.set_gid("fallway-hillshade")
 
     if keepout is not None:
         from matplotlib.patches import PathPatch
+
+        if hasattr(keepout, "in_crs") and terrain.crs is not None:
+            keepout = keepout.in_crs(terrain.crs)  # a Keepout read from lon/lat GeoJSON
 
         for i, poly in enumerate(_geometries(keepout)):
             patch = PathPatch(_polygon_path(poly), facecolor=_KEEPOUT_COLOUR, alpha=0.25,
