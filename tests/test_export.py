@@ -478,3 +478,20 @@ def test_output_set_unwritable_folder(tmp_path):
     with pytest.raises(FallwayIOError, match="is a file"):
         with OutputSet(blocker):
             pass
+
+
+def test_profile_csv_carries_a_traverse_profile(terrain, tmp_path):
+    # the columns are the motion model's own numbers, to the written precision
+    from fallway import physics
+
+    if not hasattr(physics, "traverse"):
+        pytest.skip("fallway.physics.traverse is not available yet")
+    r = make_route(terrain)
+    mover = Mover(mu=0.1, drag=0.004, v0=0.5, normal="full")
+    prof = physics.traverse(r.line, mover)
+    r = Route(r.line, prof, r.lattice, r.summary, mover, r.limits)
+    rows = _read_csv(write_profile_csv(r, terrain, tmp_path / "profile.csv"))
+    for col, ref in (("station_m", prof.station_m), ("speed_m_s", prof.speed_m_s), ("time_s", prof.time_s),
+                     ("grade", prof.grade), ("normal_ratio", prof.normal_ratio)):
+        np.testing.assert_allclose([float(row[col]) for row in rows], ref, atol=5e-7, err_msg=col)
+    assert [row["flags"] for row in rows] == profile_flags(prof, mover)
