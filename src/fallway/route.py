@@ -235,7 +235,9 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
         except ImportError:
             refine_line = None
         if refine_line is not None:
-            rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=keepout, line=line, **refine_options)
+            # refinement works on polygons (a distance field); a bare lattice mask has none
+            ko = None if isinstance(keepout, np.ndarray) else keepout
+            rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=ko, line=line, **refine_options)
             final = np.asarray(rr.line, dtype=float)
             refined = True
             extra = {"refine_iterations": int(rr.iterations), "refine_residual": _num(rr.residual),
