@@ -197,6 +197,43 @@ def test_geojson_splits_at_the_antimeridian(tmp_path):
     assert all(p[0] > 179 for p in west) and all(p[0] < -179 for p in east)
 
 
+def test_geojson_matches_gdal_rfc7946_writer(route, tmp_path):
+    # reference: GDAL's own RFC 7946 mode (it reprojects to WGS 84 itself), through pyogrio
+    import pyogrio.raw
+    import shapely
+
+    ref = tmp_path / "gdal.geojson"
+    wkb = np.array([shapely.to_wkb(shapely.linestrings(route.line), output_dimension=3)], dtype=object)
+    pyogrio.raw.write(ref, wkb, [np.array([1])], ["id"], driver="GeoJSON", geometry_type="LineString Z",
+                      crs="EPSG:32633", layer_options={"RFC7946": "YES", "COORDINATE_PRECISION": 10})
+    gdal = np.array(json.loads(ref.read_text())["features"][0]["geometry"]["coordinates"])
+    ours = json.loads(write_route_geojson(route, tmp_path / "ours.geojson", "EPSG:32633").read_text())
+    ours = np.array(ours["features"][0]["geometry"]["coordinates"])
+    np.testing.assert_allclose(ours[:, :2], gdal[:, :2], atol=2e-9)  # degrees: ~0.2 mm
+    np.testing.assert_allclose(ours[:, 2], gdal[:, 2], atol=6e-4)
+
+
+@given(st.lists(st.tuples(st.floats(200_000, 800_000), st.floats(10_000, 9_000_000), st.floats(-400, 8000)),
+                min_size=2, max_size=6))
+@settings(max_examples=25, deadline=None)
+def test_geojson_round_trip_anywhere_in_the_zone(tmp_path_factory, pts):
+    # property: lon/lat stay in range and come back to the map coordinates within millimetres
+    import pyproj
+
+    line = np.array(pts, dtype=float)
+    base = make_route()
+    r = Route(line, Profile(line, np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)),
+                            np.zeros(len(line)), np.ones(len(line)), None, np.array([]), np.array([])),
+              base.lattice, base.summary, base.mover, base.limits)
+    path = tmp_path_factory.mktemp("rt") / "r.geojson"
+    f = check_rfc7946(json.loads(write_route_geojson(r, path, "EPSG:32633").read_text()))
+    lonlat = np.array(f["geometry"]["coordinates"])
+    x, y = pyproj.Transformer.from_crs("EPSG:4326", "EPSG:32633", always_xy=True).transform(lonlat[:, 0],
+                                                                                          lonlat[:, 1])
+    np.testing.assert_allclose(x, line[:, 0], atol=3e-3)
+    np.testing.assert_allclose(y, line[:, 1], atol=3e-3)
+
+
 # --------------------------------------------------------------------------- GeoPackage
 
 def test_gpkg_two_layers_native_crs(route, tmp_path):
