@@ -560,3 +560,125 @@ def test_huge_raster_window_is_read(huge_sparse_tif):
 def test_bad_parameters(plane_tif, kwargs, match):
     with pytest.raises(ParameterError, match=match):
         load_terrain(plane_tif[0], **kwargs)
+
+
+# --------------------------------------------------------------------------------------
+# the bundled sample site
+# --------------------------------------------------------------------------------------
+
+SITE_CRS = "EPSG:32633"
+
+
+def _site_file(name):
+    from importlib.resources import files
+
+    return files("fallway.sample_terrain") / name
+
+
+def _site_points():
+    import tomllib
+
+    sc = tomllib.loads(_site_file("scenario.toml").read_text())
+    return tuple(sc["points"]["start"]), tuple(sc["points"]["end"])
+
+
+def _features(name):
+    import json
+
+    return json.loads(_site_file(name).read_text())
+
+
+def _to_site(coords):
+    tr = Transformer.from_crs("EPSG:4326", SITE_CRS, always_xy=True)
+    lon, lat = np.asarray(coords, dtype=float).T
+    return np.column_stack(tr.transform(lon, lat))
+
+
+def test_sample_site_matches_its_generator(tmp_path):
+    import importlib.util
+    from pathlib import Path
+
+    script = Path(__file__).resolve().parents[1] / "scripts" / "make_sample_site.py"
+    if not script.exists():
+        pytest.skip("scripts/ not present (installed package only)")
+    spec = importlib.util.spec_from_file_location("make_sample_site", script)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    mod.write_site(tmp_path)
+    with rasterio.open(tmp_path / "site.tif") as a, rasterio.open(str(_site_file("site.tif"))) as b:
+        np.testing.assert_array_equal(a.read(1), b.read(1))
+        assert a.transform == b.transform and a.crs == b.crs
+    for name in ("keepout.geojson", "lines.geojson", "scenario.toml"):
+        assert (tmp_path / name).read_text() == _site_file(name).read_text(), name
+
+
+def test_sample_site_terrain():
+    path = str(_site_file("site.tif"))
+    import os
+
+    assert os.path.getsize(path) < 2_000_000
+    with rasterio.open(path) as ds:
+        assert ds.dtypes[0] == "float32" and ds.compression is not None
+    t = load_terrain(path)
+    assert t.crs.to_epsg() == 32633 and t.shape == (300, 400) and t.cell_size == 2.0
+    assert np.isfinite(t.z).all()
+    (sx, sy), (ex, ey) = _site_points()
+    drop = t.sample(sx, sy) - t.sample(ex, ey)
+    plan_m = math.hypot(ex - sx, ey - sy)
+    assert 60 <= drop <= 120 and 350 <= plan_m <= 600
+    # feasible at mu 0.2 in principle: with gravity-normal Coulomb friction the friction
+    # work is mu g times the plan length (Ashby et al., Am. J. Phys. 43 (1975) 902), so a
+    # line reaches the end from rest only if drop > mu * plan
+    assert drop > 0.2 * plan_m
+
+
+def test_sample_site_geojson_is_rfc7946():
+    from shapely.geometry import LinearRing
+
+    for name in ("keepout.geojson", "lines.geojson"):
+        fc = _features(name)
+        # RFC 7946 sec. 4: no "crs" member; WGS 84 lon/lat
+        assert fc["type"] == "FeatureCollection" and "crs" not in fc
+        for f in fc["features"]:
+            coords = np.asarray(f["geometry"]["coordinates"][0] if f["geometry"]["type"] == "Polygon"
+                                else f["geometry"]["coordinates"])
+            assert np.all(np.abs(coords[:, 0]) <= 180) and np.all(np.abs(coords[:, 1]) <= 90)
+            if f["geometry"]["type"] == "Polygon":
+                ring = f["geometry"]["coordinates"][0]
+                # RFC 7946 sec. 3.1.6: closed, exterior ring counterclockwise
+                assert ring[0] == ring[-1] and LinearRing(ring).is_ccw
+
+
+def test_sample_site_lines_and_keepout():
+    from shapely.geometry import LineString, Point, Polygon
+
+    (sx, sy), (ex, ey) = _site_points()
+    keep = [Polygon(_to_site(f["geometry"]["coordinates"][0])) for f in _features("keepout.geojson")["features"]]
+    assert {f["properties"]["kind"] for f in _features("keepout.geojson")["features"]} == {"building", "trees"}
+    assert not any(p.contains(Point(sx, sy)) or p.contains(Point(ex, ey)) for p in keep)
+    lines = {f["properties"]["name"]: _to_site(f["geometry"]["coordinates"])
+             for f in _features("lines.geojson")["features"]}
+    assert set(lines) == {"haul road", "direct", "double-back"}
+    for xy in lines.values():
+        assert np.hypot(*(xy[0] - (sx, sy))) < 0.01 and np.hypot(*(xy[-1] - (ex, ey))) < 0.01
+    # the straight line is not the answer: it runs through the building
+    assert LineString(lines["direct"]).intersects(keep[0])
+    assert not LineString(lines["haul road"]).intersects(keep[0])
+    # energy check along each line (work-energy with gravity-normal Coulomb friction, as
+    # above): at mu = 0.15 the road and the double-back run out of head and stall
+    t = load_terrain(str(_site_file("site.tif")))
+
+    def stalls(xy, mu):
+        pts = [xy[0]]
+        for a, b in zip(xy[:-1], xy[1:]):
+            n = max(1, int(np.hypot(*(b - a))))
+            pts.extend(a + (b - a) * k / n for k in range(1, n + 1))
+        pts = np.array(pts)
+        z = t.sample_linear(pts[:, 0], pts[:, 1])
+        plan = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(pts, axis=0).T))])
+        head = (z[0] - z) - mu * plan
+        return bool(np.any(head[1:] <= 0))
+
+    assert stalls(lines["haul road"], 0.15) and stalls(lines["double-back"], 0.15)
+    assert not stalls(lines["direct"], 0.15)
+    assert not stalls(lines["haul road"], 0.1)
