@@ -358,8 +358,12 @@ def test_normal_gravity_published_values():
     # free-air gradient ≈ −3.086e-6 s⁻² (first order, CHECKS) and the 45°/1000 m example
     assert (normal_gravity(45.0, 1000.0) - g45) / 1000.0 == pytest.approx(-3.086e-6, rel=2e-3)
     assert normal_gravity(45.0, 1000.0) == pytest.approx(9.8031129, abs=1e-7)
-    m = Mover(g=normal_gravity(60.0, 500.0))
+    m = Mover(g=normal_gravity(60.0, 500.0), mu=0.1)
     assert 9.81 < m.g < 9.82
+    # local gravity is used along the line: t = √(2s/a), a = g(sin θ − μ cos θ)
+    th = math.radians(30)
+    a = m.g * (math.sin(th) - 0.1 * math.cos(th))
+    assert traverse(incline_points(30, 20.0), m).travel_time_s == pytest.approx(math.sqrt(40 / a), rel=1e-12)
     for bad in (91.0, math.nan, "north"):
         with pytest.raises(ParameterError, match="lat_deg"):
             normal_gravity(bad)
@@ -481,6 +485,14 @@ def test_more_friction_never_faster(pts, kw, dmu):
     assert more.travel_time_s >= base.travel_time_s * (1 - 1e-12)
     ok = np.isfinite(more.speed_m_s)
     assert np.all(more.speed_m_s[ok] <= base.speed_m_s[ok] * (1 + 1e-12) + 1e-12)
+
+
+@SETTINGS
+@given(lines(), movers, st.floats(0.001, 0.05))
+def test_more_drag_never_faster(pts, kw, dk):
+    base = traverse(pts, Mover(**kw))
+    more = traverse(pts, Mover(**{**kw, "drag": kw["drag"] + dk}))
+    assert more.travel_time_s >= base.travel_time_s * (1 - 1e-12)
 
 
 @SETTINGS
