@@ -510,3 +510,47 @@ def test_robust_route_returns_a_line_that_passes_the_envelope():
     for mu in (0.05, 0.2):
         again = evaluate_line(t, np.asarray(rr.route.line), Mover(mu=mu, normal="gravity"))
         assert again.status == "ok"
+
+
+def test_robust_route_replaces_a_nominal_optimum_that_stalls_at_high_friction():
+    # across a 30 % plane and a little down: at mu = 0.03 the fastest line dives and climbs
+    # back, which at mu = 0.075 stalls; the search at high friction keeps a gentler line.
+    # Independent check, work-energy theorem (any mechanics text) with gravity-normal
+    # friction and no drag: v² = 2 g (drop - mu * plan) at every vertex.
+    t = plane_terrain(0.0, 0.3, rows=40, cols=40)
+    s0, e0 = t.cell_center(2, 2), t.cell_center(12, 37)
+    mover = Mover(mu=0.03, normal="gravity")
+
+    def v2_along(line, mu):
+        line = np.asarray(line)
+        plan = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(line[:, :2], axis=0).T))])
+        return 2 * G0 * ((line[0, 2] - line[:, 2]) - mu * plan)
+
+    rr = robust_route(t, s0, e0, mover, 0.0, 0.075, refine=False)
+    nominal = rr.candidates[0]
+    assert not rr.nominal_is_robust and nominal["verdict"] == "stalls at high friction"
+    assert rr.envelope.robust and rr.envelope.high.status == "ok"
+    assert np.all(v2_along(rr.route.line, 0.075)[1:] > 0.0)
+    # never faster at nominal friction than the unconstrained nominal optimum
+    assert rr.envelope.nominal.travel_time_s >= nominal["travel_time_s"]
+    from fallway.route import find_route
+
+    first = find_route(t, s0, e0, mover, refine=False)
+    assert np.min(v2_along(first.line, 0.075)[1:]) < 0.0  # the nominal optimum does stall at HI
+
+
+def test_comparison_figure_draws_every_line(tmp_path):
+    from fallway.compare import comparison_figure
+
+    t = site_terrain()
+    cmp = compare(t, SITE_LINES, Mover(mu=0.2, drag=0.004, v0=1.0, normal="gravity"), optimum=False)
+    fig = comparison_figure(t, cmp)
+    ax_map = fig.axes[0]
+    gids = [ln.get_gid() for ln in ax_map.lines if ln.get_gid() and ln.get_gid().startswith("fallway-compare")]
+    assert gids == [f"fallway-compare-{k}" for k in (1, 2, 3)]
+    # the map shows each line's own plan vertices
+    for ln, r in zip([ln for ln in ax_map.lines if ln.get_gid() in gids], cmp.rows):
+        assert np.array_equal(ln.get_xdata(), r.points[:, 0])
+    out = tmp_path / "comparison.png"
+    fig.savefig(out, format="png", dpi=60)
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -52,6 +52,7 @@ __all__ = [
     "LineResult",
     "RobustRoute",
     "compare",
+    "comparison_figure",
     "drape",
     "envelope",
     "evaluate_line",
@@ -504,12 +505,17 @@ class LineResult:
         return self.travel_time_s is not None
 
     def record(self) -> dict:
-        """The row as plain Python values (floats, str, None, bool), JSON-ready."""
+        """The row as plain Python values (float, str, None, bool).
+
+        NaN becomes None; ``min_radius_m`` stays ``inf`` for a straight line (strict JSON
+        writers should map it to null, as :func:`fallway.export.to_jsonable` does).
+        Envelope columns are added when the row has an envelope, and ``computed``.
+        """
         rec = {c: getattr(self, c) for c in COMPARISON_COLUMNS}
         rec["computed"] = self.computed
         if self.envelope is not None:
             rec.update(self.envelope.columns())
-        return rec
+        return {k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in rec.items()}
 
 
 def _first(a) -> float | None:
@@ -1108,8 +1114,8 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
             for k in range(max(0, int(max_rounds))):
                 if env is None or env.low.overspeed_m is None:
                     break
-                v_lo = env.low.max_speed_m_s
-                cap = cap * mover.max_speed / v_lo * 0.98 if v_lo > 0 else cap * 0.9
+                # scale the previous line's speed at HI by the overshoot at LO (2 % margin)
+                cap = min(cap, env.high.max_speed_m_s) * mover.max_speed / env.low.max_speed_m_s * 0.98
                 if cap <= mover.stall_speed:
                     break
                 _, env = attempt(f"high friction, cap {cap:.2f} m/s", dataclasses.replace(mover, mu=hi, max_speed=cap))
@@ -1121,3 +1127,82 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
                              reason="limits")
     return RobustRoute(route=best[0], envelope=best[1], candidates=tuple(candidates),
                        nominal_is_robust=robust_nominal)
+
+
+# --------------------------------------------------------------------------- figure
+
+def comparison_figure(terrain, comparison: Comparison, *, keepout=None, figsize=(14.0, 6.0)):
+    """One page: the lines on the hillshade (left) and their long-sections (right).
+
+    Parameters
+    ----------
+    terrain : Terrain
+    comparison : Comparison
+    keepout : optional
+        No-go areas drawn on the map (as :func:`fallway.plot.plot_map` takes them).
+    figsize : (float, float)
+        Inches.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Made without pyplot (rendered by Agg); each line's artists carry the gid
+        ``"fallway-compare-<rank>"`` (rank from 1, map and long-section alike).  The
+        long-section shows the line heights (solid, left axis) and speeds (dotted, right
+        axis) against station; a stall is marked with a cross.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.physics import Mover
+    >>> from fallway.terrain import Terrain
+    >>> t = Terrain.from_array(np.tile(-0.5 * np.arange(30.0), (10, 1)), (2.0, 0, 0, 0, -2.0, 20.0))
+    >>> cmp = compare(t, [("a", [(1.0, 10.0), (57.0, 10.0)])], Mover(mu=0.1), optimum=False)
+    >>> fig = comparison_figure(t, cmp)
+    >>> sorted({ln.get_gid() for ax in fig.axes for ln in ax.lines if ln.get_gid()})
+    ['fallway-compare-1']
+    """
+    import matplotlib
+    from matplotlib.figure import Figure
+
+    from .plot import plot_map
+
+    fig = Figure(figsize=figsize, layout="constrained")
+    ax_map, ax_z = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.0, 1.3]})
+    plot_map(terrain, keepout=keepout, ax=ax_map)
+    ax_v = ax_z.twinx()
+    colours = matplotlib.colormaps["tab10"]
+    for rank, r in enumerate(comparison.rows, start=1):
+        if r.points is None or r.profile is None:
+            continue
+        c = colours((rank - 1) % 10)
+        gid = f"fallway-compare-{rank}"
+        if r.travel_time_s is not None:
+            label = f"{rank}. {r.name} ({r.travel_time_s:.1f} s, {r.status})"
+        else:
+            label = f"{rank}. {r.name} (stalls at {r.stalled_at_m:.0f} m)"
+        lw = 2.6 if r.computed else 1.8
+        pts = r.points
+        st_m = np.asarray(r.profile.station_m, dtype=float)
+        ax_map.plot(pts[:, 0], pts[:, 1], color=c, linewidth=lw, zorder=6, label=label, gid=gid)
+        ax_z.plot(st_m, pts[:, 2], color=c, linewidth=lw, label=label, gid=gid)
+        ax_v.plot(st_m, r.profile.speed_m_s, color=c, linewidth=1.0, linestyle=":", gid=gid)
+        if r.stalled_at_m is not None:
+            zs = float(np.interp(r.stalled_at_m, st_m, pts[:, 2]))
+            ax_z.plot([r.stalled_at_m], [zs], marker="x", color=c, markersize=9, linestyle="none", gid=gid)
+    first = next((r for r in comparison.rows if r.points is not None), None)
+    if first is not None:
+        ax_map.plot([first.points[0, 0]], [first.points[0, 1]], marker="^", color="white", markeredgecolor="black",
+                    markersize=10, linestyle="none", zorder=7, label="start")
+    ax_map.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    ax_z.set_xlabel("station along the line (m)")
+    ax_z.set_ylabel("height (m), solid")
+    ax_v.set_ylabel("speed (m/s), dotted")
+    ax_z.grid(True, linewidth=0.4, alpha=0.5)
+    title = "Candidate lines"
+    if comparison.mu_range is not None:
+        title += f" (friction {comparison.mover.mu:g}, range {comparison.mu_range[0]:g} to {comparison.mu_range[1]:g})"
+    else:
+        title += f" (friction {comparison.mover.mu:g})"
+    fig.suptitle(title, fontsize=11)
+    return fig
