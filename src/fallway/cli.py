@@ -269,16 +269,18 @@ def _write_route(outs, sc, r, terrain, keepout, *, reach=None):
     export.write_route_geojson(r, outs.path("route.geojson"), terrain.crs)
     export.write_route_gpkg(r, outs.path("route.gpkg"), terrain.crs)
     export.write_profile_csv(r, terrain, outs.path("profile.csv"))
-    export.write_summary_json(r, outs.path("summary.json"), extra={"scenario": sc.to_dict()})
+    export.write_summary_json(r, outs.path("summary.json"), extra={"scenario": sc.to_dict()}, crs=terrain.crs)
     with open(outs.path("scenario.toml"), "w", encoding="utf-8") as fh:
         fh.write(sc.to_toml())
-    fig = plot.map_figure(terrain, r, reach=reach, keepout=keepout)
-    plot.save_figure(fig, outs.path("map.png"), outs.path("map.svg"))
-    fig = plot.profile_figure(r, terrain)
-    plot.save_figure(fig, outs.path("profile.png"), outs.path("profile.svg"))
+    ax = plot.plot_map(terrain, r, reach=reach, keepout=keepout)
+    plot.save_figure(ax.figure, outs.path("map.png"))
+    outs.path("map.svg")
+    ax = plot.plot_profile(r, terrain)
+    plot.save_figure(ax.figure, outs.path("profile.png"))
+    outs.path("profile.svg")
     report.write_report_html(r, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
                              profile_png=outs.path("profile.png"), parameters=sc.to_dict())
-    return sorted(outs.names)
+    return sorted(outs._names)
 
 
 def _print_route(r, out_dir, written) -> None:
@@ -300,7 +302,7 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
     """Map the arrival time and speed from --start to every reachable cell of DEM."""
     _setup_logging(quiet, verbose)
     from .errors import OutputExistsError
-    from .route import reach as reach_map
+    from .lattice.search import reach as reach_map
 
     out = Path(out_path)
     if out.exists() and not overwrite:
@@ -328,7 +330,7 @@ def demo(out_dir, overwrite, quiet):
     from importlib.resources import as_file, files
 
     from .export import OutputSet
-    from .route import reach as reach_map
+    from .lattice.search import reach as reach_map
     from .scenario import load_scenario
 
     with as_file(files("fallway.sample_terrain")) as site:
