@@ -332,6 +332,14 @@ def test_bend_radius_corner_and_hairpin():
     assert min_bend_radius_m(xy) == pytest.approx(L / (2 * math.sin(phi / 2)), rel=1e-12)
     assert min_bend_radius_m([(0, 0), (10, 0), (3, 0)]) == 0.0
     assert min_bend_radius_m([(0, 0), (10, 0), (10, 0), (20, 0)]) == math.inf
+    # resampled at a fixed spacing, a densely drawn arc with a 5 mm wiggle keeps the arc's
+    # radius (30 m to within 1 %); on the raw vertices the wiggle reads as a ~2 m bend
+    a = np.linspace(0.0, np.pi / 2, 400)
+    arc = np.column_stack([30 * np.cos(a), 30 * np.sin(a)])
+    assert min_bend_radius_m(arc, spacing_m=5.0) == pytest.approx(30.0, rel=1e-3)  # points on chords
+    arc[200] += (0.005, 0.0)
+    assert min_bend_radius_m(arc) < 5.0
+    assert min_bend_radius_m(arc, spacing_m=5.0) == pytest.approx(30.0, rel=1e-2)
 
 
 # --------------------------------------------------------------------------- reading lines

@@ -116,15 +116,27 @@ def _unique_names(names: Sequence[str | None]) -> list[str]:
     return out
 
 
-def _drop_repeats(coords: np.ndarray) -> np.ndarray:
-    """Remove consecutive vertices that repeat the previous one (a GIS double click)."""
+def _drop_repeats(coords: np.ndarray, tol_m: float = _SAME_POINT_M) -> np.ndarray:
+    """Remove vertices within ``tol_m`` of the last kept one (a GIS double click).
+
+    The last vertex is always kept (it is the end point); a kept vertex too close to it
+    gives way instead.
+    """
     if len(coords) < 2:
         return coords
-    step = np.hypot(np.diff(coords[:, 0]), np.diff(coords[:, 1]))
-    if coords.shape[1] == 3:
-        step = np.hypot(step, np.diff(coords[:, 2]))
-    keep = np.concatenate([[True], step > _SAME_POINT_M])
-    return coords[keep]
+    keep = [0]
+    for i in range(1, len(coords)):
+        if np.linalg.norm(coords[i] - coords[keep[-1]]) > tol_m:
+            keep.append(i)
+    if keep[-1] != len(coords) - 1:
+        if len(keep) > 1:
+            keep[-1] = len(coords) - 1
+        else:
+            keep.append(len(coords) - 1)
+    out = coords[keep]
+    if len(out) == 2 and np.linalg.norm(out[1] - out[0]) <= tol_m:
+        return out[:1]
+    return out
 
 
 def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = None
@@ -341,13 +353,25 @@ def _check_on_terrain(xy: np.ndarray, z: np.ndarray, name: str) -> None:
 
 # --------------------------------------------------------------------------- one line
 
-def min_bend_radius_m(xy) -> float:
+def _resample_plan(xy: np.ndarray, spacing_m: float) -> np.ndarray:
+    """Points at equal plan distance along a polyline, both ends included."""
+    seg = np.hypot(*np.diff(xy, axis=0).T)
+    cum = np.concatenate([[0.0], np.cumsum(seg)])
+    n = max(2, int(math.ceil(cum[-1] / spacing_m - 1e-9)) + 1)
+    at = np.linspace(0.0, cum[-1], n)
+    return np.column_stack([np.interp(at, cum, xy[:, 0]), np.interp(at, cum, xy[:, 1])])
+
+
+def min_bend_radius_m(xy, *, spacing_m: float | None = None) -> float:
     """Smallest plan bend radius of a polyline, from the circle through each vertex and its neighbours.
 
     Parameters
     ----------
     xy : array_like (N, 2+)
         Plan vertices as drawn (extra columns ignored).
+    spacing_m : float, optional
+        Resample the line at this plan spacing first (for computed lines, whose vertex
+        spacing is the optimiser's, not a designer's); default: the vertices as given.
 
     Returns
     -------
@@ -367,7 +391,10 @@ def min_bend_radius_m(xy) -> float:
     fit in half of each leg (``L / (2 tan(phi/2))``) and in the whole leg.  It must be
     taken on the vertices as drawn: densified vertices would put a tiny circle at each
     corner (radius of the order of the densifying step) and collinear ones none at all.
-    The radius of a computed line is taken on its own vertices in the same way.
+    A computed line is resampled at one cell (``spacing_m``): its vertices are where the
+    optimiser left them, unevenly spaced, and millimetre wiggles between close vertices
+    would read as millimetre radii; one cell is the shortest length the terrain model
+    resolves, so the figure is the bend radius at the DEM's own resolution.
 
     Examples
     --------
@@ -379,6 +406,10 @@ def min_bend_radius_m(xy) -> float:
     inf
     """
     p = _drop_repeats(np.asarray(xy, dtype=float)[:, :2])
+    if spacing_m is not None and len(p) >= 2:
+        if not (math.isfinite(float(spacing_m)) and float(spacing_m) > 0):
+            raise ParameterError(f"spacing_m must be a finite number > 0, got {spacing_m!r}")
+        p = _resample_plan(p, float(spacing_m))
     if len(p) < 3:
         return math.inf
     a = p[:-2]
@@ -524,7 +555,7 @@ def _first(a) -> float | None:
 
 
 def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None, name: str = "line",
-                  radius_xy=None, computed: bool = False) -> LineResult:
+                  radius_xy=None, radius_spacing_m: float | None = None, computed: bool = False) -> LineResult:
     """Time one 3D line and reduce its profile to a comparison row.
 
     Parameters
@@ -540,6 +571,9 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     radius_xy : array_like (K, 2), optional
         The vertices the bend radius is measured on (the line as drawn, before
         densifying); default ``points``.
+    radius_spacing_m : float, optional
+        Resample ``radius_xy`` at this spacing before measuring the radius (see
+        :func:`min_bend_radius_m`).
     computed : bool
         Mark the row as the tool's own line.
 
@@ -589,7 +623,7 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     min_speed = float(np.min(sp)) if sp.size else v0
     if stalled is not None:
         min_speed = float(mover.stall_speed)
-    radius = min_bend_radius_m(p if radius_xy is None else radius_xy)
+    radius = min_bend_radius_m(p if radius_xy is None else radius_xy, spacing_m=radius_spacing_m)
     overspeed = _first(prof.overspeed)
     liftoff = _first(prof.liftoff)
     if stalled is not None:
@@ -709,7 +743,8 @@ def _verdict(res: dict[str, LineResult]) -> str:
 
 
 def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limits: Limits | None = None,
-             name: str = "line", radius_xy=None, computed: bool = False) -> Envelope:
+             name: str = "line", radius_xy=None, radius_spacing_m: float | None = None,
+             computed: bool = False) -> Envelope:
     """Evaluate one line at low, nominal (``mover.mu``) and high friction.
 
     Parameters
@@ -722,7 +757,7 @@ def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limit
         The nominal mover; ``mu_lo <= mover.mu <= mu_hi``.
     mu_lo, mu_hi : float
         The friction range (e.g. new liner and dry material versus worn liner and wet).
-    limits, name, radius_xy, computed
+    limits, name, radius_xy, radius_spacing_m, computed
         As for :func:`evaluate_line`.
 
     Returns
@@ -746,7 +781,8 @@ def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limit
     for case, mu in zip(_CASES, (lo, mover.mu, hi)):
         m = mover if case == "nominal" else dataclasses.replace(mover, mu=mu)
         res[case] = evaluate_line(terrain if case == "nominal" else None, points, m, limits=limits,
-                                  name=name, radius_xy=radius_xy, computed=computed)
+                                  name=name, radius_xy=radius_xy, radius_spacing_m=radius_spacing_m,
+                                  computed=computed)
     return Envelope(name=name, mu_lo=lo, mu_nominal=mover.mu, mu_hi=hi, low=res["low"],
                     nominal=res["nominal"], high=res["high"], verdict=_verdict(res))
 
@@ -887,11 +923,11 @@ def _row(terrain, name, pts, mover, limits, mu_range, *, computed=False):
     A plan line (N, 2) is draped; a 3D line keeps its own z.
     """
     line = drape(terrain, pts, name=name) if pts.shape[1] == 2 else pts
-    radius_xy = pts[:, :2]
+    kw = dict(limits=limits, name=name, radius_xy=pts[:, :2], computed=computed,
+              radius_spacing_m=float(terrain.cell_size) if computed else None)
     if mu_range is None:
-        return evaluate_line(terrain, line, mover, limits=limits, name=name, radius_xy=radius_xy, computed=computed)
-    env = envelope(terrain, line, mover, mu_range[0], mu_range[1], limits=limits, name=name,
-                   radius_xy=radius_xy, computed=computed)
+        return evaluate_line(terrain, line, mover, **kw)
+    env = envelope(terrain, line, mover, mu_range[0], mu_range[1], **kw)
     return dataclasses.replace(env.nominal, envelope=env)
 
 
@@ -977,7 +1013,9 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         except NoFeasibleLine as err:
             rows.append(_failed_row(name, str(err)))
         else:
-            line = np.asarray(route.line, dtype=float)
+            # vertices the refinement left within 1 % of a cell of each other are one
+            # vertex: they carry no geometry, only a spurious kink
+            line = _drop_repeats(np.asarray(route.line, dtype=float), 0.01 * float(terrain.cell_size))
             rows.append(_row(terrain, name, line, mover, limits, mu_range, computed=True))
     return Comparison.ranked(rows, mover, limits, mu_range, route)
 
