@@ -562,3 +562,18 @@ def test_comparison_figure_draws_every_line(tmp_path):
     out = tmp_path / "comparison.png"
     fig.savefig(out, format="png", dpi=60)
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_line_entering_keepout_is_flagged():
+    import shapely
+
+    t = plane_terrain(0.0, 0.3)
+    a = [(X0 + 52.5, Y0 - 10.0), (X0 + 52.5, Y0 - 180.0)]  # along the centres of column 10
+    b = [(X0 + 152.5, Y0 - 10.0), (X0 + 152.5, Y0 - 180.0)]
+    pond = shapely.box(X0 + 30.0, Y0 - 120.0, X0 + 70.0, Y0 - 90.0)  # across line a only
+    cmp = compare(t, [("a", a), ("b", b)], Mover(mu=0.1), optimum=False, keepout=pond)
+    assert {r.name: r.status for r in cmp.rows} == {"a": "keepout", "b": "ok"}
+    mask = np.zeros(t.shape, bool)
+    mask[20, 10] = True  # the cell under line a at y = Y0 - 102.5 (row 20, column 10)
+    cmp = compare(t, [("a", a), ("b", b)], Mover(mu=0.1), optimum=False, keepout=mask)
+    assert {r.name: r.status for r in cmp.rows} == {"a": "keepout", "b": "ok"}

@@ -495,7 +495,8 @@ class LineResult:
         Station of the stall, of the first vertex over ``Mover.max_speed`` and of the
         first lift-off vertex; None when there is none.
     status : str
-        ``"ok"``, ``"stalls"``, ``"overspeed"``, ``"liftoff"``, ``"grade"`` (a segment
+        ``"ok"``, ``"stalls"``, ``"overspeed"``, ``"liftoff"``, ``"keepout"`` (the line
+        enters a no-go area), ``"grade"`` (a segment
         outside the grade window of the limits), ``"radius"`` (a bend tighter than
         ``Limits.min_radius_m``) or ``"no feasible line"`` (the search found none); the
         first that applies in this order.
@@ -549,13 +550,33 @@ class LineResult:
         return {k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in rec.items()}
 
 
+def _enters_keepout(terrain, p: np.ndarray, keepout) -> bool:
+    """True when the plan line enters a no-go area (touching its edge is allowed)."""
+    if isinstance(keepout, np.ndarray):
+        if terrain is None or keepout.shape != terrain.shape:
+            raise ParameterError(f"a keep-out mask must have the terrain's shape {None if terrain is None else terrain.shape}")
+        xy = _densify(p[:, :2], 0.5 * float(terrain.cell_size))
+        r, c = terrain.rowcol(xy[:, 0], xy[:, 1])
+        r = np.clip(np.rint(r).astype(int), 0, keepout.shape[0] - 1)
+        c = np.clip(np.rint(c).astype(int), 0, keepout.shape[1] - 1)
+        return bool(np.any(keepout[r, c]))
+    import shapely
+
+    geom = getattr(keepout, "geometry", keepout)
+    if not isinstance(geom, shapely.Geometry):
+        raise ParameterError(f"keepout must be a Keepout, a shapely geometry or a mask; got {type(keepout).__name__}")
+    line = shapely.LineString(p[:, :2])
+    return bool(line.intersects(geom) and not line.touches(geom))
+
+
 def _first(a) -> float | None:
     a = np.asarray(a, dtype=float).ravel()
     return float(a[0]) if a.size else None
 
 
 def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None, name: str = "line",
-                  radius_xy=None, radius_spacing_m: float | None = None, computed: bool = False) -> LineResult:
+                  radius_xy=None, radius_spacing_m: float | None = None, computed: bool = False,
+                  keepout=None) -> LineResult:
     """Time one 3D line and reduce its profile to a comparison row.
 
     Parameters
@@ -576,6 +597,10 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
         :func:`min_bend_radius_m`).
     computed : bool
         Mark the row as the tool's own line.
+    keepout : Keepout, shapely geometry or bool ndarray, optional
+        No-go areas in the terrain's CRS (a :class:`fallway.limits.Keepout`, polygons, or
+        a mask of the terrain's shape, True = no-go); a line that enters one gets the
+        status ``"keepout"``.
 
     Returns
     -------
@@ -632,6 +657,8 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
         status = "overspeed"
     elif liftoff is not None:
         status = "liftoff"
+    elif keepout is not None and _enters_keepout(terrain, p, keepout):
+        status = "keepout"
     elif g.size and (np.any(g < limits.min_grade - 1e-12) or np.any(g > limits.max_grade + 1e-12)):
         status = "grade"
     elif limits.min_radius_m is not None and radius < limits.min_radius_m:
@@ -744,7 +771,7 @@ def _verdict(res: dict[str, LineResult]) -> str:
 
 def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limits: Limits | None = None,
              name: str = "line", radius_xy=None, radius_spacing_m: float | None = None,
-             computed: bool = False) -> Envelope:
+             computed: bool = False, keepout=None) -> Envelope:
     """Evaluate one line at low, nominal (``mover.mu``) and high friction.
 
     Parameters
@@ -757,7 +784,7 @@ def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limit
         The nominal mover; ``mu_lo <= mover.mu <= mu_hi``.
     mu_lo, mu_hi : float
         The friction range (e.g. new liner and dry material versus worn liner and wet).
-    limits, name, radius_xy, radius_spacing_m, computed
+    limits, name, radius_xy, radius_spacing_m, computed, keepout
         As for :func:`evaluate_line`.
 
     Returns
@@ -780,9 +807,9 @@ def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limit
     res = {}
     for case, mu in zip(_CASES, (lo, mover.mu, hi)):
         m = mover if case == "nominal" else dataclasses.replace(mover, mu=mu)
-        res[case] = evaluate_line(terrain if case == "nominal" else None, points, m, limits=limits,
+        res[case] = evaluate_line(terrain, points, m, limits=limits,
                                   name=name, radius_xy=radius_xy, radius_spacing_m=radius_spacing_m,
-                                  computed=computed)
+                                  computed=computed, keepout=keepout)
     return Envelope(name=name, mu_lo=lo, mu_nominal=mover.mu, mu_hi=hi, low=res["low"],
                     nominal=res["nominal"], high=res["high"], verdict=_verdict(res))
 
@@ -917,13 +944,13 @@ def _as_lines(lines) -> list[tuple[str, np.ndarray]]:
     return out
 
 
-def _row(terrain, name, pts, mover, limits, mu_range, *, computed=False):
+def _row(terrain, name, pts, mover, limits, mu_range, *, computed=False, keepout=None):
     """Evaluate one line (and its envelope) with its bend radius on the drawn vertices.
 
     A plan line (N, 2) is draped; a 3D line keeps its own z.
     """
     line = drape(terrain, pts, name=name) if pts.shape[1] == 2 else pts
-    kw = dict(limits=limits, name=name, radius_xy=pts[:, :2], computed=computed,
+    kw = dict(limits=limits, name=name, radius_xy=pts[:, :2], computed=computed, keepout=keepout,
               radius_spacing_m=float(terrain.cell_size) if computed else None)
     if mu_range is None:
         return evaluate_line(terrain, line, mover, **kw)
@@ -954,12 +981,17 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         The nominal physics.
     limits : Limits, optional
         Checked on every line (status) and given to the search.
-    keepout : optional
-        No-go areas for the search (the drawn lines are not checked against them).
+    keepout : Keepout, shapely geometry or bool mask, optional
+        No-go areas in the terrain's CRS: given to the search, and every line that
+        enters one gets the status ``"keepout"``.
     optimum : bool
         Add the tool's own optimum between the first line's end points
-        (:func:`fallway.route.find_route`, a ground line), marked ``computed``; when the
-        search finds no line the row has status ``"no feasible line"``.
+        (:func:`fallway.route.find_route`, a ground line; the search snaps each end to
+        the nearest cell centre, so its ends may differ from the drawn ones by up to
+        half a cell diagonal), marked ``computed``; when the search finds no line the
+        row has status ``"no feasible line"``.  The computed line is timed like the
+        others (its vertices closer than 1 % of a cell merged) and its bend radius is
+        measured at one-cell spacing (:func:`min_bend_radius_m`).
     neighbours : {8, 16, 32}
         Lattice stencil of the search.
     refine : bool
@@ -992,7 +1024,7 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         mu_range = _check_mu_range(mover, *mu_range)
     if not items and optimum:
         raise ParameterError("give at least one line: the computed optimum uses the first line's end points")
-    rows = [_row(terrain, name, pts, mover, limits, mu_range) for name, pts in items]
+    rows = [_row(terrain, name, pts, mover, limits, mu_range, keepout=keepout) for name, pts in items]
     route = None
     if optimum:
         taken = {n for n, _ in items}
@@ -1016,7 +1048,7 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
             # vertices the refinement left within 1 % of a cell of each other are one
             # vertex: they carry no geometry, only a spurious kink
             line = _drop_repeats(np.asarray(route.line, dtype=float), 0.01 * float(terrain.cell_size))
-            rows.append(_row(terrain, name, line, mover, limits, mu_range, computed=True))
+            rows.append(_row(terrain, name, line, mover, limits, mu_range, computed=True, keepout=keepout))
     return Comparison.ranked(rows, mover, limits, mu_range, route)
 
 
