@@ -28,14 +28,14 @@ CELL_M = 2.0
 COLS, ROWS = 400, 300        # 800 m east-west, 600 m north-south
 
 # points in local site metres (u east, v north from the south-west corner)
-LOADING_UV = (320.0, 468.0)      # at the lip of the quarry bench, by its south-east corner
-DISCHARGE_UV = (560.0, 150.0)    # hopper on the valley floor
+LOADING_UV = (321.0, 467.0)      # (a cell centre) at the lip of the quarry bench, by its south-east corner
+DISCHARGE_UV = (561.0, 151.0)    # (a cell centre) hopper on the valley floor
 BENCH_Z = 412.0
 BENCH_BOX = (140.0, 470.0, 330.0, 570.0)   # u0, v0, u1, v1
 # haul road centreline (u, v), graded evenly: leaves the bench lip eastwards, hairpins at
 # the east end of the hillside, and comes down south-west to the hopper
 ROAD_UV = np.array([(346.0, 458.0), (560.0, 440.0), (755.0, 405.0), (770.0, 375.0), (740.0, 345.0),
-                    (600.0, 250.0), (575.0, 190.0), (560.0, 150.0)])
+                    (600.0, 250.0), (575.0, 190.0), DISCHARGE_UV])
 ROAD_HALF_WIDTH_M = 4.0
 BUILDING_UV = [(422.0, 288.0), (476.0, 303.0), (469.0, 328.0), (415.0, 313.0)]   # on the direct line
 TREES_CENTRE_UV, TREES_RADII = (328.0, 352.0), (40.0, 28.0)   # across the fall line below the bench

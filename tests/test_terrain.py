@@ -534,7 +534,7 @@ def test_too_large_is_refused_before_reading(huge_sparse_tif, monkeypatch):
     # prove no read is attempted: any read would fail the test
     monkeypatch.setattr(rasterio.io.DatasetReader, "read",
                         lambda *a, **k: pytest.fail("read attempted"), raising=True)
-    with pytest.raises(TerrainError, match=r"10+ x 10+ cells.*GB.*bounds=.*resolution_m="):
+    with pytest.raises(TerrainError, match=r"10000.0 M cells \(100000 x 100000 read.*GB.*bounds=.*resolution_m=.*about \d+ m or more fits"):
         load_terrain(path)
     with pytest.raises(TerrainError, match="over the limit of 0.1 M cells"):
         load_terrain(path, bounds=(300_000, 4_999_000, 301_000, 5_000_000), max_cells=100_000)
@@ -682,3 +682,54 @@ def test_sample_site_lines_and_keepout():
     assert stalls(lines["haul road"], 0.15) and stalls(lines["double-back"], 0.15)
     assert not stalls(lines["direct"], 0.15)
     assert not stalls(lines["haul road"], 0.1)
+
+
+# --------------------------------------------------------------------------------------
+# the tiled spline on grids larger than one tile
+# --------------------------------------------------------------------------------------
+
+def test_tiled_interpolant_matches_global_spline():
+    # reference: scipy's RectBivariateSpline over the whole grid; the tiled, blended
+    # interpolant must agree with it, most of all across tile seams
+    from scipy.interpolate import RectBivariateSpline
+    from scipy.ndimage import gaussian_filter
+
+    from fallway import terrain as terrain_mod
+
+    n = 2 * terrain_mod._TILE + 40
+    rng = np.random.default_rng(5)
+    z = 50 * gaussian_filter(rng.standard_normal((n, n + 17)), 6, mode="reflect")
+    t = Terrain.from_array(z, Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
+    ref = RectBivariateSpline(np.arange(n, dtype=float), np.arange(n + 17, dtype=float), z, s=0)
+    seam = float(terrain_mod._TILE)
+    rr = np.concatenate([np.linspace(seam - 8, seam + 8, 161), rng.uniform(2, n - 3, 300)])
+    cc = np.concatenate([rng.uniform(2, n + 14, 161), np.full(300, seam + 0.37)])
+    x, y = cc + 0.5, n - (rr + 0.5)
+    s = t.sample(x, y)
+    scale = np.std(z)
+    np.testing.assert_allclose(s, ref.ev(rr, cc), atol=1e-6 * scale)
+    gx, gy = t.gradient(x, y)
+    np.testing.assert_allclose(gx, ref.ev(rr, cc, dy=1), atol=1e-6 * scale)
+    np.testing.assert_allclose(gy, -ref.ev(rr, cc, dx=1), atol=1e-6 * scale)
+
+
+def test_tiled_interpolant_smooth_and_exact_across_seams():
+    from fallway import terrain as terrain_mod
+
+    n = terrain_mod._TILE + 30
+    rows, cols = np.mgrid[0:n, 0:n].astype(float)
+    x, y = cols + 0.5, n - (rows + 0.5)
+    f = lambda x, y: 1e-5 * x**3 - 2e-5 * x * y**2 + 0.3 * y - x + 4  # noqa: E731
+    t = Terrain.from_array(f(x, y), Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
+    seam_x = terrain_mod._TILE + 0.5          # the column boundary, in map x
+    px = np.linspace(seam_x - 9, seam_x + 9, 73)
+    py = np.full_like(px, 70.3)
+    # polynomial of degree <= 3: exact in every tile, so exact through the blend too
+    np.testing.assert_allclose(t.sample(px, py), f(px, py), atol=1e-8)
+    # gradient equals central differences of sample() across the seam (C1 blend)
+    zz = 20 * np.sin(cols / 7.0) * np.cos(rows / 11.0)
+    t2 = Terrain.from_array(zz, Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
+    h = 1e-4
+    gx, gy = t2.gradient(px, py)
+    np.testing.assert_allclose(gx, (t2.sample(px + h, py) - t2.sample(px - h, py)) / (2 * h), atol=1e-6)
+    np.testing.assert_allclose(gy, (t2.sample(px, py + h) - t2.sample(px, py - h)) / (2 * h), atol=1e-6)

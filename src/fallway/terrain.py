@@ -10,13 +10,16 @@ Two interpolants live on a terrain:
 
 * :meth:`Terrain.sample_linear` -- bilinear between cell centres, the lattice search's
   own interpolation;
-* :meth:`Terrain.sample` / :meth:`Terrain.gradient` -- an interpolating bicubic spline
+* :meth:`Terrain.sample` / :meth:`Terrain.gradient` -- interpolating bicubic splines
   (:class:`scipy.interpolate.RectBivariateSpline`, ``s=0``) for the continuous
-  refinement.  It is exact on planes (a cubic spline reproduces every polynomial of
-  degree <= 3).  Nodata cells are filled for the spline only, by linear extrapolation
-  from the nearest valid cell, so a plane stays exact right up to a hole; points whose
-  4 x 4 spline neighbourhood touches nodata, or that lie outside the hull of cell
-  centres, give NaN (see :meth:`Terrain.valid`).
+  refinement.  They are exact on planes (a cubic spline reproduces every polynomial of
+  degree <= 3).  Splines are built lazily per tile of 128 x 128 cells with 12 cells of
+  context, and blended with a C2 weight over 6 cells either side of tile seams, so a
+  large grid costs only the tiles a line touches and the result matches one global
+  spline to ~1e-9 of the relief.  Nodata cells are filled for the splines only, by
+  linear extrapolation from the nearest valid cell, so a plane stays exact right up to
+  a hole; points whose 4 x 4 cell neighbourhood touches nodata, or that lie outside the
+  hull of cell centres, give NaN (see :meth:`Terrain.valid`).
 """
 
 from __future__ import annotations
@@ -46,6 +49,14 @@ _READ_BYTES_PER_CELL = 16
 _OUT_BYTES_PER_CELL = 40
 # extrapolated nodata fill reaches at most this many cells before it is held constant
 _FILL_REACH_CELLS = 8.0
+# the smooth interpolant: bicubic splines on tiles of _TILE cells (plus _TILE_PAD cells of
+# context each side), blended over _BLEND cells either side of a tile boundary.  A cubic
+# spline's response to a change decays by about 2 - sqrt(3) = 0.27 per cell, so with
+# 12 - 6 = 6 cells of context beyond the blend zone neighbouring tiles agree to ~4e-4 of
+# the local third differences there, and the blend hides even that.
+_TILE = 128
+_TILE_PAD = 12
+_BLEND = 6.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -161,25 +172,75 @@ class Terrain:
 
     # -- smooth interpolant -------------------------------------------------------------
 
-    def _spline_parts(self):
-        """(spline, guard mask) built once and kept in ``_cache``."""
-        parts = self._cache.get("spline")
-        if parts is None:
-            from scipy.interpolate import RectBivariateSpline
+    def _near_nodata(self) -> np.ndarray:
+        """Cells with nodata in their 3 x 3 block (kept in ``_cache``)."""
+        near = self._cache.get("near_nodata")
+        if near is None:
             from scipy.ndimage import binary_dilation
 
             nodata = ~np.isfinite(self.z)
-            zf = _fill_nodata(self.z, nodata) if nodata.any() else self.z
-            rows, cols = self.shape
-            spline = RectBivariateSpline(np.arange(rows, dtype=float), np.arange(cols, dtype=float),
-                                         zf, kx=min(3, rows - 1), ky=min(3, cols - 1), s=0)
-            # a cell centre is "near nodata" when nodata lies in its 3 x 3 block; a point is
-            # usable when the four centres around it are not near nodata, i.e. its 4 x 4
-            # spline neighbourhood holds data only
             near = binary_dilation(nodata, structure=np.ones((3, 3), bool)) if nodata.any() else nodata
-            parts = (spline, near)
-            self._cache["spline"] = parts
-        return parts
+            self._cache["near_nodata"] = near
+        return near
+
+    def _tile_spline(self, kr: int, kc: int):
+        """The bicubic spline of tile (kr, kc), built on first use and kept in ``_cache``.
+
+        A tile covers ``_TILE`` x ``_TILE`` cells plus ``_TILE_PAD`` cells of context on
+        every side (clipped to the grid); nodata is filled inside that block only.
+        """
+        tiles = self._cache.setdefault("tiles", {})
+        key = (kr, kc)
+        if key not in tiles:
+            from scipy.interpolate import RectBivariateSpline
+
+            rows, cols = self.shape
+            r0, r1 = max(0, kr * _TILE - _TILE_PAD), min(rows, (kr + 1) * _TILE + _TILE_PAD)
+            c0, c1 = max(0, kc * _TILE - _TILE_PAD), min(cols, (kc + 1) * _TILE + _TILE_PAD)
+            block = self.z[r0:r1, c0:c1]
+            nodata = ~np.isfinite(block)
+            if nodata.all():
+                tiles[key] = None
+            else:
+                zf = _fill_nodata(block, nodata) if nodata.any() else block
+                sp = RectBivariateSpline(np.arange(r1 - r0, dtype=float), np.arange(c1 - c0, dtype=float), zf,
+                                         kx=min(3, r1 - r0 - 1), ky=min(3, c1 - c0 - 1), s=0)
+                tiles[key] = (sp, r0, c0)
+        return tiles[key]
+
+    def _smooth_eval(self, r, c, grad: bool):
+        """Height (and d/drow, d/dcol) of the blended tile splines at fractional (r, c)."""
+        rows, cols = self.shape
+        ra, rb, wra, wrb, dwr = _blend_axis(r, rows)
+        ca, cb, wca, wcb, dwc = _blend_axis(c, cols)
+        ntc = -(-cols // _TILE)
+        z = np.zeros(r.shape)
+        dzr = np.zeros(r.shape) if grad else None
+        dzc = np.zeros(r.shape) if grad else None
+        for kr, wr, sr in ((ra, wra, -1.0), (rb, wrb, 1.0)):
+            for kc, wc, sc in ((ca, wca, -1.0), (cb, wcb, 1.0)):
+                active = np.nonzero((wr > 0) | (dwr != 0) if sr > 0 else np.ones(r.shape, bool))[0]
+                if sc > 0:
+                    active = active[(wc[active] > 0) | (dwc[active] != 0)]
+                if active.size == 0:
+                    continue
+                tid = kr[active] * ntc + kc[active]
+                order = np.argsort(tid, kind="stable")
+                active, tid = active[order], tid[order]
+                cuts = np.flatnonzero(np.diff(tid)) + 1
+                for grp in np.split(active, cuts):
+                    part = self._tile_spline(int(kr[grp[0]]), int(kc[grp[0]]))
+                    if part is None:
+                        z[grp] = np.nan
+                        continue
+                    sp, r0, c0 = part
+                    rr, cc = r[grp] - r0, c[grp] - c0
+                    v = sp.ev(rr, cc)
+                    z[grp] += wr[grp] * wc[grp] * v
+                    if grad:
+                        dzr[grp] += wr[grp] * wc[grp] * sp.ev(rr, cc, dx=1) + sr * dwr[grp] * wc[grp] * v
+                        dzc[grp] += wr[grp] * wc[grp] * sp.ev(rr, cc, dy=1) + sc * dwc[grp] * wr[grp] * v
+        return z, dzr, dzc
 
     def _prepare(self, x, y):
         r, c = self.rowcol(x, y)
@@ -217,10 +278,9 @@ class Terrain:
         >>> t.valid([0.6, 6.5, 9.0], [7.4, 1.5, 1.5]).tolist()
         [False, True, False]
         """
-        spline, near = self._spline_parts()
         r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, near)
-        return bool(ok[0]) if scalar else ok
+        ok = self._valid_rc(r, c, self._near_nodata())
+        return bool(ok.ravel()[0]) if scalar else ok
 
     def sample(self, x, y):
         """Heights (m) at map points on the smooth (bicubic spline) interpolant.
@@ -237,12 +297,11 @@ class Terrain:
         >>> print(f"{t.sample(6.0, 6.0):.6f}")
         8.750000
         """
-        spline, near = self._spline_parts()
         r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, near)
+        ok = self._valid_rc(r, c, self._near_nodata())
         out = np.full(r.shape, np.nan)
         if ok.any():
-            out[ok] = spline.ev(r[ok], c[ok])
+            out[ok] = self._smooth_eval(r[ok], c[ok], grad=False)[0]
         return float(out.ravel()[0]) if scalar else out
 
     def gradient(self, x, y):
@@ -261,20 +320,41 @@ class Terrain:
         >>> print(f"{gx:.4f} {gy:.4f}")
         0.1250 0.2500
         """
-        spline, near = self._spline_parts()
         r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, near)
+        ok = self._valid_rc(r, c, self._near_nodata())
         gx = np.full(r.shape, np.nan)
         gy = np.full(r.shape, np.nan)
         if ok.any():
             t = self.transform
+            _, dzr, dzc = self._smooth_eval(r[ok], c[ok], grad=True)
             # col = (x - c0)/a - 1/2 and row = (y - f)/e - 1/2, so d/dx = (1/a) d/dcol and
             # d/dy = (1/e) d/drow (e < 0: row 0 is north)
-            gx[ok] = spline.ev(r[ok], c[ok], dy=1) / t.a
-            gy[ok] = spline.ev(r[ok], c[ok], dx=1) / t.e
+            gx[ok] = dzc / t.a
+            gy[ok] = dzr / t.e
         if scalar:
             return float(gx.ravel()[0]), float(gy.ravel()[0])
         return gx, gy
+
+
+def _blend_axis(u: np.ndarray, n: int):
+    """Tiles and weights along one axis for fractional cell coordinates ``u``.
+
+    Away from tile boundaries a point belongs to one tile (weight 1).  Within
+    ``_BLEND`` cells of an interior boundary it takes both neighbouring tiles, weighted by
+    the C2 "smootherstep" S(t) = 6t^5 - 15t^4 + 10t^3, so the blend is twice
+    continuously differentiable and exact wherever both splines are (planes, cubics).
+    Returns (tile_a, tile_b, w_a, w_b, dw_b/du); dw_a/du = -dw_b/du.
+    """
+    nt = -(-n // _TILE)
+    m = np.rint(u / _TILE).astype(np.int64)
+    near = (m >= 1) & (m <= nt - 1) & (np.abs(u - m * _TILE) < _BLEND)
+    own = np.clip(np.floor(u / _TILE).astype(np.int64), 0, nt - 1)
+    ka = np.where(near, m - 1, own)
+    kb = np.where(near, m, own)
+    t = np.clip((u - m * _TILE + _BLEND) / (2 * _BLEND), 0.0, 1.0)
+    wb = np.where(near, t * t * t * (t * (6 * t - 15) + 10), 0.0)
+    dwb = np.where(near, 30 * t * t * (1 - t) ** 2 / (2 * _BLEND), 0.0)
+    return ka, kb, 1.0 - wb, wb, dwb
 
 
 def _fill_nodata(z: np.ndarray, nodata: np.ndarray) -> np.ndarray:
@@ -422,7 +502,11 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
     Examples
     --------
     >>> from importlib.resources import files
-    >>> t = load_terrain(files("fallway.sample_terrain") / "site.tif")  # doctest: +SKIP
+    >>> t = load_terrain(files("fallway.sample_terrain") / "site.tif")
+    >>> t.crs.to_epsg(), t.shape, t.cell_size
+    (32633, (300, 400), 2.0)
+    >>> print(f"{t.sample(448321.0, 5212467.0):.2f} m")
+    408.19 m
     """
     import rasterio
     from rasterio.errors import NotGeoreferencedWarning, RasterioError
@@ -545,12 +629,15 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
         limit = min(limit, int(0.5 * avail / _OUT_BYTES_PER_CELL))
     cells = max(read_cells, out_cells)
     if cells > limit or (avail is not None and need > avail):
+        fit_cells = min(limit, avail / (_READ_BYTES_PER_CELL + _OUT_BYTES_PER_CELL)) if avail else limit
+        fit_m = target_m * math.sqrt(cells / max(fit_cells, 1.0)) * 1.05
         raise TerrainError(
-            f"{p}: the grid to load is about {read_h} x {read_w} cells read, {out_cells / 1e6:.1f} M cells "
-            f"at {target_m:.3g} m (~{need / 1e9:.1f} GB working memory), over the limit of "
+            f"{p}: loading needs about {cells / 1e6:.1f} M cells ({read_h} x {read_w} read, "
+            f"{target_m:.3g} m cells, ~{need / 1e9:.1f} GB working memory), over the limit of "
             f"{limit / 1e6:.1f} M cells"
             + (f" / {avail / 1e9:.1f} GB available" if avail is not None else "")
-            + "; pass bounds= to read a window around the site or a coarser resolution_m=")
+            + f"; pass bounds=(left, bottom, right, top) to read a window around the site, "
+            f"or a coarser resolution_m= (about {math.ceil(fit_m):d} m or more fits)")
 
     # -- read ----------------------------------------------------------------------------
     if (kx, ky) == (1, 1):
