@@ -733,3 +733,23 @@ def test_tiled_interpolant_smooth_and_exact_across_seams():
     gx, gy = t2.gradient(px, py)
     np.testing.assert_allclose(gx, (t2.sample(px + h, py) - t2.sample(px - h, py)) / (2 * h), atol=1e-6)
     np.testing.assert_allclose(gy, (t2.sample(px, py + h) - t2.sample(px, py - h)) / (2 * h), atol=1e-6)
+
+
+def test_geographic_bounds_in_either_longitude_convention(topobathy, tmp_path):
+    # the file counts 0..360 degrees east; bounds given as -180..180 (and as 0..360) work
+    topo, lon, lat = topobathy
+    dlon = (lon[-1] - lon[0]) / (lon.size - 1)
+    dlat = (lat[-1] - lat[0]) / (lat.size - 1)
+    tf = Affine(dlon, 0, lon[0] - dlon / 2, 0, dlat, lat[0] - dlat / 2)
+    path = write_geotiff(tmp_path / "tb.tif", topo, tf, "EPSG:4326")
+    a = load_terrain(path, bounds=(-125.0, 48.5, -124.0, 49.2), margin_m=0)
+    b = load_terrain(path, bounds=(235.0, 48.5, 236.0, 49.2), margin_m=0)
+    assert a.transform == b.transform and a.shape == b.shape
+    assert a.z.size < 0.2 * topo.size
+
+
+def test_geographic_too_wide_for_one_zone(tmp_path):
+    tf = Affine(0.5, 0, 0.0, 0, -0.5, 50.0)
+    p = write_geotiff(tmp_path / "wide.tif", np.zeros((10, 40)), tf, "EPSG:4326")
+    with pytest.raises(TerrainError, match="20.0 degrees of longitude.*bounds="):
+        load_terrain(p)

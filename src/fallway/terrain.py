@@ -55,6 +55,9 @@ _FILL_REACH_CELLS = 8.0
 # 12 - 6 = 6 cells of context beyond the blend zone neighbouring tiles agree to ~4e-4 of
 # the local third differences there, and the blend hides even that.
 _TILE = 128
+# widest geographic window reprojected to one UTM zone (two zones' width; the scale error
+# at 6 degrees from the central meridian is about 0.6 %)
+_MAX_LON_SPAN_DEG = 12.0
 _TILE_PAD = 12
 _BLEND = 6.0
 
@@ -581,11 +584,17 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
         else:
             mx = my = margin_m / (units or 1.0)
         inv = ~t
-        cols_, rows_ = zip(*(inv @ (x, y) for x in (left - mx, right + mx) for y in (bottom - my, top + my)))
-        c0 = max(0, math.floor(min(cols_)))
-        c1 = min(src.width, math.ceil(max(cols_)))
-        r0 = max(0, math.floor(min(rows_)))
-        r1 = min(src.height, math.ceil(max(rows_)))
+        # geographic rasters may count longitude 0..360 while bounds use -180..180 (or the
+        # reverse): try the bounds as given, then shifted by a full turn
+        for shift in ((0.0, 360.0, -360.0) if geographic else (0.0,)):
+            cols_, rows_ = zip(*(inv @ (x + shift, y) for x in (left - mx, right + mx)
+                                 for y in (bottom - my, top + my)))
+            c0 = max(0, math.floor(min(cols_)))
+            c1 = min(src.width, math.ceil(max(cols_)))
+            r0 = max(0, math.floor(min(rows_)))
+            r1 = min(src.height, math.ceil(max(rows_)))
+            if c1 - c0 >= 2 and r1 - r0 >= 2:
+                break
         if c1 - c0 < 2 or r1 - r0 < 2:
             lb, bb, rb, tb = src.bounds
             raise TerrainError(f"bounds {tuple(bounds)} do not overlap {p} (its bounds are "
@@ -672,6 +681,9 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
         if west < -180.0 - 1e-9 or east > 180.0 + 1e-9:
             raise TerrainError(f"{p} crosses the antimeridian (longitudes {west:.4f}..{east:.4f}); "
                                "pass bounds= on one side of it")
+        if east - west > _MAX_LON_SPAN_DEG:
+            raise TerrainError(f"{p} spans {east - west:.1f} degrees of longitude, too wide for one UTM "
+                               f"zone (at most {_MAX_LON_SPAN_DEG:g}); pass bounds= around the site")
 
     need_reproject = not metric
     square = abs(rt.a - abs(rt.e)) <= 1e-9 * rt.a
