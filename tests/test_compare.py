@@ -577,3 +577,22 @@ def test_line_entering_keepout_is_flagged():
     mask[20, 10] = True  # the cell under line a at y = Y0 - 102.5 (row 20, column 10)
     cmp = compare(t, [("a", a), ("b", b)], Mover(mu=0.1), optimum=False, keepout=mask)
     assert {r.name: r.status for r in cmp.rows} == {"a": "keepout", "b": "ok"}
+
+
+def test_read_lines_chooses_or_asks_for_a_layer(tmp_path):
+    import pyogrio.raw
+    import shapely
+
+    p = tmp_path / "site.gpkg"
+    line = np.array([shapely.to_wkb(shapely.LineString([(X0, Y0 - 5.0), (X0 + 50.0, Y0 - 90.0)]))], dtype=object)
+    pt = np.array([shapely.to_wkb(shapely.Point(X0, Y0 - 5.0))], dtype=object)
+    pyogrio.raw.write(p, pt, [np.array(["bay"], dtype=object)], ["name"], layer="points", driver="GPKG",
+                      geometry_type="Point", crs="EPSG:32633")
+    pyogrio.raw.write(p, line, [np.array(["east"], dtype=object)], ["name"], layer="lines", driver="GPKG",
+                      geometry_type="LineString", crs="EPSG:32633")
+    assert [n for n, _ in read_lines(p)] == ["east"]  # the only line layer
+    pyogrio.raw.write(p, line, [np.array(["west"], dtype=object)], ["name"], layer="more", driver="GPKG",
+                      geometry_type="LineString", crs="EPSG:32633")
+    with pytest.raises(ParameterError, match="3 layers"):
+        read_lines(p)
+    assert [n for n, _ in read_lines(p, layer="more")] == ["west"]

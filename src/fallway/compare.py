@@ -139,6 +139,21 @@ def _drop_repeats(coords: np.ndarray, tol_m: float = _SAME_POINT_M) -> np.ndarra
     return out
 
 
+def _line_layer(p: Path):
+    """The layer to read when none is named: the only one, or the only one with lines."""
+    import pyogrio
+
+    layers = pyogrio.list_layers(p)
+    if len(layers) <= 1:
+        return None
+    lines = [str(n) for n, kind in layers if kind is None or "line" in str(kind).lower() or kind == "Unknown"]
+    if len(lines) == 1:
+        return lines[0]
+    names = ", ".join(str(n) for n, _ in layers)
+    raise ParameterError(f"{p} holds {len(layers)} layers ({names}); put the candidate lines in one layer "
+                         "or name the layer to read")
+
+
 def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = None
                ) -> list[tuple[str, np.ndarray]]:
     """Read named LineStrings from a GeoJSON or GeoPackage file.
@@ -152,7 +167,8 @@ def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = N
         Target CRS (the terrain's; rasterio or pyproj CRS, or an ``"EPSG:..."`` string).
         The lines are reprojected into it; without it they stay in the file's CRS.
     layer : str or int, optional
-        Layer of a multi-layer file (default: the first).
+        Layer of a multi-layer file.  Default: the only layer, or the only layer with
+        line (or unknown) geometry; a file with several such layers is an error.
 
     Returns
     -------
@@ -201,6 +217,8 @@ def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = N
     if p.is_dir() and p.suffix.lower() not in (".gdb",):
         raise FallwayIOError(f"{p} is a folder; give the GeoJSON or GeoPackage file of the lines")
     try:
+        if layer is None:
+            layer = _line_layer(p)
         meta, _fids, geoms, field_data = pyogrio.raw.read(p, layer=layer)
     except (DataSourceError, DataLayerError) as err:
         msg = str(err).splitlines()[0] if str(err) else type(err).__name__
