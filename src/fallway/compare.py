@@ -42,7 +42,7 @@ import numpy as np
 
 from .errors import FallwayIOError, NoFeasibleLine, ParameterError
 from .limits import Limits
-from .physics import Mover, Profile
+from .physics import Mover, Profile, traverse
 
 __all__ = [
     "COMPARISON_COLUMNS",
@@ -292,9 +292,8 @@ def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = N
 # --------------------------------------------------------------------------- draping
 
 def _terrain_heights(terrain, x, y):
-    """Heights on the terrain's smooth interpolant (bilinear if the terrain has none)."""
-    sample = getattr(terrain, "sample", None) or terrain.sample_linear
-    return np.atleast_1d(np.asarray(sample(x, y), dtype=float))
+    """Heights on the terrain's smooth interpolant (NaN off the DEM or near nodata)."""
+    return np.atleast_1d(np.asarray(terrain.sample(x, y), dtype=float))
 
 
 def _densify(xy: np.ndarray, step_m: float) -> np.ndarray:
@@ -443,49 +442,6 @@ def min_bend_radius_m(xy, *, spacing_m: float | None = None) -> float:
     with np.errstate(divide="ignore", invalid="ignore"):
         r = np.where(straight, np.where(dot < 0, 0.0, np.inf), ab * bc * ca / (2.0 * np.abs(cross)))
     return float(np.min(r))
-
-
-def _traverse(points: np.ndarray, mover: Mover) -> Profile:
-    """:func:`fallway.physics.traverse`, or the gravity-normal segment chain if it is missing."""
-    from . import physics
-
-    fn = getattr(physics, "traverse", None)
-    if fn is not None:
-        return fn(points, mover)
-    return _traverse_segments(points, mover)  # pragma: no cover - only before traverse exists
-
-
-def _traverse_segments(points: np.ndarray, mover: Mover) -> Profile:  # pragma: no cover
-    """Gravity-normal motion chained over straight segments (closed-form segment law)."""
-    from ._segment import segment_law
-
-    p = np.asarray(points, dtype=float)
-    d = np.diff(p, axis=0)
-    plan = np.hypot(d[:, 0], d[:, 1])
-    drop = -d[:, 2]
-    length = np.hypot(plan, d[:, 2])
-    station = np.concatenate([[0.0], np.cumsum(length)])
-    n = len(p)
-    speed = np.full(n, np.nan)
-    time = np.full(n, np.nan)
-    speed[0], time[0] = mover.v0, 0.0
-    v2 = mover.v0 ** 2
-    stalled = None
-    for i in range(n - 1):
-        v2, dt, sig = segment_law(v2, drop[i], plan[i], length[i], mover.g, mover.mu, mover.drag,
-                                  mover.stall_speed ** 2)
-        if sig >= 0.0:
-            stalled = float(station[i] + sig)
-            break
-        speed[i + 1] = math.sqrt(v2)
-        time[i + 1] = time[i] + dt
-    with np.errstate(divide="ignore", invalid="ignore"):
-        g = np.where(plan > 0, drop / np.where(plan > 0, plan, 1.0), np.sign(drop) * np.inf)
-        nr = np.where(length > 0, plan / np.where(length > 0, length, 1.0), 1.0)
-    grade = np.concatenate([g, g[-1:]])
-    normal = np.concatenate([nr, nr[-1:]])
-    over = station[np.isfinite(speed) & (speed > mover.max_speed)] if mover.max_speed else np.empty(0)
-    return Profile(p, station, speed, time, grade, normal, stalled, np.empty(0), over)
 
 
 @dataclass(frozen=True, eq=False)
@@ -644,12 +600,10 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     if not np.all(np.isfinite(p)):
         raise ParameterError(f"line '{name}' has non-finite coordinates; drape it on the terrain first")
     if terrain is not None:
-        valid = getattr(terrain, "valid", None)
-        ok = np.asarray(valid(p[:, 0], p[:, 1])) if valid is not None else np.isfinite(
-            terrain.sample_linear(p[:, 0], p[:, 1]))
+        ok = np.atleast_1d(terrain.valid(p[:, 0], p[:, 1]))
         _check_on_terrain(p[:, :2], np.where(ok, 0.0, np.nan), name)
     try:
-        prof = _traverse(p, mover)
+        prof = traverse(p, mover)
     except ParameterError as err:
         raise ParameterError(f"line '{name}': {err}") from err
     d = np.diff(p, axis=0)
