@@ -753,3 +753,14 @@ def test_geographic_too_wide_for_one_zone(tmp_path):
     p = write_geotiff(tmp_path / "wide.tif", np.zeros((10, 40)), tf, "EPSG:4326")
     with pytest.raises(TerrainError, match="20.0 degrees of longitude.*bounds="):
         load_terrain(p)
+
+
+def test_truncated_raster(plane_tif, tmp_path):
+    # a GeoTIFF cut short: the header opens, the pixel data is gone
+    path = plane_tif[0]
+    data = path.read_bytes()
+    bad = tmp_path / "cut.tif"
+    bad.write_bytes(data[: len(data) // 3])
+    with pytest.raises(FallwayIOError, match=r"cut.tif.*(as a raster|failed).*") as info:
+        load_terrain(bad)
+    assert isinstance(info.value.__cause__, rasterio.errors.RasterioError)

@@ -530,17 +530,30 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
         raise FallwayIOError(f"terrain file not found: {p}; check the path")
     if p.is_dir():
         raise FallwayIOError(f"terrain path is a folder, not a raster: {p}; give a GeoTIFF file")
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            # rasterio 1.4 multiplies affines with `*`, which affine 3 flags as pending
-            # deprecation; not ours to fix, keep it out of the caller's warnings
-            warnings.filterwarnings("ignore", message="Use `@` matmul", category=PendingDeprecationWarning)
-            with rasterio.open(p) as src:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        # rasterio 1.4 multiplies affines with `*`, which affine 3 flags as pending
+        # deprecation; not ours to fix, keep it out of the caller's warnings
+        warnings.filterwarnings("ignore", message="Use `@` matmul", category=PendingDeprecationWarning)
+        try:
+            src = rasterio.open(p)
+        except RasterioError as err:
+            raise FallwayIOError(f"cannot read {p} as a raster ({_first_line(err)}); give a GeoTIFF or "
+                                 "another GDAL-readable DEM") from err
+        try:
+            with src:
                 return _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells)
-    except RasterioError as err:
-        raise FallwayIOError(f"cannot read {p} as a raster ({err}); give a GeoTIFF or another "
-                             "GDAL-readable DEM") from err
+        except RasterioError as err:
+            raise FallwayIOError(f"reading or reprojecting {p} failed ({_first_line(err)}); check the file "
+                                 "is complete (gdalinfo -checksum) and its CRS is valid") from err
+
+
+def _first_line(err: BaseException) -> str:
+    """First line of GDAL's own message (rasterio chains it as the cause)."""
+    while err.__cause__ is not None and "previous exception" in str(err):
+        err = err.__cause__
+    text = str(err).strip()
+    return text.splitlines()[0] if text else type(err).__name__
 
 
 def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Terrain:
