@@ -596,3 +596,25 @@ def test_read_lines_chooses_or_asks_for_a_layer(tmp_path):
     with pytest.raises(ParameterError, match="3 layers"):
         read_lines(p)
     assert [n for n, _ in read_lines(p, layer="more")] == ["west"]
+
+
+def test_sample_site_candidates_behave_as_its_readme_says():
+    # the shipped invented site (sample_terrain/README.md): at mu = 0.15 the haul road and
+    # the double-back stall, and the direct line runs through the site building (keep-out)
+    from importlib.resources import as_file, files
+
+    from fallway.limits import Keepout
+    from fallway.terrain import load_terrain
+
+    with as_file(files("fallway.sample_terrain")) as d:
+        t = load_terrain(d / "site.tif")
+        lines = read_lines(d / "lines.geojson", crs=t.crs)
+        ko = Keepout.from_file(d / "keepout.geojson").in_crs(t.crs)
+    cmp = compare(t, lines, Mover(mu=0.15, max_speed=30.0), keepout=ko, optimum=False, mu_range=(0.1, 0.2))
+    rows = {r.name: r for r in cmp.rows}
+    assert set(rows) == {"haul road", "direct", "double-back"}
+    assert rows["haul road"].status == "stalls" and rows["double-back"].status == "stalls"
+    assert "keepout" in rows["direct"].issues and rows["direct"].travel_time_s is not None
+    assert cmp.rows[0].name == "direct"  # the only one that reaches the hopper
+    # stalls rank by station, furthest first
+    assert cmp.rows[1].stalled_at_m >= cmp.rows[2].stalled_at_m

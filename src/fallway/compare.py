@@ -469,11 +469,10 @@ class LineResult:
         Station of the stall, of the first vertex over ``Mover.max_speed`` and of the
         first lift-off vertex; None when there is none.
     status : str
-        ``"ok"``, ``"stalls"``, ``"overspeed"``, ``"liftoff"``, ``"keepout"`` (the line
-        enters a no-go area), ``"grade"`` (a segment
-        outside the grade window of the limits), ``"radius"`` (a bend tighter than
-        ``Limits.min_radius_m``) or ``"no feasible line"`` (the search found none); the
-        first that applies in this order.
+        ``"ok"`` or the first failed check in this order: ``"stalls"``, ``"keepout"``
+        (the line enters a no-go area), ``"overspeed"``, ``"liftoff"``, ``"grade"`` (a
+        segment outside the grade window of the limits), ``"radius"`` (a bend tighter
+        than ``Limits.min_radius_m``); ``"no feasible line"`` when the search found none.
     profile : Profile or None
         The motion along ``points`` (None for a search without result).
     points : ndarray (N, 3) or None
@@ -484,6 +483,8 @@ class LineResult:
         The friction envelope, when a friction range was given.
     message : str
         Why a search found no line (empty otherwise).
+    issues : tuple of str
+        Every failed check, in the order of ``status`` (``status`` is the first).
     """
 
     name: str
@@ -504,6 +505,7 @@ class LineResult:
     computed: bool = False
     envelope: "Envelope | None" = field(default=None, repr=False)
     message: str = ""
+    issues: tuple = ()
 
     @property
     def reaches_end(self) -> bool:
@@ -515,10 +517,12 @@ class LineResult:
 
         NaN becomes None; ``min_radius_m`` stays ``inf`` for a straight line (strict JSON
         writers should map it to null, as :func:`fallway.export.to_jsonable` does).
-        Envelope columns are added when the row has an envelope, and ``computed``.
+        Envelope columns are added when the row has an envelope, and ``computed`` and
+        ``issues`` (every failed check, joined by ``"; "``).
         """
         rec = {c: getattr(self, c) for c in COMPARISON_COLUMNS}
         rec["computed"] = self.computed
+        rec["issues"] = "; ".join(self.issues)
         if self.envelope is not None:
             rec.update(self.envelope.columns())
         return {k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in rec.items()}
@@ -623,20 +627,15 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     radius = min_bend_radius_m(p if radius_xy is None else radius_xy, spacing_m=radius_spacing_m)
     overspeed = _first(prof.overspeed)
     liftoff = _first(prof.liftoff)
-    if stalled is not None:
-        status = "stalls"
-    elif overspeed is not None:
-        status = "overspeed"
-    elif liftoff is not None:
-        status = "liftoff"
-    elif keepout is not None and _enters_keepout(terrain, p, keepout):
-        status = "keepout"
-    elif g.size and (np.any(g < limits.min_grade - 1e-12) or np.any(g > limits.max_grade + 1e-12)):
-        status = "grade"
-    elif limits.min_radius_m is not None and radius < limits.min_radius_m:
-        status = "radius"
-    else:
-        status = "ok"
+    checks = (("stalls", stalled is not None),
+              ("keepout", keepout is not None and _enters_keepout(terrain, p, keepout)),
+              ("overspeed", overspeed is not None),
+              ("liftoff", liftoff is not None),
+              ("grade", bool(g.size) and bool(np.any(g < limits.min_grade - 1e-12)
+                                              or np.any(g > limits.max_grade + 1e-12))),
+              ("radius", limits.min_radius_m is not None and radius < limits.min_radius_m))
+    issues = tuple(k for k, failed in checks if failed)
+    status = issues[0] if issues else "ok"
     return LineResult(
         name=name,
         travel_time_s=None if stalled is not None else float(prof.travel_time_s),
@@ -654,6 +653,7 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
         profile=prof,
         points=p,
         computed=computed,
+        issues=issues,
     )
 
 
