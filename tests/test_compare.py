@@ -25,7 +25,7 @@ from rasterio.crs import CRS
 
 from fallway.compare import (COMPARISON_COLUMNS, ENVELOPE_COLUMNS, Comparison, compare, drape, envelope,
                              evaluate_line, min_bend_radius_m, read_lines, robust_route)
-from fallway.errors import FallwayIOError, ParameterError
+from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
 from fallway.limits import Limits
 from fallway.physics import Mover
 from fallway.terrain import Terrain
@@ -618,3 +618,33 @@ def test_sample_site_candidates_behave_as_its_readme_says():
     assert cmp.rows[0].name == "direct"  # the only one that reaches the hopper
     # stalls rank by station, furthest first
     assert cmp.rows[1].stalled_at_m >= cmp.rows[2].stalled_at_m
+
+
+def test_robust_route_against_a_speed_limit_tightens_its_searches():
+    # a 50 % plane, mu 0.3 in a range 0.2..0.33, speed limit 30 m/s: the straight fall line
+    # reaches sqrt(2 g (drop - mu plan)) = 26.9 m/s at nominal friction but 33 m/s at LO
+    # (work-energy theorem, any mechanics text), so the nominal optimum is too fast at LO
+    t = plane_terrain(0.0, 0.5, rows=40, cols=40)
+    s0, e0 = t.cell_center(1, 20), t.cell_center(38, 20)
+    mover = Mover(mu=0.3, max_speed=30.0, normal="gravity")
+    plan = 37 * 5.0
+    assert math.sqrt(2 * G0 * (0.5 * plan - 0.2 * plan)) > 30.0 > math.sqrt(2 * G0 * (0.5 * plan - 0.3 * plan))
+    rr = robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, strict=False)
+    labels = [c["label"] for c in rr.candidates]
+    assert labels[0] == "nominal" and "too fast at low friction" in rr.candidates[0]["verdict"]
+    assert labels[1] == "high friction" and labels[-1] == "low friction"
+    caps = [c["max_speed"] for c in rr.candidates[1:-1]]
+    assert caps[0] == 30.0 and all(b < a for a, b in zip(caps, caps[1:]))  # each round tighter
+    # the search at LO with the limit keeps every vertex under it (work-energy, no drag)
+    low = rr.candidates[-1]["envelope"]
+    assert low is not None and low.low.overspeed_m is None
+    line = low.low.points
+    plan_cum = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(line[:, :2], axis=0).T))])
+    v2 = 2 * G0 * ((line[0, 2] - line[:, 2]) - 0.2 * plan_cum)
+    assert np.max(v2) <= 30.0 ** 2 * (1 + 1e-9)
+    if rr.found:
+        assert rr.envelope.robust
+    else:
+        assert rr.route is not None and not rr.envelope.robust
+        with pytest.raises(NoFeasibleLine, match="no line found that works"):
+            robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False)

@@ -1032,27 +1032,33 @@ class RobustRoute:
 
     Attributes
     ----------
-    route : Route
-        The chosen line (the fastest at nominal friction among the robust candidates).
-    envelope : Envelope
-        Its evaluation at low, nominal and high friction (robust by construction).
+    route : Route or None
+        The chosen line: the fastest at nominal friction among the robust candidates;
+        with ``found`` False (``strict=False`` only), the nominal optimum (or None when
+        no search found any line).
+    envelope : Envelope or None
+        The chosen line at low, nominal and high friction.
     candidates : tuple of dict
-        Every search made: ``label``, ``mu`` and ``max_speed`` it ran with, and the
-        candidate's ``verdict`` and nominal ``travel_time_s`` (None if it found no line
-        or the line stalls at nominal friction).
+        Every search made, in order: ``label``, the ``mu`` and ``max_speed`` it ran
+        with, ``verdict`` (``"no feasible line"`` when the search found none), nominal
+        ``travel_time_s`` (None if none or it stalls) and the candidate's ``envelope``
+        (or None).
     nominal_is_robust : bool
         True when the unconstrained nominal optimum already passes the envelope (then it
         is the robust optimum, as far as the search itself is optimal).
+    found : bool
+        True when a robust line was found.
     """
 
     route: object
-    envelope: Envelope
+    envelope: Envelope | None
     candidates: tuple
     nominal_is_robust: bool
+    found: bool = True
 
 
 def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *, limits: Limits | None = None,
-                 max_rounds: int = 3, search=None, **kw) -> RobustRoute:
+                 max_rounds: int = 3, strict: bool = True, search=None, **kw) -> RobustRoute:
     """Fastest line at nominal friction that stays feasible at HI and within the speed limit at LO.
 
     A heuristic over a few ordinary searches (the exact method needs labels that carry one
@@ -1070,6 +1076,9 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     limits : Limits, optional
     max_rounds : int
         Number of searches with a tightened speed cap (each is one search).
+    strict : bool
+        Raise when no candidate is robust (default); otherwise return the nominal
+        optimum with ``found=False``.
     search : callable, optional
         ``search(terrain, start, end, mover, **kw) -> Route``; default
         :func:`fallway.route.find_route`.
@@ -1083,92 +1092,95 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     Raises
     ------
     NoFeasibleLine
-        No candidate passes the envelope (``reason="limits"``), or the search finds no
-        line at all.
+        With ``strict``: no candidate passes the envelope (``reason="limits"``).
 
     Notes
     -----
     Method.  Every candidate is judged by the same check as :func:`envelope`:
     :func:`fallway.physics.traverse` along the candidate line at ``mu_lo``, ``mover.mu``
     and ``mu_hi``; a candidate is *robust* when it does not stall and neither exceeds
-    the speed limit nor lifts off at any of the three.  Candidates:
+    the speed limit nor lifts off at any of the three.  Candidates, in order:
 
-    1. the optimum at nominal friction.  If it is robust it is returned: no robust line
-       can be faster at nominal friction than the unconstrained nominal optimum;
+    1. the optimum at nominal friction.  If it is robust it is returned at once: no
+       robust line can be faster at nominal friction than the unconstrained nominal
+       optimum;
     2. the optimum searched at ``mu_hi`` (the search enforces its hard speed window at
-       that friction).  Speeds fall as friction rises, so a line the search finds
-       feasible at HI also gets through at nominal and LO friction;
-    3. up to ``max_rounds`` searches at ``mu_hi`` with a tightened speed cap: the
-       search's cap is lowered by the ratio ``max_speed / (highest speed at LO)`` of the
-       previous HI candidate, so the lines it finds are gentler and their speed at LO
-       moves under the limit;
-    4. (with a speed limit) the optimum searched at ``mu_lo`` with the speed limit,
+       that friction).  Speeds fall as friction rises (for both normal-force models:
+       at equal speed the rate of change of v² is lower at higher friction, so by
+       comparison of the ODEs v² is lower everywhere), so a line that gets through at
+       HI also gets through at nominal and LO friction;
+    3. with a speed limit, while the last HI candidate is too fast at LO, up to
+       ``max_rounds`` more searches at ``mu_hi`` with a tightened speed cap: the cap is
+       the previous candidate's top speed at HI times ``max_speed / (its top speed at
+       LO)``, less 2 %, so the lines found are gentler and their speed at LO moves
+       under the limit;
+    4. with a speed limit, the optimum searched at ``mu_lo`` with the speed limit,
        which the search keeps at LO by construction, checked for stalls at HI.
 
     The robust candidate with the shortest nominal time is returned.
 
     What it guarantees: the returned line is robust as measured by ``traverse`` at the
-    three frictions (an exact check of the line, not of the search's lattice model);
-    when the nominal optimum is robust the answer is optimal to the extent the nominal
-    search is.  What it does not: when the nominal optimum fails, the answer is only the
-    best of at most ``3 + max_rounds`` candidates.  The true robust optimum may be a line
-    that no single-friction search returns (at nominal friction a label that is slower
-    but keeps more energy at HI is discarded by the dominance test of one energy), and
-    the method may report no line although a robust one exists.  The exact search keeps
-    per label the nominal time and the three energies, and a label dominates another
-    only when it is no slower, has no less energy at nominal and at HI friction and no
-    more energy at LO (extra energy at LO can only push the speed over the limit; the
-    stall check at LO is implied by the one at HI, energies being ordered in friction).
+    three frictions (an exact check of that line with the reporting model, not of the
+    search's lattice model); when the nominal optimum is robust the answer is optimal to
+    the extent the nominal search is.  What it does not: when the nominal optimum
+    fails, the answer is only the best of at most ``3 + max_rounds`` candidates.  The
+    true robust optimum may be a line that no single-friction search returns (at
+    nominal friction a label that is slower but keeps more energy at HI is discarded by
+    a dominance test on one energy), and the method may report no line although a
+    robust one exists.  The exact search keeps per label the nominal time and the three
+    energies (e_lo >= e_nom >= e_hi); a label dominates another only when it is no
+    slower, has no less energy at nominal and at HI friction and no more energy at LO
+    (extra energy at LO can only push the speed over the limit; the stall check at LO
+    is implied by the one at HI, energies being ordered in friction).  Lift-off, which
+    also grows with speed, would need the LO energy too and is only checked afterwards.
     """
     lo, hi = _check_mu_range(mover, mu_lo, mu_hi)
     limits = Limits() if limits is None else limits
     if search is None:
         from .route import find_route as search
     candidates: list[dict] = []
-    best: tuple | None = None
-    robust_nominal = False
+    found: dict[str, tuple] = {}
 
     def attempt(label: str, m: Mover):
-        nonlocal best
         entry = {"label": label, "mu": m.mu, "max_speed": m.max_speed, "verdict": "no feasible line",
-                 "travel_time_s": None}
+                 "travel_time_s": None, "envelope": None}
         candidates.append(entry)
         try:
             r = search(terrain, start, end, m, limits=limits, **kw)
         except NoFeasibleLine:
-            return None, None
+            return None
         env = envelope(terrain, np.asarray(r.line, dtype=float), mover, lo, hi, limits=limits, name=label,
                        computed=True)
-        entry["verdict"] = env.verdict
-        entry["travel_time_s"] = env.nominal.travel_time_s
-        if env.robust and (best is None or env.nominal.travel_time_s < best[1].nominal.travel_time_s):
-            best = (r, env)
-        return r, env
+        entry.update(verdict=env.verdict, travel_time_s=env.nominal.travel_time_s, envelope=env)
+        found[label] = (r, env)
+        return env
 
-    r0, e0 = attempt("nominal", mover)
-    if e0 is not None and e0.robust:
-        robust_nominal = True
-    else:
-        r_hi, e_hi = attempt("high friction", dataclasses.replace(mover, mu=hi))
+    e0 = attempt("nominal", mover)
+    nominal_ok = e0 is not None and e0.robust
+    if not nominal_ok:
+        env = attempt("high friction", dataclasses.replace(mover, mu=hi))
         if mover.max_speed is not None:
             cap = mover.max_speed
-            env = e_hi
-            for k in range(max(0, int(max_rounds))):
+            for _ in range(max(0, int(max_rounds))):
                 if env is None or env.low.overspeed_m is None:
                     break
-                # scale the previous line's speed at HI by the overshoot at LO (2 % margin)
+                # scale the previous line's speed at HI by its overshoot at LO (2 % margin)
                 cap = min(cap, env.high.max_speed_m_s) * mover.max_speed / env.low.max_speed_m_s * 0.98
                 if cap <= mover.stall_speed:
                     break
-                _, env = attempt(f"high friction, cap {cap:.2f} m/s", dataclasses.replace(mover, mu=hi, max_speed=cap))
+                env = attempt(f"high friction, cap {cap:.2f} m/s", dataclasses.replace(mover, mu=hi, max_speed=cap))
             attempt("low friction", dataclasses.replace(mover, mu=lo))
-    if best is None:
+    robust = [(r, e) for r, e in found.values() if e.robust]
+    if robust:
+        r, e = min(robust, key=lambda re: re[1].nominal.travel_time_s)
+        return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=nominal_ok)
+    if strict:
         tried = "; ".join(f"{c['label']}: {c['verdict']}" for c in candidates)
         raise NoFeasibleLine(f"no line found that works from mu={lo:g} to mu={hi:g} ({tried}); "
                              "narrow the friction range, relax the speed limit or move the end points",
                              reason="limits")
-    return RobustRoute(route=best[0], envelope=best[1], candidates=tuple(candidates),
-                       nominal_is_robust=robust_nominal)
+    r, e = found.get("nominal", next(iter(found.values()), (None, None)))
+    return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=False, found=False)
 
 
 # --------------------------------------------------------------------------- figure
