@@ -648,3 +648,14 @@ def test_robust_route_against_a_speed_limit_tightens_its_searches():
         assert rr.route is not None and not rr.envelope.robust
         with pytest.raises(NoFeasibleLine, match="no line found that works"):
             robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False)
+
+
+def test_read_geojson_with_legacy_crs_member(tmp_path):
+    # GeoJSON 2008 allowed a "crs" member; GDAL honours it, so a projected file that says
+    # so is read in its own CRS, not mistaken for lon/lat
+    fc = _fc([_feature([[X0 + 1.0, Y0 - 1.0], [X0 + 90.0, Y0 - 80.0]], {"name": "chute"})])
+    fc["crs"] = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}
+    p = tmp_path / "legacy.geojson"
+    p.write_text(json.dumps(fc))
+    (name, xy), = read_lines(p, crs=UTM33)
+    assert name == "chute" and np.allclose(xy, [[X0 + 1.0, Y0 - 1.0], [X0 + 90.0, Y0 - 80.0]], atol=1e-9)
