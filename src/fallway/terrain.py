@@ -698,9 +698,8 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
             raise TerrainError(f"{p} spans {east - west:.1f} degrees of longitude, too wide for one UTM "
                                f"zone (at most {_MAX_LON_SPAN_DEG:g}); pass bounds= around the site")
 
-    need_reproject = not metric
     square = abs(rt.a - abs(rt.e)) <= 1e-9 * rt.a
-    if need_reproject:
+    if not metric:
         lon_c, lat_c = _center_lonlat(rt, z.shape, src_crs)
         dst_crs = _utm_crs(lon_c, lat_c)
         z, rt = _warp(z, rt, src_crs, dst_crs, target_m, resolution_m is not None and (kx, ky) == (1, 1)
