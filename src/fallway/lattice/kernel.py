@@ -149,14 +149,15 @@ def search(z, blocked, rows, cols, cell,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol, max_labels, init_cap):
+           tol_abs, tol_rel, max_labels, init_cap):
     """Run the label-setting search.
 
     ``targets`` empty: reach mode (every cell, no heuristic).  Otherwise the legs end at
     ``targets[i]`` (flat indices) and the search stops at the first label settled at the
     last target.  ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the
     edge's start cell (valid because every referenced cell lies inside the edge's
-    bounding box, which is inside the grid when both ends are).
+    bounding box, which is inside the grid when both ends are).  The dominance
+    tolerance on v² is ``tol_abs + tol_rel * v²``.
 
     Returns
     -------
@@ -168,6 +169,7 @@ def search(z, blocked, rows, cols, cell,
     nlegs = targets.shape[0]
     reach_mode = nlegs == 0
     nstate = ncell if reach_mode else ncell * nlegs
+    nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
 
     tgt_r = np.empty(max(nlegs, 1), dtype=np.int64)
@@ -183,15 +185,17 @@ def search(z, blocked, rows, cols, cell,
     Lv2 = np.empty(cap, dtype=np.float64)
     Lnode = np.empty(cap, dtype=np.int32)
     Lpar = np.empty(cap, dtype=np.int32)
-    Lnext = np.empty(cap, dtype=np.int32)
     Lleg = np.empty(cap, dtype=np.int8)
     Lhd = np.empty(cap, dtype=np.int8)
-    Lstate = np.empty(cap, dtype=np.int8)  # 0 open, 1 settled, 2 dead
     hcap = init_cap
     hkey = np.empty(hcap, dtype=np.float64)
     hidx = np.empty(hcap, dtype=np.int32)
     hsize = 0
-    head = np.full(nstate, -1, dtype=np.int32)
+    # Highest v² settled so far per (leg, node[, heading]).  Labels settle at a node in
+    # order of t (the heuristic is a function of the node), so every settled label is no
+    # later than any label still to come there: a newcomer is dominated exactly when
+    # this maximum reaches its v² (within the tolerance).  O(1) per label.
+    emax = np.full(nstate * nh, -np.inf)
     if reach_mode:
         best_t = np.full(ncell, np.nan)
         best_v2 = np.full(ncell, np.nan)
@@ -199,16 +203,12 @@ def search(z, blocked, rows, cols, cell,
         best_t = np.full(1, np.nan)
         best_v2 = np.full(1, np.nan)
 
-    # start label
     Lt[0] = 0.0
     Lv2[0] = v2_start
     Lnode[0] = start
     Lpar[0] = -1
-    Lnext[0] = -1
     Lleg[0] = 0
     Lhd[0] = -1
-    Lstate[0] = 0
-    head[start] = 0
     n_lab = 1
     counters[C_CREATED] = 1
     key0 = 0.0
@@ -224,15 +224,18 @@ def search(z, blocked, rows, cols, cell,
 
     while hsize > 0:
         li, hsize = _heap_pop(hkey, hidx, hsize)
-        if Lstate[li] == 2:
-            continue
-        Lstate[li] = 1
-        counters[C_SETTLED] += 1
         n = Lnode[li]
         leg = Lleg[li]
         t0 = Lt[li]
         v20 = Lv2[li]
         hd = Lhd[li]
+        s = n if reach_mode else leg * ncell + n
+        slot = s * nh + (hd + 1 if use_heading else 0)
+        if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
+            counters[C_DOMINATED] += 1
+            continue
+        emax[slot] = v20
+        counters[C_SETTLED] += 1
         r = n // cols
         c = n - r * cols
 
@@ -256,15 +259,8 @@ def search(z, blocked, rows, cols, cell,
                 # switch legs: seed the next leg with this arrival (the whole Pareto
                 # set at the via point passes through here, one label at a time)
                 nleg = leg + 1
-                s = nleg * ncell + n
-                dominated = False
-                p = head[s]
-                while p >= 0:
-                    if (not use_heading or Lhd[p] == hd) and Lt[p] <= t0 and Lv2[p] >= v20 - tol:
-                        dominated = True
-                        break
-                    p = Lnext[p]
-                if dominated:
+                s2 = (nleg * ncell + n) * nh + (hd + 1 if use_heading else 0)
+                if emax[s2] >= v20 - (tol_abs + tol_rel * v20):
                     counters[C_DOMINATED] += 1
                     continue
                 if n_lab >= cap:
@@ -273,10 +269,8 @@ def search(z, blocked, rows, cols, cell,
                     Lv2 = _grow_f8(Lv2, cap)
                     Lnode = _grow_i4(Lnode, cap)
                     Lpar = _grow_i4(Lpar, cap)
-                    Lnext = _grow_i4(Lnext, cap)
                     Lleg = _grow_i1(Lleg, cap)
                     Lhd = _grow_i1(Lhd, cap)
-                    Lstate = _grow_i1(Lstate, cap)
                 q = n_lab
                 n_lab += 1
                 counters[C_CREATED] += 1
@@ -286,9 +280,6 @@ def search(z, blocked, rows, cols, cell,
                 Lpar[q] = li
                 Lleg[q] = nleg
                 Lhd[q] = hd
-                Lstate[q] = 0
-                Lnext[q] = head[s]
-                head[s] = q
                 if hsize >= hcap:
                     hcap *= 2
                     hkey = _grow_f8(hkey, hcap)
@@ -362,33 +353,8 @@ def search(z, blocked, rows, cols, cell,
                 uprev = uq
             if not ok:
                 continue
-            tn = t0 + te
-            # dominance at (leg, m)
-            s = m if reach_mode else leg * ncell + m
-            prev = -1
-            p = head[s]
-            dominated = False
-            while p >= 0:
-                nx = Lnext[p]
-                if use_heading and Lhd[p] != kk:
-                    prev = p
-                    p = nx
-                    continue
-                if Lt[p] <= tn and Lv2[p] >= v2 - tol:
-                    dominated = True
-                    break
-                if tn <= Lt[p] and v2 >= Lv2[p] - tol:
-                    if Lstate[p] == 0:
-                        Lstate[p] = 2
-                    if prev < 0:
-                        head[s] = nx
-                    else:
-                        Lnext[prev] = nx
-                    p = nx
-                    continue
-                prev = p
-                p = nx
-            if dominated:
+            sm = m if reach_mode else leg * ncell + m
+            if emax[sm * nh + (kk + 1 if use_heading else 0)] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
                 continue
             if n_lab >= cap:
@@ -397,22 +363,18 @@ def search(z, blocked, rows, cols, cell,
                 Lv2 = _grow_f8(Lv2, cap)
                 Lnode = _grow_i4(Lnode, cap)
                 Lpar = _grow_i4(Lpar, cap)
-                Lnext = _grow_i4(Lnext, cap)
                 Lleg = _grow_i1(Lleg, cap)
                 Lhd = _grow_i1(Lhd, cap)
-                Lstate = _grow_i1(Lstate, cap)
             q = n_lab
             n_lab += 1
             counters[C_CREATED] += 1
+            tn = t0 + te
             Lt[q] = tn
             Lv2[q] = v2
             Lnode[q] = m
             Lpar[q] = li
             Lleg[q] = leg
             Lhd[q] = kk
-            Lstate[q] = 0
-            Lnext[q] = head[s]
-            head[s] = q
             key = tn
             if not reach_mode:
                 key += _heuristic(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)

@@ -123,7 +123,8 @@ class _Problem:
         tol_rel = DEFAULT_ENERGY_TOL if energy_tol is None else float(energy_tol)
         if not (tol_rel >= 0.0 and math.isfinite(tol_rel)):
             raise ParameterError(f"energy_tol must be a finite number >= 0, got {energy_tol!r}")
-        tol = tol_rel * max(v2_scale, 1e-300)
+        # relative to each label's own v², with a floor far below any meaningful speed
+        tol_abs = 1e-12 * max(v2_scale, 1e-300) if tol_rel > 0.0 else 0.0
         tg = np.asarray(targets, dtype=np.int64)
         remaining = np.zeros(max(len(tg), 1), dtype=np.float64)
         cols = self.cols
@@ -144,7 +145,7 @@ class _Problem:
                         self.brk_start, self.brk_u, self.brk_fa, self.brk_fb, self.brk_w,
                         self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
                         m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
-                        int(start), v2_start, tg, remaining, inv_v, tol, budget, _INIT_CAP)
+                        int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP)
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         stats = {
