@@ -6,8 +6,9 @@ References used here (all independent code in this file):
   edge has the closed-form time t = 2 s / (v_a + v_b), v = sqrt(v0² + 2 g (z0 - z)),
   incline formula of CHECKS.md "Motion along a line");
 - a plain-Python exhaustive Pareto label search (label-correcting, FIFO, exact
-  dominance, no tolerance, no heuristic) with segment times by quadrature of
-  ds / v(s), v²(s) = a/k + (v_a² - a/k) e^(-2 k s) (CHECKS.md, incline with drag);
+  dominance, no tolerance, no heuristic) with segment speeds
+  v²(s) = a/k + (v_a² - a/k) e^(-2 k s) and times t = integral dv / (a - k v²)
+  (CHECKS.md, incline with drag: the artanh form and its atan twin for a < 0);
 - a plain-Python time-only Dijkstra, to show it is not exact with friction
   (CHECKS.md "Search").
 """
@@ -25,7 +26,6 @@ import scipy.sparse as sp
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
-from scipy.integrate import quad
 from scipy.sparse.csgraph import dijkstra
 
 from fallway.errors import NoFeasibleLine, ParameterError
@@ -52,14 +52,20 @@ def seg_ref(v2a, drop, plan, g, mu, k, v2_max=math.inf):
             return None
         return v2b, 2 * s / (math.sqrt(v2a) + math.sqrt(v2b))
     c = a / k
-    def v2(sig):
-        return c + (v2a - c) * math.exp(-2 * k * sig)
-    v2b = v2(s)
+    v2b = c + (v2a - c) * math.exp(-2 * k * s)
     if v2b < 0 or v2b > v2_max:
         return None
-    # t = integral of ds / v; s = w² removes the 1/sqrt singularity of a start from rest
-    t, _ = quad(lambda w: 2 * w / math.sqrt(max(v2(w * w), 1e-300)), 0, math.sqrt(s),
-                epsabs=0, epsrel=1e-13, limit=200)
+    # t = integral dv / (a - k v²) between the end speeds (textbook antiderivatives)
+    va, vb = math.sqrt(v2a), math.sqrt(v2b)
+    if a > 0:
+        vt = math.sqrt(c)
+        F = lambda v: math.log(abs((vt + v) / (vt - v))) / (2 * k * vt)  # noqa: E731
+    elif a < 0:
+        w = math.sqrt(-c)
+        F = lambda v: -math.atan(v / w) / (k * w)  # noqa: E731
+    else:
+        F = lambda v: 1.0 / (k * v)  # noqa: E731
+    t = F(vb) - F(va)
     return v2b, t
 
 

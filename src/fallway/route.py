@@ -172,7 +172,8 @@ def _num(v) -> float | None:
 
 def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
                keepout=None, line: str = "ground", refine: bool = True, heuristic: bool = True,
-               energy_tol: float | None = None, max_labels: int | None = None, **refine_options) -> Route:
+               energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None,
+               **refine_options) -> Route:
     """The minimum-time line from ``start`` to ``end``: lattice search, then refinement.
 
     Parameters
@@ -192,7 +193,7 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
     refine : bool
         Refine the lattice line when the refinement module is available; otherwise (or
         False) the route is the lattice line and ``summary["refined"]`` is False.
-    heuristic, energy_tol, max_labels
+    heuristic, energy_tol, max_labels, max_per_cell
         Search options (see :func:`fallway.lattice.search.lattice_line`).
     **refine_options
         Passed to ``fallway.refine.refine_line`` (e.g. ``clearance``, ``start_height``).
@@ -225,7 +226,7 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
         raise ParameterError(f"line must be one of {', '.join(_LINE_KINDS)}; got {line!r}")
     limits = Limits() if limits is None else limits
     lat = lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits, keepout=keepout,
-                       heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)
+                       heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
     final = lat.points
     refined = False
     extra: dict = {}
@@ -261,6 +262,7 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
         "labels_created": int(st.get("labels_created", 0)),
         "labels_settled": int(st.get("labels_settled", 0)),
         "search_s": float(st.get("search_s", 0.0)),
+        "search_exact": bool(st.get("exact", True)),
         "neighbours": int(neighbours),
         "start": [float(v) for v in lat.points[0, :2]],
         "end": [float(v) for v in lat.points[-1, :2]],

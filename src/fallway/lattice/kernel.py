@@ -66,7 +66,8 @@ C_STALL = 6
 C_SPEED = 7
 C_TURN = 8
 C_UPHILL = 9
-N_COUNTERS = 10
+C_CAPPED = 10
+N_COUNTERS = 11
 
 
 @njit(cache=True, nogil=True)
@@ -149,7 +150,7 @@ def search(z, blocked, rows, cols, cell,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol_abs, tol_rel, max_labels, init_cap):
+           tol_abs, tol_rel, max_labels, init_cap, max_per_cell):
     """Run the label-setting search.
 
     ``targets`` empty: reach mode (every cell, no heuristic).  Otherwise the legs end at
@@ -157,7 +158,10 @@ def search(z, blocked, rows, cols, cell,
     last target.  ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the
     edge's start cell (valid because every referenced cell lies inside the edge's
     bounding box, which is inside the grid when both ends are).  The dominance
-    tolerance on v² is ``tol_abs + tol_rel * v²``.
+    tolerance on v² is ``tol_abs + tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most
+    that many settled labels per (leg, node[, heading]) - the earliest ones - and drops
+    later arrivals (an approximation, counted in ``C_CAPPED``); 0 keeps the exact
+    Pareto set.
 
     Returns
     -------
@@ -196,6 +200,8 @@ def search(z, blocked, rows, cols, cell,
     # later than any label still to come there: a newcomer is dominated exactly when
     # this maximum reaches its v² (within the tolerance).  O(1) per label.
     emax = np.full(nstate * nh, -np.inf)
+    capped = max_per_cell > 0
+    nset = np.zeros(nstate * nh if capped else 1, dtype=np.int32)
     if reach_mode:
         best_t = np.full(ncell, np.nan)
         best_v2 = np.full(ncell, np.nan)
@@ -234,6 +240,11 @@ def search(z, blocked, rows, cols, cell,
         if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
             counters[C_DOMINATED] += 1
             continue
+        if capped:
+            if nset[slot] >= max_per_cell:
+                counters[C_CAPPED] += 1
+                continue
+            nset[slot] += 1
         emax[slot] = v20
         counters[C_SETTLED] += 1
         r = n // cols
@@ -353,9 +364,12 @@ def search(z, blocked, rows, cols, cell,
                 uprev = uq
             if not ok:
                 continue
-            sm = m if reach_mode else leg * ncell + m
-            if emax[sm * nh + (kk + 1 if use_heading else 0)] >= v2 - (tol_abs + tol_rel * v2):
+            sm = (m if reach_mode else leg * ncell + m) * nh + (kk + 1 if use_heading else 0)
+            if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
+                continue
+            if capped and nset[sm] >= max_per_cell:
+                counters[C_CAPPED] += 1
                 continue
             if n_lab >= cap:
                 cap *= 2

@@ -116,7 +116,7 @@ class _Problem:
         self.v2_max = math.inf if vmax is None else vmax * vmax
 
     def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
-            max_labels: int | None):
+            max_labels: int | None, max_per_cell: int | None = None):
         m = self.mover
         v2_start = m.v0 * m.v0
         v2_scale = v2_start + 2.0 * m.g * max(self.z[start] - self.zmin, 0.0)
@@ -145,7 +145,8 @@ class _Problem:
                         self.brk_start, self.brk_u, self.brk_fa, self.brk_fb, self.brk_w,
                         self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
                         m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
-                        int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP)
+                        int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
+                        int(max_per_cell or 0))
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         stats = {
@@ -157,6 +158,9 @@ class _Problem:
             "rejected_speed": int(counters[_k.C_SPEED]),
             "rejected_turn": int(counters[_k.C_TURN]),
             "rejected_blocked": int(counters[_k.C_BLOCKED]),
+            "labels_capped": int(counters[_k.C_CAPPED]),
+            "max_per_cell": int(max_per_cell or 0),
+            "exact": bool(counters[_k.C_CAPPED] == 0 and self.v2_max == math.inf),
             "search_s": float(elapsed),
             "neighbours": int(self.stencil.size),
             "energy_tol": float(tol_rel),
@@ -171,19 +175,20 @@ def _cell_xy(terrain, flat: int) -> tuple[float, float]:
     return terrain.cell_center(flat // cols, flat % cols)
 
 
-def _diagnose(terrain, mover, neighbours, limits, keep, start, targets, first, heuristic, energy_tol, max_labels):
+def _diagnose(terrain, mover, neighbours, limits, keep, start, targets, first, heuristic, energy_tol, max_labels,
+              max_per_cell):
     """Find why no line exists by relaxing one obstacle at a time."""
     closest = _cell_xy(terrain, first["closest"])
     where = f"closest reached cell ({closest[0]:.1f}, {closest[1]:.1f})"
     if keep.any():
         p = _Problem(terrain, mover, neighbours, limits, np.zeros_like(keep))
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)["status"] == _k.OK:
+        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
             return NoFeasibleLine(f"keep-out areas block every line; {where}; shrink the keep-out or move the points",
                                   reason="keepout", closest=closest)
     lim = limits if limits is not None else Limits()
     if lim != Limits() or mover.max_speed is not None:
         p = _Problem(terrain, mover, neighbours, limits, keep, use_limits=False)
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)["status"] == _k.OK:
+        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
             return NoFeasibleLine(f"the grade, turn or speed limits block every line; {where}; relax the limits",
                                   reason="limits", closest=closest)
     nod = ~np.isfinite(terrain.z)
@@ -192,7 +197,7 @@ def _diagnose(terrain, mover, neighbours, limits, keep, start, targets, first, h
         idx = ndimage.distance_transform_edt(nod, return_distances=False, return_indices=True)
         filled = terrain.z[tuple(idx)]
         p = _Problem(terrain, mover, neighbours, limits, keep, z_override=filled)
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)["status"] == _k.OK:
+        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
             return NoFeasibleLine(f"nodata cells block every line; {where}; fill the DEM gaps or move the points",
                                   reason="nodata", closest=closest)
     c = first["counters"]
@@ -237,7 +242,7 @@ def _line_points(terrain, stencil, nodes: list[int]) -> tuple[np.ndarray, np.nda
 
 def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
                  keepout=None, heuristic: bool = True, energy_tol: float | None = None,
-                 max_labels: int | None = None):
+                 max_labels: int | None = None, max_per_cell: int | None = None):
     """The exact minimum-time line on the terrain lattice.
 
     Parameters
@@ -262,6 +267,12 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
         :data:`DEFAULT_ENERGY_TOL`).
     max_labels : int, optional
         Stop with :class:`NoFeasibleLine` after creating this many labels.
+    max_per_cell : int, optional
+        Keep at most this many non-dominated labels per cell (the earliest arrivals).
+        None (default): the exact Pareto search.  On rough terrain the exact Pareto
+        set grows with distance (measured: ~20 labels per cell 25 cells from the start,
+        ~300 at 50, ~3700 at 100), so large grids need a cap; ``stats["exact"]`` says
+        whether the cap (or ``max_speed``) made the answer approximate.
 
     Returns
     -------
@@ -303,12 +314,13 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
                              reason="keepout", closest=None)
     _check_uphill(terrain, mover, s, targets, [f"via point {i + 1}" for i in range(len(vias))] + ["end"])
     prob = _Problem(terrain, mover, neighbours, limits, keep)
-    res = prob.run(s, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels)
+    res = prob.run(s, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
     if res["status"] == _k.LABEL_BUDGET:
         raise NoFeasibleLine(f"label budget of {max_labels} exhausted before reaching the end; raise max_labels "
                              "or coarsen the grid", reason="unreachable", closest=_cell_xy(terrain, res["closest"]))
     if res["status"] != _k.OK:
-        raise _diagnose(terrain, mover, neighbours, limits, keep, s, targets, res, heuristic, energy_tol, max_labels)
+        raise _diagnose(terrain, mover, neighbours, limits, keep, s, targets, res, heuristic, energy_tol, max_labels,
+                        max_per_cell)
     nodes = []
     p = res["final"]
     parent, node = res["parent"], res["node"]
@@ -331,7 +343,7 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
 
 
 def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits | None = None, keepout=None,
-          energy_tol: float | None = None, max_labels: int | None = None):
+          energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None):
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
     Parameters are those of :func:`lattice_line` (``start`` snaps to the nearest cell
@@ -362,7 +374,7 @@ def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits 
         raise NoFeasibleLine(f"start ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
                              reason="keepout", closest=None)
     prob = _Problem(terrain, mover, neighbours, limits, keep)
-    res = prob.run(s, [], heuristic=False, energy_tol=energy_tol, max_labels=max_labels)
+    res = prob.run(s, [], heuristic=False, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
     shape = terrain.shape
     tt = res["best_t"].reshape(shape)
     vv = np.sqrt(res["best_v2"]).reshape(shape)
