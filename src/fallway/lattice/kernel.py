@@ -200,6 +200,10 @@ def search(z, blocked, rows, cols, cell,
     # later than any label still to come there: a newcomer is dominated exactly when
     # this maximum reaches its v² (within the tolerance).  O(1) per label.
     emax = np.full(nstate * nh, -np.inf)
+    # the earliest label still queued per state and its v²: a newcomer no earlier and no
+    # faster is dominated by it (Dijkstra's decrease-key, generalised to two criteria)
+    open_t = np.full(nstate * nh, np.inf)
+    open_v2 = np.full(nstate * nh, -np.inf)
     capped = max_per_cell > 0
     nset = np.zeros(nstate * nh if capped else 1, dtype=np.int32)
     if reach_mode:
@@ -371,6 +375,13 @@ def search(z, blocked, rows, cols, cell,
             if capped and nset[sm] >= max_per_cell:
                 counters[C_CAPPED] += 1
                 continue
+            tn = t0 + te
+            if tn >= open_t[sm] and v2 <= open_v2[sm] + (tol_abs + tol_rel * v2):
+                counters[C_DOMINATED] += 1
+                continue
+            if tn < open_t[sm]:
+                open_t[sm] = tn
+                open_v2[sm] = v2
             if n_lab >= cap:
                 cap *= 2
                 Lt = _grow_f8(Lt, cap)
@@ -382,7 +393,6 @@ def search(z, blocked, rows, cols, cell,
             q = n_lab
             n_lab += 1
             counters[C_CREATED] += 1
-            tn = t0 + te
             Lt[q] = tn
             Lv2[q] = v2
             Lnode[q] = m
