@@ -1,0 +1,194 @@
+"""Reference solutions for the fastest-line tests, computed here from published formulas.
+
+Nothing in this module imports fallway: every value is recomputed from the source
+formula with scipy (root finding, ODE integration, quadrature), so the refinement tests
+compare our optimiser against something outside the project.
+
+Sources
+-------
+- Brachistochrone without friction (Johann Bernoulli, Acta Eruditorum 1696/1697):
+  from rest, x = R(phi - sin phi), y = R(1 - cos phi) with y down; for a target L across
+  and H down, (phi - sin phi)/(1 - cos phi) = L/H and T = phi*sqrt(R/g).
+- Brachistochrone with Coulomb friction and the gravity-only normal force (friction work
+  mu*g*horizontal distance): N. Ashby, W. E. Brittin, W. F. Love, W. Wyss, "Brachistochrone
+  with Coulomb friction", Am. J. Phys. 43 (1975) 902; the broken extremal that begins
+  with a vertical free fall: S. Šalinić, "Contribution to the brachistochrone problem with
+  Coulomb friction", Acta Mech. 208 (2009) 97.  From rest, with mu = tan(beta): a free
+  fall of height C*sin(beta)**2, then the arc y - mu*x = C*cos(psi - beta)**2 with psi the
+  descent angle falling from pi/2,
+  dx/dpsi = -C cos(beta) [cos(2 psi - beta) + cos(beta)],
+  dy/dpsi = -2 C cos(beta) sin(psi) cos(psi - beta).
+  On the arc v**2 = 2 g (y - mu x) (energy minus friction work).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.integrate import quad, solve_ivp
+from scipy.optimize import brentq, fsolve
+
+G0 = 9.80665  # standard gravity (3rd CGPM, 1901)
+
+
+@dataclass(frozen=True)
+class Cycloid:
+    """Bernoulli's brachistochrone from rest through (L across, H down)."""
+
+    radius_m: float
+    phi_end: float
+    time_s: float
+
+    def points(self, n: int) -> np.ndarray:
+        """(n, 2) points (x across, y down) at equal steps of the cycloid parameter."""
+        phi = np.linspace(0.0, self.phi_end, n)
+        return np.column_stack([self.radius_m * (phi - np.sin(phi)),
+                                self.radius_m * (1.0 - np.cos(phi))])
+
+
+def cycloid(L: float, H: float, g: float = G0) -> Cycloid:
+    """Solve (phi - sin phi)/(1 - cos phi) = L/H for the end parameter (Bernoulli 1696).
+
+    The left side rises monotonically from 0 to inf on (0, 2 pi), so the root is unique.
+    """
+    f = lambda phi: (phi - math.sin(phi)) / (1.0 - math.cos(phi)) - L / H  # noqa: E731
+    phi = brentq(f, 1e-6, 2.0 * math.pi - 1e-6, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=500)
+    R = H / (1.0 - math.cos(phi))
+    return Cycloid(R, phi, phi * math.sqrt(R / g))
+
+
+def cycloid_time_by_quadrature(L: float, H: float, g: float = G0) -> float:
+    """T = integral of ds / v along the cycloid, v = sqrt(2 g y) (a second, independent check)."""
+    c = cycloid(L, H, g)
+    R = c.radius_m
+    # ds = 2 R sin(phi/2) dphi, v = sqrt(2 g R (1 - cos phi)) = 2 sqrt(g R) sin(phi/2)
+    val, _ = quad(lambda p: 2.0 * R * math.sin(p / 2) / (2.0 * math.sqrt(g * R) * math.sin(p / 2)),
+                  1e-12, c.phi_end, epsabs=1e-13, epsrel=1e-13)
+    return val
+
+
+def straight_chord_time(L: float, H: float, g: float = G0, mu: float = 0.0) -> float:
+    """Time down the straight chord from rest: a = g (H - mu L)/s, t = sqrt(2 s / a)."""
+    s = math.hypot(L, H)
+    a = g * (H - mu * L) / s
+    return math.sqrt(2.0 * s / a)
+
+
+@dataclass(frozen=True)
+class FrictionBrachistochrone:
+    """The friction brachistochrone of Ashby et al. (1975) with Šalinić's free fall."""
+
+    mu: float
+    C_m: float
+    psi_end: float
+    free_fall_m: float
+    time_s: float
+    L: float
+    H: float
+    g: float
+
+    def points(self, n: int = 400) -> np.ndarray:
+        """(m, 2) points (x across, y down): the free fall then the arc (n samples in psi)."""
+        psi = np.linspace(math.pi / 2, self.psi_end, n)
+        xy = _integrate_arc(self.C_m, self.mu, self.psi_end, psi)
+        return np.vstack([[0.0, 0.0], xy.T])
+
+
+def _rhs(psi, state, C, beta):
+    cb = math.cos(beta)
+    return [-C * cb * (math.cos(2.0 * psi - beta) + cb),
+            -2.0 * C * cb * math.sin(psi) * math.cos(psi - beta)]
+
+
+def _integrate_arc(C, mu, psi_end, t_eval=None):
+    beta = math.atan(mu)
+    y0 = C * math.sin(beta) ** 2
+    sol = solve_ivp(_rhs, (math.pi / 2, psi_end), [0.0, y0], args=(C, beta), method="DOP853",
+                    rtol=1e-13, atol=1e-13, t_eval=t_eval)
+    if t_eval is None:
+        return sol.y[:, -1]
+    return sol.y
+
+
+def _arc_time(C, mu, psi_end, g):
+    """Free-fall time plus integral of ds/v along the arc, v**2 = 2 g C cos(psi - beta)**2."""
+    beta = math.atan(mu)
+    h = C * math.sin(beta) ** 2
+    t_fall = math.sqrt(2.0 * h / g)
+
+    def integrand(psi):
+        dx, dy = _rhs(psi, None, C, beta)
+        v = math.sqrt(2.0 * g * C) * abs(math.cos(psi - beta))
+        return math.hypot(dx, dy) / v
+
+    # near psi = pi/2 with mu = 0 both ds and v vanish; the ratio stays finite
+    t_arc, _ = quad(integrand, psi_end, math.pi / 2 - 1e-14, epsabs=1e-13, epsrel=1e-13, limit=200)
+    return t_fall + t_arc
+
+
+def friction_brachistochrone(L: float, H: float, mu: float, g: float = G0) -> FrictionBrachistochrone:
+    """Solve for C and psi_end so that the arc ends at (L across, H down).
+
+    The arc ODEs are integrated with scipy's DOP853 and the two end conditions solved
+    with ``fsolve`` from the frictionless cycloid as first guess (for mu = 0 the arc is
+    that cycloid with C = 2 R and psi = pi/2 - phi/2).
+    """
+    c0 = cycloid(L, H, g)
+    guess = [2.0 * c0.radius_m, math.pi / 2 - c0.phi_end / 2]
+
+    def res(p):
+        C, psi_end = p
+        x, y = _integrate_arc(C, mu, psi_end)
+        return [x - L, y - H]
+
+    sol, info, ier, msg = fsolve(res, guess, full_output=True, xtol=1e-14)
+    if max(abs(r) for r in res(sol)) > 1e-8:  # fsolve may flag xtol at machine precision
+        raise RuntimeError(f"friction brachistochrone did not solve: {msg}")
+    C, psi_end = (float(v) for v in sol)
+    beta = math.atan(mu)
+    return FrictionBrachistochrone(mu, C, psi_end, C * math.sin(beta) ** 2,
+                                   _arc_time(C, mu, psi_end, g), L, H, g)
+
+
+def euler_lagrange_residual(ref: FrictionBrachistochrone, n: int = 200, mu_functional: float | None = None) -> float:
+    """Largest relative residual of the Euler–Lagrange equation along the arc.
+
+    With x as parameter (x increases along the arc) the time functional is
+    T = integral sqrt(1 + p**2) / sqrt(2 g (y - mu x)) dx, p = dy/dx, whose Euler–Lagrange
+    equation is d/dx F_p = F_y.  Both sides are evaluated by finite differences of the
+    integrated arc; the residual is returned relative to |F_y|.  ``mu_functional`` (default
+    the arc's own) is the friction coefficient of the functional tested.
+    """
+    g = ref.g
+    mu = ref.mu if mu_functional is None else mu_functional
+    # stay away from the vertical start (p infinite) and from the end
+    psi = np.linspace(math.pi / 2 - 0.15, ref.psi_end + 0.05, n)
+    out = []
+    for ps in psi:
+        h = 1e-4
+        pts = _integrate_arc(ref.C_m, ref.mu, ref.psi_end, np.array([math.pi / 2, ps + h, ps, ps - h]))
+        xs, ys = pts[0, 1:], pts[1, 1:]
+
+        def fp(psi_v, y_v, x_v):
+            p = math.tan(psi_v)
+            w = 2.0 * g * (y_v - mu * x_v)
+            return p / (math.sqrt(1.0 + p * p) * math.sqrt(w))
+
+        lhs = (fp(ps - h, ys[2], xs[2]) - fp(ps + h, ys[0], xs[0])) / (xs[2] - xs[0])
+        p = math.tan(ps)
+        w = 2.0 * g * (ys[1] - mu * xs[1])
+        fy = -math.sqrt(1.0 + p * p) * g / w ** 1.5
+        out.append(abs(lhs - fy) / abs(fy))
+    return float(max(out))
+
+
+if __name__ == "__main__":  # pragma: no cover - prints the worked examples
+    c = cycloid(100.0, 40.0)
+    print(f"cycloid L=100 H=40: R={c.radius_m:.6f} phi={c.phi_end:.6f} T={c.time_s:.7f} "
+          f"quad={cycloid_time_by_quadrature(100, 40):.7f} chord={straight_chord_time(100, 40):.7f}")
+    for L, H, mu in [(120, 45, 0.2), (120, 45, 0.0), (100, 40, 0.1), (100, 40, 0.3)]:
+        r = friction_brachistochrone(L, H, mu)
+        print(f"L={L} H={H} mu={mu}: C={r.C_m:.6f} psi_end={r.psi_end:.6f} fall={r.free_fall_m:.6f} "
+              f"T={r.time_s:.7f} cycloid={cycloid(L, H).time_s:.7f} EL-res={euler_lagrange_residual(r):.2e}")
