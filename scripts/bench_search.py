@@ -159,7 +159,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", type=int, default=1000)
     ap.add_argument("--case", choices=["scipy", "reach", "route"])
-    ap.add_argument("--cap", type=int, default=8, help="labels kept per cell in the route case")
+    ap.add_argument("--cap", type=int, default=2, help="labels kept per cell in the route case")
     a = ap.parse_args()
     if a.case:
         res = case_route(a.size, a.cap) if a.case == "route" else {"scipy": case_scipy, "reach": case_reach}[a.case](a.size)

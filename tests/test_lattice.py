@@ -272,6 +272,18 @@ def test_time_only_dijkstra_is_wrong_with_friction():
     assert lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8).time_s == pytest.approx(exact, rel=1e-9)
 
 
+def test_cap_of_one_label_per_cell_is_the_time_only_dijkstra():
+    # max_per_cell=1 keeps the earliest arrival per cell: exactly the time-only search
+    for seed in (30, 68):
+        z = rough_dem(seed)
+        t = terrain_of(z)
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, max_per_cell=1, heuristic=False)
+        assert ln.time_s == pytest.approx(time_only_ref(z, 10.0, MOVER, (0, 0), (6, 7)), rel=1e-9)
+        assert ln.stats["exact"] is False
+        exact = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8)
+        assert exact.stats["exact"] is True and exact.time_s < ln.time_s
+
+
 @pytest.mark.parametrize("n", [8, 16, 32])
 def test_reported_time_equals_retiming_the_points(n):
     rng = np.random.default_rng(3)

@@ -9,18 +9,21 @@ Labels
 A label is (t, v², node, parent, leg, heading): arrival time, squared speed, the flat cell
 index, the label it was extended from, the index of the via-leg it belongs to and the
 stencil offset of the step that led to it (-1 at the start; used only with a turn
-limit).  Labels live in a pool of parallel arrays that doubles when full.  Each
-(leg, node) keeps a linked list (through ``nxt``) of its non-dominated labels.
+limit).  Labels live in a pool of parallel arrays that doubles when full; the binary heap
+holds pool indices keyed by t (+ the A* bound).
 
 Dominance: label 1 dominates label 2 at the same (leg, node [, heading]) when
 ``t1 <= t2`` and ``v2_1 >= v2_2 - tol``.  It is sound because on every segment the exit
 speed rises and the time falls with the entry speed (gravity, Coulomb friction and drag
-losses are monotone), so whatever label 2 can still do, label 1 does no later.  ``tol``
-(the *declared* energy tolerance, in m²/s²) stops floating-point noise alone from keeping
-twin labels; it may drop a label that is better by less than ``tol`` in v², which changes
-the answer by a relative amount of order ``tol / v²`` per step (see the front for the
-default).  With ``max_speed`` set dominance is no longer exact in principle (more speed
-can overspeed later where less would not); overspeeding labels are pruned.
+losses are monotone), so whatever label 2 can still do, label 1 does no later.  Labels
+settle at a state in order of t, so the settled Pareto set of a state is summarised by
+its highest settled v² (``emax``): a label is dominated by a settled one exactly when
+``emax >= v² - tol`` - an O(1) test, no per-cell lists.  Newcomers are also dropped when
+the earliest label still queued at their state is no later and no slower.  ``tol``
+(``tol_abs + tol_rel * v²``, the *declared* energy tolerance) stops floating-point noise
+alone from keeping twin labels; it may drop a label better by less than ``tol`` in v².
+With ``max_speed`` set dominance is no longer exact in principle (more speed can
+overspeed later where less would not); overspeeding labels are pruned.
 
 A* bound
 --------
@@ -30,6 +33,9 @@ more than ``max_speed²`` when that is set.  Any line from node n to the target 
 least the straight 3D distance ``D(n)`` long, so its time is at least ``h(n) = D(n) / V``:
 admissible.  Along an edge n->m of 3D length ``s`` (>= |D(n) - D(m)| by the triangle
 inequality) the time is at least ``s / V``, so ``h(n) <= c(n, m) + h(m)``: consistent.
+With drag the front also caps ``V²`` by ``max(v0², a_max / k)``: wherever v² exceeds
+a/k drag outweighs the drive, d(v²)/ds = 2a - 2kv² < 0, so no line ever gets faster
+than that (``a_max`` bounds the drive over every sub-segment; see the front).
 The keys ``t + h`` therefore never fall along a line, labels settle in key order, and
 the first label settled at the target is optimal (dominance only removes labels whose
 every continuation is matched by the dominating label).  For via legs ``D`` adds the
