@@ -165,8 +165,11 @@ def _resolve(scenario_path, overrides: dict):
     return Scenario.from_dict(_merge(base, overrides), base_dir=base_dir)
 
 
-def _prepare(sc, *, need_end: bool):
-    """Load the terrain around the scenario's points and move the points into its CRS."""
+def _prepare(sc, *, need_end: bool, cover=None):
+    """Load the terrain around the scenario's points and move the points into its CRS.
+
+    ``cover``: more (x, y) points, in the DEM's CRS, that the loaded area must hold.
+    """
     from .errors import ParameterError
     from .points import WGS84, dem_crs, to_terrain_crs
     from .terrain import load_terrain
@@ -185,7 +188,7 @@ def _prepare(sc, *, need_end: bool):
         src = src_crs
     bounds = None
     if need_end and not src_crs.is_geographic:
-        native = to_terrain_crs(pts, src, src_crs)
+        native = to_terrain_crs(pts, src, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
         xs = [p[0] for p in native]
         ys = [p[1] for p in native]
         bounds = (min(xs), min(ys), max(xs), max(ys))
@@ -227,49 +230,71 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 @click.option("--end-height", type=float, help="Raised line: height above ground at the end, m.")
 @click.option("--min-radius", type=float, help="Smallest bend radius of the refined line, m.")
 @click.option("--no-refine", is_flag=True, help="Report the lattice line only.")
-@click.option("--mu-range", type=(float, float), metavar="LO HI", help="Friction envelope to check the line against.")
+@click.option("--mu-range", type=(float, float), metavar="LO HI", help="Friction range to check the line against.")
+@click.option("--robust", is_flag=True, help="With --mu-range: the fastest line that works across the whole range.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @_guard
-def route(out_dir, overwrite, scenario_path, quiet, verbose, **opts):
+def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, **opts):
     """Find the minimum-time line from --start to --end on DEM and write it to --out."""
     _setup_logging(quiet, verbose)
     sc = _resolve(scenario_path, _overrides(**opts))
+    if robust and sc.mu_range is None:
+        raise click.UsageError("--robust needs a friction range: --mu-range LO HI (or envelope.mu_range)")
     from .export import OutputSet
 
     with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
-        result = _run_route(sc, quiet=quiet)
-        written = _write_route(outs, sc, *result)
+        r, terrain, keepout = _run_route(sc, quiet=quiet, robust=robust)
+        env = _envelope(sc, r, terrain, keepout)
+        written = _write_route(outs, sc, r, terrain, keepout, envelope=env)
     if not quiet:
-        _print_route(result[0], out_dir, written)
+        _print_route(r, out_dir, written, env)
 
 
-def _run_route(sc, *, quiet: bool):
+def _run_route(sc, *, quiet: bool, robust: bool = False, cover=None):
     from .route import find_route
 
     bar = _stages(3, quiet)
     try:
         bar.set_description("loading terrain")
-        terrain, start, end, via, keepout = _prepare(sc, need_end=True)
+        terrain, start, end, via, keepout = _prepare(sc, need_end=True, cover=cover)
         bar.update()
         bar.set_description("searching and refining")
-        r = find_route(terrain, start, end, sc.mover, via=via, neighbours=sc.neighbours, limits=sc.limits,
-                       keepout=keepout, line=sc.line, refine=sc.refine, clearance=sc.clearance,
-                       start_height=sc.start_height, end_height=sc.end_height)
+        kw = dict(via=via, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout, line=sc.line,
+                  refine=sc.refine, clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height)
+        if robust:
+            from .compare import robust_route
+
+            rr = robust_route(terrain, start, end, sc.mover, *sc.mu_range, **kw)
+            r = rr.route
+        else:
+            r = find_route(terrain, start, end, sc.mover, **kw)
         bar.update()
         return r, terrain, keepout
     finally:
         bar.close()
 
 
-def _write_route(outs, sc, r, terrain, keepout, *, reach=None):
+def _envelope(sc, r, terrain, keepout):
+    """The route's line at the low, nominal and high friction of the scenario's range."""
+    if sc.mu_range is None:
+        return None
+    from .compare import envelope
+
+    return envelope(terrain, r.line, sc.mover, *sc.mu_range, limits=sc.limits, name="route", computed=True)
+
+
+def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, comparison=None):
     """Every output file of one route, into the output set (temporary until complete)."""
     from . import export, plot, report
 
+    extra = {"scenario": sc.to_dict()}
+    if envelope is not None:
+        extra["friction_envelope"] = {"mu_range": list(sc.mu_range), **envelope.columns()}
     export.write_route_geojson(r, outs.path("route.geojson"), terrain.crs)
     export.write_route_gpkg(r, outs.path("route.gpkg"), terrain.crs)
     export.write_profile_csv(r, terrain, outs.path("profile.csv"))
-    export.write_summary_json(r, outs.path("summary.json"), extra={"scenario": sc.to_dict()}, crs=terrain.crs)
+    export.write_summary_json(r, outs.path("summary.json"), extra=extra, crs=terrain.crs)
     with open(outs.path("scenario.toml"), "w", encoding="utf-8") as fh:
         fh.write(sc.to_toml())
     ax = plot.plot_map(terrain, r, reach=reach, keepout=keepout)
@@ -278,16 +303,33 @@ def _write_route(outs, sc, r, terrain, keepout, *, reach=None):
     ax = plot.plot_profile(r, terrain)
     plot.save_figure(ax.figure, outs.path("profile.png"))
     outs.path("profile.svg")
+    cmp_png = None
+    if comparison is not None:
+        from .compare import comparison_figure
+
+        comparison.to_csv(outs.path("comparison.csv"))
+        fig = comparison_figure(terrain, comparison, keepout=keepout)
+        plot.save_figure(fig, outs.path("comparison.png"))
+        outs.path("comparison.svg")
+        cmp_png = outs.path("comparison.png")
+    params = sc.to_dict()
+    if envelope is not None:
+        params = {**params, "friction envelope": envelope.columns()}
     report.write_report_html(r, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
-                             profile_png=outs.path("profile.png"), parameters=sc.to_dict())
+                             profile_png=outs.path("profile.png"), parameters=params,
+                             comparison=comparison, comparison_png=cmp_png)
     return sorted(outs._names)
 
 
-def _print_route(r, out_dir, written) -> None:
+def _print_route(r, out_dir, written, env=None) -> None:
     s = r.summary
     click.echo(f"travel time {s['travel_time_s']:.2f} s (lattice {s['lattice_time_s']:.2f} s), "
                f"length {s['length_m']:.1f} m, drop {s['drop_m']:.1f} m, exit speed {s['exit_speed_m_s']:.2f} m/s, "
                f"max speed {s['max_speed_m_s']:.2f} m/s")
+    if env is not None:
+        lo, hi = env.exit_speed_range_m_s
+        rng = "stalls" if lo is None or hi is None else f"{hi:.2f} to {lo:.2f} m/s"
+        click.echo(f"friction {env.mu_lo:g} to {env.mu_hi:g}: {env.verdict}; exit speed {rng}")
     click.echo(f"wrote {', '.join(written)} in {out_dir}")
 
 
@@ -319,6 +361,71 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
 
 
 @main.command()
+@click.argument("dem", type=click.Path(dir_okay=False))
+@click.argument("lines", type=click.Path(dir_okay=False))
+@_common_options
+@click.option("--mu-range", type=(float, float), metavar="LO HI", help="Evaluate every line at LO, nominal and HI friction.")
+@click.option("--refine/--no-refine", default=False, show_default=True, help="Refine the computed optimum.")
+@click.option("--optimum/--no-optimum", default=True, show_default=True, help="Add the tool's own optimum as a row.")
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
+@_guard
+def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refine, optimum, **opts):
+    """Time and rank candidate lines (GeoJSON/GeoPackage LineStrings) on DEM with the same physics."""
+    _setup_logging(quiet, verbose)
+    from .export import OutputSet
+
+    sc = _resolve(scenario_path, _overrides(dem=dem, start=None, end=None, via=(), **opts))
+    with OutputSet(out_dir, overwrite=overwrite) as outs:
+        cmp, terrain, keepout = _run_compare(sc, lines, refine=refine, optimum=optimum)
+        _write_comparison(outs, sc, cmp, terrain, keepout)
+    if not quiet:
+        for rec in cmp.to_records():
+            t = rec.get("travel_time_s")
+            what = f"{t:.2f} s" if t is not None else (
+                f"stalls at {rec['stalled_at_m']:.1f} m" if rec.get("stalled_at_m") is not None else "-")
+            env = f", {rec['envelope_status']}" if rec.get("envelope_status") else ""
+            click.echo(f"{rec['name']:<24} {what:>18}  {rec['status']}{env}")
+        click.echo(f"wrote comparison.csv, comparison.png, comparison.svg, report.html in {out_dir}")
+
+
+def _run_compare(sc, lines_path, *, refine: bool, optimum: bool):
+    from .compare import compare as compare_lines, read_lines
+    from .points import dem_crs
+    from .terrain import load_terrain
+
+    src = dem_crs(sc.dem)
+    lines = read_lines(lines_path, crs=src)
+    bounds = None
+    if not src.is_geographic:
+        xs = [float(v) for _, p in lines for v in p[:, 0]]
+        ys = [float(v) for _, p in lines for v in p[:, 1]]
+        bounds = (min(xs), min(ys), max(xs), max(ys))
+    terrain = load_terrain(sc.dem, bounds=bounds)
+    if terrain.crs != src:
+        lines = read_lines(lines_path, crs=terrain.crs)
+    keepout = None
+    if sc.keepout is not None:
+        from .limits import Keepout
+
+        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
+    cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, optimum=optimum,
+                        neighbours=sc.neighbours, refine=refine, mu_range=sc.mu_range)
+    return cmp, terrain, keepout
+
+
+def _write_comparison(outs, sc, cmp, terrain, keepout) -> None:
+    from . import plot, report
+    from .compare import comparison_figure
+
+    cmp.to_csv(outs.path("comparison.csv"))
+    plot.save_figure(comparison_figure(terrain, cmp, keepout=keepout), outs.path("comparison.png"))
+    outs.path("comparison.svg")
+    report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
+                                 parameters=sc.to_dict())
+
+
+@main.command()
 @click.option("--out", "out_dir", default="fallway-demo", show_default=True, type=click.Path(file_okay=False),
               help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
@@ -334,16 +441,30 @@ def demo(out_dir, overwrite, quiet):
     from .scenario import load_scenario
 
     with as_file(files("fallway.sample_terrain")) as site:
+        from .compare import compare as compare_lines, read_lines
+        from .points import dem_crs
+
         sc = load_scenario(Path(site) / "scenario.toml")
+        lines_path = Path(site) / "lines.geojson"
+        cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
         with OutputSet(out_dir, overwrite=overwrite) as outs:
-            r, terrain, keepout = _run_route(sc, quiet=quiet)
+            r, terrain, keepout = _run_route(sc, quiet=quiet, cover=cover)
             rm = reach_map(terrain, r.line[0, :2], sc.mover, neighbours=sc.neighbours, limits=sc.limits,
                            keepout=keepout)
             rm.to_geotiff(outs.path("reach.tif"))
-            written = _write_route(outs, sc, r, terrain, keepout, reach=rm)
+            lines = read_lines(lines_path, crs=terrain.crs)
+            cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, mu_range=sc.mu_range,
+                                route=r)
+            env = _envelope(sc, r, terrain, keepout)
+            written = _write_route(outs, sc, r, terrain, keepout, reach=rm, envelope=env, comparison=cmp)
     if not quiet:
         click.echo("fallway demo: the invented sample site (quarry bench to valley floor), line kept clear of the no-go areas")
-        _print_route(r, out_dir, written)
+        _print_route(r, out_dir, written, env)
+        for rec in cmp.to_records():
+            t = rec.get("travel_time_s")
+            what = f"{t:.2f} s" if t is not None else (
+                f"stalls at {rec['stalled_at_m']:.1f} m" if rec.get("stalled_at_m") is not None else "-")
+            click.echo(f"  {rec['name']:<22} {what:>18}  {rec['status']}")
         click.echo("Preliminary layout aid only: have any real design checked by a qualified engineer.")
 
 

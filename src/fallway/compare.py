@@ -939,7 +939,7 @@ def _failed_row(name: str, message: str) -> LineResult:
 
 def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepout=None, optimum: bool = True,
             neighbours: int = 16, refine: bool = True, mu_range: tuple[float, float] | None = None,
-            route_kwargs: dict | None = None) -> Comparison:
+            route_kwargs: dict | None = None, route=None) -> Comparison:
     """Time candidate lines on the same terrain and physics, and rank them.
 
     Parameters
@@ -974,6 +974,9 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         :func:`robust_route` for a search against the range).
     route_kwargs : dict, optional
         Further keyword arguments for ``find_route``.
+    route : Route, optional
+        An optimum already found (e.g. with via points or a raised line): used as the
+        computed row instead of a new search (``optimum`` must be True).
 
     Returns
     -------
@@ -994,9 +997,10 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
     items = _as_lines(lines)
     if mu_range is not None:
         mu_range = _check_mu_range(mover, *mu_range)
-    if not items and optimum:
+    if not items and optimum and route is None:
         raise ParameterError("give at least one line: the computed optimum uses the first line's end points")
     rows = [_row(terrain, name, pts, mover, limits, mu_range, keepout=keepout) for name, pts in items]
+    given = route
     route = None
     if optimum:
         taken = {n for n, _ in items}
@@ -1005,15 +1009,18 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         while name in taken:
             name = f"{COMPUTED_NAME}-{j}"
             j += 1
-        first = items[0][1]
-        start = (float(first[0, 0]), float(first[0, 1]))
-        end = (float(first[-1, 0]), float(first[-1, 1]))
-        from .route import find_route
-
-        kw = dict(limits=limits, keepout=keepout, neighbours=neighbours, refine=refine)
-        kw.update(route_kwargs or {})
         try:
-            route = find_route(terrain, start, end, mover, **kw)
+            if given is not None:
+                route = given
+            else:
+                from .route import find_route
+
+                first = items[0][1]
+                start = (float(first[0, 0]), float(first[0, 1]))
+                end = (float(first[-1, 0]), float(first[-1, 1]))
+                kw = dict(limits=limits, keepout=keepout, neighbours=neighbours, refine=refine)
+                kw.update(route_kwargs or {})
+                route = find_route(terrain, start, end, mover, **kw)
         except NoFeasibleLine as err:
             rows.append(_failed_row(name, str(err)))
         else:

@@ -63,6 +63,9 @@ RESULT_FILES = (
     "report.html",
     "scenario.toml",
     "reach.tif",
+    "comparison.csv",
+    "comparison.png",
+    "comparison.svg",
 )
 
 #: Decimal places of longitude/latitude in GeoJSON (1e-9 degree is about 0.1 mm).

@@ -17,7 +17,7 @@ from typing import Any
 
 from .caution import CAUTION
 
-__all__ = ["write_report_html", "report_html"]
+__all__ = ["write_report_html", "report_html", "comparison_html", "write_comparison_html"]
 
 #: (summary key, label, unit, decimals) of the main table, in this order; other summary
 #: entries follow in a second table.
@@ -153,7 +153,8 @@ def _img(data: bytes, alt: str, caption: str) -> str:
 
 
 def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: dict | None = None,
-                title: str = "fallway: minimum-time descent line", reach=None, keepout=None) -> str:
+                title: str = "fallway: minimum-time descent line", reach=None, keepout=None,
+                comparison=None, comparison_png=None) -> str:
     """The report page as a string (see :func:`write_report_html`).
 
     Examples
@@ -230,6 +231,9 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
                           "Long-section: ground and line heights, speed and time along the line; "
                           "flagged stretches shaded."))
 
+    if comparison is not None:
+        parts += _comparison_section(comparison, comparison_png)
+
     parts.append('<h2 id="parameters">Parameters</h2>')
     parts.append('<div class="cols">')
     parts.append("<div><h3>Mover</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(route.mover))],
@@ -257,7 +261,7 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
 
 def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, profile_png=None,
                       parameters: dict | None = None, title: str = "fallway: minimum-time descent line",
-                      reach=None, keepout=None) -> Path:
+                      reach=None, keepout=None, comparison=None, comparison_png=None) -> Path:
     """Write one self-contained HTML page for a route.
 
     Parameters
@@ -293,8 +297,106 @@ def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, 
     from .export import atomic_write
 
     text = report_html(route, terrain, map_png=map_png, profile_png=profile_png, parameters=parameters,
-                       title=title, reach=reach, keepout=keepout)
+                       title=title, reach=reach, keepout=keepout, comparison=comparison,
+                       comparison_png=comparison_png)
     path = Path(path)
     with atomic_write(path) as f:
         f.write(text)
+    return path
+
+
+#: (record key, column heading, decimals) of the comparison table.
+_COMPARISON_COLS = (
+    ("name", "line", None),
+    ("status", "status", None),
+    ("travel_time_s", "time (s)", 2),
+    ("length_m", "length (m)", 1),
+    ("drop_m", "drop (m)", 1),
+    ("exit_speed_m_s", "exit speed (m/s)", 2),
+    ("max_speed_m_s", "max speed (m/s)", 2),
+    ("max_grade", "max grade", 3),
+    ("min_radius_m", "min radius (m)", 1),
+    ("stalled_at_m", "stalls at (m)", 1),
+    ("envelope_status", "friction range", None),
+)
+
+
+def _comparison_section(comparison, comparison_png=None) -> list[str]:
+    """HTML of the ranked comparison table (and its figure)."""
+    parts = ['<h2 id="comparison">Candidate lines compared</h2>']
+    mu = comparison.mover.mu
+    text = f"All lines timed with the same physics (μ = {mu:g}"
+    if comparison.mu_range is not None:
+        lo, hi = comparison.mu_range
+        text += f"; friction range {lo:g} to {hi:g} checked"
+    parts.append(f'<p class="sub">{_e(text)}); ranked fastest first, lines that stall after those that '
+                 "reach the end. The computed optimum is marked *.</p>")
+    records = comparison.to_records()
+    cols = [c for c in _COMPARISON_COLS if c[0] != "envelope_status" or comparison.mu_range is not None]
+    rows = []
+    for rec in records:
+        cells = []
+        for key, _, dec in cols:
+            v = rec.get(key)
+            if key == "name" and rec.get("computed"):
+                v = f"{v} *"
+            cells.append(_fmt(v, dec) if dec is not None else ("—" if v is None else str(v)))
+        rows.append(cells)
+    out = ["<table>", "<tr>" + "".join(f"<th>{_e(c[1])}</th>" for c in cols) + "</tr>"]
+    num = ' class="num"'
+    for cells in rows:
+        out.append("<tr>" + "".join(f"<td{num if _looks_numeric(c) else ''}>{_e(c)}</td>" for c in cells) + "</tr>")
+    out.append("</table>")
+    parts.append("\n".join(out))
+    data = _png_bytes(comparison_png)
+    if data is not None:
+        parts.append(_img(data, "candidate lines on the hillshade and their long-sections",
+                          "Candidate lines in plan and their long-sections (height and speed)."))
+    return parts
+
+
+def comparison_html(comparison, *, comparison_png=None, parameters: dict | None = None,
+                    title: str = "fallway: candidate lines compared") -> str:
+    """A self-contained page for a comparison of candidate lines.
+
+    Examples
+    --------
+    >>> from fallway.compare import Comparison, evaluate_line
+    >>> from fallway.physics import Mover
+    >>> m = Mover(normal="gravity")
+    >>> rows = [evaluate_line(None, [(0, 0, 10.0), (40.0, 0, 0.0)], m, name="steep")]
+    >>> page = comparison_html(Comparison.ranked(rows, m))
+    >>> "steep" in page and "Caution" in page and "http" not in page
+    True
+    """
+    parts = ["<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
+             '<meta name="viewport" content="width=device-width, initial-scale=1">',
+             f"<title>{_e(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>", "<main>",
+             f"<h1>{_e(title)}</h1>",
+             f'<div class="caution" id="caution"><strong>Caution</strong> — {_e(CAUTION)}</div>']
+    parts += _comparison_section(comparison, comparison_png)
+    parts.append('<h2 id="parameters">Parameters</h2>')
+    parts.append("<div class=\"cols\"><div><h3>Mover</h3>"
+                 + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(comparison.mover))], head=("parameter", "value"))
+                 + "</div><div><h3>Limits</h3>"
+                 + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(comparison.limits))], head=("limit", "value"))
+                 + "</div>")
+    if parameters:
+        parts.append("<div><h3>Scenario</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(dict(parameters))],
+                                                       head=("setting", "value")) + "</div>")
+    parts.append("</div>")
+    parts.append("<footer>Written by fallway. Times and speeds are those of a point mass on each line's "
+                 "vertices.</footer>")
+    parts += ["</main>", "</body>", "</html>"]
+    return "\n".join(parts) + "\n"
+
+
+def write_comparison_html(comparison, path: str | os.PathLike, *, comparison_png=None,
+                          parameters: dict | None = None) -> Path:
+    """Write :func:`comparison_html` to ``path`` atomically; returns the path."""
+    from .export import atomic_write
+
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write(comparison_html(comparison, comparison_png=comparison_png, parameters=parameters))
     return path
