@@ -505,3 +505,43 @@ def test_reversing_a_frictionless_line_keeps_speed_at_each_height(pts, normal, m
     back = traverse(pts[::-1], Mover(v0=fwd.exit_speed_m_s, normal=normal))
     assert back.feasible
     np.testing.assert_allclose(back.speed_m_s[::-1], fwd.speed_m_s, rtol=1e-9)
+
+
+# --------------------------------------------------------------------------- lift-off against the ground
+def test_plan_turn_on_a_slope_does_not_lift_off_when_the_ground_normal_is_given():
+    # A curve lying in a plane has zero normal curvature (differential geometry: the
+    # curvature vector of a plane curve lies in the plane), so the plane's reaction along
+    # its normal is g·cos(slope) > 0 whatever the speed: an open chute cannot lift off.
+    slope = np.radians(25.0)
+    nrm = np.array([np.sin(slope), 0.0, np.cos(slope)])           # plane falling east
+    u_dir = np.array([np.cos(slope), 0.0, -np.sin(slope)])       # fall line in the plane
+    w_dir = np.array([0.0, 1.0, 0.0])                            # level line in the plane
+    th = np.linspace(0.0, np.pi / 2, 200)
+    r = 8.0                                                      # tight 8 m bend
+    # enters level, bends down into the fall line: seen in its own vertical plane the
+    # curvature points downhill, like a crest
+    pts = (np.outer(r * np.sin(th), w_dir) + np.outer(r * (1 - np.cos(th)), u_dir))
+    mover = Mover(mu=0.0, v0=15.0)                               # fast: v²/r ≈ 2.9 g
+    on_ground = traverse(pts, mover, surface_normal=np.tile(nrm, (len(pts), 1)))
+    assert on_ground.liftoff.size == 0
+    # judged in the vertical plane of the line instead, the same bend looks like a crest
+    assert traverse(pts, mover).liftoff.size > 0
+
+
+def test_convex_crest_lift_off_is_the_same_with_the_ground_normal():
+    # A line in a vertical plane over a convex arc: the ground normal is the up normal in
+    # that plane, so both judgements agree (lift-off where v² > g R cos(slope)).
+    R = 5.0
+    th = np.radians(np.linspace(30.0, 80.0, 800))                # CHECKS.md: 1 m/s at 30°
+    pts = np.column_stack([R * np.sin(th), np.zeros_like(th), R * np.cos(th)])
+    normals = np.column_stack([np.sin(th), np.zeros_like(th), np.cos(th)])
+    mover = Mover(mu=0.3, v0=1.0)
+    a = traverse(pts, mover)
+    b = traverse(pts, mover, surface_normal=normals)
+    assert a.liftoff.size > 0
+    np.testing.assert_array_equal(a.liftoff, b.liftoff)
+
+
+def test_surface_normal_must_match_the_points():
+    with pytest.raises(ParameterError, match="surface_normal must be a finite"):
+        traverse([[0, 0, 1.0], [1, 0, 0.0]], Mover(), surface_normal=[[0, 0, 1.0]])

@@ -241,7 +241,7 @@ def full_segment_step(v2_in, drop_m, plan_m, length_m, kappa_a, kdg_a, kappa_b, 
 
 @njit(cache=True, nogil=True)
 def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grade,
-                    normal_ratio, lift, v2_mid):
+                    normal_ratio, lift, v2_mid, surf, has_surf):
     """Speed along a polyline without repeated points; fills the output arrays.
 
     Outputs (length M unless noted): ``station`` (m), ``v2`` (m²/s², NaN after a
@@ -249,6 +249,10 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     leaving each vertex), ``normal_ratio`` (N/g; NaN after a stall in the full model),
     ``lift`` (1 where an open chute would lift off, 0 otherwise), ``v2_mid`` (M-1,
     squared speed at each segment's midpoint, full model; NaN otherwise).
+
+    ``surf`` (M, 3): the upward unit normal of the surface the line lies on (the
+    ground), used for lift-off when ``has_surf``; otherwise lift-off is judged against
+    the up direction in the vertical plane of the tangent.
 
     Returns the stall station (m), or -1.0 when the mover reaches the end.
     """
@@ -337,9 +341,14 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
             ckz = u * kappa[i] * normal[i, 2] + g * upz
             normal_ratio[i] = math.sqrt(ckx * ckx + cky * cky + ckz * ckz) / g
         if kappa[i] > 0.0 and upn > 1e-12 and i <= last:
-            # component of the supplied force along the up normal
-            nup = (v2[i] * kappa[i] * (normal[i, 0] * upx + normal[i, 1] * upy
-                                       + normal[i, 2] * upz) + g * upn * upn) / upn
+            if has_surf:
+                # component of the supplied force along the surface normal: a bend in the
+                # plane of the ground (a plan turn on a slope) never lifts the mass off
+                ax, ay, az = surf[i, 0], surf[i, 1], surf[i, 2]
+            else:
+                ax, ay, az = upx / upn, upy / upn, upz / upn
+            nup = (v2[i] * kappa[i] * (normal[i, 0] * ax + normal[i, 1] * ay + normal[i, 2] * az)
+                   + g * (upx * ax + upy * ay + upz * az))
             if nup < 0.0:
                 lift[i] = 1
     return stall

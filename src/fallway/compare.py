@@ -84,6 +84,10 @@ _SAME_POINT_M = 1e-6
 
 # --------------------------------------------------------------------------- reading
 
+#: A line whose vertices all lie within this of the ground counts as lying on it.
+_ON_GROUND_M = 0.05
+
+
 def _crs_object(crs):
     """A pyproj CRS from anything rasterio or pyproj accept (None stays None)."""
     if crs is None:
@@ -606,8 +610,15 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     if terrain is not None:
         ok = np.atleast_1d(terrain.valid(p[:, 0], p[:, 1]))
         _check_on_terrain(p[:, :2], np.where(ok, 0.0, np.nan), name)
+    normals = None
+    if terrain is not None:
+        # a line lying on the ground lifts off only over a crest of the ground, not in a
+        # plan turn on a slope: judge lift-off against the ground's normal
+        zg = np.atleast_1d(terrain.sample(p[:, 0], p[:, 1]))
+        if np.all(np.abs(p[:, 2] - zg) < _ON_GROUND_M):
+            normals = terrain.normal(p[:, 0], p[:, 1])
     try:
-        prof = traverse(p, mover)
+        prof = traverse(p, mover, surface_normal=normals)
     except ParameterError as err:
         raise ParameterError(f"line '{name}': {err}") from err
     d = np.diff(p, axis=0)

@@ -286,7 +286,7 @@ def _readonly(a: np.ndarray) -> np.ndarray:
     return a
 
 
-def traverse(points, mover: Mover) -> Profile:
+def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     """Speed and time of a point mass along a 3D polyline.
 
     Parameters
@@ -298,6 +298,13 @@ def traverse(points, mover: Mover) -> Profile:
         repeat.
     mover : Mover
         Friction, drag, start speed, gravity, normal-force model and speed window.
+    surface_normal : array_like (N, 3), optional
+        Upward unit normal of the ground under each vertex, for a line lying on the
+        ground (e.g. from :meth:`fallway.Terrain.normal`).  Lift-off is then judged
+        against the ground: only curvature *out of* the ground surface (a crest) can
+        lift the mass, not a plan turn on a slope.  Without it, lift-off is judged
+        against the up direction in the vertical plane of the line (right for a line
+        in a vertical plane, or a raised line).
 
     Returns
     -------
@@ -387,8 +394,20 @@ def traverse(points, mover: Mover) -> Profile:
     ratio = np.empty(m)
     lift = np.empty(m, dtype=np.int8)
     v2_mid = np.empty(m - 1)
+    if surface_normal is None:
+        surf = np.zeros((m, 3))
+    else:
+        surf = np.array(surface_normal, dtype=np.float64)
+        if surf.shape != pts.shape or not np.isfinite(surf).all():
+            raise ParameterError(f"surface_normal must be a finite (N, 3) array like points {pts.shape}, "
+                                 f"got shape {surf.shape}")
+        norm = np.sqrt((surf ** 2).sum(axis=1))
+        if (norm <= 0).any():
+            raise ParameterError("surface_normal has a zero vector; give unit upward normals")
+        surf = np.ascontiguousarray((surf / norm[:, None])[keep])
     stall = traverse_kernel(uniq, mover.g, mover.mu, mover.drag, mover.v0 ** 2, mover.stall_speed ** 2,
-                            mover.normal == "full", station, v2, time, grade, ratio, lift, v2_mid)
+                            mover.normal == "full", station, v2, time, grade, ratio, lift, v2_mid,
+                            surf, surface_normal is not None)
     speed = np.sqrt(v2)
     liftoff = station[lift.astype(bool)]
     if mover.max_speed is None:

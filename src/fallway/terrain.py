@@ -338,6 +338,24 @@ class Terrain:
             return float(gx.ravel()[0]), float(gy.ravel()[0])
         return gx, gy
 
+    def normal(self, x, y) -> np.ndarray:
+        """Upward unit normals of the smooth surface at (x, y): an (N, 3) array.
+
+        ``(-dz/dx, -dz/dy, 1)`` normalised; NaN where :meth:`gradient` is NaN.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from affine import Affine
+        >>> z = -0.5 * np.tile(np.arange(8.0), (8, 1))     # falls 0.5 m per metre east
+        >>> t = Terrain.from_array(z, Affine(1.0, 0, 0, 0, -1.0, 8.0))
+        >>> np.round(t.normal([3.0], [4.0]), 6)
+        array([[0.447214, 0.      , 0.894427]])
+        """
+        gx, gy = self.gradient(np.atleast_1d(np.asarray(x, dtype=float)), np.atleast_1d(np.asarray(y, dtype=float)))
+        n = np.column_stack([-np.ravel(gx), -np.ravel(gy), np.ones(np.size(gx))])
+        return n / np.sqrt((n ** 2).sum(axis=1))[:, None]
+
 
 def _blend_axis(u: np.ndarray, n: int):
     """Tiles and weights along one axis for fractional cell coordinates ``u``.
