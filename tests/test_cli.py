@@ -1,0 +1,209 @@
+"""The command line end to end: route, reach, compare, demo (click's CliRunner and subprocess).
+
+Bad input and failures have their own matrix in test_bad_input.py.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+from click.testing import CliRunner
+
+from conftest import plane, write_geotiff
+from fallway.cli import main
+from fallway.physics import Mover, traverse
+
+G = 9.80665
+
+
+def _incline_time(s, theta, mu, v0=0.0):
+    # any mechanics text: a = g (sin θ − μ cos θ), t = (sqrt(v0² + 2 a s) − v0) / a
+    a = G * (math.sin(theta) - mu * math.cos(theta))
+    return (math.sqrt(v0 * v0 + 2 * a * s) - v0) / a
+
+
+@pytest.fixture
+def ramp(tmp_path):
+    """A plane falling 0.3 m per metre east, 30 x 60 cells at 2 m, EPSG:32633."""
+    z, t = plane(30, 60, 2.0, -0.3, 0.0, z0=200.0)
+    path = write_geotiff(tmp_path / "ramp.tif", z, t, "EPSG:32633")
+    # cell centres of row 15: x = 500001 + 2 c, y = 4000000 - 31
+    return path, (500_005.0, 3_999_969.0), (500_105.0, 3_999_969.0)
+
+
+def _run(args):
+    res = CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+    return res
+
+
+def test_help_lists_the_commands():
+    out = subprocess.run([sys.executable, "-m", "fallway.cli", "--help"], capture_output=True, text=True,
+                         check=True).stdout
+    for cmd in ("route", "reach", "compare", "demo"):
+        assert cmd in out
+
+
+def test_route_down_the_fall_line_matches_the_incline_formula(tmp_path, ramp):
+    dem, start, end = ramp
+    out = tmp_path / "run"
+    res = _run(["route", dem, "--start", *start, "--end", *end, "--mu", 0.1, "--normal", "gravity",
+                "--out", out])
+    assert res.exit_code == 0, res.output
+    for name in ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "map.png", "map.svg",
+                 "profile.png", "profile.svg", "report.html", "scenario.toml"):
+        assert (out / name).is_file(), name
+    summary = json.loads((out / "summary.json").read_text())
+    # 100 m of plan down a 0.3 grade: the straight fall line is the fastest line here
+    theta = math.atan(0.3)
+    expected = _incline_time(100.0 / math.cos(theta), theta, 0.1)
+    assert summary["travel_time_s"] == pytest.approx(expected, rel=1e-6)
+    assert "qualified engineer" in summary["caution"]
+    # profile.csv re-timed with traverse on its own z_line column
+    with open(out / "profile.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    pts = np.array([[float(r["x"]), float(r["y"]), float(r["z_line"])] for r in rows])
+    again = traverse(pts, Mover(mu=0.1, normal="gravity"))
+    assert again.travel_time_s == pytest.approx(summary["travel_time_s"], rel=1e-6)
+    assert float(rows[-1]["time_s"]) == pytest.approx(summary["travel_time_s"], rel=1e-6)
+    # GeoJSON: RFC 7946 lon/lat, with z
+    gj = json.loads((out / "route.geojson").read_text())
+    assert "crs" not in gj
+    coords = gj["features"][0]["geometry"]["coordinates"]
+    assert all(len(c) == 3 and -180 <= c[0] <= 180 and -90 <= c[1] <= 90 for c in coords)
+    assert "travel time" in res.output
+
+
+def test_scenario_file_with_flag_override_and_resolved_copy(tmp_path, ramp):
+    dem, start, end = ramp
+    sc = tmp_path / "run.toml"
+    sc.write_text(f'dem = "{dem.name}"\n[points]\nstart = [{start[0]}, {start[1]}]\nend = [{end[0]}, {end[1]}]\n'
+                  '[mover]\nmu = 0.25\nnormal = "gravity"\n[search]\nneighbours = 8\nrefine = false\n')
+    out = tmp_path / "run"
+    res = _run(["route", "--scenario", sc, "--mu", 0.05, "--out", out])
+    assert res.exit_code == 0, res.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["mover"]["mu"] == 0.05                      # the flag wins
+    resolved = tomllib.loads((out / "scenario.toml").read_text())
+    assert resolved["mover"]["mu"] == 0.05 and resolved["search"]["neighbours"] == 8
+    # the resolved scenario alone reproduces the run
+    out2 = tmp_path / "again"
+    res = _run(["route", "--scenario", out / "scenario.toml", "--out", out2])
+    assert res.exit_code == 0, res.output
+    again = json.loads((out2 / "summary.json").read_text())
+    assert again["travel_time_s"] == summary["travel_time_s"]
+
+
+def test_reach_geotiff_two_bands_match_the_incline_formula(tmp_path, ramp):
+    dem, start, end = ramp
+    out = tmp_path / "reach.tif"
+    res = _run(["reach", dem, "--start", *start, "--mu", 0.1, "--normal", "gravity", "--neighbours", 8,
+                "--out", out])
+    assert res.exit_code == 0, res.output
+    with rasterio.open(out) as ds:
+        assert ds.count == 2 and ds.dtypes == ("float32", "float32")
+        t = ds.read(1)
+        v = ds.read(2)
+        r, c = ds.index(*end)
+    theta = math.atan(0.3)
+    s = 100.0 / math.cos(theta)
+    assert t[r, c] == pytest.approx(_incline_time(s, theta, 0.1), rel=1e-5)
+    a = G * (math.sin(theta) - 0.1 * math.cos(theta))
+    assert v[r, c] == pytest.approx(math.sqrt(2 * a * s), rel=1e-5)
+    # uphill of the start (west) nothing is reachable from rest
+    assert np.isnan(t[15, 0])
+    # a second run refuses to replace the file without --overwrite
+    res = _run(["reach", dem, "--start", *start, "--mu", 0.1, "--out", out])
+    assert res.exit_code == 1 and "--overwrite" in res.output
+
+
+def test_compare_ranks_drawn_lines_and_the_computed_optimum(tmp_path, ramp):
+    dem, start, end = ramp
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs("EPSG:32633", "EPSG:4326", always_xy=True)
+    straight = [tr.transform(*start), tr.transform(*end)]
+    mid = (start[0] + 50.0, start[1] + 20.0)
+    dogleg = [tr.transform(*start), tr.transform(*mid), tr.transform(*end)]
+    fc = {"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {"name": "dogleg"},
+         "geometry": {"type": "LineString", "coordinates": dogleg}},
+        {"type": "Feature", "properties": {"name": "straight"},
+         "geometry": {"type": "LineString", "coordinates": straight}}]}
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps(fc))
+    out = tmp_path / "cmp"
+    res = _run(["compare", dem, lines, "--mu", 0.1, "--normal", "gravity", "--mu-range", 0.05, 0.2,
+                "--out", out])
+    assert res.exit_code == 0, res.output
+    with open(out / "comparison.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    names = [r["name"] for r in rows]
+    assert set(names) == {"straight", "dogleg", "computed optimum"}
+    # straight down the fall line beats the dogleg (closed form for the straight one)
+    assert names.index("straight") < names.index("dogleg")
+    theta = math.atan(0.3)
+    t_straight = float(rows[names.index("straight")]["travel_time_s"])
+    assert t_straight == pytest.approx(_incline_time(100.0 / math.cos(theta), theta, 0.1), rel=1e-4)
+    assert "envelope_status" in rows[0]
+    for name in ("comparison.png", "comparison.svg", "report.html"):
+        assert (out / name).is_file()
+
+
+@pytest.mark.slow
+def test_real_dem_end_to_end(tmp_path):
+    # SRTM 3 arc-second tile shipped with matplotlib (public domain): a geographic DEM,
+    # so the points are lon/lat and the terrain is reprojected to UTM on load.
+    from matplotlib import cbook
+
+    d = cbook.get_sample_data("jacksboro_fault_dem.npz")
+    z = np.asarray(d["elevation"], dtype=np.float32)
+    dx, dy = float(d["dx"]), float(d["dy"])
+    # ymin is the north edge and row 0 is north (see test_terrain.py)
+    from affine import Affine
+
+    t = Affine(dx, 0, d["xmin"], 0, -dy, d["ymin"])
+    dem = write_geotiff(tmp_path / "srtm.tif", z, t, "EPSG:4326")
+    # the highest cell and a cell about 1.5 km away that is 150 m or more lower
+    r0, c0 = np.unravel_index(np.argmax(z), z.shape)
+    rr, cc = np.mgrid[0:z.shape[0], 0:z.shape[1]]
+    near = (np.hypot(rr - r0, cc - c0) > 15) & (np.hypot(rr - r0, cc - c0) < 22) & (z < z[r0, c0] - 150)
+    assert near.any()
+    r1, c1 = np.argwhere(near)[0]
+    lon0, lat0 = t @ (c0 + 0.5, r0 + 0.5)
+    lon1, lat1 = t @ (c1 + 0.5, r1 + 0.5)
+    out = tmp_path / "run"
+    res = _run(["route", dem, "--start", lon0, lat0, "--end", lon1, lat1, "--mu", 0.05, "--out", out])
+    assert res.exit_code in (0, 3), res.output
+    if res.exit_code == 3:
+        pytest.fail(f"no line on the real DEM: {res.output}")
+    gj = json.loads((out / "route.geojson").read_text())
+    coords = np.array(gj["features"][0]["geometry"]["coordinates"])
+    # ends within one 3-arc-second cell of the requested lon/lat
+    assert abs(coords[0, 0] - lon0) < dx and abs(coords[0, 1] - lat0) < dy
+    assert abs(coords[-1, 0] - lon1) < dx and abs(coords[-1, 1] - lat1) < dy
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["crs"].startswith("EPSG:326")              # local UTM zone
+    assert summary["drop_m"] > 150.0
+
+
+@pytest.mark.slow
+def test_demo_writes_every_output(tmp_path):
+    out = tmp_path / "demo"
+    res = _run(["demo", "--out", out])
+    assert res.exit_code == 0, res.output
+    for name in ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "map.png", "profile.png",
+                 "report.html", "reach.tif", "comparison.csv", "comparison.png", "scenario.toml"):
+        assert (out / name).is_file(), name
+    assert "qualified engineer" in res.output
+    with open(out / "comparison.csv", newline="") as fh:
+        names = [r["name"] for r in csv.DictReader(fh)]
+    assert {"haul road", "direct", "double-back", "computed optimum"} <= set(names)
