@@ -7,9 +7,14 @@ stderr and an exit code: 0 success, 1 a clear error, 2 usage, 3 no feasible line
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import logging
+import os
+import signal
+import socket
 import sys
+import threading
 from pathlib import Path
 
 import click
@@ -29,13 +34,74 @@ def _fail(message: str, code: int) -> None:
     sys.exit(code)
 
 
+_INTERRUPTED = "interrupted; no partial outputs were left"
+
+
+@contextlib.contextmanager
+def _sigint_exits():
+    """Ctrl-C (SIGINT) removes the temporary outputs and exits 130 at once.
+
+    The search runs in compiled code that a KeyboardInterrupt must not unwind (numba
+    turns it into a crash), so SIGINT is not raised in the main thread: Python's C
+    handler wakes a watcher thread through :func:`signal.set_wakeup_fd`, which removes
+    the temporary folders of the output sets being written (waiting for a commit in
+    progress) and ends the process.  Only in the main thread, and only while SIGINT has
+    Python's default handler.
+    """
+    if (threading.current_thread() is not threading.main_thread()
+            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+        yield
+        return
+    rsock, wsock = socket.socketpair()
+    wsock.setblocking(False)
+    try:
+        old_fd = signal.set_wakeup_fd(wsock.fileno(), warn_on_full_buffer=False)
+    except (ValueError, OSError):
+        rsock.close()
+        wsock.close()
+        yield
+        return
+
+    def watch() -> None:
+        while True:
+            try:
+                data = rsock.recv(64)
+            except OSError:
+                return
+            if not data or 0 in data:  # closed, or the stop byte
+                return
+            if signal.SIGINT in data:
+                from .export import abort_active_outputs
+
+                abort_active_outputs()
+                with contextlib.suppress(Exception):
+                    sys.stderr.write(f"fallway: error: {_INTERRUPTED}\n")
+                    sys.stderr.flush()
+                os._exit(130)
+
+    old_handler = signal.signal(signal.SIGINT, lambda signum, frame: None)
+    watcher = threading.Thread(target=watch, name="fallway-sigint", daemon=True)
+    watcher.start()
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old_handler)
+        signal.set_wakeup_fd(old_fd)
+        with contextlib.suppress(OSError):
+            wsock.send(b"\0")
+        watcher.join(timeout=1.0)
+        rsock.close()
+        wsock.close()
+
+
 def _guard(fn):
     """Translate library errors into one-line messages and exit codes."""
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         try:
-            return fn(*args, **kwargs)
+            with _sigint_exits():
+                return fn(*args, **kwargs)
         except NoFeasibleLine as err:
             msg = str(err)
             if err.closest is not None:
@@ -44,7 +110,7 @@ def _guard(fn):
         except FallwayError as err:
             _fail(str(err).splitlines()[0] if str(err) else type(err).__name__, EXIT_ERROR)
         except KeyboardInterrupt:
-            _fail("interrupted; no outputs were written", 130)
+            _fail(_INTERRUPTED, 130)
         except MemoryError:
             _fail("out of memory; read a smaller area (bounds) or a coarser grid (--resolution)", EXIT_ERROR)
         except click.exceptions.Exit:
@@ -68,6 +134,8 @@ def _setup_logging(quiet: bool, verbose: int) -> None:
     elif verbose == 1:
         level = logging.INFO
     logging.basicConfig(level=level, format="fallway: %(message)s", stream=sys.stderr, force=True)
+    # GDAL's own warnings (e.g. about a damaged file) only with -v: the one-line error says it
+    logging.getLogger("rasterio").setLevel(logging.NOTSET if verbose else logging.ERROR)
 
 
 def _stages(total: int, quiet: bool):
@@ -234,9 +302,16 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 @click.option("--robust", is_flag=True, help="With --mu-range: the fastest line that works across the whole range.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
+@click.option("--timings", is_flag=True,
+              help="Also write run.json with wall-clock figures (search seconds). summary.json and "
+                   "route.geojson never hold them: the same inputs give byte-identical files.")
 @_guard
-def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, **opts):
-    """Find the minimum-time line from --start to --end on DEM and write it to --out."""
+def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **opts):
+    """Find the minimum-time line from --start to --end on DEM and write it to --out.
+
+    Writes route.geojson, route.gpkg, profile.csv, summary.json, scenario.toml, map and
+    profile figures and report.html; all appear together or not at all (also on Ctrl-C).
+    """
     _setup_logging(quiet, verbose)
     sc = _resolve(scenario_path, _overrides(**opts))
     if robust and sc.mu_range is None:
@@ -246,7 +321,7 @@ def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, **opts):
     with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
         r, terrain, keepout = _run_route(sc, quiet=quiet, robust=robust)
         env = _envelope(sc, r, terrain, keepout)
-        written = _write_route(outs, sc, r, terrain, keepout, envelope=env)
+        written = _write_route(outs, sc, r, terrain, keepout, envelope=env, timings=timings)
     if not quiet:
         _print_route(r, out_dir, written, env)
 
@@ -284,10 +359,24 @@ def _envelope(sc, r, terrain, keepout):
     return envelope(terrain, r.line, sc.mover, *sc.mu_range, limits=sc.limits, name="route", computed=True)
 
 
-def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, comparison=None):
+#: Wall-clock figures of a route summary: kept out of summary.json and route.geojson so
+#: the same inputs give the same bytes; ``route --timings`` writes them to run.json.
+_TIMING_KEYS = ("search_s",)
+
+
+def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, comparison=None,
+                 timings: bool = False):
     """Every output file of one route, into the output set (temporary until complete)."""
+    import dataclasses
+    import json
+
     from . import export, plot, report
 
+    timing = {k: r.summary[k] for k in _TIMING_KEYS if k in r.summary}
+    r = dataclasses.replace(r, summary={k: v for k, v in r.summary.items() if k not in _TIMING_KEYS})
+    if timings:
+        with export.atomic_write(outs.path("run.json")) as fh:
+            fh.write(json.dumps(export.to_jsonable(timing), sort_keys=True, indent=2) + "\n")
     extra = {"scenario": sc.to_dict()}
     if envelope is not None:
         extra["friction_envelope"] = {"mu_range": list(sc.mu_range), **envelope.columns()}
@@ -295,7 +384,7 @@ def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, co
     export.write_route_gpkg(r, outs.path("route.gpkg"), terrain.crs)
     export.write_profile_csv(r, terrain, outs.path("profile.csv"))
     export.write_summary_json(r, outs.path("summary.json"), extra=extra, crs=terrain.crs)
-    with open(outs.path("scenario.toml"), "w", encoding="utf-8") as fh:
+    with export.atomic_write(outs.path("scenario.toml")) as fh:
         fh.write(sc.to_toml())
     ax = plot.plot_map(terrain, r, reach=reach, keepout=keepout)
     plot.save_figure(ax.figure, outs.path("map.png"))
@@ -344,15 +433,18 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
     """Map the arrival time and speed from --start to every reachable cell of DEM."""
     _setup_logging(quiet, verbose)
     from .errors import OutputExistsError
+    from .export import OutputSet
     from .lattice.search import reach as reach_map
 
     out = Path(out_path)
     if out.exists() and not overwrite:
         raise OutputExistsError(f"{out} exists; pass --overwrite to replace it")
     sc = _resolve(scenario_path, _overrides(end=None, via=(), **opts))
-    terrain, start, _, _, keepout = _prepare(sc, need_end=False)
-    rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout)
-    rm.to_geotiff(out)
+    # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
+    with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
+        terrain, start, _, _, keepout = _prepare(sc, need_end=False)
+        rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout)
+        rm.to_geotiff(outs.path(out.name))
     if not quiet:
         import numpy as np
 

@@ -25,6 +25,7 @@ import math
 import os
 import shutil
 import tempfile
+import threading
 import uuid
 from pathlib import Path
 from typing import Any, Iterator
@@ -39,6 +40,7 @@ __all__ = [
     "OutputSet",
     "atomic_path",
     "atomic_write",
+    "abort_active_outputs",
     "crs_label",
     "profile_flags",
     "summary_document",
@@ -66,6 +68,7 @@ RESULT_FILES = (
     "comparison.csv",
     "comparison.png",
     "comparison.svg",
+    "run.json",
 )
 
 #: Decimal places of longitude/latitude in GeoJSON (1e-9 degree is about 0.1 mm).
@@ -156,6 +159,25 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str = "u
             yield f
             f.flush()
             os.fsync(f.fileno())
+
+
+#: Output sets inside their ``with`` block, so an interrupt handler running in another
+#: thread can remove their temporary folders (:func:`abort_active_outputs`).  The lock
+#: is held while a set moves its files into place, so an abort never splits a commit.
+_ACTIVE_LOCK = threading.RLock()
+_ACTIVE: dict[int, "OutputSet"] = {}
+
+
+def abort_active_outputs() -> None:
+    """Remove the temporary folders of every output set still being written.
+
+    For an interrupt handler that ends the process at once (the search may be deep in
+    compiled code): it waits for a commit in progress to finish, so each output folder
+    is left either complete or as it was.
+    """
+    with _ACTIVE_LOCK:
+        for outs in list(_ACTIVE.values()):
+            outs._abort()
 
 
 def _remove_quietly(path: Path) -> None:
@@ -256,23 +278,31 @@ class OutputSet:
                 _remove_quietly(self.out_dir)
                 self._created_dir = False
             raise _io_error("write results to", self.out_dir, err) from err
+        with _ACTIVE_LOCK:
+            _ACTIVE[id(self)] = self
         return self
 
     def __exit__(self, exc_type, exc, tb) -> bool:
-        try:
-            if exc_type is None:
-                self._commit()
-        except BaseException:
-            self._abort()
-            raise
-        if exc_type is not None:
-            self._abort()
-        else:
-            _remove_quietly(self.tmp_dir)
-        self.tmp_dir = None
+        with _ACTIVE_LOCK:
+            if self.tmp_dir is None:  # aborted from outside (interrupt handler)
+                _ACTIVE.pop(id(self), None)
+                return False
+            try:
+                if exc_type is None:
+                    self._commit()
+            except BaseException:
+                self._abort()
+                raise
+            if exc_type is not None:
+                self._abort()
+            else:
+                _remove_quietly(self.tmp_dir)
+            self.tmp_dir = None
+            _ACTIVE.pop(id(self), None)
         return False
 
     def _abort(self) -> None:
+        _ACTIVE.pop(id(self), None)
         if self.tmp_dir is not None:
             _remove_quietly(self.tmp_dir)
             self.tmp_dir = None

@@ -606,7 +606,8 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
             left, bottom, right, top = (float(v) for v in bounds)
         except (TypeError, ValueError):
             raise ParameterError(f"bounds must be (left, bottom, right, top), got {bounds!r}") from None
-        if not (left < right and bottom < top):
+        # a degenerate box (points on one row or column) is fine: the margin widens it
+        if not (left <= right and bottom <= top) or (margin_m == 0 and not (left < right and bottom < top)):
             raise ParameterError(f"bounds must satisfy left < right and bottom < top, got {bounds!r}")
         if geographic:
             lat_mid = math.radians(0.5 * (bottom + top))

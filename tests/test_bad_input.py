@@ -1,0 +1,424 @@
+"""Bad input and failure through the command line (subprocess): clear errors, nothing left.
+
+Every case runs ``python -m fallway.cli`` on small synthetic rasters written in
+``tmp_path`` and checks the exit code (0 success, 1 clear error, 2 usage, 3 no feasible
+line), key words of the one-line message, that no traceback reaches stderr, and that the
+output folder holds no result and no temporary file afterwards.
+
+Atomic writes of a whole run are checked in-process (click's CliRunner) by making one
+writer fail part way through the run.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from affine import Affine
+
+from conftest import plane, write_geotiff
+from fallway.export import RESULT_FILES
+
+CRS = "EPSG:32633"
+X0, Y0, CELL = 500_000.0, 4_000_000.0, 5.0
+N = 12
+# a 12 x 12 plane at 5 m falling 0.3 to the east: centres x 500002.5..500057.5,
+# y 3999997.5..3999942.5
+START = (X0 + 2.5, Y0 - 30.0)
+END = (X0 + 57.5, Y0 - 30.0)
+
+
+def _pts(start=START, end=END) -> list[str]:
+    return ["--start", repr(start[0]), repr(start[1]), "--end", repr(end[0]), repr(end[1])]
+
+
+def run_cli(*args, timeout=120, **kw) -> subprocess.CompletedProcess:
+    env = dict(os.environ, COLUMNS="200")
+    return subprocess.run([sys.executable, "-m", "fallway.cli", *map(str, args)], capture_output=True,
+                          text=True, timeout=timeout, env=env, **kw)
+
+
+def leftovers(folder: Path) -> list[str]:
+    """Result or temporary files in ``folder`` (recursively); [] when it does not exist."""
+    folder = Path(folder)
+    if not folder.exists():
+        return []
+    if folder.is_file():
+        return [folder.name]
+    bad = []
+    for p in folder.rglob("*"):
+        if p.name in RESULT_FILES or p.name.startswith(".") or ".tmp" in p.name or p.is_dir():
+            bad.append(str(p.relative_to(folder)))
+    return sorted(bad)
+
+
+def _plane_tif(path, **kw) -> Path:
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    return write_geotiff(path, z, t, CRS, **kw)
+
+
+# --------------------------------------------------------------------------- case builders
+# each builder gets tmp_path and returns the CLI arguments (the output folder is tmp/out)
+
+def c_missing_file(tmp):
+    return ["route", tmp / "nothing_here.tif", *_pts(), "--no-refine"]
+
+
+def c_text_named_tif(tmp):
+    p = tmp / "notes.tif"
+    p.write_text("these are survey notes, not a raster\n")
+    return ["route", p, *_pts(), "--no-refine"]
+
+
+def c_truncated_tif(tmp):
+    full = _plane_tif(tmp / "full.tif")
+    data = full.read_bytes()
+    p = tmp / "cut.tif"
+    p.write_bytes(data[: len(data) // 3])
+    return ["route", p, *_pts(), "--no-refine"]
+
+
+def c_all_nodata(tmp):
+    z = np.full((N, N), -9999.0)
+    p = write_geotiff(tmp / "void.tif", z, Affine(CELL, 0, X0, 0, -CELL, Y0), CRS, nodata=-9999.0)
+    return ["route", p, *_pts(), "--no-refine"]
+
+
+def c_no_crs(tmp):
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    p = write_geotiff(tmp / "nocrs.tif", z, t, None)
+    return ["route", p, *_pts(), "--no-refine"]
+
+
+def c_rotated(tmp):
+    z, _ = plane(N, N, CELL, -0.3, 0.0)
+    p = write_geotiff(tmp / "rot.tif", z, Affine(CELL, 1.0, X0, 1.0, -CELL, Y0), CRS)
+    return ["route", p, *_pts(), "--no-refine"]
+
+
+def c_start_outside(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(start=(X0 - 5000.0, Y0 - 30.0)), "--no-refine"]
+
+
+def c_end_outside(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(end=(X0 + 57.5, Y0 + 9000.0)), "--no-refine"]
+
+
+def _holed_tif(tmp, row, col):
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    z = z.copy()
+    z[row - 1:row + 2, col - 1:col + 2] = -9999.0
+    return write_geotiff(tmp / "holed.tif", z, t, CRS, nodata=-9999.0)
+
+
+def c_start_on_nodata(tmp):
+    return ["route", _holed_tif(tmp, 5, 1), *_pts(start=(X0 + 7.5, Y0 - 27.5)), "--no-refine"]
+
+
+def c_end_on_nodata(tmp):
+    return ["route", _holed_tif(tmp, 5, 10), *_pts(end=(X0 + 52.5, Y0 - 27.5)), "--no-refine"]
+
+
+def c_start_equals_end(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(end=START), "--no-refine"]
+
+
+def c_end_uphill(tmp):
+    # the end lies 16.5 m above the start on a plane rising east; nothing can get there
+    z, t = plane(N, N, CELL, 0.3, 0.0)
+    p = write_geotiff(tmp / "up.tif", z, t, CRS)
+    return ["route", p, *_pts(), "--no-refine", "--mu", "0.1"]
+
+
+def c_negative_mu(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--mu", "-0.2"]
+
+
+def c_nan_drag(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--drag", "nan"]
+
+
+def c_negative_v0(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--v0", "-3"]
+
+
+def c_text_v0(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--v0", "fast"]
+
+
+def c_inf_max_speed(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--max-speed", "-inf"]
+
+
+def c_unknown_neighbours(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--neighbours", "12"]
+
+
+def c_clearance_inverted(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--line", "raised",
+            "--clearance", "10", "2"]
+
+
+def c_broken_keepout(tmp):
+    k = tmp / "keepout.geojson"
+    k.write_text('{"type": "FeatureCollection", "features": [{"type": "Feature", "geom')
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_keepout_on_start(tmp):
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+    ring = [tr.transform(x, y) for x, y in ((X0, Y0 - 20), (X0 + 15, Y0 - 20), (X0 + 15, Y0 - 40),
+                                           (X0, Y0 - 40), (X0, Y0 - 20))]
+    k = tmp / "keepout.geojson"
+    k.write_text(json.dumps({"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {}, "geometry": {"type": "Polygon", "coordinates": [ring]}}]}))
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_huge_raster(tmp):
+    # 200000 x 200000 cells of 1 m declared in a small sparse tiled file (no tile written)
+    import rasterio
+
+    p = tmp / "huge.tif"
+    with rasterio.open(p, "w", driver="GTiff", width=200_000, height=200_000, count=1, dtype="float32",
+                       crs=CRS, transform=Affine(1.0, 0, X0, 0, -1.0, Y0), nodata=-9999.0, tiled=True,
+                       blockxsize=1024, blockysize=1024, compress="deflate", sparse_ok=True, BIGTIFF="YES"):
+        pass
+    assert p.stat().st_size < 5_000_000
+    return ["route", p, *_pts(start=(X0 + 10, Y0 - 10), end=(X0 + 199_990, Y0 - 199_990)), "--no-refine"]
+
+
+def c_missing_out(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "@no-out"]
+
+
+def c_robust_without_range(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--robust"]
+
+
+def c_broken_scenario(tmp):
+    s = tmp / "scenario.toml"
+    s.write_text("[mover\nmu = 0.2\n")
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--scenario", s]
+
+
+def c_scenario_unknown_key(tmp):
+    s = tmp / "scenario.toml"
+    s.write_text("[mover]\nmu = 0.2\nfriction = 0.3\n")
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--scenario", s]
+
+
+def c_reach_start_outside(tmp):
+    return ["reach", _plane_tif(tmp / "dem.tif"), "--start", X0 - 900, Y0 + 900, "@out-file"]
+
+
+def c_no_start(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), "--end", *END, "--no-refine"]
+
+
+# case id -> (builder, exit code, key words in stderr (lower case, all must appear))
+CASES = {
+    "missing file": (c_missing_file, 1, ["not found", "nothing_here.tif"]),
+    "text file named .tif": (c_text_named_tif, 1, ["cannot read", "geotiff"]),
+    "truncated geotiff": (c_truncated_tif, 1, ["cut.tif"]),
+    "all nodata": (c_all_nodata, 1, ["nodata"]),
+    "no crs": (c_no_crs, 1, ["crs"]),
+    "rotated transform": (c_rotated, 1, ["rotated", "north-up"]),
+    "start outside the dem": (c_start_outside, 1, ["start", "outside"]),
+    "end outside the dem": (c_end_outside, 1, ["end", "outside"]),
+    # an end point off the terrain is a line that cannot exist: exit 3 (no closest point)
+    "start on nodata": (c_start_on_nodata, 3, ["start", "nodata", "move it"]),
+    "end on nodata": (c_end_on_nodata, 3, ["end", "nodata", "move it"]),
+    "start equals end": (c_start_equals_end, 1, ["start", "end"]),
+    "end uphill": (c_end_uphill, 3, ["closest", "x=", "y="]),
+    "negative mu": (c_negative_mu, 1, ["mu"]),
+    "nan drag": (c_nan_drag, 1, ["drag"]),
+    "negative v0": (c_negative_v0, 1, ["v0"]),
+    "non-numeric v0": (c_text_v0, 2, ["--v0", "fast"]),
+    "minus infinite max speed": (c_inf_max_speed, 1, ["max_speed"]),
+    "unknown neighbourhood": (c_unknown_neighbours, 2, ["--neighbours", "12"]),
+    "clearance min > max": (c_clearance_inverted, 1, ["clearance"]),
+    "broken keep-out file": (c_broken_keepout, 1, ["keep-out", "keepout.geojson"]),
+    "keep-out covers start": (c_keepout_on_start, 3, ["start", "keep-out", "move it"]),
+    "huge raster": (c_huge_raster, 1, ["m cells", "bounds", "resolution"]),
+    "no --out": (c_missing_out, 2, ["--out"]),
+    "--robust without range": (c_robust_without_range, 2, ["--mu-range"]),
+    "broken scenario toml": (c_broken_scenario, 1, ["scenario", "toml"]),
+    "unknown scenario key": (c_scenario_unknown_key, 1, ["friction"]),
+    "no start point": (c_no_start, 1, ["start"]),
+    "reach start outside": (c_reach_start_outside, 1, ["start", "outside"]),
+}
+
+
+@pytest.mark.parametrize("case", list(CASES), ids=list(CASES))
+def test_bad_input_matrix(case, tmp_path):
+    build, code, words = CASES[case]
+    args = build(tmp_path)
+    out = tmp_path / "out"
+    if "@no-out" in args:
+        args = [a for a in args if a != "@no-out"]
+    elif "@out-file" in args:
+        out = tmp_path / "out" / "reach.tif"
+        args = [a for a in args if a != "@out-file"] + ["--out", out]
+    else:
+        args = args + ["--out", out]
+    p = run_cli(*args)
+    err = p.stderr
+    assert p.returncode == code, f"exit {p.returncode}, stderr: {err}"
+    assert "Traceback" not in err, err
+    low = err.lower()
+    for w in words:
+        assert w in low, f"{w!r} not in: {err}"
+    if code == 1 or code == 3:
+        assert err.startswith("fallway: error: "), err
+        assert len(err.strip().splitlines()) == 1, err  # one line
+    assert leftovers(tmp_path / "out") == []
+
+
+# --------------------------------------------------------------------------- must work
+
+def _assert_complete(out: Path) -> None:
+    names = sorted(p.name for p in out.iterdir())
+    for n in ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "report.html",
+              "map.png", "profile.png"):
+        assert n in names, names
+    assert not [n for n in names if n.startswith(".") or ".tmp" in n], names
+
+
+def test_south_up_raster_works(tmp_path):
+    # rows stored south to north (positive y step): the terrain flips it; the answer
+    # must equal the north-up raster's: the same plane, so the same heights at the ends
+    z, _ = plane(N, N, CELL, -0.3, 0.0)
+    up = write_geotiff(tmp_path / "south_up.tif", z[::-1], Affine(CELL, 0, X0, 0, CELL, Y0 - N * CELL), CRS)
+    north = _plane_tif(tmp_path / "north_up.tif")
+    res = []
+    for dem, name in ((up, "a"), (north, "b")):
+        p = run_cli("route", dem, *_pts(), "--no-refine", "--out", tmp_path / name)
+        assert p.returncode == 0, p.stderr
+        assert "Traceback" not in p.stderr
+        _assert_complete(tmp_path / name)
+        res.append(json.loads((tmp_path / name / "summary.json").read_text()))
+    a, b = res
+    assert a["start"] == b["start"] and a["end"] == b["end"]
+    # plane falling 0.3 east over 55 m: 16.5 m drop between the end cells (geometry)
+    assert a["drop_m"] == pytest.approx(16.5, abs=1e-6)
+    assert a["travel_time_s"] == pytest.approx(b["travel_time_s"], rel=1e-12)
+
+
+def test_geographic_dem_works(tmp_path):
+    # a lon/lat raster near 15 E 36 N (1e-4 degree cells, about 9 x 11 m), falling east
+    lon0, lat0, d = 15.0, 36.0, 1e-4
+    r, c = np.mgrid[0:N, 0:N]
+    z = 200.0 - 2.0 * c + 0.0 * r
+    dem = write_geotiff(tmp_path / "geo.tif", z, Affine(d, 0, lon0, 0, -d, lat0), "EPSG:4326")
+    s = (lon0 + 0.5 * d, lat0 - 5.5 * d)
+    e = (lon0 + (N - 0.5) * d, lat0 - 5.5 * d)
+    p = run_cli("route", dem, *_pts(s, e), "--no-refine", "--out", tmp_path / "out")
+    assert p.returncode == 0, p.stderr
+    assert "Traceback" not in p.stderr
+    _assert_complete(tmp_path / "out")
+    doc = json.loads((tmp_path / "out" / "summary.json").read_text())
+    # 11 columns of 2 m fall between the end cells (the raster's own heights)
+    assert doc["drop_m"] == pytest.approx(22.0, abs=0.5)
+
+
+# --------------------------------------------------------------------------- output folder
+
+def test_existing_results_refused_and_untouched(tmp_path):
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    out.mkdir()
+    old = {"summary.json": b'{"old": true}\n', "route.geojson": b"old line\n", "notes.txt": b"mine\n"}
+    for n, b in old.items():
+        (out / n).write_bytes(b)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", out)
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr
+    assert "--overwrite" in p.stderr and "summary.json" in p.stderr
+    assert sorted(x.name for x in out.iterdir()) == sorted(old)
+    for n, b in old.items():
+        assert (out / n).read_bytes() == b
+    # with --overwrite the run replaces the results and keeps the user's own file
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", out, "--overwrite")
+    assert p.returncode == 0, p.stderr
+    assert (out / "notes.txt").read_bytes() == b"mine\n"
+    assert json.loads((out / "summary.json").read_text()).get("old") is None
+
+
+def test_reach_existing_output_refused(tmp_path):
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "reach.tif"
+    out.write_bytes(b"keep me")
+    p = run_cli("reach", dem, "--start", *START, "--out", out)
+    assert p.returncode == 1 and "--overwrite" in p.stderr and "Traceback" not in p.stderr, p.stderr
+    assert out.read_bytes() == b"keep me"
+
+
+def test_unwritable_output_folder(tmp_path):
+    # a folder below a regular file cannot be created, not even by root
+    dem = _plane_tif(tmp_path / "dem.tif")
+    blocker = tmp_path / "plain_file"
+    blocker.write_text("x")
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", blocker / "sub")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr
+    assert "cannot write" in p.stderr and "plain_file" in p.stderr, p.stderr
+    assert blocker.read_text() == "x"
+
+
+def test_output_folder_is_a_file(tmp_path):
+    dem = _plane_tif(tmp_path / "dem.tif")
+    f = tmp_path / "out"
+    f.write_text("x")
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", f)
+    # click checks the option itself: a usage error
+    assert p.returncode == 2 and "is a file" in p.stderr and "Traceback" not in p.stderr, p.stderr
+    assert f.read_text() == "x"
+
+
+def test_reach_unwritable(tmp_path):
+    dem = _plane_tif(tmp_path / "dem.tif")
+    blocker = tmp_path / "plain_file"
+    blocker.write_text("x")
+    p = run_cli("reach", dem, "--start", *START, "--out", blocker / "reach.tif")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and "plain_file" in p.stderr, p.stderr
+
+
+# --------------------------------------------------------------------------- interruption
+
+@pytest.mark.slow
+def test_sigint_during_search_leaves_nothing(tmp_path):
+    # 150 x 150 cells of rough ground, 32 neighbours: the search takes several seconds
+    rng = np.random.default_rng(1)
+    n = 150
+    z, t = plane(n, n, CELL, -0.3, -0.1)
+    z = z + rng.normal(0.0, 2.0, z.shape)
+    dem = write_geotiff(tmp_path / "rough.tif", z, t, CRS)
+    s = (X0 + 2.5, Y0 - 2.5)
+    e = (X0 + (n - 0.5) * CELL, Y0 - (n - 0.5) * CELL)
+    out = tmp_path / "out"
+    proc = subprocess.Popen([sys.executable, "-m", "fallway.cli", "route", str(dem), *_pts(s, e),
+                             "--neighbours", "32", "--mu", "0.2", "--no-refine", "--out", str(out)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    # wait until the output set exists (the run is past parsing and into the work)
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < 30 and not out.exists() and proc.poll() is None:
+        time.sleep(0.05)
+    time.sleep(1.0)
+    assert proc.poll() is None, "the run ended before it could be interrupted; use a larger grid"
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode != 0
+    assert "Traceback" not in err, err
+    assert "interrupted" in err.lower(), err
+    assert not out.exists() or leftovers(out) == []
