@@ -1,0 +1,1006 @@
+"""Continuous refinement: the discrete Euler–Lagrange optimum of a descent line.
+
+The lattice line is resampled and its interior vertices move continuously until the
+travel time is stationary, ∂T/∂xᵢ = 0 — the discrete Euler–Lagrange equations of the
+time functional on a polyline.  The time of a polyline with the gravity-normal model is
+the chain of closed-form straight segments (:func:`fallway._segment.segment_law`)::
+
+    T = Σ t_j(u_j, g_j),    u_{j+1} = F_j(u_j, g_j),    u = v²,
+
+g_j the segment geometry (drop, plan length, length).  Its gradient comes from one reverse
+(adjoint) pass, O(N)::
+
+    λ_j = ∂t_j/∂u_j + λ_{j+1} ∂F_j/∂u_j,    ∂T/∂g_j = ∂t_j/∂g_j + λ_{j+1} ∂F_j/∂g_j,
+
+with the local partials of each segment derived in closed form (see ``_chain``).  The
+optimiser is scipy's bounded quasi-Newton L-BFGS-B; the bounds keep vertices inside the
+DEM and raised heights inside the clearance band, limits enter as exterior quadratic
+penalties with a small safety margin and are verified on the result.
+
+Vertex placement is part of the problem: the plan positions are free, so vertices slide
+along the line, and the line is refined coarse to fine with the vertices re-distributed
+between levels so that each segment takes a similar share of a blend of time and length
+(short segments where the line is slow, near a start from rest).
+"""
+
+from __future__ import annotations
+
+import math
+import time as _time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+from scipy.optimize import minimize
+
+from ._segment import segment_law
+from .errors import ParameterError, RefinementWarning
+from .limits import Limits
+from .physics import Mover, Profile
+
+__all__ = ["refine_line", "RefineResult"]
+
+_LINES = ("ground", "raised")
+#: L-BFGS-B memory, relative reduction of the objective that ends a level, and the
+#: stationarity test on the travel time: stop when over the last ``_WINDOW`` iterations
+#: the time fell by less than ``_STAT_TOL`` relatively.
+_MAXCOR = 10
+_FTOL = 1e-11
+_WINDOW = 25
+_STAT_TOL = 1e-9
+#: iterations between restarts of L-BFGS-B with a fresh preconditioner
+_CHUNK = 100
+
+
+@dataclass(frozen=True, eq=False)
+class RefineResult:
+    """The refined line and how the refinement went.
+
+    Attributes
+    ----------
+    line : ndarray (N, 3)
+        Refined vertices x, y, z (m); straight segments between them.
+    profile : Profile
+        ``traverse(line, mover)`` with the mover's own normal-force model.
+    iterations : int
+        Quasi-Newton iterations over all refinement levels.
+    residual : float
+        Final projected gradient norm (largest component, s/m) of the travel time.
+    converged : bool
+        True when the optimiser met its tolerance on the final level.
+    time_before_s, time_after_s : float
+        Travel time of the start line and of ``line`` (same model).
+    message : str
+        What happened, including active or violated limits.
+    limits : dict
+        Per limit (``keepout``, ``grade``, ``max_speed``, ``stall``, ``min_radius``,
+        ``extent``): ``"inactive"``, ``"active"`` (at its bound within the margin) or
+        ``"violated"``.
+    """
+
+    line: np.ndarray
+    profile: Profile
+    iterations: int
+    residual: float
+    converged: bool
+    time_before_s: float
+    time_after_s: float
+    message: str
+    limits: dict = field(default_factory=dict)
+
+
+# ---------------------------------------------------------------------------------------
+# small BLAS calls inside L-BFGS-B are many times slower with several OpenBLAS threads on a
+# busy machine; hold OpenBLAS to one thread while optimising (what threadpoolctl does)
+
+
+class _OneBlasThread:
+    _libs = None
+
+    @classmethod
+    def _find(cls):
+        if cls._libs is None:
+            import ctypes
+            import re
+
+            libs = []
+            try:
+                with open("/proc/self/maps") as fh:
+                    paths = sorted(set(re.findall(r"(/\S*openblas\S*\.so\S*)", fh.read())))
+            except OSError:
+                paths = []
+            for path in paths:
+                try:
+                    lib = ctypes.CDLL(path)
+                except OSError:
+                    continue
+                for stem in ("scipy_openblas", "openblas"):
+                    for suffix in ("64_", ""):
+                        get = getattr(lib, f"{stem}_get_num_threads{suffix}", None)
+                        put = getattr(lib, f"{stem}_set_num_threads{suffix}", None)
+                        if get is not None and put is not None:
+                            libs.append((get, put))
+                            break
+                    else:
+                        continue
+                    break
+            cls._libs = libs
+        return cls._libs
+
+    def __enter__(self):
+        self._saved = []
+        for get, put in self._find():
+            self._saved.append((put, get()))
+            put(1)
+        return self
+
+    def __exit__(self, *exc):
+        for put, n in self._saved:
+            put(n)
+        return False
+
+
+# ---------------------------------------------------------------------------------------
+# the chain of segments and its reverse pass
+
+
+@njit(cache=True, nogil=True)
+def _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
+    """Travel time, penalty and gradient of a polyline (gravity-normal model).
+
+    Parameters: vertices ``P`` (N, 3), squared start speed ``u0``; ``eps_plan`` smooths
+    the plan length sqrt(d² + eps²) so vertical segments stay differentiable;
+    ``u_floor``: squared speeds below it are clamped and penalised (stall extension);
+    ``u_max`` (<= 0: none) and ``u_stall`` (<= 0: none): speed window penalties.
+
+    Returns ``(time_s, penalty, grad (N, 3), u (N,))``; grad is of time + penalty.
+    """
+    n = P.shape[0]
+    m = n - 1
+    u = np.empty(n)
+    u[0] = u0
+    du_dpen = np.zeros(n)
+    seg = np.zeros((m, 14))  # dx dy dz plan s a  du_u du_a du_s  dt_u dt_a dt_s  clamped dpen_raw
+    T = 0.0
+    pen = 0.0
+    eps2 = eps_plan * eps_plan
+    for j in range(m):
+        dx = P[j + 1, 0] - P[j, 0]
+        dy = P[j + 1, 1] - P[j, 1]
+        dz = P[j + 1, 2] - P[j, 2]
+        d2 = dx * dx + dy * dy
+        s = math.sqrt(d2 + dz * dz)
+        ui = u[j]
+        if s <= 1e-12:
+            u[j + 1] = ui
+            seg[j, 6] = 1.0
+            continue
+        plan = math.sqrt(d2 + eps2)
+        drop = -dz
+        a = g * (drop - mu * plan) / s
+        ks = k * s
+        if ks < 1e-12:
+            u_raw = ui + 2.0 * a * s
+            fu = 1.0
+            fa = 2.0 * s
+            fs = 2.0 * a
+            half_q = s
+        else:
+            em = math.expm1(-2.0 * ks)
+            E = 1.0 + em
+            u_raw = ui * E - (a / k) * em
+            fu = E
+            fa = -em / k
+            fs = 2.0 * E * (a - k * ui)
+            half_q = -em / (2.0 * k)
+        va = math.sqrt(ui) if ui > 0.0 else 0.0
+        seg[j, 0] = dx
+        seg[j, 1] = dy
+        seg[j, 2] = dz
+        seg[j, 3] = plan
+        seg[j, 4] = s
+        seg[j, 5] = a
+        seg[j, 6] = fu
+        seg[j, 7] = fa
+        seg[j, 8] = fs
+        if u_raw < u_floor:
+            # stalled: clamp the exit speed and penalise the shortfall (continuous extension)
+            d = u_floor - u_raw
+            pen += w_pen * d * d
+            vb = math.sqrt(u_floor)
+            t = 2.0 * s / (va + vb)
+            seg[j, 9] = -t / (va + vb) / (2.0 * va) if va > 0.0 else 0.0
+            seg[j, 10] = 0.0
+            seg[j, 11] = 2.0 / (va + vb)
+            seg[j, 12] = 1.0
+            seg[j, 13] = -2.0 * w_pen * d
+            u[j + 1] = u_floor
+        else:
+            vb = math.sqrt(u_raw)
+            t = segment_law(ui, drop, plan, s, g, mu, k, 0.0)[1]
+            if not math.isfinite(t):
+                t = 2.0 * s / (va + vb)
+            seg[j, 11] = 1.0 / vb
+            if va > 0.0:
+                seg[j, 9] = -half_q / (va * vb * (va + vb))
+            if ks < 1e-12:
+                seg[j, 10] = -2.0 * s * s / ((va + vb) * (va + vb) * vb)
+            elif abs(a) * s > 1e-7 * (ui + abs(a) * s):
+                # homogeneity t(λu, λa) = t(u, a)/√λ:  u ∂t/∂u + a ∂t/∂a = -t/2
+                seg[j, 10] = (-0.5 * t - ui * seg[j, 9]) / a
+            else:
+                h = 1e-6 * (ui / s + abs(a)) + 1e-12
+                dd = h * s / g
+                tp = segment_law(ui, drop + dd, plan, s, g, mu, k, 0.0)[1]
+                tm = segment_law(ui, drop - dd, plan, s, g, mu, k, 0.0)[1]
+                seg[j, 10] = (tp - tm) / (2.0 * h)
+            u[j + 1] = u_raw
+        T += t
+        un = u[j + 1]
+        if u_max > 0.0 and un > u_max:
+            pen += w_pen * (un - u_max) ** 2
+            du_dpen[j + 1] += 2.0 * w_pen * (un - u_max)
+        if u_stall > 0.0 and un < u_stall and un < ui:
+            pen += w_pen * (u_stall - un) ** 2
+            du_dpen[j + 1] -= 2.0 * w_pen * (u_stall - un)
+    grad = np.zeros((n, 3))
+    lam = du_dpen[n - 1]
+    for j in range(m - 1, -1, -1):
+        s = seg[j, 4]
+        if s <= 1e-12:
+            lam = lam + du_dpen[j]
+            continue
+        dx = seg[j, 0]
+        dy = seg[j, 1]
+        dz = seg[j, 2]
+        plan = seg[j, 3]
+        a = seg[j, 5]
+        gu_raw = seg[j, 13] if seg[j, 12] > 0.0 else lam
+        Gu = seg[j, 9] + gu_raw * seg[j, 6]
+        Ga = seg[j, 10] + gu_raw * seg[j, 7]
+        Gs = seg[j, 11] + gu_raw * seg[j, 8]
+        g_drop = Ga * g / s
+        g_plan = -Ga * g * mu / s
+        g_s = Gs - Ga * a / s
+        gx = g_plan * dx / plan + g_s * dx / s
+        gy = g_plan * dy / plan + g_s * dy / s
+        gz = -g_drop + g_s * dz / s
+        grad[j + 1, 0] += gx
+        grad[j + 1, 1] += gy
+        grad[j + 1, 2] += gz
+        grad[j, 0] -= gx
+        grad[j, 1] -= gy
+        grad[j, 2] -= gz
+        lam = Gu + du_dpen[j]
+    return T, pen, grad, u
+
+
+# ---------------------------------------------------------------------------------------
+# adapters to the neighbouring modules
+
+
+class _Ground:
+    """Heights and slopes of the terrain's smooth interpolant (bilinear + differences as fallback)."""
+
+    def __init__(self, terrain):
+        self.terrain = terrain
+        self.smooth = hasattr(terrain, "sample") and hasattr(terrain, "gradient")
+        rows, cols = terrain.shape
+        x0, y0 = terrain.cell_center(0, 0)
+        x1, y1 = terrain.cell_center(rows - 1, cols - 1)
+        tiny = 1e-7 * terrain.cell_size
+        self.xlim = (min(x0, x1) + tiny, max(x0, x1) - tiny)
+        self.ylim = (min(y0, y1) + tiny, max(y0, y1) - tiny)
+
+    def z(self, x, y):
+        if self.smooth:
+            return np.asarray(self.terrain.sample(np.asarray(x, float), np.asarray(y, float)), float)
+        return np.asarray(self.terrain.sample_linear(np.asarray(x, float), np.asarray(y, float)), float)
+
+    def grad(self, x, y):
+        if self.smooth:
+            gx, gy = self.terrain.gradient(np.asarray(x, float), np.asarray(y, float))
+            return np.asarray(gx, float), np.asarray(gy, float)
+        h = 1e-4 * self.terrain.cell_size
+        zx = (self.z(x + h, y) - self.z(x - h, y)) / (2 * h)
+        zy = (self.z(x, y + h) - self.z(x, y - h)) / (2 * h)
+        return zx, zy
+
+    def valid(self, x, y):
+        if hasattr(self.terrain, "valid"):
+            return np.asarray(self.terrain.valid(np.asarray(x, float), np.asarray(y, float)), bool)
+        return np.isfinite(self.z(x, y))
+
+
+def _traverse(points: np.ndarray, mover: Mover) -> Profile:
+    """``fallway.physics.traverse`` when it exists; else the gravity-normal chain here."""
+    from . import physics
+
+    tr = getattr(physics, "traverse", None)
+    if tr is not None:
+        return tr(points, mover)
+    return _gravity_profile(points, mover)
+
+
+def _gravity_profile(P: np.ndarray, mover: Mover) -> Profile:
+    """Profile of a polyline with the gravity-normal segment chain (used without ``traverse``)."""
+    P = np.asarray(P, float)
+    n = len(P)
+    d = np.diff(P, axis=0)
+    plan = np.hypot(d[:, 0], d[:, 1])
+    length = np.sqrt(plan ** 2 + d[:, 2] ** 2)
+    station = np.concatenate([[0.0], np.cumsum(length)])
+    v2 = np.full(n, np.nan)
+    t = np.full(n, np.nan)
+    v2[0] = mover.v0 ** 2
+    t[0] = 0.0
+    stalled = None
+    for j in range(n - 1):
+        v2o, dt, st = segment_law(v2[j], -d[j, 2], plan[j], length[j], mover.g, mover.mu, mover.drag,
+                                  mover.stall_speed ** 2)
+        if st >= 0.0:
+            stalled = float(station[j] + st)
+            break
+        v2[j + 1] = v2o
+        t[j + 1] = t[j] + dt
+    with np.errstate(divide="ignore", invalid="ignore"):
+        grade = np.where(plan > 0, -d[:, 2] / np.where(plan > 0, plan, 1.0), np.sign(-d[:, 2]) * np.inf)
+    grade = np.concatenate([grade, grade[-1:]]) if n > 1 else np.zeros(1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.concatenate([plan / np.where(length > 0, length, 1.0), [0.0]])
+    speed = np.sqrt(v2)
+    over = (station[speed > mover.max_speed] if mover.max_speed is not None
+            else np.zeros(0))
+    return Profile(P.copy(), station, speed, t, grade, ratio, stalled, np.zeros(0), over)
+
+
+class _DistanceField:
+    """Signed distance (m, positive outside) to keep-out polygons or to nodata.
+
+    Built from a keep-out object with ``signed_distance(x, y)`` (``fallway.limits.Keepout``)
+    or from a bare shapely geometry.
+    """
+
+    def __init__(self, keepout=None, crs=None, nodata_terrain=None):
+        self.geometry = None
+        self._sd = None
+        self._grid = None
+        if keepout is not None:
+            if hasattr(keepout, "in_crs") and crs is not None:
+                keepout = keepout.in_crs(crs)
+            if hasattr(keepout, "signed_distance"):
+                self._sd = keepout.signed_distance
+                self.geometry = getattr(keepout, "geometry", None)
+            else:
+                import shapely
+
+                geom = keepout
+                shapely.prepare(geom)
+                boundary = geom.boundary
+                shapely.prepare(boundary)
+
+                def sd(x, y, geom=geom, boundary=boundary):
+                    x = np.asarray(x, float)
+                    y = np.asarray(y, float)
+                    pts = shapely.points(x, y)
+                    dist = shapely.distance(boundary, pts)
+                    inside = shapely.contains_xy(geom, x, y)
+                    return np.where(inside, -dist, dist)
+
+                self._sd = sd
+                self.geometry = geom
+        if nodata_terrain is not None:
+            from scipy.ndimage import binary_dilation, distance_transform_edt
+
+            t = nodata_terrain
+            bad = ~np.isfinite(t.z)
+            bad = binary_dilation(bad, structure=np.ones((3, 3), bool))
+            dist = distance_transform_edt(~bad) * t.cell_size
+            inner = distance_transform_edt(bad) * t.cell_size
+            self._grid = (t, np.where(bad, -inner, dist))
+
+    def __call__(self, x, y):
+        if self._sd is not None:
+            return np.asarray(self._sd(x, y), float)
+        from scipy.ndimage import map_coordinates
+
+        t, field_ = self._grid
+        r, c = t.rowcol(x, y)
+        return map_coordinates(field_, [np.atleast_1d(r), np.atleast_1d(c)], order=1, mode="nearest")
+
+    def grad(self, x, y, h):
+        fx = (self(x + h, y) - self(x - h, y)) / (2 * h)
+        fy = (self(x, y + h) - self(x, y - h)) / (2 * h)
+        return fx, fy
+
+
+# ---------------------------------------------------------------------------------------
+# penalties on the geometry (numpy, O(N))
+
+
+def _grade_penalty(P, gmin, gmax, w, margin, eps_plan):
+    d = np.diff(P, axis=0)
+    plan = np.sqrt(d[:, 0] ** 2 + d[:, 1] ** 2 + eps_plan ** 2)
+    drop = -d[:, 2]
+    val = 0.0
+    gd = np.zeros_like(d)
+    for lim, sign in ((gmax, 1.0), (gmin, -1.0)):
+        if not math.isfinite(lim):
+            continue
+        tgt = lim - sign * margin
+        viol = sign * (drop - tgt * plan)
+        act = viol > 0
+        if not act.any():
+            continue
+        val += w * float(np.sum(viol[act] ** 2))
+        c = 2.0 * w * viol * act * sign
+        gd[:, 0] += c * (-tgt * d[:, 0] / plan)
+        gd[:, 1] += c * (-tgt * d[:, 1] / plan)
+        gd[:, 2] += c * (-1.0)
+    grad = np.zeros_like(P)
+    grad[1:] += gd
+    grad[:-1] -= gd
+    return val, grad
+
+
+def _curvature(A, B, C):
+    a = B - A
+    b = C - B
+    cr = np.cross(a, b)
+    num = 2.0 * np.linalg.norm(cr, axis=1)
+    den = np.linalg.norm(a, axis=1) * np.linalg.norm(b, axis=1) * np.linalg.norm(C - A, axis=1)
+    return num / np.maximum(den, 1e-300)
+
+
+def _radius_penalty(P, r_min, w, margin):
+    if len(P) < 3:
+        return 0.0, np.zeros_like(P)
+    kap = _curvature(P[:-2], P[1:-1], P[2:])
+    lim = (1.0 - margin) / r_min
+    act = np.nonzero(kap * r_min > (1.0 - margin) - 0.05)[0]
+    grad = np.zeros_like(P)
+    viol = np.maximum(kap - lim, 0.0) * r_min
+    val = w * float(np.sum(viol ** 2))
+    if act.size == 0 or val == 0.0:
+        return val, grad
+    h = 1e-7 * max(1.0, r_min)
+    tri = [P[act].copy(), P[act + 1].copy(), P[act + 2].copy()]
+    for role in range(3):
+        for c in range(3):
+            tp = [q.copy() for q in tri]
+            tm = [q.copy() for q in tri]
+            tp[role][:, c] += h
+            tm[role][:, c] -= h
+            vp = np.maximum(_curvature(*tp) - lim, 0.0) * r_min
+            vm = np.maximum(_curvature(*tm) - lim, 0.0) * r_min
+            np.add.at(grad[:, c], act + role, w * (vp ** 2 - vm ** 2) / (2 * h))
+    return val, grad
+
+
+def _field_penalty(P, fld, w, margin, h):
+    """Exterior penalty w·(margin - d)² at vertices and at segment quarter points."""
+    n = len(P)
+    fr = np.array([0.0, 0.25, 0.5, 0.75])
+    i0 = np.repeat(np.arange(n - 1), fr.size)
+    f = np.tile(fr, n - 1)
+    i0 = np.concatenate([i0, [n - 1]])
+    f = np.concatenate([f, [0.0]])
+    i1 = np.minimum(i0 + 1, n - 1)
+    X = P[i0, :2] * (1 - f)[:, None] + P[i1, :2] * f[:, None]
+    dist = fld(X[:, 0], X[:, 1])
+    viol = margin - dist
+    act = viol > 0
+    grad = np.zeros_like(P)
+    if not act.any():
+        return 0.0, grad, float(np.min(dist))
+    val = w * float(np.sum(viol[act] ** 2))
+    gx, gy = fld.grad(X[act, 0], X[act, 1], h)
+    c = -2.0 * w * viol[act]
+    for comp, gcomp in ((0, gx), (1, gy)):
+        np.add.at(grad[:, comp], i0[act], c * gcomp * (1 - f[act]))
+        np.add.at(grad[:, comp], i1[act], c * gcomp * f[act])
+    return val, grad, float(np.min(dist))
+
+
+# ---------------------------------------------------------------------------------------
+# geometry helpers
+
+
+def _resample(P: np.ndarray, n: int, weights: np.ndarray | None = None) -> np.ndarray:
+    """n points along the polyline P, equidistributing ``weights`` (per segment; default length)."""
+    seg = np.linalg.norm(np.diff(P, axis=0), axis=1)
+    w = seg if weights is None else np.asarray(weights, float)
+    keep = seg > 0
+    if not keep.all():
+        idx = np.concatenate([[0], np.nonzero(keep)[0] + 1])
+        P = P[idx]
+        w = w[keep]
+        seg = seg[keep]
+    if len(P) < 2:
+        return np.repeat(P[:1], n, axis=0)
+    cum = np.concatenate([[0.0], np.cumsum(w)])
+    tgt = np.linspace(0.0, cum[-1], n)
+    j = np.clip(np.searchsorted(cum, tgt, side="right") - 1, 0, len(P) - 2)
+    frac = np.where(w[j] > 0, (tgt - cum[j]) / np.where(w[j] > 0, w[j], 1.0), 0.0)
+    frac = np.clip(frac, 0.0, 1.0)
+    out = P[j] + (P[j + 1] - P[j]) * frac[:, None]
+    out[0] = P[0]
+    out[-1] = P[-1]
+    return out
+
+
+def _refine_density(P: np.ndarray, n: int) -> np.ndarray:
+    """n points along P keeping its vertex density (arc length is interpolated in index)."""
+    from scipy.interpolate import PchipInterpolator
+
+    seg = np.linalg.norm(np.diff(P, axis=0), axis=1)
+    cum = np.concatenate([[0.0], np.cumsum(seg)])
+    par = np.linspace(0.0, 1.0, len(P))
+    s_new = PchipInterpolator(par, cum)(np.linspace(0.0, 1.0, n))
+    s_new = np.maximum.accumulate(np.clip(s_new, 0.0, cum[-1]))
+    j = np.clip(np.searchsorted(cum, s_new, side="right") - 1, 0, len(P) - 2)
+    frac = np.where(seg[j] > 0, (s_new - cum[j]) / np.where(seg[j] > 0, seg[j], 1.0), 0.0)
+    out = P[j] + (P[j + 1] - P[j]) * np.clip(frac, 0.0, 1.0)[:, None]
+    out[0] = P[0]
+    out[-1] = P[-1]
+    return out
+
+
+def _monitor(P: np.ndarray, u: np.ndarray, blend: float) -> np.ndarray:
+    """Per-segment weights: blend of the share of time and the share of length."""
+    seg = np.linalg.norm(np.diff(P, axis=0), axis=1)
+    v = np.sqrt(np.maximum(u, 0.0))
+    vm = 0.5 * (v[:-1] + v[1:])
+    t = seg / np.maximum(vm, 1e-3 * max(float(v.max()), 1e-9))
+    return blend * t / max(t.sum(), 1e-300) + (1 - blend) * seg / max(seg.sum(), 1e-300)
+
+
+# ---------------------------------------------------------------------------------------
+# the public function
+
+
+def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, keepout=None,
+                line: str = "ground", clearance: tuple[float, float] = (0.0, 0.0),
+                start_height: float = 0.0, end_height: float = 0.0, **options) -> RefineResult:
+    """Move the vertices of a line continuously until its travel time is stationary.
+
+    Parameters
+    ----------
+    terrain : Terrain
+        The elevation model; ``line="ground"`` follows its smooth interpolant.
+    points : array_like (K, 3)
+        Start line (the lattice polyline), x, y and ground z in metres.
+    mover : Mover
+        Physics; ``normal="gravity"`` is optimised exactly, ``"full"`` is optimised on
+        the gravity functional and then reported (and kept only if faster) with the full
+        model.
+    limits : Limits, optional
+        Grade window and minimum bend radius (the speed window is on ``mover``).
+    keepout : Keepout or shapely geometry, optional
+        No vertex or segment of the result may enter it.
+    line : {"ground", "raised"}
+        ``"raised"``: heights are free within ``[ground + c_min, ground + c_max]``.
+    clearance : (float, float)
+        ``(c_min, c_max)`` above ground for a raised line, metres.
+    start_height, end_height : float
+        Height of the raised line above ground at its two ends, metres.
+    **options
+        ``n_vertices`` (default: one per cell of plan length, at least 33), ``levels``
+        (coarse-to-fine levels, default 3), ``blend`` (weight of time against length in
+        the vertex distribution, default 0.5), ``max_iter`` (per level, default 4000),
+        ``gtol`` (default 1e-9 s/m), ``margin_m`` (keep-out safety distance, default 10 % of
+        a cell).
+
+    Returns
+    -------
+    RefineResult
+        Never slower than the start line with the same model.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from affine import Affine
+    >>> from fallway.terrain import Terrain
+    >>> from fallway.physics import Mover
+    >>> rows, cols = np.mgrid[0:21, 0:21]
+    >>> t = Terrain.from_array(20.0 - 1.0 * cols, Affine(1.0, 0, 0.0, 0, -1.0, 21.0))
+    >>> res = refine_line(t, [[0.5, 10.5, 20.0], [20.5, 0.5, 0.0]], Mover(normal="gravity"))
+    >>> res.time_after_s <= res.time_before_s
+    True
+    """
+    t_wall = _time.perf_counter()
+    if line not in _LINES:
+        raise ParameterError(f"line must be one of {', '.join(_LINES)}; got {line!r}")
+    known = {"n_vertices", "levels", "blend", "max_iter", "gtol", "margin_m", "penalty"}
+    unknown = set(options) - known
+    if unknown:
+        raise ParameterError(f"unknown refinement option(s) {sorted(unknown)}; use {sorted(known)}")
+    limits = limits if limits is not None else Limits()
+    P_in = np.array(points, dtype=float)
+    if P_in.ndim != 2 or P_in.shape[0] < 2 or P_in.shape[1] not in (2, 3):
+        raise ParameterError(f"points must be an (K, 3) array with K >= 2, got shape {P_in.shape}")
+    if not np.all(np.isfinite(P_in)):
+        raise ParameterError("points must be finite; drop NaN vertices first")
+    c_min, c_max = (float(c) for c in clearance)
+    if line == "raised" and not (c_min <= c_max):
+        raise ParameterError(f"clearance must be (c_min, c_max) with c_min <= c_max, got {clearance!r}")
+    gr = _Ground(terrain)
+    xy_in = P_in[:, :2]
+    zg_in = gr.z(xy_in[:, 0], xy_in[:, 1])
+    if line == "ground":
+        P_start = P_in if P_in.shape[1] == 3 else np.column_stack([xy_in, zg_in])
+    else:
+        if not np.all(np.isfinite(zg_in)):
+            raise ParameterError("the start line leaves the terrain; keep it inside the DEM's valid area")
+        for nm, hv in (("start_height", start_height), ("end_height", end_height)):
+            if not (c_min - 1e-9 <= hv <= c_max + 1e-9):
+                raise ParameterError(f"{nm} ({hv:g} m) must lie in the clearance band [{c_min:g}, {c_max:g}] m")
+        seg = np.hypot(*np.diff(xy_in, axis=0).T)
+        frac = np.concatenate([[0.0], np.cumsum(seg)])
+        frac = frac / frac[-1] if frac[-1] > 0 else np.linspace(0, 1, len(frac))
+        h0 = float(start_height) + (float(end_height) - float(start_height)) * frac
+        h0 = np.clip(h0, c_min, c_max)
+        P_start = np.column_stack([xy_in, zg_in + h0])
+    prof_start = _traverse(P_start, mover)
+    time_before = prof_start.travel_time_s
+
+    n_default = int(math.ceil(float(np.sum(np.hypot(*np.diff(xy_in, axis=0).T))) / terrain.cell_size)) + 1
+    n_target = int(options.get("n_vertices") or max(33, n_default))
+    n_target = max(n_target, 3)
+    levels = max(1, int(options.get("levels", 8)))
+    blend = float(options.get("blend", 0.5))
+    max_iter = int(options.get("max_iter", 4000))
+    gtol = float(options.get("gtol", 1e-9))
+    margin_m = float(options.get("margin_m", 0.1 * terrain.cell_size))
+    w_pen = float(options.get("penalty", 1e4))
+
+    keep_fld = _DistanceField(keepout, getattr(terrain, "crs", None)) if keepout is not None else None
+    nodata_fld = _DistanceField(nodata_terrain=terrain) if not np.all(np.isfinite(terrain.z)) else None
+
+    opt = _Problem(gr, mover, limits, line, c_min, c_max, keep_fld, nodata_fld, margin_m, w_pen,
+                   terrain.cell_size)
+
+    # coarse-to-fine levels: the first starts from the lattice line re-distributed by the
+    # time/length monitor, each next one from the previous optimum with its vertex density
+    # kept (the free optimum's spacing is the best guess for the finer line)
+    sizes = [n_target]
+    while len(sizes) < levels and sizes[0] > 16:
+        sizes.insert(0, (sizes[0] - 1) // 2 + 1)
+    P = _resample(P_start, max(len(P_start) * 4, 4 * sizes[0]))
+    P = opt.project(P, P_start)
+    u = opt.speeds(P)
+    P = opt.project(_resample(P, sizes[0], _monitor(P, u, blend)), P_start)
+    iters = 0
+    converged = False
+    residual = math.inf
+    notes = []
+    for li, n in enumerate(sizes):
+        if li > 0:
+            P = opt.project(_refine_density(P, n), P_start)
+        P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
+        iters += it
+        converged, residual = ok, res
+        if not ok:
+            notes.append(f"level {li + 1} ({n} vertices): {msg}")
+
+    # strengthen penalties while a limit is still violated
+    for _ in range(4):
+        viol = opt.violations(P)
+        if not any(v == "violated" for v in viol.values()):
+            break
+        if viol.get("keepout") == "violated":
+            # a segment cuts a corner between the sampled points: keep a wider berth
+            opt.margin *= 4.0
+        if any(v == "violated" for k, v in viol.items() if k != "keepout"):
+            opt.w_pen *= 100.0
+        P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
+        iters += it
+        converged, residual = ok, res
+    status = opt.violations(P)
+    prof = _traverse(P, mover)
+    time_after = prof.travel_time_s
+    feasible = prof.feasible and not any(v == "violated" for v in status.values())
+    if mover.normal == "full":
+        notes.append("optimised on the gravity-normal functional, timed with the full model "
+                     "(no full-model polish)")
+    if not feasible or not (time_after <= time_before):
+        why = ("the refined line breaks a limit: " + ", ".join(k for k, v in status.items() if v == "violated")
+               if not feasible else f"the refined line is not faster ({time_after:.6g} s vs {time_before:.6g} s)")
+        msg = f"kept the start line: {why}"
+        return RefineResult(P_start.copy(), prof_start, iters, residual, False, time_before, time_before,
+                            msg, _status_of(opt, P_start))
+    active = [k for k, v in status.items() if v == "active"]
+    msg = (f"refined {len(P)} vertices in {iters} iterations, {_time.perf_counter() - t_wall:.2f} s: "
+           f"{time_before:.6f} s -> {time_after:.6f} s"
+           + (f"; active limits: {', '.join(active)}" if active else "")
+           + (f"; {'; '.join(notes)}" if notes else ""))
+    if not converged:
+        warnings.warn(f"refinement did not converge (residual {residual:.3g} s/m); returning the best line found",
+                      RefinementWarning, stacklevel=2)
+    return RefineResult(P, prof, iters, residual, converged, time_before, time_after, msg, status)
+
+
+def _status_of(opt, P):
+    try:
+        return opt.violations(P)
+    except Exception:  # pragma: no cover - status is informative only
+        return {}
+
+
+class _Problem:
+    """The optimisation problem: variables <-> vertices, objective, bounds, checks."""
+
+    def __init__(self, gr, mover, limits, line, c_min, c_max, keep_fld, nodata_fld, margin_m, w_pen, cell):
+        self.gr = gr
+        self.mover = mover
+        self.limits = limits
+        self.line = line
+        self.c_min, self.c_max = c_min, c_max
+        self.keep = keep_fld
+        self.nodata = nodata_fld
+        self.margin = margin_m
+        self.w_pen = w_pen
+        self.cell = cell
+        self.eps_plan = 1e-4 * cell
+        g = mover.g
+        self.u_floor = 1e-8 * g * cell
+        self.u_max = (mover.max_speed * (1 - 1e-4)) ** 2 if mover.max_speed is not None else -1.0
+        self.u_stall = (mover.stall_speed * (1 + 1e-4)) ** 2 if mover.stall_speed > 0 else -1.0
+
+    # variables: interior vertices; ground (x, y), raised (x, y, h above ground)
+    def nvar(self):
+        return 2 if self.line == "ground" else 3
+
+    def to_vars(self, P):
+        inner = P[1:-1]
+        if self.line == "ground":
+            return inner[:, :2].ravel().copy()
+        h = inner[:, 2] - self.gr.z(inner[:, 0], inner[:, 1])
+        return np.column_stack([inner[:, :2], h]).ravel()
+
+    def to_points(self, X, ends):
+        k = self.nvar()
+        V = X.reshape(-1, k)
+        n = len(V) + 2
+        P = np.empty((n, 3))
+        P[0] = ends[0]
+        P[-1] = ends[1]
+        P[1:-1, :2] = V[:, :2]
+        zg = self.gr.z(V[:, 0], V[:, 1])
+        P[1:-1, 2] = zg if k == 2 else zg + V[:, 2]
+        return P
+
+    def bounds(self, m):
+        gx, gy = self.gr.xlim, self.gr.ylim
+        b = [gx, gy] if self.line == "ground" else [gx, gy, (self.c_min, self.c_max)]
+        return b * m
+
+    def project(self, P, P_start):
+        """Clip vertices into the bounds; ends fixed at the start line's ends."""
+        P = P.copy()
+        P[0] = P_start[0]
+        P[-1] = P_start[-1]
+        P[1:-1, 0] = np.clip(P[1:-1, 0], *self.gr.xlim)
+        P[1:-1, 1] = np.clip(P[1:-1, 1], *self.gr.ylim)
+        zg = self.gr.z(P[1:-1, 0], P[1:-1, 1])
+        if self.line == "ground":
+            P[1:-1, 2] = zg
+        else:
+            P[1:-1, 2] = zg + np.clip(P[1:-1, 2] - zg, self.c_min, self.c_max)
+        if self.line == "ground":
+            P[0, 2] = self.gr.z(P[0, 0], P[0, 1]) if np.isfinite(self.gr.z(P[0, 0], P[0, 1])) else P[0, 2]
+            P[-1, 2] = self.gr.z(P[-1, 0], P[-1, 1]) if np.isfinite(self.gr.z(P[-1, 0], P[-1, 1])) else P[-1, 2]
+        return P
+
+    def speeds(self, P):
+        mv = self.mover
+        return _chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor, 0.0, -1.0, -1.0)[3]
+
+    def objective(self, P):
+        """time + penalties and its gradient with respect to the vertices (N, 3)."""
+        mv = self.mover
+        # speed penalties act on v² (m²/s²): scaled so that 1 m²/s² costs ~1e-2 s at w = 1e4
+        T, pen, G, _ = _chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
+                              self.w_pen * 1e-6, self.u_max, self.u_stall)
+        f = T + pen
+        lim = self.limits
+        if math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade):
+            v, gg = _grade_penalty(P, lim.min_grade, lim.max_grade, self.w_pen, 1e-3, self.eps_plan)
+            f += v
+            G += gg
+        if lim.min_radius_m is not None:
+            v, gg = _radius_penalty(P, lim.min_radius_m, self.w_pen, 2e-3)
+            f += v
+            G += gg
+        for fld, marg in ((self.keep, self.margin), (self.nodata, 1.5 * self.cell)):
+            if fld is not None:
+                v, gg, _ = _field_penalty(P, fld, self.w_pen, marg, 1e-4 * self.cell)
+                f += v
+                G += gg
+        return f, G
+
+    def fg(self, X, ends):
+        P = self.to_points(X, ends)
+        if not np.all(np.isfinite(P)):
+            return 1e30, np.zeros_like(X)
+        f, G = self.objective(P)
+        inner = P[1:-1]
+        gx, gy = self.gr.grad(inner[:, 0], inner[:, 1])
+        Gi = G[1:-1]
+        out = np.empty((len(inner), self.nvar()))
+        out[:, 0] = Gi[:, 0] + Gi[:, 2] * gx
+        out[:, 1] = Gi[:, 1] + Gi[:, 2] * gy
+        if self.nvar() == 3:
+            out[:, 2] = Gi[:, 2]
+        if not math.isfinite(f):
+            return 1e30, np.zeros_like(X)
+        return f, out.ravel()
+
+    def _diag_scale(self, X0, ends, hscale, lo, hi):
+        """1/sqrt of a finite-difference estimate of the Hessian diagonal (colour groups of
+        every third vertex, so neighbouring vertices are not perturbed together)."""
+        k = self.nvar()
+        f0, g0 = self.fg(X0, ends)
+        m = len(X0) // k
+        diag = np.zeros_like(X0)
+        for c in range(k):
+            for col in range(3):
+                idx = np.arange(col, m, 3) * k + c
+                if idx.size == 0:
+                    continue
+                d = np.zeros_like(X0)
+                dlt = 1e-6 * hscale[idx]
+                # step into the box
+                sgn = np.where(X0[idx] + dlt <= hi[idx], 1.0, -1.0)
+                d[idx] = sgn * dlt
+                g1 = self.fg(X0 + d, ends)[1]
+                diag[idx] = (g1[idx] - g0[idx]) / d[idx]
+        pos = diag > 0
+        typical = np.median(diag[pos]) if pos.any() else 1.0
+        diag = np.where(pos, diag, typical)
+        diag = np.maximum(diag, 1e-8 * typical)
+        sc = 1.0 / np.sqrt(diag)
+        return sc * (np.median(hscale) / np.median(sc))
+
+    def solve(self, P, max_iter, gtol, ftol=None):
+        """L-BFGS-B from P, restarted every ``_CHUNK`` iterations with a fresh diagonal
+        preconditioner (the stiffness near a start from rest changes as vertices move)."""
+        ftol = _FTOL if ftol is None else ftol
+        ends = (P[0].copy(), P[-1].copy())
+        X = self.to_vars(P)
+        bnds = self.bounds(len(P) - 2)
+        lo = np.array([b[0] for b in bnds])
+        hi = np.array([b[1] for b in bnds])
+        X = np.clip(X, lo, hi)
+        f_start, _ = self.fg(X, ends)
+        hist = []
+        nit = 0
+        msg = ""
+        done = False
+        stationary = False
+
+        def is_stationary():
+            return len(hist) > _WINDOW and hist[-1 - _WINDOW] - hist[-1] <= _STAT_TOL * abs(hist[-1])
+
+        def stop_when_stationary(intermediate_result):
+            # the travel time is stationary: over the last _WINDOW iterations it fell by
+            # less than _STAT_TOL relatively (the slow tangential sliding of vertices
+            # no longer changes the time)
+            hist.append(float(intermediate_result.fun))
+            if is_stationary():
+                raise StopIteration
+
+        while not done and nit < max_iter:
+            X0 = X
+            Pc = self.to_points(X0, ends)
+            seg = np.linalg.norm(np.diff(Pc, axis=0), axis=1)
+            hv = np.maximum(0.5 * (seg[:-1] + seg[1:]), 1e-6 * self.cell)
+            # diagonal preconditioning: variables in units of 1/sqrt(Hessian diagonal)
+            sc = self._diag_scale(X0, ends, np.repeat(hv, self.nvar()), lo, hi)
+
+            def fun(xi, X0=X0, sc=sc):
+                f, g = self.fg(X0 + sc * xi, ends)
+                return f, g * sc
+
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sb = list(zip((lo - X0) / sc, (hi - X0) / sc))
+            chunk = min(_CHUNK, max_iter - nit)
+            with _OneBlasThread():
+                res = minimize(fun, np.zeros_like(X0), jac=True, method="L-BFGS-B", bounds=sb,
+                               callback=stop_when_stationary,
+                               options={"maxiter": chunk, "maxcor": _MAXCOR, "ftol": ftol, "gtol": gtol,
+                                        "maxls": 40})
+            nit += int(res.nit)
+            Xn = np.clip(X0 + sc * res.x, lo, hi)
+            f_new, f_old = self.fg(Xn, ends)[0], self.fg(X0, ends)[0]
+            if f_new <= f_old:
+                X = Xn
+            if res.nit == 0 or not (f_new < f_old):
+                # no progress from a fresh start: nothing more to gain here
+                msg = str(res.message)
+                done = bool(res.success) or is_stationary()
+                break
+            stationary = is_stationary()
+            msg = "travel time stationary" if stationary else str(res.message)
+            # a chunk that ends on its own tolerance right after a restart is the end
+            done = stationary or (bool(res.success) and res.nit < chunk)
+            if bool(res.success) and res.nit < chunk and not stationary:
+                done = True
+        f, g = self.fg(X, ends)
+        if not (f <= f_start):
+            X = self.to_vars(P)
+            f, g = self.fg(X, ends)
+        # projected gradient: components pushing out of an active bound do not count
+        pg = g.copy()
+        pg[(X <= lo + 1e-12) & (g > 0)] = 0.0
+        pg[(X >= hi - 1e-12) & (g < 0)] = 0.0
+        resid = float(np.max(np.abs(pg))) if pg.size else 0.0
+        ok = done or resid <= max(gtol * 100, 1e-7)
+        return self.to_points(X, ends), nit, resid, ok, msg
+
+    def violations(self, P):
+        """Status of every limit on the line P: inactive / active / violated."""
+        out = {}
+        lim = self.limits
+        d = np.diff(P, axis=0)
+        plan = np.hypot(d[:, 0], d[:, 1])
+        drop = -d[:, 2]
+        if math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade):
+            hi = drop - lim.max_grade * plan if math.isfinite(lim.max_grade) else np.full(len(d), -np.inf)
+            lo = lim.min_grade * plan - drop if math.isfinite(lim.min_grade) else np.full(len(d), -np.inf)
+            # grade honoured to 1e-4 (drop per plan metre)
+            worst = float(np.max(np.maximum(hi, lo) / np.maximum(plan, 1e-9)))
+            out["grade"] = "violated" if worst > 1e-4 else ("active" if worst > -2e-3 else "inactive")
+        mv = self.mover
+        u = self.speeds(P)
+        if mv.max_speed is not None:
+            vmax = float(np.sqrt(np.max(u)))
+            out["max_speed"] = ("violated" if vmax > mv.max_speed * (1 + 1e-9)
+                                else "active" if vmax > mv.max_speed * (1 - 1e-3) else "inactive")
+        if mv.stall_speed > 0:
+            v = np.sqrt(u[1:])
+            dec = u[1:] < u[:-1]
+            vmin = float(np.min(v[dec])) if dec.any() else math.inf
+            out["stall"] = ("violated" if vmin < mv.stall_speed * (1 - 1e-9)
+                            else "active" if vmin < mv.stall_speed * (1 + 1e-3) else "inactive")
+        if lim.min_radius_m is not None and len(P) >= 3:
+            kap = _curvature(P[:-2], P[1:-1], P[2:])
+            rmin = 1.0 / max(float(np.max(kap)), 1e-300)
+            out["min_radius"] = ("violated" if rmin < lim.min_radius_m * (1 - 1e-4)
+                                 else "active" if rmin < lim.min_radius_m * (1 + 1e-2) else "inactive")
+        if self.keep is not None:
+            out["keepout"] = _keepout_status(P, self.keep, self.margin)
+        # DEM extent and nodata: every vertex and segment point on valid terrain
+        fr = np.linspace(0.0, 1.0, 5)
+        X = (P[:-1, None, :2] * (1 - fr)[None, :, None] + P[1:, None, :2] * fr[None, :, None]).reshape(-1, 2)
+        ok = self.gr.valid(X[:, 0], X[:, 1])
+        out["extent"] = "inactive" if bool(np.all(ok)) else "violated"
+        if self.line == "raised":
+            zg = self.gr.z(P[:, 0], P[:, 1])
+            h = P[:, 2] - zg
+            bad = (h < self.c_min - 1e-6) | (h > self.c_max + 1e-6)
+            near = (h < self.c_min + 1e-6) | (h > self.c_max - 1e-6)
+            out["clearance"] = "violated" if bad[1:-1].any() else ("active" if near[1:-1].any() else "inactive")
+        return out
+
+
+def _keepout_status(P, fld, margin):
+    """Vertices by signed distance, segments by shapely intersection with the geometry."""
+    dist = fld(P[:, 0], P[:, 1])
+    if np.any(dist < 0):
+        return "violated"
+    geom = fld.geometry
+    if geom is not None:
+        import shapely
+
+        segs = shapely.linestrings(np.stack([P[:-1, :2], P[1:, :2]], axis=1))
+        hit = shapely.intersects(geom, segs) & ~shapely.touches(geom, segs)
+        if np.any(hit):
+            return "violated"
+    else:
+        fr = np.linspace(0.0, 1.0, 9)
+        X = (P[:-1, None, :2] * (1 - fr)[None, :, None] + P[1:, None, :2] * fr[None, :, None]).reshape(-1, 2)
+        if np.any(fld(X[:, 0], X[:, 1]) < 0):
+            return "violated"
+    return "active" if float(np.min(dist)) < 2.0 * margin else "inactive"
