@@ -327,6 +327,8 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
     s = _snap(terrain, start, "start")
+    if len(via) > 100:
+        raise ParameterError(f"at most 100 via points are supported, got {len(via)}; split the route")
     vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
     e = _snap(terrain, end, "end")
     targets = vias + [e]
