@@ -422,3 +422,83 @@ def test_sigint_during_search_leaves_nothing(tmp_path):
     assert "Traceback" not in err, err
     assert "interrupted" in err.lower(), err
     assert not out.exists() or leftovers(out) == []
+
+
+# --------------------------------------------------------------------------- atomic run (in-process)
+
+def _invoke(args):
+    from click.testing import CliRunner
+
+    from fallway.cli import main
+
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+@pytest.mark.parametrize("target", ["fallway.report.write_report_html", "fallway.plot.save_figure",
+                                    "fallway.export.write_profile_csv"])
+def test_writer_failing_mid_run_leaves_nothing(tmp_path, monkeypatch, target):
+    # the writer writes half a file and then fails, as a full disk would
+    import importlib
+
+    from fallway.errors import FallwayIOError
+
+    mod_name, fn_name = target.rsplit(".", 1)
+    mod = importlib.import_module(mod_name)
+
+    def half_then_fail(*args, **kwargs):
+        path = Path(args[1] if fn_name == "save_figure" else args[2])  # (fig, path) or (route, terrain, path)
+        path.write_text("half a fi")
+        raise FallwayIOError(f"cannot write {path}: No space left on device")
+
+    monkeypatch.setattr(mod, fn_name, half_then_fail)
+    dem = _plane_tif(tmp_path / "dem.tif")
+    # a fresh folder: gone again afterwards
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--out", tmp_path / "fresh"])
+    assert res.exit_code == 1, res.output
+    assert "No space left" in res.output
+    assert not (tmp_path / "fresh").exists()
+    # a folder holding the user's files: exactly those files afterwards, unchanged
+    kept = tmp_path / "kept"
+    kept.mkdir()
+    (kept / "notes.txt").write_bytes(b"mine\n")
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--out", kept])
+    assert res.exit_code == 1, res.output
+    assert [p.name for p in kept.iterdir()] == ["notes.txt"]
+    assert (kept / "notes.txt").read_bytes() == b"mine\n"
+
+
+def test_overwrite_run_failing_keeps_old_results(tmp_path, monkeypatch):
+    import fallway.report
+
+    from fallway.errors import FallwayIOError
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--out", out])
+    assert res.exit_code == 0, res.output
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+
+    def fail(*a, **k):
+        raise FallwayIOError("cannot write report.html: disk full")
+
+    monkeypatch.setattr(fallway.report, "write_report_html", fail)
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--mu", "0.05", "--out", out, "--overwrite"])
+    assert res.exit_code == 1 and "disk full" in res.output, res.output
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+
+
+def test_reach_writer_failing_leaves_nothing(tmp_path, monkeypatch):
+    from fallway.errors import FallwayIOError
+    from fallway.route import ReachMap
+
+    def half_then_fail(self, path):
+        Path(path).write_bytes(b"II*\x00")
+        raise FallwayIOError(f"cannot write {path}: No space left on device")
+
+    monkeypatch.setattr(ReachMap, "to_geotiff", half_then_fail)
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out_dir = tmp_path / "maps"
+    out_dir.mkdir()
+    res = _invoke(["reach", dem, "--start", *START, "--out", out_dir / "reach.tif"])
+    assert res.exit_code == 1, res.output
+    assert list(out_dir.iterdir()) == []

@@ -11,6 +11,7 @@ import contextlib
 import functools
 import logging
 import os
+import re
 import signal
 import socket
 import sys
@@ -362,6 +363,7 @@ def _envelope(sc, r, terrain, keepout):
 #: Wall-clock figures of a route summary: kept out of summary.json and route.geojson so
 #: the same inputs give the same bytes; ``route --timings`` writes them to run.json.
 _TIMING_KEYS = ("search_s",)
+_WALL_SECONDS = re.compile(r"(\d+ iterations), [0-9.]+ s:")
 
 
 def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, comparison=None,
@@ -373,7 +375,12 @@ def _write_route(outs, sc, r, terrain, keepout, *, reach=None, envelope=None, co
     from . import export, plot, report
 
     timing = {k: r.summary[k] for k in _TIMING_KEYS if k in r.summary}
-    r = dataclasses.replace(r, summary={k: v for k, v in r.summary.items() if k not in _TIMING_KEYS})
+    summary = {k: v for k, v in r.summary.items() if k not in _TIMING_KEYS}
+    if isinstance(summary.get("refine_message"), str):
+        # the refinement's message quotes its wall-clock seconds ("... iterations, 5.70 s: ...")
+        timing["refine_message"] = summary["refine_message"]
+        summary["refine_message"] = _WALL_SECONDS.sub(r"\1:", summary["refine_message"])
+    r = dataclasses.replace(r, summary=summary)
     if timings:
         with export.atomic_write(outs.path("run.json")) as fh:
             fh.write(json.dumps(export.to_jsonable(timing), sort_keys=True, indent=2) + "\n")
