@@ -1,0 +1,72 @@
+"""Benchmark: refinement of a 500-vertex line (target: under 2 s on the project machine).
+
+Two cases, each timed after a warm-up run (numba compile and caches excluded):
+  ground: a 500-vertex line on a rolling slope (bicubic interpolant, 1 m cells) from a
+          lattice-like 8-neighbour zigzag start;
+  raised: the 120 m / 45 m friction brachistochrone (mu = 0.2) with 500 vertices.
+
+Run: python scripts/bench_refine.py
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+
+import numpy as np
+from affine import Affine
+
+from fallway.errors import RefinementWarning
+from fallway.physics import Mover
+from fallway.refine import refine_line
+from fallway.terrain import Terrain
+
+
+def rolling_slope(n=220, cell=1.0):
+    y, x = np.mgrid[0:n, 0:n] * cell
+    z = 200.0 - 0.45 * x + 3.0 * np.sin(x / 17.0) * np.cos(y / 23.0) + 0.002 * (y - n / 2) ** 2
+    return Terrain.from_array(z, Affine(cell, 0, 0, 0, -cell, n * cell))
+
+
+def zigzag(t, start, end, n_diag):
+    (x0, y0), (x1, y1) = start, end
+    sx, sy = np.sign(x1 - x0), np.sign(y1 - y0)
+    pts = [(x0 + sx * i, y0 + sy * i) for i in range(n_diag + 1)]
+    xa, ya = pts[-1]
+    m = int(round(max(abs(x1 - xa), abs(y1 - ya))))
+    pts += [(xa + (x1 - xa) * i / m, ya + (y1 - ya) * i / m) for i in range(1, m + 1)]
+    xy = np.array(pts)
+    return np.column_stack([xy, t.sample_linear(xy[:, 0], xy[:, 1])])
+
+
+def run(label, fn, repeat=3):
+    fn()  # warm-up
+    best = math.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        res = fn()
+        best = min(best, time.perf_counter() - t0)
+    print(f"{label}: {best:.3f} s (best of {repeat}); {len(res.line)} vertices, {res.iterations} iterations, "
+          f"{res.time_before_s:.4f} s -> {res.time_after_s:.4f} s, converged={res.converged}")
+    return best
+
+
+def main():
+    warnings.simplefilter("ignore", RefinementWarning)
+    t = rolling_slope()
+    pts = zigzag(t, (10.5, 200.5), (200.5, 20.5), 180)
+    mover = Mover(mu=0.15, normal="gravity")
+    run("ground, 500 vertices", lambda: refine_line(t, pts, mover, n_vertices=500))
+
+    L, H, D = 120.0, 45.0, 15.0
+    cell = 2.0
+    valley = Terrain.from_array(np.zeros((11, 66)), Affine(cell, 0, -2 * cell, 0, -cell, 5.5 * cell))
+    start = np.array([[0.0, 0.0, 0.0], [L, 0.0, 0.0]])
+    run("raised friction brachistochrone, 500 vertices",
+        lambda: refine_line(valley, start, Mover(mu=0.2, normal="gravity"), line="raised",
+                            clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=500))
+
+
+if __name__ == "__main__":
+    main()
