@@ -299,7 +299,11 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
         None (default): the exact Pareto search.  On rough terrain the exact Pareto
         set grows with distance (measured: ~20 labels per cell 25 cells from the start,
         ~300 at 50, ~3700 at 100), so large grids need a cap; ``stats["exact"]`` says
-        whether the cap (or ``max_speed``) made the answer approximate.
+        whether the cap (or a binding ``max_speed``) made the answer approximate.
+        With ``mover.max_speed`` set the uncapped search runs first: its line is the
+        exact answer when it stays under the speed limit (``stats["speed_cap_binding"]``
+        False); otherwise the capped search runs, which is approximate (a faster label
+        can be pruned that would later overspeed - dominance is then a heuristic).
 
     Returns
     -------
@@ -322,6 +326,29 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
     >>> ln.cells[[0, -1]].tolist()
     [[0, 0], [5, 5]]
     """
+    if mover.max_speed is not None:
+        # With a speed cap "more energy never hurts" fails (a faster label may overspeed
+        # later), so the capped search is approximate.  The uncapped optimum is exact
+        # whenever it respects the cap (the capped lines are a subset of the uncapped
+        # ones), and when no uncapped line exists no capped one does either.
+        free = _lattice_line(terrain, start, end, replace(mover, max_speed=None), via=via,
+                             neighbours=neighbours, limits=limits, keepout=keepout, heuristic=heuristic,
+                             energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
+        if float(np.nanmax(free.profile.speed_m_s)) <= mover.max_speed:
+            free.stats["speed_cap_binding"] = False
+            return free
+        capped = _lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits,
+                               keepout=keepout, heuristic=heuristic, energy_tol=energy_tol,
+                               max_labels=max_labels, max_per_cell=max_per_cell)
+        capped.stats["speed_cap_binding"] = True
+        return capped
+    return _lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits,
+                         keepout=keepout, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels,
+                         max_per_cell=max_per_cell)
+
+
+def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits, keepout, heuristic, energy_tol,
+                  max_labels, max_per_cell):
     from ..route import LatticeLine
 
     limits = Limits() if limits is None else limits
