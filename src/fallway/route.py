@@ -165,6 +165,35 @@ def _min_radius(points: np.ndarray) -> float:
     return float(r.min()) if len(r) else math.inf
 
 
+#: Refined vertices closer than this fraction of a cell to the previous one are merged:
+#: they carry no geometry, only a spurious kink (and a millimetre bend radius).
+_MERGE_FRACTION = 0.01
+
+
+def _merge_close(points: np.ndarray, tol_m: float) -> np.ndarray:
+    """Drop interior vertices within ``tol_m`` (3D) of the last kept one; keep both ends."""
+    if len(points) <= 2:
+        return points
+    keep = [0]
+    for i in range(1, len(points) - 1):
+        if np.linalg.norm(points[i] - points[keep[-1]]) > tol_m:
+            keep.append(i)
+    if np.linalg.norm(points[-1] - points[keep[-1]]) <= tol_m and len(keep) > 1:
+        keep.pop()
+    keep.append(len(points) - 1)
+    return points[keep]
+
+
+def _timed(terrain, points: np.ndarray, mover: Mover, line: str) -> Profile:
+    """``traverse`` of a route's line; a ground line's lift-off is judged against the ground normal."""
+    normals = None
+    if line == "ground":
+        n = terrain.normal(points[:, 0], points[:, 1])
+        if np.isfinite(n).all():
+            normals = n
+    return traverse(points, mover, surface_normal=normals)
+
+
 def _num(v) -> float | None:
     v = float(v)
     return None if math.isnan(v) else v
@@ -202,7 +231,11 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
     -------
     Route
         ``profile`` is :func:`fallway.physics.traverse` of ``line`` with ``mover`` (the
-        full normal-force model when asked); ``lattice`` the lattice answer on its own.
+        full normal-force model when asked; a ground line's lift-off judged against the
+        ground normal); ``lattice`` the lattice answer on its own.  In the summary
+        ``lattice_time_s`` is the lattice line timed with the same model as
+        ``travel_time_s`` (so the two compare), ``lattice_search_time_s`` the search's
+        own figure (gravity-normal friction; equal to it for ``normal="gravity"``).
 
     Raises
     ------
@@ -239,18 +272,21 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
             # refinement works on polygons (a distance field); a bare lattice mask has none
             ko = None if isinstance(keepout, np.ndarray) else keepout
             rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=ko, line=line, **refine_options)
-            final = np.asarray(rr.line, dtype=float)
+            final = _merge_close(np.asarray(rr.line, dtype=float), _MERGE_FRACTION * terrain.cell_size)
             refined = True
             extra = {"refine_iterations": int(rr.iterations), "refine_residual": _num(rr.residual),
                      "refine_converged": bool(rr.converged), "refine_time_before_s": _num(rr.time_before_s),
-                     "refine_time_after_s": _num(rr.time_after_s), "refine_message": str(rr.message)}
-    profile = traverse(final, mover)
+                     "refine_time_after_s": _num(rr.time_after_s), "refine_message": str(rr.message),
+                     "refine_limits": dict(getattr(rr, "limits", {}) or {})}
+    profile = _timed(terrain, final, mover, line)
+    lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
     d = np.diff(final, axis=0)
     plan = np.hypot(d[:, 0], d[:, 1])
     st = lat.stats
     summary = {
         "travel_time_s": _num(profile.travel_time_s),
-        "lattice_time_s": float(lat.time_s),
+        "lattice_time_s": _num(lattice_profile.travel_time_s),
+        "lattice_search_time_s": float(lat.time_s),
         "feasible": bool(profile.feasible),
         "length_m": float(np.sqrt(plan ** 2 + d[:, 2] ** 2).sum()),
         "plan_length_m": float(plan.sum()),
