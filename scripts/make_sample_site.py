@@ -151,9 +151,8 @@ normal = "full"
 max_speed = 30.0  # m/s, a hard cap on the line
 
 [limits]
-min_grade = 0.0
+min_grade = 0.0    # the chute never climbs
 max_turn_deg = 45.0
-min_radius_m = 10.0
 
 [search]
 neighbours = 16

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import logging
+import warnings
 import os
 import re
 import signal
@@ -21,7 +22,7 @@ from pathlib import Path
 import click
 
 from . import __version__
-from .errors import FallwayError, NoFeasibleLine
+from .errors import FallwayError, NoFeasibleLine, RefinementWarning
 
 log = logging.getLogger("fallway")
 
@@ -101,8 +102,13 @@ def _guard(fn):
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         try:
-            with _sigint_exits():
-                return fn(*args, **kwargs)
+            with _sigint_exits(), warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", RefinementWarning)
+                try:
+                    return fn(*args, **kwargs)
+                finally:
+                    for w in caught:  # library warnings become one log line each
+                        log.warning("%s", str(w.message).splitlines()[0])
         except NoFeasibleLine as err:
             msg = str(err)
             if err.closest is not None:
@@ -162,6 +168,8 @@ def _common_options(fn):
         click.option("--g", "gravity", type=float, help="Acceleration of gravity, m/s² (default 9.80665)."),
         click.option("--normal", type=click.Choice(["gravity", "full"]), help="Normal-force model (default full)."),
         click.option("--neighbours", type=click.Choice(["8", "16", "32"]), help="Lattice stencil (default 16)."),
+        click.option("--label-cap", type=click.IntRange(min=1), help="Approximate search: keep at most N labels per "
+                     "cell (faster on large rough DEMs; summary search_exact says if it mattered)."),
         click.option("--min-grade", type=float, help="Smallest descent grade of any segment (0.05 = 5 % falling)."),
         click.option("--max-grade", type=float, help="Largest descent grade of any segment."),
         click.option("--max-speed", type=float, help="Speed limit, m/s."),
@@ -177,7 +185,7 @@ def _common_options(fn):
 
 
 def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours,
-               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, **extra) -> dict:
+               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, label_cap=None, **extra) -> dict:
     """The flags given on the command line, in the scenario's nested layout."""
     d: dict = {"points": {}, "mover": {}, "limits": {}, "search": {}, "line": {}, "envelope": {}}
     if dem is not None:
@@ -202,6 +210,8 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
             d["limits"][key] = val
     if neighbours is not None:
         d["search"]["neighbours"] = int(neighbours)
+    if label_cap is not None:
+        d["search"]["label_cap"] = int(label_cap)
     if extra.get("no_refine"):
         d["search"]["refine"] = False
     for key in ("kind", "clearance", "start_height", "end_height"):
@@ -337,7 +347,8 @@ def _run_route(sc, *, quiet: bool, robust: bool = False, cover=None):
         bar.update()
         bar.set_description("searching and refining")
         kw = dict(via=via, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout, line=sc.line,
-                  refine=sc.refine, clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height)
+                  refine=sc.refine, clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height,
+                  max_per_cell=sc.label_cap)
         if robust:
             from .compare import robust_route
 
@@ -450,7 +461,8 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
     # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
     with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
         terrain, start, _, _, keepout = _prepare(sc, need_end=False)
-        rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout)
+        rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout,
+                       max_per_cell=sc.label_cap)
         rm.to_geotiff(outs.path(out.name))
     if not quiet:
         import numpy as np
@@ -509,7 +521,8 @@ def _run_compare(sc, lines_path, *, refine: bool, optimum: bool):
 
         keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
     cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, optimum=optimum,
-                        neighbours=sc.neighbours, refine=refine, mu_range=sc.mu_range)
+                        neighbours=sc.neighbours, refine=refine, mu_range=sc.mu_range,
+                        route_kwargs={"max_per_cell": sc.label_cap})
     return cmp, terrain, keepout
 
 

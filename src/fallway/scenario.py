@@ -32,6 +32,7 @@ Layout (every section and key optional; unknown keys are rejected)::
     [search]
     neighbours = 16
     refine = true
+    label_cap = 4                    # optional: approximate search, at most 4 labels per cell
 
     [line]
     kind = "ground"                  # or "raised"
@@ -66,7 +67,7 @@ _SCHEMA: dict[str, Any] = {
     "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
     "mover": {f.name: f.name for f in fields(Mover)},
     "limits": {f.name: f.name for f in fields(Limits)},
-    "search": {"neighbours": int, "refine": bool},
+    "search": {"neighbours": int, "refine": bool, "label_cap": int},
     "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
     "envelope": {"mu_range": "pair"},
 }
@@ -122,6 +123,7 @@ class Scenario:
     limits: Limits = field(default_factory=Limits)
     neighbours: int = 16
     refine: bool = True
+    label_cap: int | None = None
     line: str = "ground"
     clearance: tuple[float, float] = (0.0, 0.0)
     start_height: float = 0.0
@@ -131,6 +133,8 @@ class Scenario:
     def __post_init__(self) -> None:
         if self.neighbours not in NEIGHBOURHOODS:
             raise ScenarioError(f"search.neighbours must be one of 8, 16, 32; got {self.neighbours!r}")
+        if self.label_cap is not None and self.label_cap < 1:
+            raise ScenarioError(f"search.label_cap must be a whole number >= 1; got {self.label_cap!r}")
         if self.line not in LINE_KINDS:
             raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {self.line!r}")
         lo, hi = self.clearance
@@ -185,6 +189,11 @@ class Scenario:
             kw["neighbours"] = n
         if "refine" in search:
             kw["refine"] = _bool("search.refine", search["refine"])
+        if "label_cap" in search:
+            n = search["label_cap"]
+            if isinstance(n, bool) or not isinstance(n, int):
+                raise ScenarioError(f"search.label_cap must be a whole number >= 1; got {n!r}")
+            kw["label_cap"] = n
         line = data.get("line", {})
         if "kind" in line:
             kw["line"] = line["kind"]
@@ -217,6 +226,8 @@ class Scenario:
         d["limits"] = {k: v for k, v in asdict(self.limits).items()
                        if v is not None and not (isinstance(v, float) and math.isinf(v))}
         d["search"] = {"neighbours": self.neighbours, "refine": self.refine}
+        if self.label_cap is not None:
+            d["search"]["label_cap"] = self.label_cap
         d["line"] = {"kind": self.line, "clearance": list(self.clearance),
                      "start_height": self.start_height, "end_height": self.end_height}
         if self.mu_range is not None:
