@@ -220,7 +220,7 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
     if route is not None:
         lat = np.asarray(route.lattice.points, dtype=float)
         ax.plot(lat[:, 0], lat[:, 1], color=_LATTICE_COLOUR, linestyle="--", linewidth=1.3, zorder=5,
-                label=f"lattice line ({route.summary.get('lattice_time_s', route.lattice.time_s):.1f} s)", gid="fallway-lattice")
+                label=f"lattice line ({route.summary.get('lattice_time_s') or route.lattice.time_s:.1f} s)", gid="fallway-lattice")
         line = np.asarray(route.line, dtype=float)
         tt = route.summary.get("travel_time_s")
         lbl = f"line ({float(tt):.1f} s)" if isinstance(tt, (int, float)) and math.isfinite(float(tt)) else "line"
