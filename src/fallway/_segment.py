@@ -87,8 +87,14 @@ def segment_law(v2_in, drop_m, plan_m, length_m, g, mu, k, v2_stall):
             arg = vt * dv / den
             if arg < 1e-6:
                 t = dv / (k * den) * (1.0 + arg * arg / 3.0)
-            else:
+            elif arg < 0.5:
                 t = math.atanh(arg) / (k * vt)
+            else:
+                # settled at the terminal speed (k s large: vb - vt underflows and the
+                # artanh reaches 1): t = s/vt + ln((vb + vt)/(va + vt))/(k vt), the same
+                # closed form as below the terminal speed; no cancellation here, since
+                # s/vt dominates the (negative) log term.
+                t = s / vt + math.log1p((vb - va) / (vt + va)) / (k * vt)
     elif a < 0.0:
         w = math.sqrt(-c)
         t = math.atan2((va - vb) * w, w * w + va * vb) / (k * w)
