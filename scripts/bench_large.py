@@ -1,0 +1,135 @@
+"""Benchmark of the coarse-to-fine search on a large DEM (issue 8).
+
+* ``large``   - 5000 x 5000 cells at 2 m (synthetic, deterministic, written as a tiled
+  deflate GeoTIFF), friction route across ~7 km (diagonal), 16 neighbours, refinement
+  on, through :func:`fallway.scale.find_route_large` (windowed reads).  Targets: wall
+  time < 300 s, peak memory (ru_maxrss of the process) < 8 GB.
+* ``check``   - a 2000 x 2000 DEM (same generator): the corridor answer against the exact
+  full-grid search (``exact=True``), same search options.  Target: within 0.5 %.
+
+Every case runs in its own process, so ``ru_maxrss`` is its own.  Run:
+``python scripts/bench_large.py [--cap 4] [--out results.json]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+
+import numpy as np
+
+CELL = 2.0
+X0, Y0 = 500_000.0, 5_200_000.0
+
+
+def make_dem(n: int, path: str, seed: int = 11) -> None:
+    """Regional fall to the south-east (grade 0.28 along the diagonal) plus smooth hills."""
+    import rasterio
+    from rasterio.transform import from_origin
+    from scipy import ndimage
+
+    rng = np.random.default_rng(seed)
+    # hills: smoothed noise on a 4x coarser grid, upsampled (keeps the generation fast)
+    m = n // 4 + 1
+    h = ndimage.gaussian_filter(rng.normal(size=(m, m)), 12.0)
+    h = ndimage.zoom(h, 4, order=3)[:n, :n]
+    h *= 25.0 / np.abs(h).max()
+    r, c = np.mgrid[0:n, 0:n].astype(np.float64)
+    z = 3000.0 - 0.2 * CELL * (c + r) + h
+    z = z.astype(np.float32)
+    prof = dict(driver="GTiff", width=n, height=n, count=1, dtype="float32", crs="EPSG:32633",
+                transform=from_origin(X0, Y0 + n * CELL, CELL, CELL), tiled=True, blockxsize=512,
+                blockysize=512, compress="deflate", nodata=-9999.0)
+    with rasterio.open(path, "w", **prof) as dst:
+        dst.write(z, 1)
+
+
+def points(n: int, frac: float):
+    """Start and end on the diagonal, ``frac`` of the side from each corner."""
+    side = n * CELL
+    a = frac * side
+    return (X0 + a, Y0 + side - a), (X0 + side - a, Y0 + a)
+
+
+def peak_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def case(path, n, frac, cap, exact, refine):
+    from fallway.physics import Mover
+    from fallway.scale import find_route_large
+
+    start, end = points(n, frac)
+    mover = Mover(mu=0.2, drag=0.001)
+    t0 = time.perf_counter()
+    r = find_route_large(path, start, end, mover, neighbours=16, max_per_cell=cap, exact=exact, refine=refine)
+    wall = time.perf_counter() - t0
+    s = r.summary
+    return {"wall_s": wall, "peak_mb": peak_mb(), "travel_time_s": s["travel_time_s"],
+            "lattice_time_s": s["lattice_time_s"], "plan_length_m": s["plan_length_m"],
+            "scale": s["scale"], "corridor_steps": s["corridor_steps"], "timings": s["scale_timings_s"],
+            "labels_created": s["labels_created"], "refined": s["refined"],
+            "refine_converged": s.get("refine_converged"), "feasible": s["feasible"]}
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--case", default=None)
+    ap.add_argument("--path")
+    ap.add_argument("--n", type=int)
+    ap.add_argument("--frac", type=float)
+    ap.add_argument("--cap", type=int, default=4)
+    ap.add_argument("--exact", action="store_true")
+    ap.add_argument("--no-refine", action="store_true")
+    ap.add_argument("--out", default=None)
+    ap.add_argument("--skip-large", action="store_true")
+    a = ap.parse_args()
+    if a.case:
+        print(json.dumps(case(a.path, a.n, a.frac, a.cap, a.exact, not a.no_refine)))
+        return
+    results = {}
+    with tempfile.TemporaryDirectory() as d:
+        def child(name, path, n, frac, exact, refine=True):
+            cmd = [sys.executable, __file__, "--case", name, "--path", path, "--n", str(n), "--frac", str(frac),
+                   "--cap", str(a.cap)] + (["--exact"] if exact else []) + ([] if refine else ["--no-refine"])
+            out = subprocess.run(cmd, check=True, capture_output=True, text=True)
+            res = json.loads(out.stdout.strip().splitlines()[-1])
+            results[name] = res
+            print(name, json.dumps(res), flush=True)
+
+        # 2000 x 2000: corridor against exact, both on the full-resolution DEM
+        p2 = os.path.join(d, "dem2000.tif")
+        t0 = time.perf_counter()
+        make_dem(2000, p2)
+        print(f"dem 2000 written in {time.perf_counter() - t0:.1f} s", flush=True)
+        child("check_corridor", p2, 2000, 0.15, False)
+        child("check_exact", p2, 2000, 0.15, True)
+        c, e = results["check_corridor"], results["check_exact"]
+        for k in ("lattice_time_s", "travel_time_s"):
+            rel = (c[k] - e[k]) / e[k]
+            results[f"check_rel_{k}"] = rel
+            print(f"2000 x 2000: {k} corridor {c[k]:.4f} s, exact {e[k]:.4f} s, rel diff {100 * rel:+.4f} %")
+        if not a.skip_large:
+            p5 = os.path.join(d, "dem5000.tif")
+            t0 = time.perf_counter()
+            make_dem(5000, p5)
+            print(f"dem 5000 written in {time.perf_counter() - t0:.1f} s "
+                  f"({os.path.getsize(p5) / 1e6:.0f} MB)", flush=True)
+            # a quarter of the side in from opposite corners: 0.5 * 10 km * sqrt(2) = 7.07 km straight
+            child("large", p5, 5000, 0.25, False)
+            L = results["large"]
+            print(f"5000 x 5000: wall {L['wall_s']:.1f} s (target < 300), peak {L['peak_mb'] / 1024:.2f} GB "
+                  f"(target < 8), travel time {L['travel_time_s']:.3f} s")
+    if a.out:
+        with open(a.out, "w") as fh:
+            json.dump(results, fh, indent=2)
+
+
+if __name__ == "__main__":
+    main()
