@@ -1,0 +1,74 @@
+"""Scaling of the large-terrain route search with grid size (issue 8).
+
+For n x n DEMs of 0.25 M, 1 M, 4 M, 16 M and 25 M cells at 2 m (the generator of
+``bench_large.py``, written to a tiled deflate GeoTIFF), a friction route corner to
+corner (15 % in from opposite corners), 16 neighbours, ``max_per_cell`` labels, through
+:func:`fallway.scale.find_route_large` (coarse-to-fine).  Each size runs in its own
+process: wall time and peak memory (ru_maxrss).  The growth exponent is the
+least-squares slope of log(time) against log(cells).
+
+Run: ``python scripts/bench_scaling.py [--cap 4] [--refine] [--exact-up-to 4000000]``.
+``--exact-up-to`` also times the exact full-grid search up to that many cells.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+
+import numpy as np
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+SIZES = (500, 1000, 2000, 4000, 5000)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--cap", type=int, default=4)
+    ap.add_argument("--refine", action="store_true")
+    ap.add_argument("--exact-up-to", type=int, default=0)
+    ap.add_argument("--out", default=None)
+    a = ap.parse_args()
+    from bench_large import make_dem
+
+    rows = []
+    with tempfile.TemporaryDirectory() as d:
+        for n in SIZES:
+            path = os.path.join(d, f"dem{n}.tif")
+            make_dem(n, path)
+            modes = [False] + ([True] if n * n <= a.exact_up_to else [])
+            for exact in modes:
+                cmd = [sys.executable, os.path.join(os.path.dirname(__file__), "bench_large.py"), "--case", "s",
+                       "--path", path, "--n", str(n), "--frac", "0.15", "--cap", str(a.cap)]
+                cmd += (["--exact"] if exact else []) + ([] if a.refine else ["--no-refine"])
+                out = subprocess.run(cmd, check=True, capture_output=True, text=True)
+                res = json.loads(out.stdout.strip().splitlines()[-1])
+                row = {"n": n, "cells": n * n, "mode": "exact" if exact else "corridor", "wall_s": res["wall_s"],
+                       "peak_mb": res["peak_mb"], "lattice_time_s": res["lattice_time_s"],
+                       "travel_time_s": res["travel_time_s"], "labels_created": res["labels_created"],
+                       "steps": [(s["corridor_m"], s["cells"]) for s in res["corridor_steps"]]}
+                rows.append(row)
+                print(json.dumps(row), flush=True)
+    print(f"\n{'cells':>10} {'mode':>9} {'wall s':>8} {'peak MB':>8} {'travel s':>9}")
+    for r in rows:
+        print(f"{r['cells']:>10d} {r['mode']:>9} {r['wall_s']:8.2f} {r['peak_mb']:8.0f} {r['travel_time_s']:9.3f}")
+    for mode in ("corridor", "exact"):
+        sel = [r for r in rows if r["mode"] == mode]
+        if len(sel) >= 2:
+            x = np.log([r["cells"] for r in sel])
+            y = np.log([r["wall_s"] for r in sel])
+            slope = float(np.polyfit(x, y, 1)[0])
+            ym = np.log([r["peak_mb"] for r in sel])
+            print(f"{mode}: time ~ cells^{slope:.2f}, peak memory ~ cells^{float(np.polyfit(x, ym, 1)[0]):.2f}")
+    if a.out:
+        with open(a.out, "w") as fh:
+            json.dump(rows, fh, indent=2)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,336 @@
+"""Batch runs: many scenarios from one TOML file, in local processes or on a Dask cluster.
+
+Batch file layout::
+
+    [base]                       # a scenario: the keys of a scenario file (fallway.scenario)
+    dem = "site.tif"             # relative paths are relative to the batch file
+    [base.points]
+    start = [512300.0, 5401200.0]
+    [base.mover]
+    mu = 0.15
+
+    [vary]                       # a product: every combination of these lists
+    points.end = [[512800.0, 5400900.0], [512900.0, 5400700.0]]
+    mover.mu = [0.1, 0.2]
+    line.kind = ["ground", "raised"]
+
+    [[run]]                      # and/or explicit runs (after the product), overrides of base
+    name = "steep-start"
+    points = { start = [512250.0, 5401300.0], end = [512800.0, 5400900.0] }
+
+    [options]                    # optional: how each run is searched
+    large = false                # true: fallway.scale.find_route_large (coarse-to-fine)
+    coarse_factor = 4            # the other keys go to find_route_large / find_route
+    corridor_m = 40.0
+    max_per_cell = 4
+
+Keys under ``[vary]`` are dotted paths into the scenario (``mover.mu``, ``points.end``,
+``line.kind``, ``search.neighbours``...), each a list of values.  Product runs are named
+``run-001``, ``run-002``... in the order of the product (the last key varies fastest).
+
+Each run writes ``summary.json``, ``route.geojson`` and ``profile.csv`` into
+``out_dir/<name>/``; a run that fails records its one-line error.  All runs end up in
+``out_dir/batch.csv``: name, the varied parameters, travel_time_s, lattice_time_s,
+exit_speed_m_s, status ("ok" or "error") and error.
+"""
+
+from __future__ import annotations
+
+import copy
+import csv
+import itertools
+import math
+import os
+import tomllib
+from pathlib import Path
+
+from .errors import FallwayIOError, ScenarioError
+
+__all__ = ["run_batch", "expand_batch", "BATCH_COLUMNS"]
+
+#: Fixed columns of batch.csv (the varied parameters come between name and these).
+BATCH_COLUMNS = ("travel_time_s", "lattice_time_s", "exit_speed_m_s", "status", "error")
+
+_OPTION_KEYS = ("large", "coarse_factor", "corridor_m", "exact", "max_widen", "widen_tol", "max_per_cell",
+                "energy_tol", "max_labels", "heuristic")
+
+
+def _flatten(d: dict, prefix: str = "") -> dict:
+    out = {}
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.update(_flatten(v, key + "."))
+        else:
+            out[key] = v
+    return out
+
+
+def _set(d: dict, dotted: str, value) -> None:
+    parts = dotted.split(".")
+    for p in parts[:-1]:
+        d = d.setdefault(p, {})
+        if not isinstance(d, dict):
+            raise ScenarioError(f"vary key {dotted} does not name a scenario value")
+    d[parts[-1]] = value
+
+
+def _merge(base: dict, over: dict) -> dict:
+    out = copy.deepcopy(base)
+    for k, v in over.items():
+        if isinstance(v, dict) and isinstance(out.get(k), dict):
+            out[k] = _merge(out[k], v)
+        else:
+            out[k] = copy.deepcopy(v)
+    return out
+
+
+def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
+    """Runs of a parsed batch file: ``[{"name", "scenario", "params"}, ...]`` and the options.
+
+    Every run's scenario is validated (:class:`~fallway.scenario.Scenario`) here, so a
+    typo fails before anything runs.
+
+    Examples
+    --------
+    >>> runs, opts = expand_batch({"base": {"points": {"start": [0, 9]}},
+    ...                            "vary": {"mover": {"mu": [0.1, 0.2]}, "points.end": [[9, 0], [9, 1]]}})
+    >>> [(r["name"], r["params"]["mover.mu"], r["params"]["points.end"]) for r in runs][:2]
+    [('run-001', 0.1, [9, 0]), ('run-002', 0.1, [9, 1])]
+    """
+    from .scenario import Scenario
+
+    unknown = sorted(set(data) - {"base", "vary", "run", "options"})
+    if unknown:
+        raise ScenarioError(f"unknown batch key {unknown[0]}; allowed: base, vary, run, options")
+    base = data.get("base", {})
+    if not isinstance(base, dict):
+        raise ScenarioError("[base] must be a table of scenario keys")
+    vary = _flatten(data.get("vary", {}))
+    for k, v in vary.items():
+        if not isinstance(v, list) or not v:
+            raise ScenarioError(f"vary.{k} must be a non-empty list of values, got {v!r}")
+    explicit = data.get("run", [])
+    if not isinstance(explicit, list):
+        raise ScenarioError("[[run]] entries must be tables (use [[run]], not [run])")
+    options = dict(data.get("options", {}))
+    bad = sorted(set(options) - set(_OPTION_KEYS))
+    if bad:
+        raise ScenarioError(f"unknown batch option {bad[0]}; allowed: {', '.join(_OPTION_KEYS)}")
+    runs = []
+    keys = list(vary)
+    if keys:
+        for i, combo in enumerate(itertools.product(*(vary[k] for k in keys)), start=1):
+            sc = copy.deepcopy(base)
+            for k, v in zip(keys, combo):
+                _set(sc, k, copy.deepcopy(v))
+            runs.append({"name": f"run-{i:03d}", "scenario": sc, "params": dict(zip(keys, combo))})
+    for j, item in enumerate(explicit, start=1):
+        if not isinstance(item, dict) or not isinstance(item.get("name"), str) or not item["name"]:
+            raise ScenarioError(f"[[run]] number {j} needs a name = \"...\"")
+        over = {k: v for k, v in item.items() if k != "name"}
+        runs.append({"name": item["name"], "scenario": _merge(base, over), "params": _flatten(over)})
+    if not runs:
+        runs.append({"name": "run-001", "scenario": copy.deepcopy(base), "params": {}})
+    names = [r["name"] for r in runs]
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise ScenarioError(f"run name {dup[0]} appears twice; give every [[run]] its own name")
+    for r in runs:
+        if os.sep in r["name"] or r["name"] in (".", ".."):
+            raise ScenarioError(f"run name {r['name']!r} must be a plain folder name")
+        try:
+            Scenario.from_dict(r["scenario"], base_dir=base_dir)
+        except ScenarioError as err:
+            raise ScenarioError(f"run {r['name']}: {err}") from None
+    return runs, options
+
+
+def _load_points(sc):
+    """Terrain around the scenario's points, and the points in its CRS (as the CLI does)."""
+    from .errors import ParameterError
+    from .points import WGS84, dem_crs, to_terrain_crs
+    from .terrain import load_terrain
+
+    if sc.dem is None or sc.start is None or sc.end is None:
+        raise ParameterError("a batch run needs dem, points.start and points.end")
+    src_crs = dem_crs(sc.dem)
+    pts = [sc.start] + list(sc.via) + [sc.end]
+    src = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
+    native = to_terrain_crs(pts, src, src_crs)
+    return src_crs, native, load_terrain, pts, src
+
+
+def run_one(spec: dict) -> dict:
+    """Run one batch entry (picklable in and out); never raises for a failed run."""
+    import math as _m
+
+    from . import export
+    from .scenario import Scenario
+
+    row = {"name": spec["name"], **{k: _cell(v) for k, v in spec["params"].items()}}
+    try:
+        sc = Scenario.from_dict(spec["scenario"], base_dir=spec.get("base_dir"))
+        opts = dict(spec.get("options", {}))
+        large = bool(opts.pop("large", False))
+        src_crs, native, load_terrain, pts, src = _load_points(sc)
+        kw = dict(via=(), neighbours=sc.neighbours, limits=sc.limits, line=sc.line, refine=sc.refine,
+                  clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height)
+        keep = None
+        if large and not src_crs.is_geographic:
+            from .limits import Keepout
+            from .scale import find_route_large
+
+            if sc.keepout is not None:
+                keep = Keepout.from_file(sc.keepout).in_crs(src_crs)
+            via = tuple(native[1:-1])
+            terrain_crs = src_crs
+            r = find_route_large(sc.dem, native[0], native[-1], sc.mover, keepout=keep, **{**kw, "via": via}, **opts)
+            terrain = None
+        else:
+            from .points import to_terrain_crs
+            from .route import find_route
+
+            for k in ("coarse_factor", "corridor_m", "exact", "max_widen", "widen_tol"):
+                opts.pop(k, None)
+            bounds = None if src_crs.is_geographic else (min(p[0] for p in native), min(p[1] for p in native),
+                                                        max(p[0] for p in native), max(p[1] for p in native))
+            terrain = load_terrain(sc.dem, bounds=bounds)
+            tp = to_terrain_crs(pts, src, terrain.crs)
+            if sc.keepout is not None:
+                from .limits import Keepout
+
+                keep = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
+            terrain_crs = terrain.crs
+            r = find_route(terrain, tp[0], tp[-1], sc.mover, keepout=keep, **{**kw, "via": tuple(tp[1:-1])}, **opts)
+        out = Path(spec["out_dir"]) / spec["name"]
+        out.mkdir(parents=True, exist_ok=True)
+        if terrain is None:
+            from .terrain import load_terrain as _lt
+
+            xs, ys = r.line[:, 0], r.line[:, 1]
+            terrain = _lt(sc.dem, bounds=(float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())),
+                          margin_m=50.0)
+        summary = {k: v for k, v in r.summary.items() if k not in ("search_s", "scale_timings_s")}
+        import dataclasses
+
+        r = dataclasses.replace(r, summary=summary)
+        export.write_summary_json(r, out / "summary.json", extra={"scenario": sc.to_dict(), "batch_run": spec["name"]},
+                                  crs=terrain_crs)
+        export.write_route_geojson(r, out / "route.geojson", terrain_crs)
+        export.write_profile_csv(r, terrain, out / "profile.csv")
+        s = r.summary
+        row.update(travel_time_s=s.get("travel_time_s"), lattice_time_s=s.get("lattice_time_s"),
+                   exit_speed_m_s=s.get("exit_speed_m_s"), status="ok", error="")
+        for k in ("travel_time_s", "lattice_time_s", "exit_speed_m_s"):
+            if row[k] is not None and not _m.isfinite(row[k]):
+                row[k] = None
+    except Exception as err:  # noqa: BLE001 - a failed run is a row, never the end of the batch
+        msg = " ".join(str(err).split()) or type(err).__name__
+        row.update(travel_time_s=None, lattice_time_s=None, exit_speed_m_s=None, status="error",
+                   error=f"{type(err).__name__}: {msg}")
+    return row
+
+
+def _cell(v):
+    if isinstance(v, (list, tuple)):
+        return " ".join(str(x) for x in v)
+    return v
+
+
+def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=None) -> list[dict]:
+    """Run every scenario of a batch file; write per-run outputs and ``batch.csv``.
+
+    Parameters
+    ----------
+    scenarios_path : path
+        The batch TOML (module notes).
+    out_dir : path
+        Folder for ``<run-name>/`` sub-folders and ``batch.csv`` (created if missing).
+    workers : int, optional
+        Local worker processes (default ``os.cpu_count()``); 1 runs in this process.
+        Ignored with ``scheduler``.
+    scheduler : str or dask.distributed.Client, optional
+        A Dask scheduler address (``"tcp://host:8786"``) or a client: the runs go to
+        that cluster (needs ``dask[distributed]``).
+
+    Returns
+    -------
+    list of dict
+        One row per run, in batch order (the rows of batch.csv).
+
+    Raises
+    ------
+    FallwayIOError
+        The batch file is missing or not valid TOML.
+    ScenarioError
+        A run's scenario does not validate (nothing is run).
+    """
+    p = Path(os.fspath(scenarios_path))
+    if not p.is_file():
+        raise FallwayIOError(f"batch file not found: {p}; check the path")
+    try:
+        data = tomllib.loads(p.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as err:
+        raise ScenarioError(f"{p} is not valid TOML: {err}") from None
+    base_dir = str(p.resolve().parent)
+    runs, options = expand_batch(data, base_dir=base_dir)
+    out = Path(os.fspath(out_dir))
+    out.mkdir(parents=True, exist_ok=True)
+    specs = [{**r, "base_dir": base_dir, "out_dir": str(out), "options": options} for r in runs]
+    if scheduler is not None:
+        rows = _run_dask(specs, scheduler)
+    else:
+        n = (os.cpu_count() or 1) if workers is None else int(workers)
+        if n < 1:
+            from .errors import ParameterError
+            raise ParameterError(f"workers must be >= 1, got {workers}")
+        if n == 1 or len(specs) == 1:
+            rows = [run_one(s) for s in specs]
+        else:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+
+            ctx = multiprocessing.get_context("spawn")  # no fork of a process holding threads
+            with ProcessPoolExecutor(max_workers=min(n, len(specs)), mp_context=ctx) as ex:
+                rows = list(ex.map(run_one, specs))
+    _write_table(rows, runs, out / "batch.csv")
+    return rows
+
+
+def _run_dask(specs, scheduler):
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        from .errors import ParameterError
+        raise ParameterError("a Dask scheduler needs dask.distributed: pip install 'dask[distributed]'") from None
+    own = not isinstance(scheduler, Client)
+    client = Client(scheduler) if own else scheduler
+    try:
+        futures = client.map(run_one, specs, pure=False, key=[f"fallway-{s['name']}-{id(s)}" for s in specs])
+        return client.gather(futures)
+    finally:
+        if own:
+            client.close()
+
+
+def _write_table(rows, runs, path):
+    params = []
+    for r in runs:
+        for k in r["params"]:
+            if k not in params:
+                params.append(k)
+    cols = ["name", *params, *BATCH_COLUMNS]
+    tmp = Path(str(path) + ".tmp")
+    with open(tmp, "w", newline="", encoding="utf-8") as fh:
+        w = csv.DictWriter(fh, fieldnames=cols, extrasaction="ignore")
+        w.writeheader()
+        for row in rows:
+            w.writerow({c: ("" if row.get(c) is None else _fmt(row.get(c))) for c in cols})
+    os.replace(tmp, path)
+
+
+def _fmt(v):
+    if isinstance(v, float):
+        return "" if not math.isfinite(v) else repr(v)
+    return v

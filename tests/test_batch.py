@@ -1,0 +1,170 @@
+"""Batch runs: expansion of the batch file, local processes and an in-process Dask cluster."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+
+import numpy as np
+import pytest
+
+from fallway.batch import expand_batch, run_batch
+from fallway.errors import ScenarioError
+from fallway.physics import Mover
+from fallway.route import find_route
+from fallway.terrain import Terrain
+
+G = 9.80665
+N, CELL = 80, 2.0
+SLOPE = 0.3
+
+
+def write_plane(path):
+    import rasterio
+    from affine import Affine
+
+    r, c = np.mgrid[0:N, 0:N].astype(float)
+    z = 300.0 - SLOPE * CELL * c + 0.02 * CELL * r
+    with rasterio.open(path, "w", driver="GTiff", width=N, height=N, count=1, dtype="float64", crs="EPSG:32633",
+                       transform=Affine(CELL, 0, 500000.0, 0, -CELL, 5200000.0 + N * CELL)) as dst:
+        dst.write(z, 1)
+    return Terrain.from_array(z, (CELL, 0, 500000.0, 0, -CELL, 5200000.0 + N * CELL), "EPSG:32633")
+
+
+START = [500005.0, 5200081.0]
+ENDS = [[500155.0, 5200081.0], [500151.0, 5200041.0]]
+MUS = [0.05, 0.15]
+
+BATCH = f"""
+[base]
+dem = "dem.tif"
+[base.points]
+start = {START}
+[base.search]
+neighbours = 16
+refine = false
+[base.mover]
+normal = "gravity"
+
+[vary]
+points.end = {ENDS}
+mover.mu = {MUS}
+line.kind = ["ground", "raised"]
+
+[[run]]
+name = "outside"
+points = {{ end = [600000.0, 5200050.0] }}
+"""
+
+
+@pytest.fixture(scope="module")
+def site(tmp_path_factory):
+    d = tmp_path_factory.mktemp("batch")
+    terrain = write_plane(d / "dem.tif")
+    (d / "batch.toml").write_text(BATCH)
+    return d, terrain
+
+
+def check_rows(rows, terrain):
+    assert len(rows) == 2 * 2 * 2 + 1
+    ok = [r for r in rows if r["status"] == "ok"]
+    assert len(ok) == 8
+    for r in ok:
+        end = tuple(float(v) for v in r["points.end"].split())
+        mover = Mover(mu=r["mover.mu"], normal="gravity")
+        single = find_route(terrain, tuple(START), end, mover, neighbours=16, refine=False, line=r["line.kind"])
+        assert r["travel_time_s"] == pytest.approx(single.summary["travel_time_s"], rel=1e-12)
+        assert r["exit_speed_m_s"] == pytest.approx(single.summary["exit_speed_m_s"], rel=1e-12)
+        if end == tuple(ENDS[0]):
+            # straight down the row: constant acceleration on an incline with Coulomb
+            # friction (e.g. Meriam & Kraige, Dynamics), a = g (drop - mu plan) / length
+            plan = 150.0
+            length = plan * math.hypot(1.0, SLOPE)
+            a = G * (SLOPE - r["mover.mu"]) * plan / length
+            assert r["travel_time_s"] == pytest.approx(math.sqrt(2 * length / a), rel=1e-9)
+    bad = rows[-1]
+    assert bad["name"] == "outside" and bad["status"] == "error"
+    assert "outside" in bad["error"] and "\n" not in bad["error"]
+    assert bad["travel_time_s"] is None
+
+
+def read_table(path):
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_local_processes(site, tmp_path):
+    d, terrain = site
+    rows = run_batch(d / "batch.toml", tmp_path / "out", workers=2)
+    check_rows(rows, terrain)
+    table = read_table(tmp_path / "out" / "batch.csv")
+    assert [t["name"] for t in table] == [r["name"] for r in rows]
+    assert list(table[0]) == ["name", "points.end", "mover.mu", "line.kind", "travel_time_s", "lattice_time_s",
+                              "exit_speed_m_s", "status", "error"]
+    assert float(table[0]["travel_time_s"]) == rows[0]["travel_time_s"]
+    assert table[-1]["status"] == "error" and table[-1]["travel_time_s"] == ""
+    for r in rows[:-1]:
+        folder = tmp_path / "out" / r["name"]
+        assert {p.name for p in folder.iterdir()} >= {"summary.json", "route.geojson", "profile.csv"}
+        s = json.loads((folder / "summary.json").read_text())
+        assert s["travel_time_s"] == pytest.approx(r["travel_time_s"], rel=1e-12)
+    assert not (tmp_path / "out" / "outside").exists()
+
+
+def test_dask_in_process_cluster_gives_the_same_rows(site, tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    d, terrain = site
+    with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=2,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        rows = run_batch(d / "batch.toml", tmp_path / "dask", scheduler=client)
+    check_rows(rows, terrain)
+    local = run_batch(d / "batch.toml", tmp_path / "one", workers=1)
+    assert rows == local
+
+
+def test_expansion_order_names_and_errors():
+    runs, _ = expand_batch({"base": {"points": {"start": [0, 9]}},
+                            "vary": {"mover": {"mu": [0.1, 0.2, 0.3]}, "line.kind": ["ground", "raised"]},
+                            "run": [{"name": "x", "mover": {"drag": 0.01}}]})
+    assert [r["name"] for r in runs] == [f"run-{i:03d}" for i in range(1, 7)] + ["x"]
+    assert [(r["params"]["mover.mu"], r["params"]["line.kind"]) for r in runs[:3]] == [
+        (0.1, "ground"), (0.1, "raised"), (0.2, "ground")]
+    assert runs[-1]["scenario"]["mover"] == {"drag": 0.01}
+    with pytest.raises(ScenarioError, match="run run-001: .*mover.mass"):
+        expand_batch({"vary": {"mover.mass": [1, 2]}})
+    with pytest.raises(ScenarioError, match="non-empty list"):
+        expand_batch({"vary": {"mover.mu": 0.1}})
+    with pytest.raises(ScenarioError, match="appears twice"):
+        expand_batch({"run": [{"name": "a"}, {"name": "a"}]})
+    with pytest.raises(ScenarioError, match="unknown batch option"):
+        expand_batch({"options": {"speed": 1}})
+
+
+def test_large_option_runs_the_corridor_search(site, tmp_path):
+    d, terrain = site
+    (tmp_path / "large.toml").write_text(f"""
+[base]
+dem = "{(d / 'dem.tif').as_posix()}"
+[base.points]
+start = {START}
+end = {ENDS[0]}
+[base.search]
+refine = false
+[base.mover]
+normal = "gravity"
+[vary]
+mover.mu = {MUS}
+[options]
+large = true
+coarse_factor = 2
+corridor_m = 8.0
+""")
+    rows = run_batch(tmp_path / "large.toml", tmp_path / "out", workers=1)
+    assert [r["status"] for r in rows] == ["ok", "ok"]
+    for r in rows:
+        single = find_route(terrain, tuple(START), tuple(ENDS[0]), Mover(mu=r["mover.mu"], normal="gravity"),
+                            neighbours=16, refine=False)
+        assert r["travel_time_s"] == pytest.approx(single.summary["travel_time_s"], rel=1e-12)
+        s = json.loads((tmp_path / "out" / r["name"] / "summary.json").read_text())
+        assert s["scale"]["mode"] == "corridor" and len(s["corridor_steps"]) >= 2
