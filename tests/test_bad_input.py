@@ -249,7 +249,7 @@ CASES = {
     "clearance min > max": (c_clearance_inverted, 1, ["clearance"]),
     "broken keep-out file": (c_broken_keepout, 1, ["keep-out", "keepout.geojson"]),
     "keep-out covers start": (c_keepout_on_start, 3, ["start", "keep-out", "move it"]),
-    "huge raster": (c_huge_raster, 1, ["m cells", "bounds", "resolution"]),
+    "huge raster": (c_huge_raster, 1, ["200000 x 200000", "m cells", "closer", "gdalwarp"]),
     "no --out": (c_missing_out, 2, ["--out"]),
     "--robust without range": (c_robust_without_range, 2, ["--mu-range"]),
     "broken scenario toml": (c_broken_scenario, 1, ["scenario", "toml"]),

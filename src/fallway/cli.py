@@ -119,7 +119,8 @@ def _guard(fn):
         except KeyboardInterrupt:
             _fail(_INTERRUPTED, 130)
         except MemoryError:
-            _fail("out of memory; read a smaller area (bounds) or a coarser grid (--resolution)", EXIT_ERROR)
+            _fail("out of memory; put the points closer together or resample the DEM coarser first "
+                  "(e.g. gdalwarp -tr 10 10 in.tif out.tif)", EXIT_ERROR)
         except click.exceptions.Exit:
             raise
         except click.ClickException:
@@ -244,6 +245,24 @@ def _resolve(scenario_path, overrides: dict):
     return Scenario.from_dict(_merge(base, overrides), base_dir=base_dir)
 
 
+def _load_terrain_cli(dem, bounds):
+    """:func:`load_terrain`, with a too-large area refused in command-line terms."""
+    from .errors import TerrainError
+    from .terrain import load_terrain
+
+    try:
+        return load_terrain(dem, bounds=bounds)
+    except TerrainError as err:
+        head, sep, tail = str(err).partition("; pass bounds=")
+        if not sep:
+            raise
+        fit = re.search(r"about (\d+) m or more fits", tail)
+        cells = f"{fit.group(1)} m cells or coarser fit" if fit else "coarser cells fit"
+        raise TerrainError(f"{head}; the points span too large an area at this resolution: put them closer "
+                           f"together, or resample the DEM first ({cells}; e.g. gdalwarp -tr N N in.tif out.tif)"
+                           ) from err
+
+
 def _prepare(sc, *, need_end: bool, cover=None):
     """Load the terrain around the scenario's points and move the points into its CRS.
 
@@ -251,7 +270,6 @@ def _prepare(sc, *, need_end: bool, cover=None):
     """
     from .errors import ParameterError
     from .points import WGS84, dem_crs, to_terrain_crs
-    from .terrain import load_terrain
 
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
@@ -271,7 +289,7 @@ def _prepare(sc, *, need_end: bool, cover=None):
         xs = [p[0] for p in native]
         ys = [p[1] for p in native]
         bounds = (min(xs), min(ys), max(xs), max(ys))
-    terrain = load_terrain(sc.dem, bounds=bounds)
+    terrain = _load_terrain_cli(sc.dem, bounds)
     pts = to_terrain_crs(pts, src, terrain.crs)
     start = pts[0]
     end = pts[-1] if sc.end is not None else None
@@ -503,7 +521,6 @@ def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refin
 def _run_compare(sc, lines_path, *, refine: bool, optimum: bool):
     from .compare import compare as compare_lines, read_lines
     from .points import dem_crs
-    from .terrain import load_terrain
 
     src = dem_crs(sc.dem)
     lines = read_lines(lines_path, crs=src)
@@ -512,7 +529,7 @@ def _run_compare(sc, lines_path, *, refine: bool, optimum: bool):
         xs = [float(v) for _, p in lines for v in p[:, 0]]
         ys = [float(v) for _, p in lines for v in p[:, 1]]
         bounds = (min(xs), min(ys), max(xs), max(ys))
-    terrain = load_terrain(sc.dem, bounds=bounds)
+    terrain = _load_terrain_cli(sc.dem, bounds)
     if terrain.crs != src:
         lines = read_lines(lines_path, crs=terrain.crs)
     keepout = None
