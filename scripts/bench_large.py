@@ -9,6 +9,15 @@
 
 Every case runs in its own process, so ``ru_maxrss`` is its own.  Run:
 ``python scripts/bench_large.py [--cap 4] [--out results.json]``.
+
+Measured (2 cores, --cap 4, mu 0.2, drag 0.001 /m):
+
+* 5000 x 5000, 7.07 km straight: wall 133 s, peak RSS 1.07 GB; of this the coarse read and
+  search (500 x 500 at 20 m) 1.1 s, corridors 80 m (287 k cells) and 160 m (587 k cells)
+  1.3 + 5.9 s read + search, the final find_route (the lattice search again + the
+  refinement) 125 s - almost all of it the refinement.
+* 2000 x 2000: corridor 176.6868 s lattice (53.6 s wall, 0.38 GB), exact full grid the
+  same line (71.3 s wall, 0.79 GB); travel time 177.5488 s both: difference 0.0000 %.
 """
 
 from __future__ import annotations
