@@ -15,7 +15,7 @@ coarse factor 1, i.e. the full grid)::
 
        cells      mode   wall s  peak MB
       250000  corridor     1.86      248
-     1000000  corridor     2.61      275     exact  5.78 s  380 MB (answer 0.19 % slower)
+     1000000  corridor     2.61      275     exact  5.78 s  380 MB (corridor answer 0.19 % slower)
      4000000  corridor     4.82      375     exact 31.13 s  791 MB (same answer)
     16000000  corridor    19.74      877
     25000000  corridor    24.68     1177
