@@ -207,3 +207,58 @@ def test_demo_writes_every_output(tmp_path):
     with open(out / "comparison.csv", newline="") as fh:
         names = [r["name"] for r in csv.DictReader(fh)]
     assert {"haul road", "direct", "double-back", "computed optimum"} <= set(names)
+
+
+def test_route_large_corridor_matches_the_incline_formula(tmp_path, ramp):
+    # the coarse-to-fine path through the CLI: same closed form as the plain search
+    dem, start, end = ramp
+    out = tmp_path / "large"
+    res = _run(["route", dem, "--start", *start, "--end", *end, "--mu", 0.1, "--normal", "gravity",
+                "--large", "--coarse", 3, "--no-refine", "--out", out])
+    assert res.exit_code == 0, res.output
+    summary = json.loads((out / "summary.json").read_text())
+    theta = math.atan(0.3)
+    assert summary["travel_time_s"] == pytest.approx(_incline_time(100.0 / math.cos(theta), theta, 0.1), rel=1e-6)
+    assert summary["corridor_steps"] and "scale_timings_s" not in summary   # timings stay out of summary.json
+    res = _run(["route", dem, "--start", *start, "--end", *end, "--exact", "--out", tmp_path / "x"])
+    assert res.exit_code == 2 and "--large" in res.output
+
+
+def test_reach_with_a_time_cut_off(tmp_path, ramp):
+    dem, start, end = ramp
+    full = tmp_path / "full.tif"
+    cut = tmp_path / "cut.tif"
+    assert _run(["reach", dem, "--start", *start, "--mu", 0.1, "--normal", "gravity", "--neighbours", 8,
+                 "--out", full]).exit_code == 0
+    res = _run(["reach", dem, "--start", *start, "--mu", 0.1, "--normal", "gravity", "--neighbours", 8,
+                "--max-time", 4.0, "--out", cut])
+    assert res.exit_code == 0, res.output
+    with rasterio.open(full) as a, rasterio.open(cut) as b:
+        tf = a.read(1)
+        tc = b.read(1)
+        # compare the cells the cut-off map covers, in map coordinates
+        rows, cols = np.nonzero(np.isfinite(tc))
+        xs, ys = rasterio.transform.xy(b.transform, rows, cols)
+        ra, ca = rasterio.transform.rowcol(a.transform, xs, ys)
+    assert np.all(tc[np.isfinite(tc)] <= 4.0 + 1e-6)
+    np.testing.assert_allclose(tc[rows, cols], tf[ra, ca], rtol=1e-6)
+    # every cell the full map reaches within 4 s is in the cut-off map
+    assert np.isfinite(tc).sum() == (tf <= 4.0).sum()
+
+
+def test_batch_command_collects_a_table(tmp_path, ramp):
+    dem, start, end = ramp
+    f = tmp_path / "batch.toml"
+    f.write_text(f'[base]\ndem = "{dem.name}"\n[base.points]\nstart = [{start[0]}, {start[1]}]\n'
+                 f'end = [{end[0]}, {end[1]}]\n[base.mover]\nnormal = "gravity"\n[base.search]\nrefine = false\n'
+                 '[vary]\nmover.mu = [0.05, 0.1]\n')
+    out = tmp_path / "b"
+    res = _run(["batch", f, "--out", out, "--workers", 1])
+    assert res.exit_code == 0, res.output
+    with open(out / "batch.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    theta = math.atan(0.3)
+    s = 100.0 / math.cos(theta)
+    got = sorted(float(r["travel_time_s"]) for r in rows)
+    want = sorted(_incline_time(s, theta, mu) for mu in (0.05, 0.1))
+    assert got == pytest.approx(want, rel=1e-6)

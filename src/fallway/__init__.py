@@ -25,6 +25,12 @@ from .export import (OutputSet, write_profile_csv, write_route_geojson, write_ro
                      write_summary_json)
 from .plot import plot_map, plot_profile, save_figure
 from .report import write_report_html
+from .refine import RefineResult, refine_line
+from .compare import (Comparison, Envelope, LineResult, drape, envelope, evaluate_line, read_lines,
+                      robust_route)
+from .compare import compare  # noqa: E402  (the function; the module stays importable as fallway.compare)
+from .scale import find_route_large, reach_limited
+from .batch import run_batch
 
 __version__ = "0.1.0"
 
@@ -38,4 +44,8 @@ __all__ = [
     "Scenario", "load_scenario",
     "OutputSet", "write_profile_csv", "write_route_geojson", "write_route_gpkg", "write_summary_json",
     "plot_map", "plot_profile", "save_figure", "write_report_html",
+    "RefineResult", "refine_line",
+    "Comparison", "Envelope", "LineResult", "compare", "drape", "envelope", "evaluate_line", "read_lines",
+    "robust_route",
+    "find_route_large", "reach_limited", "run_batch",
 ]

@@ -329,13 +329,21 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 @click.option("--no-refine", is_flag=True, help="Report the lattice line only.")
 @click.option("--mu-range", type=(float, float), metavar="LO HI", help="Friction range to check the line against.")
 @click.option("--robust", is_flag=True, help="With --mu-range: the fastest line that works across the whole range.")
+@click.option("--large", is_flag=True, help="Large DEM: coarse search, then the fine grid in a widening corridor "
+              "(only the corridor is read).")
+@click.option("--coarse", "coarse_factor", type=click.IntRange(min=1), help="With --large: coarsening factor "
+              "(default: about 250 k coarse cells).")
+@click.option("--corridor", "corridor_m", type=click.FloatRange(min=0.0, min_open=True),
+              help="With --large: first corridor half-width, m (doubled until the time stops improving).")
+@click.option("--exact", is_flag=True, help="With --large: search the whole area on the fine grid when it fits.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @click.option("--timings", is_flag=True,
               help="Also write run.json with wall-clock figures (search seconds). summary.json and "
                    "route.geojson never hold them: the same inputs give byte-identical files.")
 @_guard
-def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **opts):
+def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, large, coarse_factor, corridor_m,
+          exact, **opts):
     """Find the minimum-time line from --start to --end on DEM and write it to --out.
 
     Writes route.geojson, route.gpkg, profile.csv, summary.json, scenario.toml, map and
@@ -347,8 +355,16 @@ def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **
         raise click.UsageError("--robust needs a friction range: --mu-range LO HI (or envelope.mu_range)")
     from .export import OutputSet
 
+    if (coarse_factor or corridor_m or exact) and not large:
+        raise click.UsageError("--coarse, --corridor and --exact go with --large")
+    if large and robust:
+        raise click.UsageError("--robust and --large cannot be combined yet; run --large, then compare")
     with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
-        r, terrain, keepout = _run_route(sc, quiet=quiet, robust=robust)
+        if large:
+            r, terrain, keepout = _run_route_large(sc, quiet=quiet, coarse_factor=coarse_factor,
+                                                   corridor_m=corridor_m, exact=exact)
+        else:
+            r, terrain, keepout = _run_route(sc, quiet=quiet, robust=robust)
         env = _envelope(sc, r, terrain, keepout)
         written = _write_route(outs, sc, r, terrain, keepout, envelope=env, timings=timings)
     if not quiet:
@@ -380,6 +396,54 @@ def _run_route(sc, *, quiet: bool, robust: bool = False, cover=None):
         bar.close()
 
 
+def _native_points(sc):
+    """The scenario's points in the DEM's own CRS (for the large-terrain path)."""
+    from .errors import ParameterError
+    from .points import WGS84, dem_crs, to_terrain_crs
+
+    if sc.dem is None or sc.start is None:
+        raise ParameterError("give a DEM and --start (and --end for a route)")
+    crs = dem_crs(sc.dem)
+    if crs.is_geographic:
+        raise ParameterError("--large and the reach cut-offs need a projected DEM; reproject it first "
+                             "(e.g. gdalwarp -t_srs EPSG:326NN) or leave them out")
+    src = WGS84 if sc.lonlat else crs
+    pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
+    pts = to_terrain_crs(pts, src, crs)
+    keepout = None
+    if sc.keepout is not None:
+        from .limits import Keepout
+
+        keepout = Keepout.from_file(sc.keepout).in_crs(crs)
+    end = pts[-1] if sc.end is not None else None
+    return pts[0], end, tuple(pts[1:1 + len(sc.via)]), keepout
+
+
+def _run_route_large(sc, *, quiet: bool, coarse_factor, corridor_m, exact):
+    from .errors import ParameterError
+    from .scale import find_route_large
+    from .terrain import load_terrain
+
+    start, end, via, keepout = _native_points(sc)
+    if end is None:
+        raise ParameterError("no end point: pass --end X Y or set points.end in the scenario")
+    bar = _stages(2, quiet)
+    try:
+        bar.set_description("coarse search, corridor search, refinement")
+        r = find_route_large(sc.dem, start, end, sc.mover, via=via, keepout=keepout, coarse_factor=coarse_factor,
+                             corridor_m=corridor_m, exact=exact, neighbours=sc.neighbours, limits=sc.limits,
+                             line=sc.line, refine=sc.refine, clearance=sc.clearance, start_height=sc.start_height,
+                             end_height=sc.end_height, max_per_cell=sc.label_cap)
+        bar.update()
+        info = r.summary.get("scale", {})
+        bounds = info.get("window_bounds") or info.get("area_bounds")
+        terrain = load_terrain(sc.dem, bounds=tuple(bounds) if bounds else None, margin_m=0.0)
+        bar.update()
+        return r, terrain, keepout
+    finally:
+        bar.close()
+
+
 def _envelope(sc, r, terrain, keepout):
     """The route's line at the low, nominal and high friction of the scenario's range."""
     if sc.mu_range is None:
@@ -391,7 +455,7 @@ def _envelope(sc, r, terrain, keepout):
 
 #: Wall-clock figures of a route summary: kept out of summary.json and route.geojson so
 #: the same inputs give the same bytes; ``route --timings`` writes them to run.json.
-_TIMING_KEYS = ("search_s",)
+_TIMING_KEYS = ("search_s", "scale_timings_s")
 _WALL_SECONDS = re.compile(r"(\d+ iterations), [0-9.]+ s:")
 
 
@@ -462,10 +526,14 @@ def _print_route(r, out_dir, written, env=None) -> None:
 @click.argument("dem", required=False, type=click.Path(dir_okay=False))
 @_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
 @_common_options
+@click.option("--max-time", "max_time_s", type=click.FloatRange(min=0.0, min_open=True),
+              help="Map only arrivals within this many seconds (reads only the area that can be reached).")
+@click.option("--max-distance", "max_distance_m", type=click.FloatRange(min=0.0, min_open=True),
+              help="Map only within this plan distance of the start, m (lines confined to that disc).")
 @click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Output GeoTIFF (2 bands: time s, speed m/s).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
 @_guard
-def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
+def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, **opts):
     """Map the arrival time and speed from --start to every reachable cell of DEM."""
     _setup_logging(quiet, verbose)
     from .errors import OutputExistsError
@@ -478,9 +546,17 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, **opts):
     sc = _resolve(scenario_path, _overrides(end=None, via=(), **opts))
     # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
     with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
-        terrain, start, _, _, keepout = _prepare(sc, need_end=False)
-        rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout,
-                       max_per_cell=sc.label_cap)
+        if max_time_s is not None or max_distance_m is not None:
+            from .scale import reach_limited
+
+            start, _, _, keepout = _native_points(sc)
+            rm = reach_limited(sc.dem, start, sc.mover, max_time_s=max_time_s, max_distance_m=max_distance_m,
+                               keepout=keepout, neighbours=sc.neighbours, limits=sc.limits,
+                               max_per_cell=sc.label_cap)
+        else:
+            terrain, start, _, _, keepout = _prepare(sc, need_end=False)
+            rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout,
+                           max_per_cell=sc.label_cap)
         rm.to_geotiff(outs.path(out.name))
     if not quiet:
         import numpy as np
@@ -552,6 +628,28 @@ def _write_comparison(outs, sc, cmp, terrain, keepout) -> None:
     outs.path("comparison.svg")
     report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
                                  parameters=sc.to_dict())
+
+
+@main.command()
+@click.argument("scenarios", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--workers", type=click.IntRange(min=1), help="Local worker processes (default: one per core).")
+@click.option("--scheduler", help="Address of a Dask scheduler (needs the 'cluster' extra: dask[distributed]).")
+@click.option("-q", "--quiet", is_flag=True, help="Print errors only.")
+@_guard
+def batch(scenarios, out_dir, workers, scheduler, quiet):
+    """Run every scenario of a batch file (base x variations) and collect batch.csv."""
+    _setup_logging(quiet, 0)
+    from .batch import run_batch
+
+    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler)
+    bad = [r for r in rows if r.get("status") == "error"]
+    if not quiet:
+        click.echo(f"{len(rows) - len(bad)} of {len(rows)} runs done; wrote {Path(out_dir) / 'batch.csv'}")
+    for r in bad:
+        click.echo(f"fallway: run {r.get('name')}: {r.get('error')}", err=True)
+    if bad:
+        sys.exit(EXIT_ERROR)
 
 
 @main.command()
