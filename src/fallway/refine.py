@@ -26,7 +26,7 @@ between levels so that each segment takes a similar share of a blend of time and
 from __future__ import annotations
 
 import math
-import time as _time
+
 import warnings
 from dataclasses import dataclass, field
 
@@ -35,7 +35,7 @@ from numba import njit
 from scipy.optimize import minimize
 
 from ._segment import segment_law
-from .errors import ParameterError, RefinementWarning
+from .errors import FallwayError, ParameterError, RefinementWarning
 from .limits import Limits
 from .physics import Mover, Profile
 
@@ -221,7 +221,7 @@ def _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
             t = segment_law(ui, drop, plan, s, g, mu, k, 0.0)[1]
             if not math.isfinite(t):
                 t = 2.0 * s / (va + vb)
-            seg[j, 11] = 1.0 / vb
+            seg[j, 11] = 1.0 / max(vb, 1e-300)
             if va > 0.0:
                 seg[j, 9] = -half_q / (va * vb * (va + vb))
             if ks < 1e-12:
@@ -609,7 +609,6 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     >>> res.time_after_s <= res.time_before_s
     True
     """
-    t_wall = _time.perf_counter()
     if line not in _LINES:
         raise ParameterError(f"line must be one of {', '.join(_LINES)}; got {line!r}")
     known = {"n_vertices", "levels", "blend", "max_iter", "gtol", "margin_m", "penalty"}
@@ -655,70 +654,80 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     margin_m = float(options.get("margin_m", 0.1 * terrain.cell_size))
     w_pen = float(options.get("penalty", 1e4))
 
-    keep_fld = _DistanceField(keepout, getattr(terrain, "crs", None)) if keepout is not None else None
-    nodata_fld = _DistanceField(nodata_terrain=terrain) if not np.all(np.isfinite(terrain.z)) else None
+    try:
+        keep_fld = _DistanceField(keepout, getattr(terrain, "crs", None)) if keepout is not None else None
+        nodata_fld = _DistanceField(nodata_terrain=terrain) if not np.all(np.isfinite(terrain.z)) else None
 
-    opt = _Problem(gr, mover, limits, line, c_min, c_max, keep_fld, nodata_fld, margin_m, w_pen,
-                   terrain.cell_size)
+        opt = _Problem(gr, mover, limits, line, c_min, c_max, keep_fld, nodata_fld, margin_m, w_pen,
+                       terrain.cell_size)
 
-    # coarse-to-fine levels: the first starts from the lattice line re-distributed by the
-    # time/length monitor, each next one from the previous optimum with its vertex density
-    # kept (the free optimum's spacing is the best guess for the finer line)
-    sizes = [n_target]
-    while len(sizes) < levels and sizes[0] > 16:
-        sizes.insert(0, (sizes[0] - 1) // 2 + 1)
-    P = _resample(P_start, max(len(P_start) * 4, 4 * sizes[0]))
-    P = opt.project(P, P_start)
-    u = opt.speeds(P)
-    P = opt.project(_resample(P, sizes[0], _monitor(P, u, blend)), P_start)
-    iters = 0
-    converged = False
-    residual = math.inf
-    notes = []
-    for li, n in enumerate(sizes):
-        if li > 0:
-            P = opt.project(_refine_density(P, n), P_start)
-        P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
-        iters += it
-        converged, residual = ok, res
-        if not ok:
-            notes.append(f"level {li + 1} ({n} vertices): {msg}")
+        # coarse-to-fine levels: the first starts from the lattice line re-distributed by the
+        # time/length monitor, each next one from the previous optimum with its vertex density
+        # kept (the free optimum's spacing is the best guess for the finer line)
+        sizes = [n_target]
+        while len(sizes) < levels and sizes[0] > 16:
+            sizes.insert(0, (sizes[0] - 1) // 2 + 1)
+        P = _resample(P_start, max(len(P_start) * 4, 4 * sizes[0]))
+        P = opt.project(P, P_start)
+        u = opt.speeds(P)
+        P = opt.project(_resample(P, sizes[0], _monitor(P, u, blend)), P_start)
+        iters = 0
+        converged = False
+        residual = math.inf
+        notes = []
+        for li, n in enumerate(sizes):
+            if li > 0:
+                P = opt.project(_refine_density(P, n), P_start)
+            P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
+            iters += it
+            converged, residual = ok, res
+            if not ok:
+                notes.append(f"level {li + 1} ({n} vertices): {msg}")
 
-    # strengthen penalties while a limit is still violated
-    for _ in range(4):
-        viol = opt.violations(P)
-        if not any(v == "violated" for v in viol.values()):
-            break
-        if viol.get("keepout") == "violated":
-            # a segment cuts a corner between the sampled points: keep a wider berth
-            opt.margin *= 4.0
-        if any(v == "violated" for k, v in viol.items() if k != "keepout"):
-            opt.w_pen *= 100.0
-        P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
-        iters += it
-        converged, residual = ok, res
-    status = opt.violations(P)
-    prof = _traverse(P, mover)
-    time_after = prof.travel_time_s
-    feasible = prof.feasible and not any(v == "violated" for v in status.values())
-    if mover.normal == "full":
-        notes.append("optimised on the gravity-normal functional, timed with the full model "
-                     "(no full-model polish)")
-    if not feasible or not (time_after <= time_before):
-        why = ("the refined line breaks a limit: " + ", ".join(k for k, v in status.items() if v == "violated")
-               if not feasible else f"the refined line is not faster ({time_after:.6g} s vs {time_before:.6g} s)")
-        msg = f"kept the start line: {why}"
-        return RefineResult(P_start.copy(), prof_start, iters, residual, False, time_before, time_before,
-                            msg, _status_of(opt, P_start))
-    active = [k for k, v in status.items() if v == "active"]
-    msg = (f"refined {len(P)} vertices in {iters} iterations, {_time.perf_counter() - t_wall:.2f} s: "
-           f"{time_before:.6f} s -> {time_after:.6f} s"
-           + (f"; active limits: {', '.join(active)}" if active else "")
-           + (f"; {'; '.join(notes)}" if notes else ""))
-    if not converged:
-        warnings.warn(f"refinement did not converge (residual {residual:.3g} s/m); returning the best line found",
+        # strengthen penalties while a limit is still violated
+        for _ in range(4):
+            viol = opt.violations(P)
+            if not any(v == "violated" for v in viol.values()):
+                break
+            if viol.get("keepout") == "violated":
+                # a segment cuts a corner between the sampled points: keep a wider berth
+                opt.margin *= 4.0
+            if any(v == "violated" for k, v in viol.items() if k != "keepout"):
+                opt.w_pen *= 100.0
+            P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
+            iters += it
+            converged, residual = ok, res
+        status = opt.violations(P)
+        prof = _traverse(P, mover)
+        time_after = prof.travel_time_s
+        feasible = prof.feasible and not any(v == "violated" for v in status.values())
+        if mover.normal == "full":
+            notes.append("optimised on the gravity-normal functional, timed with the full model "
+                         "(no full-model polish)")
+        if not feasible or not (time_after <= time_before):
+            why = ("the refined line breaks a limit: " + ", ".join(k for k, v in status.items() if v == "violated")
+                   if not feasible else f"the refined line is not faster ({time_after:.6g} s vs {time_before:.6g} s)")
+            msg = f"kept the start line: {why}"
+            return RefineResult(P_start.copy(), prof_start, iters, residual, False, time_before, time_before,
+                                msg, _status_of(opt, P_start))
+        active = [k for k, v in status.items() if v == "active"]
+        msg = (f"refined {len(P)} vertices in {iters} iterations: "
+               f"{time_before:.6f} s -> {time_after:.6f} s"
+               + (f"; active limits: {', '.join(active)}" if active else "")
+               + (f"; {'; '.join(notes)}" if notes else ""))
+        if not converged:
+            warnings.warn(f"refinement did not converge (residual {residual:.3g} s/m); returning the best line found",
+                          RefinementWarning, stacklevel=2)
+        return RefineResult(P, prof, iters, residual, converged, time_before, time_after, msg, status)
+    except FallwayError:
+        raise
+    except (ZeroDivisionError, ValueError, FloatingPointError, np.linalg.LinAlgError) as err:
+        # a degenerate line (a segment arriving at rest, a cliff over one cell): keep the
+        # start line rather than fail the whole route
+        warnings.warn(f"refinement failed numerically ({type(err).__name__}: {err}); the start line is kept",
                       RefinementWarning, stacklevel=2)
-    return RefineResult(P, prof, iters, residual, converged, time_before, time_after, msg, status)
+        return RefineResult(P_start.copy(), prof_start, 0, math.inf, False, time_before, time_before,
+                            f"kept the start line: the refinement failed numerically ({type(err).__name__})", {})
 
 
 def _status_of(opt, P):
