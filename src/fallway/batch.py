@@ -55,15 +55,10 @@ _OPTION_KEYS = ("large", "coarse_factor", "corridor_m", "exact", "max_widen", "w
                 "energy_tol", "max_labels", "heuristic")
 
 
-def _flatten(d: dict, prefix: str = "") -> dict:
-    out = {}
-    for k, v in d.items():
-        key = f"{prefix}{k}"
-        if isinstance(v, dict):
-            out.update(_flatten(v, key + "."))
-        else:
-            out[key] = v
-    return out
+def _flatten(d: dict) -> dict:
+    from .export import flatten
+
+    return flatten(d, ".")
 
 
 def _set(d: dict, dotted: str, value) -> None:

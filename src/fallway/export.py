@@ -593,12 +593,19 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
 
 # --------------------------------------------------------------------------- GeoPackage
 
-def _flatten(d: dict, prefix: str = "") -> dict:
+def flatten(d: dict, sep: str = "_", prefix: str = "") -> dict:
+    """Nested mappings as one level, keys joined with ``sep``.
+
+    Examples
+    --------
+    >>> flatten({"a": 1, "b": {"c": 2}}, ".")
+    {'a': 1, 'b.c': 2}
+    """
     out = {}
     for k, v in d.items():
         key = f"{prefix}{k}"
         if isinstance(v, dict):
-            out.update(_flatten(v, key + "_"))
+            out.update(flatten(v, sep, key + sep))
         else:
             out[key] = v
     return out
@@ -670,7 +677,7 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     pts = _route_points(route)
     wkt = _pyproj_crs(crs).to_wkt()
     line_wkb = np.array([shapely.to_wkb(shapely.linestrings(pts), output_dimension=3)], dtype=object)
-    fields_line = _flatten(to_jsonable(dict(route.summary)))
+    fields_line = flatten(to_jsonable(dict(route.summary)))
     fields_line.update({f"line_{k}": v for k, v in _line_numbers(pts, route.profile).items()})
     names1, arrays1 = _field_arrays(fields_line)
     lat_pts = np.asarray(route.lattice.points, dtype=float)

@@ -109,14 +109,10 @@ def _looks_numeric(text: str) -> bool:
         return False
 
 
-def _flatten(d: dict, prefix: str = "") -> list[tuple[str, Any]]:
-    out = []
-    for k, v in d.items():
-        if isinstance(v, dict):
-            out += _flatten(v, f"{prefix}{k}.")
-        else:
-            out.append((f"{prefix}{k}", v))
-    return out
+def _flatten(d: dict) -> list[tuple[str, Any]]:
+    from .export import flatten
+
+    return list(flatten(d, ".").items())
 
 
 def _as_dict(obj) -> dict:
