@@ -125,6 +125,48 @@ def test_adjoint_gradient_matches_central_differences(u0, mu, k):
     assert np.max(np.abs(grad - num)) < 1e-6 * np.max(np.abs(num))
 
 
+def test_compiled_ground_interpolant_matches_scipy_splines():
+    # the compiled heights and slopes used by the optimiser against scipy's own
+    # evaluation: a global interpolating RectBivariateSpline (s=0) of the same grid away
+    # from nodata, and Terrain.sample/gradient (the tile splines) everywhere, NaN included
+    from scipy.interpolate import RectBivariateSpline
+
+    rng = np.random.default_rng(7)
+    rows, cols, cell = 150, 300, 2.0
+    r, c = np.mgrid[0:rows, 0:cols].astype(float)
+    z = 50.0 + 0.3 * c + 4.0 * np.sin(c / 9.0) * np.cos(r / 13.0) + 0.01 * (r - 60.0) ** 2
+    t_full = Terrain.from_array(z, Affine(cell, 0.0, 10.0, 0.0, -cell, 500.0))
+    zh = z.copy()
+    zh[60:70, 200:215] = np.nan
+    t_hole = Terrain.from_array(zh, Affine(cell, 0.0, 10.0, 0.0, -cell, 500.0))
+    x = rng.uniform(10.0 - 5.0, 10.0 + cols * cell + 5.0, 4000)
+    y = rng.uniform(500.0 - rows * cell - 5.0, 500.0 + 5.0, 4000)
+    # across the tile seams at columns 128 and 256
+    x[:200] = 10.0 + (np.linspace(120.0, 136.0, 200) + 0.5) * cell
+    gr = _Ground(t_full)
+    zc, gxc, gyc = gr.z_grad(x, y)
+    sp = RectBivariateSpline(np.arange(rows, dtype=float), np.arange(cols, dtype=float), z, s=0)
+    rr, cc = t_full.rowcol(x, y)
+    ok = np.isfinite(zc)
+    assert ok.sum() > 3000
+    assert np.allclose(zc[ok], sp.ev(rr[ok], cc[ok]), rtol=0.0, atol=1e-6)
+    assert np.allclose(gxc[ok], sp.ev(rr[ok], cc[ok], dy=1) / cell, rtol=0.0, atol=1e-6)
+    assert np.allclose(gyc[ok], -sp.ev(rr[ok], cc[ok], dx=1) / cell, rtol=0.0, atol=1e-6)
+    for t in (t_full, t_hole):
+        gr = _Ground(t)
+        zc, gxc, gyc = gr.z_grad(x, y)
+        zs = t.sample(x, y)
+        gxs, gys = t.gradient(x, y)
+        assert np.array_equal(np.isnan(zc), np.isnan(zs))
+        assert np.array_equal(np.isnan(gxc), np.isnan(gxs))
+        fin = np.isfinite(zs)
+        assert np.max(np.abs(zc[fin] - zs[fin])) < 1e-10
+        assert np.max(np.abs(gxc[fin] - gxs[fin])) < 1e-10
+        assert np.max(np.abs(gyc[fin] - gys[fin])) < 1e-10
+        assert np.max(np.abs(gr.z(x, y)[fin] - zs[fin])) < 1e-10
+    assert np.isnan(_Ground(t_hole).z(10.0 + 207.0 * cell, 500.0 - 65.0 * cell))
+
+
 def test_objective_gradient_with_active_limits_matches_differences():
     # keep-out, grade window, bend radius and speed penalties all active at once
     t = plane_terrain()
