@@ -193,6 +193,44 @@ def test_objective_gradient_with_active_limits_matches_differences():
     assert np.max(np.abs(g - num)) < 1e-4 * np.max(np.abs(num))
 
 
+def test_compiled_ground_objective_matches_the_general_path_and_differences():
+    # a ground line without geometric limits takes one compiled pass (vertices on the
+    # interpolant, chain, gradient); it must agree with the general path and with
+    # central differences, across a tile seam (column 128) of a 150 x 300 grid
+    r, c = np.mgrid[0:150, 0:300].astype(float)
+    z = 120.0 - 0.5 * c + 3.0 * np.sin(c / 11.0) * np.cos(r / 17.0)
+    t = Terrain.from_array(z, Affine(1.0, 0.0, 0.0, 0.0, -1.0, 150.0))
+    mover = Mover(mu=0.12, drag=0.002, normal="gravity", max_speed=40.0)
+    prob = _Problem(_Ground(t), mover, Limits(), "ground", 0.0, 0.0, None, None, 0.1, 1e4, 1.0)
+    assert prob._fast() is not None
+    rng = np.random.default_rng(5)
+    n = 20
+    P = np.column_stack([np.linspace(100.5, 160.5, n), np.linspace(120.5, 30.5, n), np.zeros(n)])
+    P[1:-1, :2] += rng.normal(0.0, 0.8, (n - 2, 2))
+    P[:, 2] = t.sample(P[:, 0], P[:, 1])
+    ends = (P[0].copy(), P[-1].copy())
+    X = prob.to_vars(P)
+    f, g = prob.fg(X, ends)
+    prob._fast = lambda: None  # the general path
+    f2, g2 = prob.fg(X, ends)
+    assert f == pytest.approx(f2, rel=1e-13)
+    assert np.max(np.abs(g - g2)) < 1e-12 * np.max(np.abs(g2))
+    assert f == pytest.approx(traverse(P, mover).travel_time_s, rel=1e-9)  # no penalty active here
+    del prob._fast
+    num = np.zeros_like(X)
+    h = 1e-6
+    for i in range(X.size):
+        Xp, Xm = X.copy(), X.copy()
+        Xp[i] += h
+        Xm[i] -= h
+        num[i] = (prob.fg(Xp, ends)[0] - prob.fg(Xm, ends)[0]) / (2 * h)
+    assert np.max(np.abs(g - num)) < 1e-5 * np.max(np.abs(num))
+    # a point off the grid makes the objective infinite rather than failing
+    Xo = X.copy()
+    Xo[0] = -50.0
+    assert prob.fg(Xo, ends)[0] == 1e30
+
+
 # --------------------------------------------------------------------------------------
 # fastest lines against the published solutions
 

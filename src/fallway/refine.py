@@ -381,6 +381,7 @@ def _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, 
     dhy = np.empty(5)
     hh = np.empty(5)
     h1 = np.zeros(5)
+    missing = False
     eps = 1e-9
     any_near = near.shape[0] > 0
     for p in range(npt):
@@ -417,6 +418,8 @@ def _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, 
                 sc = -1.0 if ib == 0 else 1.0
                 s = slot[kr, kc]
                 if s < 0:
+                    if s == -2:
+                        missing = True
                     bad = True
                     continue
                 x = r - R0[s]
@@ -446,7 +449,51 @@ def _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, 
         Z[p] = z
         DR[p] = dzr
         DC[p] = dzc
-    return Z, DR, DC
+    return Z, DR, DC, missing
+
+
+@njit(cache=True, nogil=True)
+def _ground_fg(X, e0, e1, a, c0, e, f0, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, KY, CF,
+               R0, C0, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
+    """``_Problem.fg`` of a ground line without geometric limits, in one compiled pass:
+    vertices on the interpolant, the segment chain and the gradient in (x, y).
+    Returns ``(f, grad, missing)``; ``missing``: a tile is not in the table yet."""
+    m = X.shape[0] // 2
+    n = m + 2
+    xs = np.empty(m)
+    ys = np.empty(m)
+    for i in range(m):
+        xs[i] = X[2 * i]
+        ys[i] = X[2 * i + 1]
+    R = (ys - f0) / e - 0.5
+    C = (xs - c0) / a - 0.5
+    Z, DR, DC, missing = _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, KY,
+                                      CF, R0, C0, True)
+    out = np.zeros(X.shape[0])
+    if missing:
+        return 1e30, out, True
+    P = np.empty((n, 3))
+    for c in range(3):
+        P[0, c] = e0[c]
+        P[n - 1, c] = e1[c]
+    for i in range(m):
+        P[i + 1, 0] = xs[i]
+        P[i + 1, 1] = ys[i]
+        P[i + 1, 2] = Z[i]
+    for i in range(n):
+        for c in range(3):
+            if not math.isfinite(P[i, c]):
+                return 1e30, out, False
+    T, pen, G, _ = _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall)
+    f = T + pen
+    if not math.isfinite(f):
+        return 1e30, out, False
+    for i in range(m):
+        gx = DC[i] / a
+        gy = DR[i] / e
+        out[2 * i] = G[i + 1, 0] + G[i + 1, 2] * gx
+        out[2 * i + 1] = G[i + 1, 1] + G[i + 1, 2] * gy
+    return f, out, False
 
 
 class _SplineTable:
@@ -537,7 +584,7 @@ class _SplineTable:
         miss = _spline_missing(R, C, self.rows, self.cols, self.tile, self.blend, self.slot)
         if len(miss):
             self._fetch(miss)
-        Z, DR, DC = _spline_eval(R, C, self.rows, self.cols, self.tile, self.blend, self.near, self.slot,
+        Z, DR, DC, _ = _spline_eval(R, C, self.rows, self.cols, self.tile, self.blend, self.near, self.slot,
                                  self.TX, self.TY, self.NX, self.NY, self.KX, self.KY, self.CF, self.R0,
                                  self.C0, want_grad)
         if want_grad:
@@ -1119,7 +1166,28 @@ class _Problem:
                 G += gg
         return f, G
 
+    def _fast(self):
+        """The compiled table when the objective is the bare chain on the ground interpolant."""
+        lim = self.limits
+        tab = self.gr.table
+        if (self.line != "ground" or tab is None or self.keep is not None or self.nodata is not None
+                or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None):
+            return None
+        return tab
+
     def fg(self, X, ends):
+        tab = self._fast()
+        if tab is not None:
+            mv = self.mover
+            for _ in range(2):
+                f, g, missing = _ground_fg(np.ascontiguousarray(X, float), ends[0], ends[1], tab.a, tab.c0, tab.e,
+                                           tab.f0, tab.rows, tab.cols, tab.tile, tab.blend, tab.near, tab.slot,
+                                           tab.TX, tab.TY, tab.NX, tab.NY, tab.KX, tab.KY, tab.CF, tab.R0, tab.C0,
+                                           mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
+                                           self.w_pen * 1e-6, self.u_max, self.u_stall)
+                if not missing:
+                    return f, g
+                tab.eval(X[0::2], X[1::2], False)  # fetches the tiles, then once more
         P, gx, gy = self.to_points(X, ends, slopes=True)
         if not np.all(np.isfinite(P)):
             return 1e30, np.zeros_like(X)
