@@ -283,24 +283,25 @@ def _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
 
 
 @njit(cache=True, nogil=True)
-def _bspline_basis(t, n, k, x, h, dh, hh, h1):
+def _bspline_basis(T, s, n, k, x, h, dh, hh, h1):
     """Knot interval ``l`` of ``x`` (clamped to the base interval, as FITPACK's fpbisp)
-    and the k + 1 non-zero B-splines there (``h``) and their derivatives (``dh``)."""
-    lo = t[k]
-    hi = t[n - k - 1]
+    and the k + 1 non-zero B-splines there (``h``) and their derivatives (``dh``);
+    the knots are row ``s`` of ``T``."""
+    lo = T[s, k]
+    hi = T[s, n - k - 1]
     if x < lo:
         x = lo
     if x > hi:
         x = hi
-    # largest l in [k, n - k - 2] with t[l] <= x (FITPACK's forward search, by bisection)
-    l = k
+    # largest l in [k, n - k - 2] with t[l] <= x (FITPACK's forward search): the knots of
+    # an interpolating spline on unit spacing sit near the grid points, so start from
+    # that guess and step
     top = n - k - 2
-    while l < top:
-        mid = (l + top + 1) // 2
-        if t[mid] <= x:
-            l = mid
-        else:
-            top = mid - 1
+    l = min(max(int(x) + k - 1, k), top)
+    while l > k and T[s, l] > x:
+        l -= 1
+    while l < top and T[s, l + 1] <= x:
+        l += 1
     h[0] = 1.0
     for j in range(1, k + 1):
         if j == k:
@@ -312,18 +313,20 @@ def _bspline_basis(t, n, k, x, h, dh, hh, h1):
         for i in range(j):
             li = l + i + 1
             lj = li - j
-            f = hh[i] / (t[li] - t[lj])
-            h[i] = h[i] + f * (t[li] - x)
-            h[i + 1] = f * (x - t[lj])
+            tli = T[s, li]
+            tlj = T[s, lj]
+            f = hh[i] / (tli - tlj)
+            h[i] = h[i] + f * (tli - x)
+            h[i + 1] = f * (x - tlj)
     # derivative: k (N_{q,k-1}/(t_{q+k}-t_q) - N_{q+1,k-1}/(t_{q+k+1}-t_{q+1})), q = l-k+i
     for i in range(k + 1):
         q = l - k + i
         d = 0.0
         if k > 0:
             if i >= 1:
-                d += h1[i - 1] / (t[q + k] - t[q])
+                d += h1[i - 1] / (T[s, q + k] - T[s, q])
             if i + 1 <= k:
-                d -= h1[i] / (t[q + k + 1] - t[q + 1])
+                d -= h1[i] / (T[s, q + k + 1] - T[s, q + 1])
             d *= k
         dh[i] = d
     return l
@@ -427,8 +430,8 @@ def _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, 
                 kx = KX[s]
                 ky = KY[s]
                 nyc = NY[s] - ky - 1
-                lx = _bspline_basis(TX[s], NX[s], kx, x, hx, dhx, hh, h1)
-                ly = _bspline_basis(TY[s], NY[s], ky, y, hy, dhy, hh, h1)
+                lx = _bspline_basis(TX, s, NX[s], kx, x, hx, dhx, hh, h1)
+                ly = _bspline_basis(TY, s, NY[s], ky, y, hy, dhy, hh, h1)
                 v = 0.0
                 vr = 0.0
                 vc = 0.0
