@@ -46,6 +46,14 @@ label still to come there; a label is dropped when a settled label at its cell d
 it in the three energies (a linear scan of the cell's settled list).  The first label
 settled at the end cell is the robust optimum.
 
+LO energy that cannot matter.  Mechanical energy never grows along a line (friction and
+drag only remove it), so from a cell at height ``z`` the LO speed can never exceed
+``v2_lo + 2 g (z - z_min)`` (``z_min``: the lowest cell with data; break-point heights interpolate between centres, so none is lower).  A label for which that
+stays within ``max_speed²`` - every label when no speed limit is set - can never
+overspeed at LO, so its LO energy is ignored in the dominance test: it dominates on
+``(t, v2_nom, v2_hi)`` alone.  Without a speed limit the search is therefore a
+two-energy Pareto search.
+
 Tolerance: energies within ``tol_abs + tol_rel * v²`` count as equal in the dominance
 test (the declared tolerance, :data:`ROBUST_ENERGY_TOL` relative, default), so rounding
 noise alone cannot multiply labels.  ``energy_tol=0`` gives the exact Pareto search.
@@ -102,14 +110,19 @@ _DEFAULT_MAX_LABELS = 50_000_000
 
 
 @njit(cache=True, nogil=True)
-def _dominated(head, nxt, Llo, Lnom, Lhi, n, lo, nom, hi, tol_abs, tol_rel):
-    """True when a settled label at node ``n`` dominates (lo, nom, hi) (times are ordered)."""
+def _dominated(head, nxt, Llo, Lnom, Lhi, n, lo, nom, hi, lo_safe, tol_abs, tol_rel):
+    """True when a settled label at node ``n`` dominates (lo, nom, hi) (times are ordered).
+
+    A settled label with ``v2_lo <= lo_safe`` can never exceed the speed limit at LO from
+    this node on, so its LO energy is no handicap whatever the newcomer's.
+    """
     q = head[n]
     tl = tol_abs + tol_rel * lo
     tn = tol_abs + tol_rel * nom
     th = tol_abs + tol_rel * hi
+    lo_ok = max(lo + tl, lo_safe)
     while q >= 0:
-        if Lnom[q] >= nom - tn and Lhi[q] >= hi - th and Llo[q] <= lo + tl:
+        if Lnom[q] >= nom - tn and Lhi[q] >= hi - th and Llo[q] <= lo_ok:
             return True
         q = nxt[q]
     return False
@@ -121,7 +134,7 @@ def robust_search(z, blocked, rows, cols, cell,
                   brk_start, brk_u, brk_fa, brk_fb, brk_w,
                   tch_start, tch_flat,
                   g, mu_lo, mu_nom, mu_hi, kdrag, v2_stall, v2_max, min_grade, max_grade,
-                  start, v2_start, target, tol_abs, tol_rel, max_labels, init_cap):
+                  start, v2_start, target, zmin, tol_abs, tol_rel, max_labels, init_cap):
     """Label-setting search with labels (t_nom, v2_lo, v2_nom, v2_hi) (module notes).
 
     Returns
@@ -169,7 +182,8 @@ def robust_search(z, blocked, rows, cols, cell,
         lo0 = Llo[li]
         nom0 = Lnom[li]
         hi0 = Lhi[li]
-        if _dominated(head, Lnext, Llo, Lnom, Lhi, n, lo0, nom0, hi0, tol_abs, tol_rel):
+        if _dominated(head, Lnext, Llo, Lnom, Lhi, n, lo0, nom0, hi0,
+                      v2_max - 2.0 * g * (z[n] - zmin), tol_abs, tol_rel):
             counters[R_DOMINATED] += 1
             continue
         Lnext[li] = head[n]
@@ -252,7 +266,8 @@ def robust_search(z, blocked, rows, cols, cell,
                 uprev = uq
             if not ok:
                 continue
-            if _dominated(head, Lnext, Llo, Lnom, Lhi, m, vlo, vnom, vhi, tol_abs, tol_rel):
+            if _dominated(head, Lnext, Llo, Lnom, Lhi, m, vlo, vnom, vhi,
+                          v2_max - 2.0 * g * (z[m] - zmin), tol_abs, tol_rel):
                 counters[R_DOMINATED] += 1
                 continue
             if n_lab >= cap:
@@ -373,7 +388,7 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
                         prob.brk_start, prob.brk_u, prob.brk_fa, prob.brk_fb, prob.brk_w,
                         prob.tch_start, prob.tch_flat,
                         mover.g, lo, mover.mu, hi, mover.drag, mover.stall_speed ** 2, prob.v2_max,
-                        prob.min_grade, prob.max_grade, int(s), v2_start, int(e), tol_abs, tol_rel,
+                        prob.min_grade, prob.max_grade, int(s), v2_start, int(e), prob.zmin, tol_abs, tol_rel,
                         budget, _INIT_CAP)
     elapsed = time.perf_counter() - t0
     status, final, n_lab, Lt, Llo, Lnom, Lhi, Lnode, Lpar, closest, cnt = out
