@@ -29,6 +29,7 @@ from .refine import RefineResult, refine_line
 from .compare import (Comparison, Envelope, LineResult, drape, envelope, evaluate_line, read_lines,
                       robust_route)
 from .compare import compare  # noqa: E402  (the function; the module stays importable as fallway.compare)
+from .lattice.robust import robust_lattice_line
 from .scale import find_route_large, reach_limited
 from .batch import run_batch
 
@@ -47,5 +48,5 @@ __all__ = [
     "RefineResult", "refine_line",
     "Comparison", "Envelope", "LineResult", "compare", "drape", "envelope", "evaluate_line", "read_lines",
     "robust_route",
-    "find_route_large", "reach_limited", "run_batch",
+    "robust_lattice_line", "find_route_large", "reach_limited", "run_batch",
 ]
