@@ -323,3 +323,16 @@ def test_huge_drag_tiny_terminal_speed():
     assert r.summary["exit_speed_m_s"] == pytest.approx(vt, rel=1e-6)
     # time ~ length / v_t for k s >> 1 (the start-up transient is short)
     assert r.summary["travel_time_s"] == pytest.approx(7 * 5.0 * s / vt, rel=0.02)
+
+
+def test_nodata_column_with_start_on_end_regression():
+    # found by test_find_route_never_crashes in CI: a grid whose middle column is nodata made
+    # the A* slope bound take the max of an all-NaN slice (a RuntimeWarning, an error here)
+    z = np.array([[100.0, np.nan, 100.0], [100.0, np.nan, 100.0], [100.0, np.nan, np.nan],
+                  [100.0, np.nan, 100.0]])
+    t = Terrain.from_array(z, (0.5, 0.0, 1000.0, 0.0, -0.5, 2000.0), "EPSG:32633")
+    with pytest.raises(FallwayError):
+        _route(t, (0, 0), (0, 0), Mover(mu=0.0, drag=1.0, v0=0.0, normal="gravity"), 8, False)
+    # flat ground from rest: no line, said clearly (no warning, no crash)
+    with pytest.raises(FallwayError):
+        _route(t, (0, 0), (3, 0), Mover(mu=0.0, drag=1.0, v0=0.0, normal="gravity"), 8, False)

@@ -124,10 +124,13 @@ class _Problem:
 
     def a_max(self, mover: Mover) -> float:
         z = self.terrain.z
-        with np.errstate(invalid="ignore"):
-            dx = np.nanmax(np.abs(np.diff(z, axis=1))) if z.shape[1] > 1 else 0.0
-            dy = np.nanmax(np.abs(np.diff(z, axis=0))) if z.shape[0] > 1 else 0.0
-        gmax = math.hypot(float(np.nan_to_num(dx)), float(np.nan_to_num(dy))) / self.cell
+
+        def steepest(axis: int) -> float:
+            d = np.abs(np.diff(z, axis=axis)) if z.shape[axis] > 1 else np.zeros(0)
+            d = d[np.isfinite(d)]  # nodata pairs carry no slope (an all-nodata pair set is fine)
+            return float(d.max()) if d.size else 0.0
+
+        gmax = math.hypot(steepest(1), steepest(0)) / self.cell
         return mover.g * (gmax - mover.mu) / math.sqrt(1.0 + gmax * gmax)
 
     def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
