@@ -43,6 +43,7 @@ import numpy as np
 from .errors import FallwayIOError, NoFeasibleLine, ParameterError
 from .limits import Limits
 from .physics import Mover, Profile, traverse
+from .physics import check_mu_range as _check_mu_range
 
 __all__ = [
     "COMPARISON_COLUMNS",
@@ -720,19 +721,6 @@ class Envelope:
                 "max_speed_lo_mu_m_s": self.low.max_speed_m_s,
                 "stalled_at_hi_mu_m": self.high.stalled_at_m,
                 "envelope_status": self.verdict}
-
-
-def _check_mu_range(mover: Mover, mu_lo, mu_hi) -> tuple[float, float]:
-    try:
-        lo, hi = float(mu_lo), float(mu_hi)
-    except (TypeError, ValueError):
-        raise ParameterError(f"the friction range must be two numbers, got {mu_lo!r}, {mu_hi!r}") from None
-    if not (math.isfinite(lo) and math.isfinite(hi) and 0.0 <= lo <= hi):
-        raise ParameterError(f"the friction range must satisfy 0 <= LO <= HI, got {mu_lo!r}, {mu_hi!r}")
-    if not (lo - 1e-12 <= mover.mu <= hi + 1e-12):
-        raise ParameterError(f"the nominal friction mu={mover.mu:g} must lie in the range [{lo:g}, {hi:g}]; "
-                             "widen the range or change --mu")
-    return lo, hi
 
 
 def _verdict(res: dict[str, LineResult]) -> str:

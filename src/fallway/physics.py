@@ -485,3 +485,17 @@ def normal_gravity(lat_deg: float, height_m: float = 0.0) -> float:
     h = float(height_m)
     a, f = _WGS84_A, _WGS84_F
     return gamma * (1.0 - (2.0 / a) * (1.0 + f + _WGS84_M - 2.0 * f * s2) * h + 3.0 * h * h / (a * a))
+
+
+def check_mu_range(mover: Mover, mu_lo, mu_hi) -> tuple[float, float]:
+    """Validate a friction range (LO, HI) around ``mover.mu``; returns it as floats."""
+    try:
+        lo, hi = float(mu_lo), float(mu_hi)
+    except (TypeError, ValueError):
+        raise ParameterError(f"the friction range must be two numbers, got {mu_lo!r}, {mu_hi!r}") from None
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0.0 <= lo <= hi):
+        raise ParameterError(f"the friction range must satisfy 0 <= LO <= HI, got {mu_lo!r}, {mu_hi!r}")
+    if not (lo - 1e-12 <= mover.mu <= hi + 1e-12):
+        raise ParameterError(f"the nominal friction mu={mover.mu:g} must lie in the range [{lo:g}, {hi:g}]; "
+                             "widen the range or change --mu")
+    return lo, hi

@@ -81,7 +81,7 @@ from numba import njit
 from .._segment import segment_law
 from ..errors import NoFeasibleLine, ParameterError
 from ..limits import Limits
-from ..physics import Mover, traverse
+from ..physics import Mover, check_mu_range, traverse
 from .kernel import _grow_f8, _grow_i4, _heap_pop, _heap_push
 from .search import _cell_xy, _keepout_mask, _line_points, _Problem, _snap
 
@@ -352,14 +352,7 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
 
     if not isinstance(mover, Mover):
         raise ParameterError(f"mover must be a fallway.Mover, got {type(mover).__name__}")
-    try:
-        lo, hi = float(mu_lo), float(mu_hi)
-    except (TypeError, ValueError):
-        raise ParameterError(f"the friction range must be two numbers, got {mu_lo!r}, {mu_hi!r}") from None
-    if not (math.isfinite(lo) and math.isfinite(hi) and 0.0 <= lo <= hi):
-        raise ParameterError(f"the friction range must satisfy 0 <= LO <= HI, got {mu_lo!r}, {mu_hi!r}")
-    if not (lo - 1e-12 <= mover.mu <= hi + 1e-12):
-        raise ParameterError(f"the nominal friction mu={mover.mu:g} must lie in the range [{lo:g}, {hi:g}]")
+    lo, hi = check_mu_range(mover, mu_lo, mu_hi)
     limits = Limits() if limits is None else limits
     if isinstance(limits, Limits) and limits.max_turn_deg is not None:
         raise ParameterError("the robust search does not support max_turn_deg; drop the turn limit "
