@@ -63,16 +63,19 @@ def main():
     warnings.simplefilter("ignore", RefinementWarning)
     t = rolling_slope()
     pts = zigzag(t, (10.5, 200.5), (200.5, 20.5), 180)
-    mover = Mover(mu=0.15, normal="gravity")
-    run("ground, 500 vertices", lambda: refine_line(t, pts, mover, n_vertices=500))
+    for normal in ("gravity", "full"):
+        mover = Mover(mu=0.15, normal=normal)
+        run(f"ground, 500 vertices, {normal} model", lambda: refine_line(t, pts, mover, n_vertices=500))
 
     L, H, D = 120.0, 45.0, 15.0
     cell = 2.0
     valley = Terrain.from_array(np.zeros((11, 66)), Affine(cell, 0, -2 * cell, 0, -cell, 5.5 * cell))
     start = np.array([[0.0, 0.0, 0.0], [L, 0.0, 0.0]])
-    run("raised friction brachistochrone, 500 vertices",
-        lambda: refine_line(valley, start, Mover(mu=0.2, normal="gravity"), line="raised",
-                            clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=500))
+    for normal in ("gravity", "full"):
+        mv = Mover(mu=0.2, normal=normal)
+        run(f"raised friction brachistochrone, 500 vertices, {normal} model",
+            lambda: refine_line(valley, start, mv, line="raised", clearance=(0.0, H + D),
+                                start_height=H + D, end_height=D, n_vertices=500))
 
 
 if __name__ == "__main__":

@@ -865,7 +865,116 @@ def _resample(P: np.ndarray, n: int, weights: np.ndarray | None = None) -> np.nd
     return out
 
 
-def _refine_density(P: np.ndarray, n: int) -> np.ndarray:
+def _smooth_at(P: np.ndarray, s_new: np.ndarray) -> np.ndarray:
+    """Points at arc lengths ``s_new`` of the C² cubic spline through the vertices of P
+    (parametrised by chord length): resampling that keeps bends round (a linear
+    resampling puts vertices on chords, and three of them near a chord's end make an
+    arbitrarily tight circumradius)."""
+    from scipy.interpolate import CubicSpline
+
+    seg = np.linalg.norm(np.diff(P, axis=0), axis=1)
+    keep = np.concatenate([[True], seg > 1e-9])
+    Q = P[keep]
+    if len(Q) < 3:
+        cum = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(Q, axis=0), axis=1))])
+        return np.column_stack([np.interp(s_new, cum, Q[:, c]) for c in range(P.shape[1])])
+    cum = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(Q, axis=0), axis=1))])
+    out = CubicSpline(cum, Q, axis=0, bc_type="natural")(np.clip(s_new, 0.0, cum[-1]))
+    out[0] = P[0]
+    out[-1] = P[-1]
+    return out
+
+
+def _resample_smooth(P: np.ndarray, n: int, weights: np.ndarray | None = None) -> np.ndarray:
+    """As :func:`_resample`, the points taken on the cubic spline through P."""
+    seg = np.linalg.norm(np.diff(P, axis=0), axis=1)
+    w = seg if weights is None else np.asarray(weights, float)
+    cum_s = np.concatenate([[0.0], np.cumsum(seg)])
+    cum_w = np.concatenate([[0.0], np.cumsum(w)])
+    if cum_w[-1] <= 0:
+        return np.repeat(P[:1], n, axis=0)
+    tgt = np.linspace(0.0, cum_w[-1], n)
+    # arc length at each target: linear in weight within a segment (np.interp needs
+    # increasing abscissae; segments of zero weight are skipped by it)
+    s_new = np.interp(tgt, cum_w, cum_s)
+    return _smooth_at(P, np.maximum.accumulate(s_new))
+
+
+def _fillet_plan(xy: np.ndarray, radius_m: float, cell: float):
+    """A plan polyline through the corners of ``xy`` rounded by circular arcs.
+
+    The line is first simplified (Douglas–Peucker, tolerance half a cell: a lattice
+    staircase becomes its few real corners), then each corner of turning angle φ is
+    replaced by the arc of radius ``radius_m`` tangent to both legs (tangent length
+    R·tan(φ/2)).  Where two neighbouring corners need more than the leg between them,
+    both tangent lengths shrink in proportion, and so does their radius.  Returns the
+    densified plan points and the smallest arc radius achieved (inf when straight).
+    """
+    import shapely
+
+    xy = np.asarray(xy, float)
+    simp = np.asarray(shapely.simplify(shapely.LineString(xy), 0.5 * cell, preserve_topology=False).coords)
+    if len(simp) < 2 or not (np.allclose(simp[0], xy[0]) and np.allclose(simp[-1], xy[-1])):
+        simp = xy
+    d = np.diff(simp, axis=0)
+    L = np.hypot(d[:, 0], d[:, 1])
+    ok = L > 1e-9
+    simp = np.vstack([simp[:1], simp[1:][ok]])
+    d = np.diff(simp, axis=0)
+    L = np.hypot(d[:, 0], d[:, 1])
+    step = 0.5 * cell
+    if len(simp) < 3:
+        return _densify(simp, step), math.inf
+    u = d / L[:, None]
+    cross = u[:-1, 0] * u[1:, 1] - u[:-1, 1] * u[1:, 0]
+    phi = np.arctan2(np.abs(cross), np.sum(u[:-1] * u[1:], axis=1))
+    phi = np.minimum(phi, math.pi * 0.999)
+    th = np.tan(0.5 * phi)
+    want = radius_m * th
+    nc = len(phi)
+    demand = np.zeros(len(L))
+    demand[:-1] += want  # corner c sits at vertex c + 1: it uses legs c and c + 1
+    demand[1:] += want
+    room = np.where(demand > 0, np.minimum(1.0, L / np.maximum(demand, 1e-300)), 1.0)
+    tl = want * np.minimum(room[:-1], room[1:])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rad = np.where(th > 1e-9, tl / th, math.inf)
+    pieces = [simp[:1]]
+    for c in range(nc):
+        B = simp[c + 1]
+        if not (phi[c] > 1e-6 and tl[c] > 1e-9):
+            pieces.append(_densify(np.vstack([pieces[-1][-1:], B[None]]), step)[1:])
+            continue
+        T1 = B - u[c] * tl[c]
+        T2 = B + u[c + 1] * tl[c]
+        pieces.append(_densify(np.vstack([pieces[-1][-1:], T1[None]]), step)[1:])
+        sgn = 1.0 if cross[c] > 0 else -1.0
+        nrm = sgn * np.array([-u[c, 1], u[c, 0]])
+        ctr = T1 + rad[c] * nrm
+        a0 = math.atan2(T1[1] - ctr[1], T1[0] - ctr[0])
+        m = int(min(2000, max(4, math.ceil(rad[c] * phi[c] / step), math.ceil(phi[c] / math.radians(2.0)))))
+        ang = a0 + sgn * phi[c] * np.arange(1, m + 1) / m
+        arc = ctr + rad[c] * np.column_stack([np.cos(ang), np.sin(ang)])
+        arc[-1] = T2
+        pieces.append(arc)
+    pieces.append(_densify(np.vstack([pieces[-1][-1:], simp[-1:]]), step)[1:])
+    out = np.vstack(pieces)
+    keep = np.concatenate([[True], np.hypot(*np.diff(out, axis=0).T) > 1e-9])
+    out = out[keep]
+    out[-1] = simp[-1]
+    return out, float(np.min(rad)) if len(rad) else math.inf
+
+
+def _densify(xy: np.ndarray, step: float) -> np.ndarray:
+    """Straight pieces of ``xy`` cut into parts no longer than ``step``."""
+    out = [xy[:1]]
+    for a, b in zip(xy[:-1], xy[1:]):
+        k = max(1, int(math.ceil(float(np.hypot(*(b - a))) / step)))
+        out.append(a + (b - a) * (np.arange(1, k + 1) / k)[:, None])
+    return np.vstack(out)
+
+
+def _refine_density(P: np.ndarray, n: int, smooth: bool = False) -> np.ndarray:
     """n points along P keeping its vertex density (arc length is interpolated in index)."""
     from scipy.interpolate import PchipInterpolator
 
@@ -874,6 +983,8 @@ def _refine_density(P: np.ndarray, n: int) -> np.ndarray:
     par = np.linspace(0.0, 1.0, len(P))
     s_new = PchipInterpolator(par, cum)(np.linspace(0.0, 1.0, n))
     s_new = np.maximum.accumulate(np.clip(s_new, 0.0, cum[-1]))
+    if smooth:
+        return _smooth_at(P, s_new)
     j = np.clip(np.searchsorted(cum, s_new, side="right") - 1, 0, len(P) - 2)
     frac = np.where(seg[j] > 0, (s_new - cum[j]) / np.where(seg[j] > 0, seg[j], 1.0), 0.0)
     out = P[j] + (P[j + 1] - P[j]) * np.clip(frac, 0.0, 1.0)[:, None]
@@ -1002,17 +1113,31 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         sizes = [n_target]
         while len(sizes) < levels and sizes[0] > 16:
             sizes.insert(0, (sizes[0] - 1) // 2 + 1)
-        P = _resample(P_start, max(len(P_start) * 4, 4 * sizes[0]))
+        r_min = limits.min_radius_m
+        smooth = r_min is not None
+        P_seed, P_round = P_start, None
+        if smooth:
+            # a bend radius limit: start from the lattice line with its corners rounded
+            # (arcs of the required radius), resample on splines so bends stay round
+            P_round = _rounded_start(opt, P_start, r_min, line, start_height, end_height, c_min, c_max,
+                                     terrain.cell_size)
+            if P_round is not None:
+                P_seed = P_round
+        if smooth:
+            P = _resample_smooth(P_seed, max(len(P_seed), 4 * sizes[0]))
+        else:
+            P = _resample(P_seed, max(len(P_seed) * 4, 4 * sizes[0]))
         P = opt.project(P, P_start)
         u = opt.speeds(P)
-        P = opt.project(_resample(P, sizes[0], _monitor(P, u, blend)), P_start)
+        rs = _resample_smooth if smooth else _resample
+        P = opt.project(rs(P, sizes[0], _monitor(P, u, blend)), P_start)
         iters = 0
         converged = False
         residual = math.inf
         notes = []
         for li, n in enumerate(sizes):
             if li > 0:
-                P = opt.project(_refine_density(P, n), P_start)
+                P = opt.project(_refine_density(P, n, smooth), P_start)
             P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
             iters += it
             converged, residual = ok, res
@@ -1033,27 +1158,17 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             iters += it
             converged, residual = ok, res
         status = opt.violations(P)
+        if status.get("min_radius") == "violated":
+            # the penalty leaves a few tight triples: smooth them out locally
+            P = _repair_radius(opt, P, P_start, r_min)
+            status = opt.violations(P)
         prof = _traverse(P, mover)
         time_after = prof.travel_time_s
-        feasible = prof.feasible and not any(v == "violated" for v in status.values())
         if mover.normal == "full":
             notes.append("optimised on the gravity-normal functional, timed with the full model "
                          "(no full-model polish)")
-        if not feasible or not (time_after <= time_before):
-            why = ("the refined line breaks a limit: " + ", ".join(k for k, v in status.items() if v == "violated")
-                   if not feasible else f"the refined line is not faster ({time_after:.6g} s vs {time_before:.6g} s)")
-            msg = f"kept the start line: {why}"
-            return RefineResult(P_start.copy(), prof_start, iters, residual, False, time_before, time_before,
-                                msg, _status_of(opt, P_start))
-        active = [k for k, v in status.items() if v == "active"]
-        msg = (f"refined {len(P)} vertices in {iters} iterations: "
-               f"{time_before:.6f} s -> {time_after:.6f} s"
-               + (f"; active limits: {', '.join(active)}" if active else "")
-               + (f"; {'; '.join(notes)}" if notes else ""))
-        if not converged:
-            warnings.warn(f"refinement did not converge (residual {residual:.3g} s/m); returning the best line found",
-                          RefinementWarning, stacklevel=2)
-        return RefineResult(P, prof, iters, residual, converged, time_before, time_after, msg, status)
+        return _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start,
+                       P_round)
     except FallwayError:
         raise
     except (ZeroDivisionError, ValueError, FloatingPointError, np.linalg.LinAlgError) as err:
@@ -1063,6 +1178,123 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
                       RefinementWarning, stacklevel=2)
         return RefineResult(P_start.copy(), prof_start, 0, math.inf, False, time_before, time_before,
                             f"kept the start line: the refinement failed numerically ({type(err).__name__})", {})
+
+
+def _meets(status, prof):
+    return bool(prof.feasible) and not any(v == "violated" for v in status.values())
+
+
+def _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start, P_round):
+    """The line to return and what to say about it.
+
+    "Never slower than the start line" holds among lines that meet the limits: when the
+    start (lattice) line breaks one (typically the bend radius, at its lattice corners)
+    the fastest line found that meets them is returned even if slower, and the message
+    says so; when no line meeting the limits is found, the fastest line is returned
+    with a :class:`RefinementWarning` and the broken limit's status is "violated".
+    """
+    time_before = prof_start.travel_time_s
+    time_after = prof.travel_time_s
+    st_start = _status_of(opt, P_start)
+    start_ok = _meets(st_start, prof_start)
+    broken = [k for k, v in st_start.items() if v == "violated"]
+    cands = [("refined", P, prof, status, converged)]
+    if P_round is not None:
+        pr = _traverse(P_round, mover)
+        cands.append(("rounded", P_round, pr, _status_of(opt, P_round), False))
+    good = [c for c in cands if _meets(c[3], c[2])]
+    if start_ok:
+        good.append(("start", P_start, prof_start, st_start, False))
+    if good:
+        name, L, pr, st, conv = min(good, key=lambda c: (c[2].travel_time_s, c[0] != "refined"))
+        t = pr.travel_time_s
+        if name == "start":
+            why = (f"the refined line is not faster ({time_after:.6g} s vs {time_before:.6g} s)"
+                   if _meets(status, prof) else "the refined line breaks a limit: "
+                   + ", ".join(k for k, v in status.items() if v == "violated"))
+            return RefineResult(P_start.copy(), prof_start, iters, residual, False, time_before, time_before,
+                                f"kept the start line: {why}", st_start)
+        active = [k for k, v in st.items() if v == "active"]
+        what = ("refined" if name == "refined"
+                else "kept the start line with its corners rounded (the refined line breaks a limit: "
+                + ", ".join(k for k, v in status.items() if v == "violated") + ");")
+        msg = (f"{what} {len(L)} vertices in {iters} iterations: {time_before:.6f} s -> {t:.6f} s"
+               + (f"; active limits: {', '.join(active)}" if active else ""))
+        if not start_ok and t > time_before:
+            msg += (f"; slower than the start line, which breaks {', '.join(broken) or 'a limit'}: "
+                    f"the returned line meets the limits")
+        if notes:
+            msg += f"; {'; '.join(notes)}"
+        if name == "refined" and not converged:
+            warnings.warn(f"refinement did not converge (residual {residual:.3g} s/m); returning the best line found",
+                          RefinementWarning, stacklevel=3)
+        return RefineResult(L, pr, iters, residual, conv, time_before, t, msg, st)
+    # nothing meets the limits: the fastest line, said loudly
+    allc = cands + [("start", P_start, prof_start, st_start, False)]
+    fin = [c for c in allc if math.isfinite(c[2].travel_time_s)] or allc
+    name, L, pr, st, conv = min(fin, key=lambda c: (sum(v == "violated" for v in c[3].values()),
+                                                    c[2].travel_time_s))
+    bad = [k for k, v in st.items() if v == "violated"] or (["speed window / stall"] if not pr.feasible else [])
+    msg = (f"no line meeting the limits was found; returning the {name} line, which breaks "
+           f"{', '.join(bad)} ({time_before:.6f} s -> {pr.travel_time_s:.6f} s)")
+    warnings.warn(msg, RefinementWarning, stacklevel=3)
+    return RefineResult(L.copy(), pr, iters, residual, False, time_before, pr.travel_time_s, msg, st)
+
+
+def _repair_radius(opt, P, P_start, r_min, sweeps=400):
+    """Local Laplacian smoothing of the vertices whose circumradius (with their two
+    neighbours) is below ``r_min`` (plus a 0.2 % margin) and of their neighbours: each
+    such vertex moves halfway to the midpoint of its neighbours, which spreads the bend
+    over more vertices; ends stay fixed, heights follow the ground (or the clearance
+    band).  Stops when no triple is too tight."""
+    P = P.copy()
+    lim = 1.0 / (r_min * (1 + 2e-3))
+    ground = opt.line == "ground"
+    for _ in range(sweeps):
+        kap = _curvature(P[:-2], P[1:-1], P[2:])
+        bad = np.nonzero(kap > lim)[0] + 1
+        if bad.size == 0:
+            break
+        idx = np.unique(np.clip(np.concatenate([bad - 1, bad, bad + 1]), 1, len(P) - 2))
+        mid = 0.5 * (P[idx - 1] + P[idx + 1])
+        Q = P.copy()
+        Q[idx] += 0.5 * (mid - P[idx])
+        if ground:
+            Q[idx, 2] = opt.gr.z(Q[idx, 0], Q[idx, 1])
+        P = opt.project(Q, P_start)
+    return P
+
+
+def _rounded_start(opt, P_start, r_min, line, start_height, end_height, c_min, c_max, cell):
+    """The start line with its corners replaced by arcs (:func:`_fillet_plan`) so that
+    the 3D circumradius of consecutive vertices is at least ``r_min`` where the geometry
+    allows; the arc radius is raised when the terrain's own curvature (or the slope's
+    foreshortening) tightens the 3D bend.  None when the rounded line leaves the terrain."""
+    gr = opt.gr
+    f = 1.02
+    best = None
+    for _ in range(5):
+        xy, rad = _fillet_plan(P_start[:, :2], r_min * f, cell)
+        zg = gr.z(xy[:, 0], xy[:, 1])
+        if not np.all(np.isfinite(zg)):
+            return best
+        if line == "ground":
+            z = zg
+        else:
+            seg = np.hypot(*np.diff(xy, axis=0).T)
+            frac = np.concatenate([[0.0], np.cumsum(seg)])
+            frac = frac / frac[-1] if frac[-1] > 0 else np.linspace(0, 1, len(frac))
+            h = np.clip(float(start_height) + (float(end_height) - float(start_height)) * frac, c_min, c_max)
+            z = zg + h
+        P = np.column_stack([xy, z])
+        P[0], P[-1] = P_start[0], P_start[-1]
+        kap = _curvature(P[:-2], P[1:-1], P[2:]) if len(P) >= 3 else np.zeros(1)
+        r3 = 1.0 / max(float(np.max(kap)), 1e-300)
+        best = P
+        if r3 >= r_min * (1 + 2e-3) or rad < r_min * f * (1 - 1e-6):
+            break  # met, or the room between corners is what limits it
+        f *= max(1.05, 1.02 * r_min / r3)
+    return best
 
 
 def _status_of(opt, P):

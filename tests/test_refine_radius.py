@@ -1,0 +1,114 @@
+"""Minimum bend radius held by the refined line (issue 5, Limits.min_radius_m).
+
+The radius is measured here independently of the library: the circumradius of each
+triple of consecutive exported vertices, R = abc / (4 * area) (standard triangle
+geometry; area from Heron's formula, not from a cross product as the library does).
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+import shapely
+
+from fallway.errors import RefinementWarning
+from fallway.limits import Limits
+from fallway.physics import Mover, traverse
+from fallway.refine import _fillet_plan, refine_line
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from references import friction_brachistochrone  # noqa: E402
+from test_refine import on_ground, plane_terrain, valley_terrain, vertical_plane_start  # noqa: E402
+
+#: declared tolerance on the radius: 0.01 % (the library's own verdict uses 1e-4)
+RTOL = 1e-4
+
+
+def circumradii(P):
+    """abc / (4 area) of consecutive vertex triples, area by Heron's formula."""
+    A, B, C = P[:-2], P[1:-1], P[2:]
+    a = np.linalg.norm(B - C, axis=1)
+    b = np.linalg.norm(A - C, axis=1)
+    c = np.linalg.norm(A - B, axis=1)
+    s = 0.5 * (a + b + c)
+    area = np.sqrt(np.maximum(s * (s - a) * (s - b) * (s - c), 0.0))
+    with np.errstate(divide="ignore"):
+        return np.where(area > 0, a * b * c / (4.0 * np.where(area > 0, area, 1.0)), np.inf)
+
+
+def test_circumradius_helper_on_a_circle():
+    # points on a circle of radius 7 m: every triple's circumradius is 7
+    th = np.linspace(0.0, 2.0, 9)
+    P = np.column_stack([7 * np.cos(th), 7 * np.sin(th), np.zeros_like(th)])
+    assert circumradii(P) == pytest.approx(7.0, rel=1e-9)
+
+
+def test_fillet_rounds_a_right_angle_with_the_requested_radius():
+    # a right-angle corner with 30 m legs rounded at 10 m: tangent length R tan(45°) = 10 m,
+    # arc length R pi/2 (standard fillet geometry)
+    xy = np.array([[0.0, 0.0], [30.0, 0.0], [30.0, 30.0]])
+    out, rad = _fillet_plan(xy, 10.0, 1.0)
+    assert rad == pytest.approx(10.0, rel=1e-12)
+    r = circumradii(np.column_stack([out, np.zeros(len(out))]))
+    assert r.min() == pytest.approx(10.0, rel=1e-6)
+    length = float(np.sum(np.hypot(*np.diff(out, axis=0).T)))
+    assert length == pytest.approx(20.0 + 20.0 + 10.0 * math.pi / 2, rel=1e-3)
+
+
+def _keepout_case():
+    t = plane_terrain()
+    start, end = (5.5, 45.5), (25.5, 5.5)
+    block = shapely.box(9.0, 24.0, 30.0, 34.0)  # the line must turn round its west end
+    xy = np.array([start, (6.5, 35.5), (6.5, 22.5), end])
+    return t, on_ground(t, xy), block
+
+
+def test_ground_line_turning_round_a_keepout_holds_the_bend_radius():
+    t, pts, block = _keepout_case()
+    mover = Mover(normal="gravity")
+    free = refine_line(t, pts, mover, keepout=block, n_vertices=61)
+    res = refine_line(t, pts, mover, keepout=block, limits=Limits(min_radius_m=5.0), n_vertices=61)
+    assert circumradii(res.line).min() >= 5.0 * (1 - RTOL)
+    assert res.limits["min_radius"] in ("inactive", "active")
+    assert res.limits["keepout"] in ("inactive", "active")
+    assert not shapely.intersects(block, shapely.LineString(res.line[:, :2]))
+    # a limit can only cost time: never faster than the line that ignores it
+    assert res.time_after_s >= free.time_after_s * (1 - 1e-12)
+    assert res.time_after_s == pytest.approx(traverse(res.line, mover).travel_time_s, rel=1e-12)
+    assert res.time_after_s < res.time_before_s
+
+
+def test_raised_line_holds_the_bend_radius_below_its_free_fall():
+    # the friction brachistochrone starts with a free fall and a sharp bend (Šalinić 2009);
+    # a 30 m minimum radius must round it, and the time can only grow above the reference
+    # (Ashby et al. 1975, recomputed in tests/references.py)
+    L, H, D, mu = 120.0, 45.0, 15.0, 0.2
+    ref = friction_brachistochrone(L, H, mu)
+    t = valley_terrain(L)
+    res = refine_line(t, vertical_plane_start(L, H, D), Mover(mu=mu, normal="gravity"), line="raised",
+                      limits=Limits(min_radius_m=30.0), clearance=(0.0, H + D), start_height=H + D,
+                      end_height=D, n_vertices=61)
+    assert circumradii(res.line).min() >= 30.0 * (1 - RTOL)
+    assert res.limits["min_radius"] == "active"
+    assert res.time_after_s > ref.time_s
+
+
+def test_no_line_meeting_the_limits_is_said_loudly():
+    # a 500 m radius cannot fit round the block between the two ends: whatever comes back
+    # must carry a RefinementWarning and a 'violated' status, or meet the limit
+    t, pts, block = _keepout_case()
+    with warnings.catch_warnings(record=True) as rec:
+        warnings.simplefilter("always")
+        res = refine_line(t, pts, Mover(normal="gravity"), keepout=block, limits=Limits(min_radius_m=500.0),
+                          n_vertices=31, max_iter=300)
+    broken = [k for k, v in res.limits.items() if v == "violated"]
+    meets = circumradii(res.line).min() >= 500.0 * (1 - RTOL) and not broken
+    if not meets:
+        assert broken
+        assert any(issubclass(w.category, RefinementWarning) for w in rec)
+        assert "no line meeting the limits" in res.message
