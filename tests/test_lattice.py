@@ -511,3 +511,198 @@ def test_speed_cap_that_does_not_bind_gives_the_exact_answer(seed):
         assert ln.stats["speed_cap_binding"] is True
         assert np.nanmax(ln.profile.speed_m_s) <= tight.max_speed + 1e-9
         assert ln.time_s >= ref_t * (1 - 1e-9)
+
+
+# ----------------------------------------------------------------------------- compact state, time cut-off
+
+KNIGHT = [(1, 2), (2, 1), (-1, 2), (-2, 1), (1, -2), (2, -1), (-1, -2), (-2, -1)]
+
+
+def touched_cells(dr, dc):
+    """Cells whose closed square the plan segment (0,0)->(dr,dc) meets (shapely geometry)."""
+    import shapely
+
+    seg = shapely.LineString([(0.0, 0.0), (float(dc), float(dr))])
+    return [(i, j) for i in range(min(0, dr), max(0, dr) + 1) for j in range(min(0, dc), max(0, dc) + 1)
+            if seg.intersects(shapely.box(j - 0.5, i - 0.5, j + 0.5, i + 0.5))]
+
+
+def frictionless_graph16(z, cell, free, e0):
+    """scipy CSR graph of the 16-neighbour lattice with static frictionless edge times.
+
+    v² = e0 - 2 g z at every point (energy depends on height only); an edge is a chain
+    of straight pieces through its break points (knight moves cross one grid line
+    between centres, where the bilinear height is the mean of the two centres on that
+    line) with t = 2 s / (v_a + v_b) per piece (CHECKS.md "Motion along a line").  An
+    edge is usable only when every cell its closed plan segment touches is free.
+    """
+    rows, cols = z.shape
+    idx = np.arange(rows * cols).reshape(rows, cols)
+    a_, b_, w_ = [], [], []
+    for dr, dc in KING + KNIGHT:
+        touch = touched_cells(dr, dc)
+        for i in range(rows):
+            for j in range(cols):
+                i2, j2 = i + dr, j + dc
+                if not (0 <= i2 < rows and 0 <= j2 < cols):
+                    continue
+                if not all(free[i + a, j + b] for a, b in touch):
+                    continue
+                pts = [(0.0, 0.0, z[i, j])]
+                if abs(dc) == 2:
+                    pts.append((dr / 2, dc / 2, 0.5 * (z[i, j + dc // 2] + z[i2, j + dc // 2])))
+                elif abs(dr) == 2:
+                    pts.append((dr / 2, dc / 2, 0.5 * (z[i + dr // 2, j] + z[i + dr // 2, j2])))
+                pts.append((dr, dc, z[i2, j2]))
+                v2s = [e0 - 2 * G * p[2] for p in pts]
+                if min(v2s[1:]) <= 0 or v2s[0] < 0:
+                    continue
+                tt = sum(math.sqrt((cell * (p1[0] - p0[0])) ** 2 + (cell * (p1[1] - p0[1])) ** 2
+                                   + (p1[2] - p0[2]) ** 2) * 2 / (math.sqrt(va) + math.sqrt(vb))
+                         for p0, p1, va, vb in zip(pts[:-1], pts[1:], v2s[:-1], v2s[1:]))
+                a_.append(idx[i, j])
+                b_.append(idx[i2, j2])
+                w_.append(tt)
+    return sp.csr_matrix((w_, (a_, b_)), shape=(rows * cols,) * 2)
+
+
+def corridor_case(seed=4, rows=28, cols=34, cell=4.0):
+    """A rough slope, a diagonal corridor (cells within 5 of the diagonal) and a few holes."""
+    rng = np.random.default_rng(seed)
+    r, c = np.mgrid[0:rows, 0:cols]
+    z = 60.0 - 0.5 * r - 0.4 * c + rng.normal(scale=0.8, size=(rows, cols))
+    dist = np.abs(r * (cols - 1) - c * (rows - 1)) / math.hypot(rows - 1, cols - 1)
+    keep = dist > 5.0
+    keep |= rng.random((rows, cols)) < 0.06
+    keep[0, 0] = keep[-1, -1] = False
+    return terrain_of(z, cell), z, keep
+
+
+def test_corridor_reach_frictionless_16_equals_scipy_dijkstra():
+    t, z, keep = corridor_case()
+    start = (0, 0)
+    mover = Mover(v0=1.5, normal="gravity")
+    e0 = mover.v0 ** 2 + 2 * G * z[start]
+    ref = dijkstra(frictionless_graph16(z, 4.0, ~keep, e0), indices=start[0] * z.shape[1] + start[1])
+    ref = ref.reshape(z.shape)
+    rm = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep)
+    ok = np.isfinite(ref)
+    assert ok.sum() > 200  # the corridor is really searched
+    assert np.array_equal(ok, np.isfinite(rm.time_s))
+    np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
+    # the per-state arrays were sized for the searchable cells only
+    assert rm.stats["state_cells"] == int((~keep).sum()) < z.size
+    assert rm.stats["labels_settled"] == int(ok.sum())
+
+
+def test_reach_time_cutoff_equals_scipy_dijkstra_limit():
+    t, z, keep = corridor_case(seed=9)
+    start = (0, 0)
+    mover = Mover(v0=1.5, normal="gravity")
+    e0 = mover.v0 ** 2 + 2 * G * z[start]
+    g = frictionless_graph16(z, 4.0, ~keep, e0)
+    full = dijkstra(g, indices=0).reshape(z.shape)
+    t_max = float(np.nanmedian(full[np.isfinite(full)]))
+    # scipy: nodes farther than ``limit`` are left at inf
+    ref = dijkstra(g, indices=0, limit=t_max).reshape(z.shape)
+    rm = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep, max_time_s=t_max)
+    ok = np.isfinite(ref)
+    assert 50 < ok.sum() < np.isfinite(full).sum()
+    assert np.array_equal(ok, np.isfinite(rm.time_s))
+    np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
+    assert np.nanmax(rm.time_s) <= t_max
+    uncut = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep)
+    assert rm.stats["labels_created"] < uncut.stats["labels_created"]
+    assert rm.stats["labels_cut_off"] > 0 and uncut.stats["labels_cut_off"] == 0
+
+
+def hills_terrain(n=60, cell=3.0, seed=2):
+    from scipy import ndimage
+
+    rng = np.random.default_rng(seed)
+    h = ndimage.gaussian_filter(rng.normal(size=(n, n)), 4.0)
+    h *= 4.0 / np.abs(h).max()
+    r, c = np.mgrid[0:n, 0:n].astype(float)
+    return Terrain.from_array(300.0 - 0.3 * cell * (r + c) + h, (cell, 0, 0, 0, -cell, n * cell))
+
+
+@pytest.mark.parametrize("mover", [Mover(mu=0.2, drag=0.01, v0=1.0, normal="gravity"),
+                                   Mover(mu=0.1, v0=0.5, normal="gravity")])
+def test_friction_reach_cutoff_is_the_full_reach_masked(mover):
+    # every label up to the cut-off descends from labels up to the cut-off and settles
+    # before any later one, so the cut search reproduces the full one up to t_max
+    t = hills_terrain()
+    start = t.cell_center(5, 5)
+    full = reach(t, start, mover, neighbours=16)
+    t_max = float(np.nanpercentile(full.time_s, 40))
+    cut = reach(t, start, mover, neighbours=16, max_time_s=t_max)
+    early = full.time_s <= t_max
+    assert early.sum() > 100
+    assert np.array_equal(np.isfinite(cut.time_s), early)
+    assert np.array_equal(cut.time_s[early], full.time_s[early])
+    assert np.array_equal(cut.speed_m_s[early], full.speed_m_s[early])
+    assert cut.stats["labels_settled"] < full.stats["labels_settled"]
+
+
+def _run_both(t, mover, keep, start, targets, limits=None, max_per_cell=None, heuristic=True):
+    from fallway.lattice.search import _Problem
+
+    prob = _Problem(t, mover, 16, limits, keep)
+    out = []
+    for compact in (True, False):
+        res = prob.run(start, targets, heuristic=heuristic, energy_tol=None, max_labels=None,
+                       max_per_cell=max_per_cell, compact=compact)
+        chain = []
+        p = res["final"]
+        while p >= 0:
+            chain.append((int(res["node"][p]), float(res["t"][p]), float(res["v2"][p])))
+            p = int(res["parent"][p])
+        out.append((res, chain))
+    return out
+
+
+@pytest.mark.parametrize("case", ["plain", "via", "turn", "cap", "reach"])
+def test_compact_and_full_window_layouts_give_identical_searches(case):
+    t, z, keep = corridor_case(seed=5, rows=30, cols=36)
+    cols = z.shape[1]
+    mover = Mover(mu=0.05, drag=0.002, v0=2.0, normal="gravity")
+    start, end, via = 0, z.size - 1, 15 * cols + 18
+    keep.ravel()[via] = False
+    kw = dict(plain={}, via={"targets": [via, end]}, turn={"limits": Limits(max_turn_deg=50.0)},
+              cap={"max_per_cell": 1}, reach={"targets": []})[case]
+    targets = kw.pop("targets", [end])
+    (a, ca), (b, cb) = _run_both(t, mover, keep, start, targets, **kw)
+    assert a["stats"]["state_cells"] == int((~keep).sum())
+    assert b["stats"]["state_cells"] == z.size
+    assert a["status"] == b["status"]
+    assert np.array_equal(a["counters"], b["counters"])
+    assert ca == cb
+    if case == "reach":
+        assert np.array_equal(a["best_t"], b["best_t"], equal_nan=True)
+        assert np.array_equal(a["best_v2"], b["best_v2"], equal_nan=True)
+    else:
+        assert a["status"] == 0 and len(ca) > 10
+
+
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(noise=arrays(np.float64, (9, 10), elements=st.floats(-2.0, 2.0)),
+       holes=arrays(np.bool_, (9, 10), elements=st.booleans()),
+       mu=st.floats(0.0, 0.3), frac=st.floats(0.1, 0.9))
+def test_property_compact_equals_full_and_cutoff_equals_masked(noise, holes, mu, frac):
+    r, c = np.mgrid[0:9, 0:10]
+    z = 30.0 - 1.2 * r - 1.0 * c + noise
+    keep = holes & (np.add.outer(np.arange(9), np.arange(10)) % 3 == 0)
+    keep[0, 0] = False
+    t = terrain_of(z, 5.0)
+    mover = Mover(mu=mu, v0=1.0, normal="gravity")
+    (a, ca), (b, cb) = _run_both(t, mover, keep, 0, [], heuristic=False)
+    assert np.array_equal(a["best_t"], b["best_t"], equal_nan=True)
+    assert np.array_equal(a["counters"], b["counters"])
+    full = a["best_t"].reshape(z.shape)
+    if not np.isfinite(full).sum() > 1:
+        return
+    t_max = float(np.nanquantile(full[full > 0], frac))
+    cut = reach(t, xy(t, 0, 0), mover, neighbours=16, keepout=keep, max_time_s=t_max)
+    early = full <= t_max
+    assert np.array_equal(np.isfinite(cut.time_s), early)
+    assert np.array_equal(cut.time_s[early], full[early])

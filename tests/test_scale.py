@@ -138,12 +138,22 @@ def test_exact_mode_equals_plain_search_and_memory_error():
         find_route_large(t, s, e, mover, exact=True, memory_limit_bytes=1_000_000, refine=False)
 
 
-def test_memory_estimate_counts_kernel_arrays():
-    # 1 M cells, one leg, no turn limit, 4 labels a cell: per cell 27 B of grids,
-    # 24 B of per-state arrays, 4 x 38 B x 3 of label pool and heap
-    assert search_memory_bytes(1_000_000) == 1_000_000 * (27 + 24) + int(1_000_000 * 4 * 38 * 3)
-    # a turn limit keeps one state per heading (17 with 16 neighbours)
-    assert search_memory_bytes(1000, turn_limit=True, labels_per_cell=0) == 1000 * 27 + 17 * 1000 * 24
+def test_memory_check_counts_only_the_corridor_cells():
+    # the corridor's per-state arrays and labels are sized for its cells, so a budget
+    # too small for the whole window still admits the corridor search
+    t = hills()
+    s, e = (20.0, 380.0), (380.0, 20.0)
+    kw = dict(coarse_factor=5, corridor_m=30.0, max_widen=0, neighbours=16, refine=False)
+    r = find_route_large(t, s, e, Mover(mu=0.0), **kw)
+    win = r.summary["scale"]["window_cells"]
+    cells = r.summary["corridor_steps"][0]["cells"]
+    assert cells < 0.5 * win
+    budget = (search_memory_bytes(win, active_cells=cells) + search_memory_bytes(win)) // 2
+    r2 = find_route_large(t, s, e, Mover(mu=0.0), memory_limit_bytes=budget, **kw)
+    assert r2.lattice.time_s == r.lattice.time_s
+    with pytest.raises(TerrainError, match="the corridor search .* coarsen"):
+        find_route_large(t, s, e, Mover(mu=0.0), memory_limit_bytes=search_memory_bytes(win, active_cells=cells) // 2,
+                         **kw)
 
 
 def test_block_mean_of_a_plane_is_the_plane_at_block_centres():
@@ -177,6 +187,9 @@ def test_reach_time_cutoff_is_exact_up_to_the_cutoff():
     outside[r0:r0 + h, c0:c0 + w] = np.nan
     assert not (outside <= t_max).any()
     assert h * w < t.z.size
+    # the kernel stopped at the cut-off instead of filling the window's disc
+    assert lim.stats["labels_cut_off"] > 0
+    assert lim.stats["cutoff"]["bound"] == "area window and kernel time cut-off"
 
 
 def test_reach_distance_cutoff_confines_to_the_disc():

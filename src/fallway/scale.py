@@ -41,29 +41,42 @@ Coarse-to-fine (:func:`find_route_large`)
 
 Memory (:func:`search_memory_bytes`)
 -------------------------------------
-Counted from what the kernel and its Python front allocate: per cell 8 B (Terrain
-heights) + 8 B (flat heights) + 3 B (nodata, keep-out, blocked flags) + 8 B (transient
-``np.where`` copy); per search state (cell × via-leg × heading when a turn limit is
-set) 24 B (``emax``, ``open_t``, ``open_v2`` float64) + 4 B per state when
-``max_per_cell`` caps the labels; reach adds 16 B per cell (best time and v²); per label
-26 B (t, v² float64; node, parent int32; leg, heading int8) + 12 B of heap, times 3 for
-the doubling growth (old + new arrays during the copy).  The number of labels is not
-known in advance: the estimate takes ``labels_per_cell`` labels per state (default
-``max_per_cell`` when given, else 4 - measured 1 to 3 on the benchmark DEMs with a
-small cap; the exact Pareto search on rough terrain can need far more).
+The kernel's per-state arrays are sized for the *searchable* cells only (the corridor
+minus nodata and keep-out; :mod:`fallway.lattice.kernel`, "Compact state"), so a
+corridor search on a large window pays the window price only for its grids.  Counted
+from what the kernel and its Python front allocate:
+
+* per window cell, 31 B: 8 (Terrain heights) + 8 (flat float64 heights) + 3 (nodata,
+  keep-out, blocked flags) + 4 (int32 compact index) + 8 (transient masks and copies
+  while the problem is built);
+* per search state (searchable cell × via-leg × heading when a turn limit is set),
+  24 B (``emax``, ``open_t``, ``open_v2`` float64) + 4 B when ``max_per_cell`` caps
+  the labels;
+* reach adds 16 B per searchable cell (best time and v², compact) + 24 B per window
+  cell (the window-shaped time and speed maps and a transient copy);
+* per label 26 B (t, v² float64; node, parent int32; leg, heading int8) + 12 B of heap,
+  times 2 for the doubling growth: during the copy the old (full) array and the new one
+  are both resident; the unused half of the new one is never written, and pages never
+  written cost no memory (measured: 3 overestimated the peak by about half).
+
+The number of labels is not known in advance: the estimate takes ``labels_per_cell``
+labels per state (default ``max_per_cell`` when given, else 4 - measured 1 to 3 on the
+benchmark DEMs with a small cap; the exact Pareto search on rough terrain can need far
+more).  ``tests/test_scale.py`` checks the estimate against the peak resident memory of
+a search in a fresh process (with the label count of that search).
 
 Reach cut-off (:func:`reach_limited`)
 -------------------------------------
-The kernel has no time or distance cut-off, so :func:`reach_limited` bounds the *area*
-instead: a window around the start, cells outside a disc blocked.  With
-``max_time_s = t`` the disc radius is ``V t`` with ``V = sqrt(v0² + 2 g (z_start -
-z_min))`` (energy height over the lowest cell: no mover is faster), so every line that
-arrives within ``t`` lies inside the disc and the map is exact up to ``t`` (later
-arrivals are set to NaN).  With ``max_distance_m = R`` lines are *confined* to the disc
-of plan radius ``R``: times are exact for cells whose best line stays inside it, and
-the map may miss cells (or give a later time) where the best line would leave the disc.
-A kernel cut-off (stop settling labels beyond ``t``) would spare the search the part of
-the disc reached later than ``t``.
+Two bounds work together.  The *area* bounds what is read: a window around the start,
+cells outside a disc blocked.  With ``max_time_s = t`` the disc radius is ``V t`` with
+``V = sqrt(v0² + 2 g (z_start - z_min))`` (energy height over the lowest cell: no mover
+is faster), so every line that arrives within ``t`` lies inside the disc.  The *time*
+bounds the search: the kernel neither queues nor settles labels later than ``t``
+(:func:`fallway.lattice.search.reach` ``max_time_s``), so it stops expanding at the
+cut-off instead of filling the disc; the map is exact up to ``t`` and NaN beyond.  With
+``max_distance_m = R`` lines are *confined* to the disc of plan radius ``R``: times
+are exact for cells whose best line stays inside it, and the map may miss cells (or
+give a later time) where the best line would leave the disc.
 """
 
 from __future__ import annotations
@@ -85,22 +98,28 @@ __all__ = ["find_route_large", "reach_limited", "search_memory_bytes", "DEFAULT_
 #: The auto coarse factor aims at about this many cells on the coarse grid.
 DEFAULT_COARSE_CELLS = 250_000
 
-_B_CELL = 8 + 8 + 3 + 8
+_B_CELL = 8 + 8 + 3 + 4 + 8
 _B_STATE = 24
 _B_LABEL = 26 + 12
-_GROWTH = 3.0
+_B_REACH_ACTIVE = 16
+_B_REACH_CELL = 24
+_GROWTH = 2.0
 
 
-def search_memory_bytes(cells: int, *, neighbours: int = 16, legs: int = 1, turn_limit: bool = False,
-                        max_per_cell: int | None = None, labels_per_cell: float | None = None,
-                        reach: bool = False) -> int:
+def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbours: int = 16, legs: int = 1,
+                        turn_limit: bool = False, max_per_cell: int | None = None,
+                        labels_per_cell: float | None = None, reach: bool = False) -> int:
     """Estimate the working memory of one lattice search, in bytes (see module notes).
 
     Parameters
     ----------
     cells : int
-        Cells of the grid searched.
+        Cells of the window searched (the grid the kernel indexes).
+    active_cells : int, optional
+        Searchable cells of the window (not nodata, keep-out or outside the corridor):
+        what the per-state arrays and the labels are sized for.  Default ``cells``.
     neighbours : {8, 16, 32}
+        Not used by the estimate (the stencil tables are tiny); kept for the callers.
     legs : int
         Via legs (1 + number of via points); 1 for reach.
     turn_limit : bool
@@ -113,13 +132,18 @@ def search_memory_bytes(cells: int, *, neighbours: int = 16, legs: int = 1, turn
     Examples
     --------
     >>> print(f"{search_memory_bytes(1_000_000) / 1e6:.0f} MB")
-    507 MB
+    359 MB
+    >>> print(f"{search_memory_bytes(1_000_000, active_cells=100_000) / 1e6:.0f} MB")
+    80 MB
     """
     cells = int(cells)
+    active = cells if active_cells is None else min(int(active_cells), cells)
     nh = neighbours + 1 if turn_limit else 1
-    states = cells * max(int(legs), 1) * nh
+    states = active * max(int(legs), 1) * nh
     lpc = float(labels_per_cell if labels_per_cell is not None else (max_per_cell or 4))
-    b = cells * _B_CELL + states * (_B_STATE + (4 if max_per_cell else 0)) + (16 * cells if reach else 0)
+    b = cells * _B_CELL + states * (_B_STATE + (4 if max_per_cell else 0))
+    if reach:
+        b += _B_REACH_ACTIVE * active + _B_REACH_CELL * cells
     b += int(states * lpc * _B_LABEL * _GROWTH)
     return int(b)
 
@@ -133,9 +157,9 @@ def _available_bytes() -> int | None:
 
 
 def _check_memory(cells, what, *, neighbours, legs, turn_limit, max_per_cell, memory_limit_bytes, cell_m,
-                  reach=False):
-    need = search_memory_bytes(cells, neighbours=neighbours, legs=legs, turn_limit=turn_limit,
-                               max_per_cell=max_per_cell, reach=reach)
+                  reach=False, active_cells=None):
+    need = search_memory_bytes(cells, active_cells=active_cells, neighbours=neighbours, legs=legs,
+                               turn_limit=turn_limit, max_per_cell=max_per_cell, reach=reach)
     limit = memory_limit_bytes if memory_limit_bytes is not None else _available_bytes()
     if limit is not None and need > limit:
         k = math.ceil(math.sqrt(need / (0.8 * limit)))
@@ -443,7 +467,7 @@ def find_route_large(source, start, end, mover: Mover, *, via=(), keepout=None, 
         if m is not None:
             out |= m
         cells = int((~out).sum())
-        _check_memory(fine.z.size, f"the corridor search ({w:g} m)", **mem_kw)
+        _check_memory(fine.z.size, f"the corridor search ({w:g} m)", active_cells=cells, **mem_kw)
         timings[f"corridor_{k}_read_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         try:
@@ -492,8 +516,9 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
     start : (x, y)
     mover : Mover
     max_time_s : float, optional
-        Map arrivals up to this time; the window is the free-fall disc of radius
-        ``sqrt(v0² + 2 g (z_start - z_min)) * max_time_s`` (exact up to the cut-off).
+        Map arrivals up to this time: the window read is the free-fall disc of radius
+        ``sqrt(v0² + 2 g (z_start - z_min)) * max_time_s`` and the search itself stops
+        at the cut-off (exact up to it, NaN beyond).
     max_distance_m : float, optional
         Confine lines to the disc of this plan radius around the start.
     keepout : Keepout or bool mask, optional
@@ -505,7 +530,8 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
     -------
     ReachMap
         On the window; ``stats`` adds ``cutoff`` (radius_m, max_time_s, max_distance_m,
-        window shape).
+        window shape, which bounds applied).  With ``max_time_s`` the kernel stops at
+        the cut-off (``stats["labels_cut_off"]`` labels were not queued).
 
     Examples
     --------
@@ -542,23 +568,22 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
     neighbours = int(reach_kwargs.get("neighbours", 16))
     limits = reach_kwargs.get("limits") or Limits()
     win, m = src.window(_box([(x, y)], radius + src.cell))
-    _check_memory(win.z.size, "the reach search", neighbours=neighbours, legs=1,
-                  turn_limit=limits.max_turn_deg is not None, max_per_cell=reach_kwargs.get("max_per_cell"),
-                  memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True)
     rr, cc = np.mgrid[0:win.shape[0], 0:win.shape[1]]
     cx, cy = win.cell_center(rr, cc)
     out = np.hypot(cx - x, cy - y) > radius
+    del rr, cc, cx, cy
     if m is not None:
         out |= m
-    rm = reach(win, start, mover, keepout=_keep_for(src, win, out), **reach_kwargs)
-    tt, vv = rm.time_s.copy(), rm.speed_m_s.copy()
-    if max_time_s is not None:
-        late = ~(tt <= float(max_time_s))
-        tt[late] = np.nan
-        vv[late] = np.nan
+    _check_memory(win.z.size, "the reach search", neighbours=neighbours, legs=1,
+                  turn_limit=limits.max_turn_deg is not None, max_per_cell=reach_kwargs.get("max_per_cell"),
+                  memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True,
+                  active_cells=int(np.count_nonzero(~out)))
+    rm = reach(win, start, mover, keepout=_keep_for(src, win, out), max_time_s=max_time_s, **reach_kwargs)
+    tt, vv = rm.time_s, rm.speed_m_s
     stats = dict(rm.stats)
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
-                       "window_shape": list(win.shape), "bound": "area window (no kernel cut-off)"}
+                       "window_shape": list(win.shape),
+                       "bound": "area window and kernel time cut-off" if max_time_s is not None else "area window"}
     stats["cells_reached"] = int(np.isfinite(tt).sum())
     return ReachMap(time_s=tt, speed_m_s=vv, transform=rm.transform, crs=rm.crs, start=rm.start, stats=stats)
 

@@ -45,6 +45,37 @@ from leg i to i+1 at via point i the bound is unchanged).
 Via points: a leg-i label settled at via point i is copied into leg i+1 (same t, v²,
 heading), so the whole Pareto set of arrivals at a via point seeds the next leg, not just
 the fastest one.
+
+Compact state
+-------------
+The per-state arrays (``emax``, ``open_t``, ``open_v2``, ``nset``) and, in reach mode,
+``best_t``/``best_v2`` hold one entry per *searchable* cell (× leg × heading), not per
+cell of the window: ``cidx`` (int32, one per window cell) maps a cell to its compact
+index, -1 where it is blocked (nodata, keep-out, outside a corridor).  A corridor a tenth
+of its bounding window thus needs a tenth of the state.  The window-sized inputs are the
+heights (float64), the blocked flags (bool, read on the hot edge test because a byte
+array is kinder to the cache than the int32 map) and ``cidx``.  Labels store the window
+flat index of their node (int32) and their parent's pool index (int32); the heap holds
+int32 pool indices.  A blocked cell is never the end of an edge (its touched cells
+include both ends), so the compact index is only ever looked up for searchable cells.
+The relabelling changes nothing else: the same labels are created, in the same order,
+as with the full-window layout (``cidx`` = flat index; checked in the tests).
+
+Float precision: all times, squared speeds and heap keys stay float64.  ``emax`` and
+``open_v2`` are compared with a tolerance of ``1e-10`` relative (default), far below
+float32 resolution (6e-8), and ``t`` accumulates over thousands of segments; in float32
+the dominance tests and the times - so the answer - would change.  Saving is done by
+sizing, not by precision.
+
+Time cut-off
+------------
+``t_max``: a label later than ``t_max`` is neither queued nor settled, so a reach stops
+expanding at the cut-off.  The arrivals up to ``t_max`` are those of the uncut search:
+time only grows along a line, so every label up to ``t_max`` descends from labels up to
+``t_max``, and all of those pop before any later label (keys are times in reach mode);
+the decrease-key test at a state sees the same earlier labels whenever one of them is
+up to ``t_max``.  (Exact ties in time may be broken in another order; the times are the
+same.)
 """
 
 from __future__ import annotations
@@ -73,7 +104,8 @@ C_SPEED = 7
 C_TURN = 8
 C_UPHILL = 9
 C_CAPPED = 10
-N_COUNTERS = 11
+C_CUTOFF = 11
+N_COUNTERS = 12
 
 
 @njit(cache=True, nogil=True)
@@ -148,26 +180,60 @@ def _heuristic(node, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v):
     return (math.sqrt(dx * dx + dy * dy + dz * dz) + remaining[leg]) * inv_v
 
 
+
+@njit(cache=True, nogil=True, inline="always")
+def _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize,
+                t, v2, node, parent, leg, hd, key):
+    """Append a label to the pool and queue it under ``key`` (both double when full).
+
+    Returns the (possibly reallocated) arrays and the new pool and heap sizes.
+    """
+    if n_lab >= Lt.shape[0]:
+        cap = 2 * Lt.shape[0]
+        Lt = _grow_f8(Lt, cap)
+        Lv2 = _grow_f8(Lv2, cap)
+        Lnode = _grow_i4(Lnode, cap)
+        Lpar = _grow_i4(Lpar, cap)
+        Lleg = _grow_i1(Lleg, cap)
+        Lhd = _grow_i1(Lhd, cap)
+    Lt[n_lab] = t
+    Lv2[n_lab] = v2
+    Lnode[n_lab] = node
+    Lpar[n_lab] = parent
+    Lleg[n_lab] = leg
+    Lhd[n_lab] = hd
+    if hsize >= hkey.shape[0]:
+        hcap = 2 * hkey.shape[0]
+        hkey = _grow_f8(hkey, hcap)
+        hidx = _grow_i4(hidx, hcap)
+    hsize = _heap_push(hkey, hidx, hsize, key, n_lab)
+    return Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab + 1, hkey, hidx, hsize
+
+
 @njit(cache=True, nogil=True)
-def search(z, blocked, rows, cols, cell,
+def search(z, blocked, cidx, nact, rows, cols, cell,
            off_dr, off_dc, off_plan,
            brk_start, brk_u, brk_fa, brk_fb, brk_w,
            tch_start, tch_flat,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol_abs, tol_rel, max_labels, init_cap, max_per_cell):
+           tol_abs, tol_rel, max_labels, init_cap, max_per_cell, t_max):
     """Run the label-setting search.
 
-    ``targets`` empty: reach mode (every cell, no heuristic).  Otherwise the legs end at
-    ``targets[i]`` (flat indices) and the search stops at the first label settled at the
-    last target.  ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the
-    edge's start cell (valid because every referenced cell lies inside the edge's
-    bounding box, which is inside the grid when both ends are).  The dominance
-    tolerance on v² is ``tol_abs + tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most
-    that many settled labels per (leg, node[, heading]) - the earliest ones - and drops
-    later arrivals (an approximation, counted in ``C_CAPPED``); 0 keeps the exact
-    Pareto set.
+    ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
+    cell (``0 .. nact - 1``) and -1 for a blocked one (nodata, keep-out, outside the
+    corridor); the per-state arrays have ``nact`` entries per leg and heading.
+    ``targets`` empty: reach mode (every cell, no heuristic; ``best_t``/``best_v2`` are
+    indexed by compact index).  Otherwise the legs end at ``targets[i]`` (flat
+    indices) and the search stops at the first label settled at the last target.
+    ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the edge's start cell
+    (valid because every referenced cell lies inside the edge's bounding box, which is
+    inside the grid when both ends are).  The dominance tolerance on v² is ``tol_abs +
+    tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most that many settled labels per
+    (leg, node[, heading]) - the earliest ones - and drops later arrivals (an
+    approximation, counted in ``C_CAPPED``); 0 keeps the exact Pareto set.  Labels
+    later than ``t_max`` are neither queued nor settled (``C_CUTOFF``; ``inf``: none).
 
     Returns
     -------
@@ -178,7 +244,7 @@ def search(z, blocked, rows, cols, cell,
     nk = off_dr.shape[0]
     nlegs = targets.shape[0]
     reach_mode = nlegs == 0
-    nstate = ncell if reach_mode else ncell * nlegs
+    nstate = nact if reach_mode else nact * nlegs
     nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
 
@@ -190,17 +256,16 @@ def search(z, blocked, rows, cols, cell,
         tgt_c[i] = targets[i] - tgt_r[i] * cols
         tgt_z[i] = z[targets[i]]
 
-    cap = init_cap
-    Lt = np.empty(cap, dtype=np.float64)
-    Lv2 = np.empty(cap, dtype=np.float64)
-    Lnode = np.empty(cap, dtype=np.int32)
-    Lpar = np.empty(cap, dtype=np.int32)
-    Lleg = np.empty(cap, dtype=np.int8)
-    Lhd = np.empty(cap, dtype=np.int8)
-    hcap = init_cap
-    hkey = np.empty(hcap, dtype=np.float64)
-    hidx = np.empty(hcap, dtype=np.int32)
+    Lt = np.empty(init_cap, dtype=np.float64)
+    Lv2 = np.empty(init_cap, dtype=np.float64)
+    Lnode = np.empty(init_cap, dtype=np.int32)
+    Lpar = np.empty(init_cap, dtype=np.int32)
+    Lleg = np.empty(init_cap, dtype=np.int8)
+    Lhd = np.empty(init_cap, dtype=np.int8)
+    hkey = np.empty(init_cap, dtype=np.float64)
+    hidx = np.empty(init_cap, dtype=np.int32)
     hsize = 0
+    n_lab = 0
     # Highest v² settled so far per (leg, node[, heading]).  Labels settle at a node in
     # order of t (the heuristic is a function of the node), so every settled label is no
     # later than any label still to come there: a newcomer is dominated exactly when
@@ -213,24 +278,18 @@ def search(z, blocked, rows, cols, cell,
     capped = max_per_cell > 0
     nset = np.zeros(nstate * nh if capped else 1, dtype=np.int32)
     if reach_mode:
-        best_t = np.full(ncell, np.nan)
-        best_v2 = np.full(ncell, np.nan)
+        best_t = np.full(nact, np.nan)
+        best_v2 = np.full(nact, np.nan)
     else:
         best_t = np.full(1, np.nan)
         best_v2 = np.full(1, np.nan)
 
-    Lt[0] = 0.0
-    Lv2[0] = v2_start
-    Lnode[0] = start
-    Lpar[0] = -1
-    Lleg[0] = 0
-    Lhd[0] = -1
-    n_lab = 1
-    counters[C_CREATED] = 1
     key0 = 0.0
     if not reach_mode:
         key0 = _heuristic(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-    hsize = _heap_push(hkey, hidx, hsize, key0, 0)
+    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
+        Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, 0.0, v2_start, start, -1, 0, -1, key0)
+    counters[C_CREATED] = 1
 
     status = NOT_REACHED
     final = -1
@@ -245,7 +304,8 @@ def search(z, blocked, rows, cols, cell,
         t0 = Lt[li]
         v20 = Lv2[li]
         hd = Lhd[li]
-        s = n if reach_mode else leg * ncell + n
+        cn = cidx[n]
+        s = cn if reach_mode else leg * nact + cn
         slot = s * nh + (hd + 1 if use_heading else 0)
         if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
             counters[C_DOMINATED] += 1
@@ -261,9 +321,9 @@ def search(z, blocked, rows, cols, cell,
         c = n - r * cols
 
         if reach_mode:
-            if math.isnan(best_t[n]):
-                best_t[n] = t0
-                best_v2[n] = v20
+            if math.isnan(best_t[cn]):
+                best_t[cn] = t0
+                best_v2[cn] = v20
         else:
             dr_ = r - tgt_r[leg]
             dc_ = c - tgt_c[leg]
@@ -280,33 +340,14 @@ def search(z, blocked, rows, cols, cell,
                 # switch legs: seed the next leg with this arrival (the whole Pareto
                 # set at the via point passes through here, one label at a time)
                 nleg = leg + 1
-                s2 = (nleg * ncell + n) * nh + (hd + 1 if use_heading else 0)
+                s2 = ((nleg * nact + cn) * nh) + (hd + 1 if use_heading else 0)
                 if emax[s2] >= v20 - (tol_abs + tol_rel * v20):
                     counters[C_DOMINATED] += 1
                     continue
-                if n_lab >= cap:
-                    cap *= 2
-                    Lt = _grow_f8(Lt, cap)
-                    Lv2 = _grow_f8(Lv2, cap)
-                    Lnode = _grow_i4(Lnode, cap)
-                    Lpar = _grow_i4(Lpar, cap)
-                    Lleg = _grow_i1(Lleg, cap)
-                    Lhd = _grow_i1(Lhd, cap)
-                q = n_lab
-                n_lab += 1
+                key = t0 + _heuristic(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
+                    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, t0, v20, n, li, nleg, hd, key)
                 counters[C_CREATED] += 1
-                Lt[q] = t0
-                Lv2[q] = v20
-                Lnode[q] = n
-                Lpar[q] = li
-                Lleg[q] = nleg
-                Lhd[q] = hd
-                if hsize >= hcap:
-                    hcap *= 2
-                    hkey = _grow_f8(hkey, hcap)
-                    hidx = _grow_i4(hidx, hcap)
-                hsize = _heap_push(hkey, hidx, hsize,
-                                   t0 + _heuristic(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v), q)
                 continue
 
         if n_lab >= max_labels:
@@ -374,45 +415,30 @@ def search(z, blocked, rows, cols, cell,
                 uprev = uq
             if not ok:
                 continue
-            sm = (m if reach_mode else leg * ncell + m) * nh + (kk + 1 if use_heading else 0)
+            tn = t0 + te
+            if tn > t_max:
+                counters[C_CUTOFF] += 1
+                continue
+            cm = cidx[m]
+            sm = (cm if reach_mode else leg * nact + cm) * nh + (kk + 1 if use_heading else 0)
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
                 continue
             if capped and nset[sm] >= max_per_cell:
                 counters[C_CAPPED] += 1
                 continue
-            tn = t0 + te
             if tn >= open_t[sm] and v2 <= open_v2[sm] + (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
                 continue
             if tn < open_t[sm]:
                 open_t[sm] = tn
                 open_v2[sm] = v2
-            if n_lab >= cap:
-                cap *= 2
-                Lt = _grow_f8(Lt, cap)
-                Lv2 = _grow_f8(Lv2, cap)
-                Lnode = _grow_i4(Lnode, cap)
-                Lpar = _grow_i4(Lpar, cap)
-                Lleg = _grow_i1(Lleg, cap)
-                Lhd = _grow_i1(Lhd, cap)
-            q = n_lab
-            n_lab += 1
-            counters[C_CREATED] += 1
-            Lt[q] = tn
-            Lv2[q] = v2
-            Lnode[q] = m
-            Lpar[q] = li
-            Lleg[q] = leg
-            Lhd[q] = kk
             key = tn
             if not reach_mode:
                 key += _heuristic(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-            if hsize >= hcap:
-                hcap *= 2
-                hkey = _grow_f8(hkey, hcap)
-                hidx = _grow_i4(hidx, hcap)
-            hsize = _heap_push(hkey, hidx, hsize, key, q)
+            Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
+                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, tn, v2, m, li, leg, kk, key)
+            counters[C_CREATED] += 1
 
     return (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2,
             closest, counters)

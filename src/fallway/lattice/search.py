@@ -133,8 +133,26 @@ class _Problem:
         gmax = math.hypot(steepest(1), steepest(0)) / self.cell
         return mover.g * (gmax - mover.mu) / math.sqrt(1.0 + gmax * gmax)
 
+    def index(self, compact: bool = True) -> tuple[np.ndarray, int]:
+        """Compact index of the searchable cells (int32, -1 where blocked) and their count.
+
+        ``compact=False`` gives the full-window layout (index = flat cell index, count =
+        all cells of the window): the same search, the per-state arrays sized for the
+        whole window (kept for tests and benchmarks).
+        """
+        free = ~self.blocked
+        cidx = np.full(free.size, -1, dtype=np.int32)
+        if compact:
+            nact = int(np.count_nonzero(free))
+            cidx[free] = np.arange(nact, dtype=np.int32)
+        else:
+            nact = int(free.size)
+            cidx[free] = np.flatnonzero(free).astype(np.int32)
+        return cidx, nact
+
     def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
-            max_labels: int | None, max_per_cell: int | None = None):
+            max_labels: int | None, max_per_cell: int | None = None, max_time_s: float | None = None,
+            compact: bool = True):
         m = self.mover
         v2_start = m.v0 * m.v0
         v2_scale = v2_start + 2.0 * m.g * max(self.z[start] - self.zmin, 0.0)
@@ -165,16 +183,28 @@ class _Problem:
             vbound = min(vbound, math.sqrt(self.v2_max))
         inv_v = 1.0 / vbound if (heuristic and len(tg) and vbound > 0.0) else 0.0
         budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
+        t_max = math.inf if max_time_s is None else float(max_time_s)
+        if not t_max > 0.0:
+            raise ParameterError(f"max_time_s must be a positive number of seconds, got {max_time_s!r}")
+        cidx, nact = self.index(compact)
         t0 = time.perf_counter()
-        out = _k.search(self.z, self.blocked, self.rows, self.cols, self.cell,
+        out = _k.search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
                         self.off_dr, self.off_dc, self.off_plan,
                         self.brk_start, self.brk_u, self.brk_fa, self.brk_fb, self.brk_w,
                         self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
                         m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
                         int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
-                        int(max_per_cell or 0))
+                        int(max_per_cell or 0), t_max)
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
+        if len(tg) == 0:  # reach: compact index -> window cells
+            sel = cidx >= 0
+            bt = np.full(cidx.size, np.nan)
+            bv = np.full(cidx.size, np.nan)
+            bt[sel] = best_t[cidx[sel]]
+            bv[sel] = best_v2[cidx[sel]]
+            best_t, best_v2 = bt, bv
+        del cidx
         stats = {
             "labels_created": int(counters[_k.C_CREATED]),
             "labels_settled": int(counters[_k.C_SETTLED]),
@@ -185,6 +215,8 @@ class _Problem:
             "rejected_turn": int(counters[_k.C_TURN]),
             "rejected_blocked": int(counters[_k.C_BLOCKED]),
             "labels_capped": int(counters[_k.C_CAPPED]),
+            "labels_cut_off": int(counters[_k.C_CUTOFF]),
+            "state_cells": int(nact),
             "max_per_cell": int(max_per_cell or 0),
             "exact": bool(counters[_k.C_CAPPED] == 0 and self.v2_max == math.inf),
             "search_s": float(elapsed),
@@ -402,17 +434,28 @@ def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits,
 
 
 def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits | None = None, keepout=None,
-          energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None):
+          energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None,
+          max_time_s: float | None = None):
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
     Parameters are those of :func:`lattice_line` (``start`` snaps to the nearest cell
     centre).  The speed is that of the earliest label (a later, faster arrival may exist).
 
+    Parameters
+    ----------
+    max_time_s : float, optional
+        Time cut-off: labels later than this are neither queued nor settled, so the
+        search stops expanding at the cut-off.  Every arrival up to ``max_time_s`` is
+        the one the uncut search finds (a line's time only grows along it, so every
+        label up to the cut-off descends from labels up to the cut-off, and all of them
+        are settled before any later one); cells reached later are NaN.
+
     Returns
     -------
     ReachMap
         ``time_s`` and ``speed_m_s`` (NaN where unreachable), the terrain's transform
-        and CRS, and search statistics.
+        and CRS, and search statistics (``labels_cut_off``: labels dropped by the
+        cut-off; ``state_cells``: cells the per-state arrays were sized for).
 
     Examples
     --------
@@ -433,13 +476,15 @@ def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits 
         raise NoFeasibleLine(f"start ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
                              reason="keepout", closest=None)
     prob = _Problem(terrain, mover, neighbours, limits, keep)
-    res = prob.run(s, [], heuristic=False, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
+    res = prob.run(s, [], heuristic=False, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell,
+                   max_time_s=max_time_s)
     shape = terrain.shape
     tt = res["best_t"].reshape(shape)
     vv = np.sqrt(res["best_v2"]).reshape(shape)
     stats = dict(res["stats"])
     stats["cells_reached"] = int(np.isfinite(tt).sum())
     stats["complete"] = res["status"] != _k.LABEL_BUDGET
+    stats["max_time_s"] = None if max_time_s is None else float(max_time_s)
     return ReachMap(time_s=tt, speed_m_s=vv, transform=terrain.transform, crs=terrain.crs,
                     start=tuple(float(v) for v in _cell_xy(terrain, s)), stats=stats)
 
