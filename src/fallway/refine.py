@@ -35,6 +35,7 @@ from numba import njit
 from scipy.optimize import minimize
 
 from ._segment import segment_law
+from ._traverse import _STRAIGHT_RAD, bend_kdg, full_segment_step
 from .errors import FallwayError, ParameterError, RefinementWarning
 from .limits import Limits
 from .physics import Mover, Profile
@@ -274,6 +275,154 @@ def _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
         grad[j, 2] -= gz
         lam = Gu + du_dpen[j]
     return T, pen, grad, u
+
+
+# ---------------------------------------------------------------------------------------
+# the full normal-force model (fallway._traverse) and its reverse pass
+
+
+@njit(cache=True, nogil=True)
+def _full_seg(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
+    """One segment of ``traverse_kernel``'s full model from the local vertices ``Q`` (4, 3):
+    rows P[j-1], P[j], P[j+1], P[j+2] relative to P[j] (rows 0 / 3 used when ``has_a`` /
+    ``has_b``: the segment's start / end vertex is interior and carries curvature).
+    Same geometry as ``vertex_geometry`` + ``bend_kdg``; returns ``(v2_out, time_s, stall_at_m)``."""
+    dx = Q[2, 0] - Q[1, 0]
+    dy = Q[2, 1] - Q[1, 1]
+    dz = Q[2, 2] - Q[1, 2]
+    s = math.sqrt(dx * dx + dy * dy + dz * dz)
+    tx, ty, tz = dx / s, dy / s, dz / s
+    drop = -dz
+    plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
+    ka = 0.0
+    kdg_a = 0.0
+    kb = 0.0
+    kdg_b = 0.0
+    for side in range(2):
+        if side == 0 and not has_a:
+            continue
+        if side == 1 and not has_b:
+            continue
+        if side == 0:
+            ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
+        else:
+            ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
+        so = math.sqrt(ex * ex + ey * ey + ez * ez)
+        ox, oy, oz = ex / so, ey / so, ez / so
+        # a: turn from the previous direction o to t; b: from t to the next direction o
+        if side == 0:
+            ax, ay, az, bx, by, bz = ox, oy, oz, tx, ty, tz
+        else:
+            ax, ay, az, bx, by, bz = tx, ty, tz, ox, oy, oz
+        cx = ay * bz - az * by
+        cy = az * bx - ax * bz
+        cz = ax * by - ay * bx
+        phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
+        nx, ny, nz = bx - ax, by - ay, bz - az
+        nn = math.sqrt(nx * nx + ny * ny + nz * nz)
+        if phi <= _STRAIGHT_RAD or nn <= 0.0:
+            continue
+        kap = phi / (0.5 * (so + s))
+        kdg = bend_kdg(kap, nx / nn, ny / nn, nz / nn, tx, ty, tz, g)
+        if side == 0:
+            ka, kdg_a = kap, kdg
+        else:
+            kb, kdg_b = kap, kdg
+    un, t, at, _ = full_segment_step(u, drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k, 0.0)
+    if at >= 0.0 and u_floor > 0.0:
+        # stalled: a continuous extension for the optimiser (the exit speed clamped to
+        # the floor, the time of a constant deceleration, and a penalty on the part of
+        # the segment not reached), so a line search can step back from it
+        va = math.sqrt(u) if u > 0.0 else 0.0
+        miss = (s - min(at, s)) / s
+        return u_floor, 2.0 * s / (va + math.sqrt(u_floor)) + w_stall * miss * miss, at
+    return un, t, at
+
+
+@njit(cache=True, nogil=True)
+def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, u_floor=0.0, w_stall=0.0):
+    """Full-model travel time of the polyline P (N, 3), speed penalties and the gradient.
+
+    Forward: the segment recursion of ``traverse_kernel`` (full model).  Reverse: the
+    adjoint of that recursion, ``λ_j = ∂t_j/∂u_j + λ_{j+1} ∂u_{j+1}/∂u_j`` and
+    ``∂T/∂P += ∂t_j/∂P + λ_{j+1} ∂u_{j+1}/∂P`` over the four vertices each segment
+    depends on (its ends and, through the curvature at its ends, their outer
+    neighbours); the local partials of one segment step are central differences in
+    the segment's own frame (steps of 1e-6 of its length / of v²), the chain itself is
+    exact.  ``eps_plan`` > 0 smooths the plan length, sqrt(plan² + eps²), as in
+    :func:`_chain` (the friction of a vertical segment is otherwise a kink).  Returns
+    ``(time_s, penalty, grad (N, 3), u (N,), ok)``; ``ok`` False when
+    the mover stalls (time inf).
+    """
+    n = P.shape[0]
+    m = n - 1
+    u = np.zeros(n)
+    u[0] = u0
+    grad = np.zeros((n, 3))
+    du_dpen = np.zeros(n)
+    T = 0.0
+    pen = 0.0
+    Q = np.zeros((4, 3))
+    stalled = False
+    for j in range(m):
+        has_a = j >= 1
+        has_b = j + 1 <= n - 2
+        for r in range(4):
+            i = j - 1 + r
+            if 0 <= i < n:
+                for c in range(3):
+                    Q[r, c] = P[i, c] - P[j, c]
+        un, t, at = _full_seg(u[j], Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+        if not math.isfinite(t):
+            return math.inf, 0.0, grad, u, False
+        if at >= 0.0:
+            stalled = True
+        u[j + 1] = un
+        T += t
+        if u_max > 0.0 and un > u_max:
+            pen += w_pen * (un - u_max) ** 2
+            du_dpen[j + 1] += 2.0 * w_pen * (un - u_max)
+        if u_stall > 0.0 and un < u_stall and un < u[j]:
+            pen += w_pen * (u_stall - un) ** 2
+            du_dpen[j + 1] -= 2.0 * w_pen * (u_stall - un)
+    if not want_grad:
+        return T, pen, grad, u, not stalled
+    lam = du_dpen[n - 1]
+    Qp = np.zeros((4, 3))
+    for j in range(m - 1, -1, -1):
+        has_a = j >= 1
+        has_b = j + 1 <= n - 2
+        for r in range(4):
+            i = j - 1 + r
+            if 0 <= i < n:
+                for c in range(3):
+                    Q[r, c] = P[i, c] - P[j, c]
+        s = math.sqrt((Q[2, 0] - Q[1, 0]) ** 2 + (Q[2, 1] - Q[1, 1]) ** 2 + (Q[2, 2] - Q[1, 2]) ** 2)
+        h = 1e-6 * s
+        for r in range(4):
+            if (r == 0 and not has_a) or (r == 3 and not has_b):
+                continue
+            for c in range(3):
+                for q in range(4):
+                    for cc in range(3):
+                        Qp[q, cc] = Q[q, cc]
+                Qp[r, c] = Q[r, c] + h
+                up, tp, ap = _full_seg(u[j], Qp, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                Qp[r, c] = Q[r, c] - h
+                um, tm, am = _full_seg(u[j], Qp, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                if (ap >= 0.0 or am >= 0.0) and u_floor <= 0.0:
+                    continue
+                grad[j - 1 + r, c] += ((tp - tm) + lam * (up - um)) / (2.0 * h)
+        gu = 0.0
+        if j >= 1:
+            hu = 1e-6 * u[j]
+            if hu > 0.0:
+                up, tp, ap = _full_seg(u[j] + hu, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                um, tm, am = _full_seg(u[j] - hu, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                if (ap < 0.0 and am < 0.0) or u_floor > 0.0:
+                    gu = ((tp - tm) + lam * (up - um)) / (2.0 * hu)
+        lam = gu + du_dpen[j]
+    return T, pen, grad, u, not stalled
 
 
 # ---------------------------------------------------------------------------------------
@@ -813,6 +962,26 @@ def _radius_penalty(P, r_min, w, margin):
     return val, grad
 
 
+def _spacing_penalty(P, w):
+    """w·Σ ln²(s_{j+1}/s_j): keeps neighbouring segment lengths alike.  The full model's
+    discrete curvature (turning angle over the mean of the adjoining lengths) converges to
+    the curve's only for a smoothly varying spacing; without this the full-model polish
+    gains time by bunching vertices (a short segment beside a long one spreads a corner's
+    friction over the long one)."""
+    d = np.diff(P, axis=0)
+    s = np.maximum(np.linalg.norm(d, axis=1), 1e-12)
+    r = np.log(s[1:] / s[:-1])
+    val = w * float(np.sum(r * r))
+    ds = np.zeros_like(s)
+    ds[1:] += 2.0 * w * r / s[1:]
+    ds[:-1] -= 2.0 * w * r / s[:-1]
+    gd = d * (ds / s)[:, None]
+    grad = np.zeros_like(P)
+    grad[1:] += gd
+    grad[:-1] -= gd
+    return val, grad
+
+
 def _field_penalty(P, fld, w, margin, h):
     """Exterior penalty w·(margin - d)² at vertices and at segment quarter points."""
     n = len(P)
@@ -1157,6 +1326,27 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
             iters += it
             converged, residual = ok, res
+        if mover.normal == "full" and P.shape[0] >= 3:
+            # full-model polish, coarse to fine again: each level starts from the previous
+            # level's polished line with its vertex density kept
+            t_grav = _full_chain(P, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+            Pf, it_sum, ok_p = None, 0, True
+            for n in sizes:
+                Pn = opt.project(_refine_density(P if Pf is None else Pf, n, True), P_start)
+                if Pf is None and n == len(P):
+                    Pn = P
+                Pn, it_p, res_p, ok_p, _ = _polish(opt, Pn, P_start, max_iter, gtol)
+                it_sum += it_p
+                Pf = Pn
+            t_full = _full_chain(Pf, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+            iters += it_sum
+            if math.isfinite(t_full) and t_full < t_grav and _meets(opt.violations(Pf), _traverse(Pf, mover)):
+                P = Pf
+                residual = res_p
+                converged = converged and ok_p
+                notes.append(f"full-model polish {t_grav:.6f} s -> {t_full:.6f} s in {it_sum} iterations")
+            else:
+                notes.append("full-model polish found nothing faster than the gravity-normal optimum")
         status = opt.violations(P)
         if status.get("min_radius") == "violated":
             # the penalty leaves a few tight triples: smooth them out locally
@@ -1164,9 +1354,6 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             status = opt.violations(P)
         prof = _traverse(P, mover)
         time_after = prof.travel_time_s
-        if mover.normal == "full":
-            notes.append("optimised on the gravity-normal functional, timed with the full model "
-                         "(no full-model polish)")
         return _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start,
                        P_round)
     except FallwayError:
@@ -1239,6 +1426,99 @@ def _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_st
            f"{', '.join(bad)} ({time_before:.6f} s -> {pr.travel_time_s:.6f} s)")
     warnings.warn(msg, RefinementWarning, stacklevel=3)
     return RefineResult(L.copy(), pr, iters, residual, False, time_before, pr.travel_time_s, msg, st)
+
+
+def _normal_basis(X, k):
+    """Per interior vertex, an orthonormal basis of the directions normal to the line in
+    variable space (k variables per vertex: the line's tangent there is the central
+    difference of its neighbours).  Shape (m, k, k - 1)."""
+    V = X.reshape(-1, k)
+    T = np.empty_like(V)
+    T[1:-1] = V[2:] - V[:-2]
+    if len(V) > 1:
+        T[0] = V[1] - V[0]
+        T[-1] = V[-1] - V[-2]
+    else:
+        T[0] = np.eye(k)[0]
+    T /= np.maximum(np.linalg.norm(T, axis=1), 1e-300)[:, None]
+    B = np.empty((len(V), k, k - 1))
+    if k == 2:
+        B[:, 0, 0] = -T[:, 1]
+        B[:, 1, 0] = T[:, 0]
+        return B
+    # k == 3: plan normal (horizontal), then the normal in the vertical plane of the tangent
+    n1 = np.column_stack([-T[:, 1], T[:, 0], np.zeros(len(T))])
+    bad = np.linalg.norm(n1, axis=1) < 1e-6
+    n1[bad] = [0.0, 1.0, 0.0]
+    n1 -= T * np.sum(n1 * T, axis=1)[:, None]
+    n1 /= np.linalg.norm(n1, axis=1)[:, None]
+    n2 = np.cross(T, n1)
+    B[:, :, 0] = n1
+    B[:, :, 1] = n2
+    return B
+
+
+def _polish(opt, P, P_start, max_iter, gtol):
+    """Full-model polish: from the gravity-normal optimum, minimise the full model's own
+    travel time (centripetal part of the normal force, discrete turning-angle curvature,
+    as ``traverse``) with the same limits and bounds; the gradient is the adjoint of the
+    full-model recursion (:func:`_full_chain`).
+
+    The vertices move normal to the line only: their spacing stays the gravity optimum's
+    (equidistributed) one.  With free tangential motion the optimiser learns to bunch
+    vertices in pairs, which the discrete curvature (turning angle over the mean adjoining
+    length) rewards with less friction than the curve it samples: lines faster than the
+    continuous optimum.  The friction of a vertical (free-fall) segment is a kink, so the
+    plan length is smoothed, sqrt(plan² + eps²), with eps lowered to 0 in three stages.
+    Kept only when its full-model time is lower.  Returns
+    ``(P, iterations, residual, ok, note)``."""
+    mv = opt.mover
+    u0 = mv.v0 ** 2
+
+    def full_time(Q):
+        return _full_chain(Q, u0, mv.g, mv.mu, mv.drag, 0.0, -1.0, -1.0, False)[0]
+
+    t0 = full_time(P)
+    ends = (P[0].copy(), P[-1].copy())
+    k = opt.nvar()
+    bnds = opt.bounds(len(P) - 2)
+    lo = np.array([b[0] for b in bnds])
+    hi = np.array([b[1] for b in bnds])
+    seg = float(np.mean(np.linalg.norm(np.diff(P, axis=0), axis=1)))
+    X = np.clip(opt.to_vars(P), lo, hi)
+    nit = 0
+    res = math.inf
+    ok = False
+    opt.full = True
+    try:
+        for eps in (0.1 * seg, 0.01 * seg, 0.0):
+            opt.eps_full = eps
+            X0 = X
+            B = _normal_basis(X0, k)
+
+            def fun(xi, X0=X0, B=B):
+                Xc = np.clip(X0 + np.einsum("ikj,ij->ik", B, xi.reshape(len(B), k - 1)).ravel(), lo, hi)
+                f, g = opt.fg(Xc, ends)
+                return f, np.einsum("ikj,ik->ij", B, g.reshape(-1, k)).ravel()
+
+            f0 = fun(np.zeros(len(B) * (k - 1)))[0]
+            with _OneBlasThread(), np.errstate(all="ignore"):
+                r = minimize(fun, np.zeros(len(B) * (k - 1)), jac=True, method="L-BFGS-B",
+                             options={"maxiter": max_iter, "maxcor": _MAXCOR, "ftol": _FTOL, "gtol": gtol,
+                                      "maxls": 40})
+            nit += int(r.nit)
+            if r.fun <= f0:
+                X = np.clip(X0 + np.einsum("ikj,ij->ik", B, r.x.reshape(len(B), k - 1)).ravel(), lo, hi)
+            res = float(np.max(np.abs(r.jac))) if r.jac.size else 0.0
+            ok = bool(r.success)
+    finally:
+        opt.full = False
+        opt.eps_full = 0.0
+    Q = opt.to_points(X, ends)
+    t1 = full_time(Q)
+    if math.isfinite(t1) and t1 < t0:
+        return Q, nit, res, ok, f"full-model polish {t0:.6f} s -> {t1:.6f} s in {nit} iterations"
+    return P, nit, res, ok, "full-model polish found nothing faster than the gravity-normal optimum"
 
 
 def _repair_radius(opt, P, P_start, r_min, sweeps=400):
@@ -1323,6 +1603,11 @@ class _Problem:
         self.u_floor = 1e-8 * g * cell
         self.u_max = (mover.max_speed * (1 - 1e-4)) ** 2 if mover.max_speed is not None else -1.0
         self.u_stall = (mover.stall_speed * (1 + 1e-4)) ** 2 if mover.stall_speed > 0 else -1.0
+        #: optimise the full normal-force model's time (the polish) instead of the gravity one,
+        #: with the plan length smoothed by ``eps_full`` (m)
+        self.full = False
+        self.eps_full = 0.0
+        self.w_spacing = 0.0
 
     # variables: interior vertices; ground (x, y), raised (x, y, h above ground)
     def nvar(self):
@@ -1376,15 +1661,28 @@ class _Problem:
 
     def speeds(self, P):
         mv = self.mover
+        if self.full or mv.normal == "full":
+            u = _full_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, 0.0, -1.0, -1.0, False)[3]
+            return u
         return _chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor, 0.0, -1.0, -1.0)[3]
 
     def objective(self, P):
         """time + penalties and its gradient with respect to the vertices (N, 3)."""
         mv = self.mover
         # speed penalties act on v² (m²/s²): scaled so that 1 m²/s² costs ~1e-2 s at w = 1e4
-        T, pen, G, _ = _chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
-                              self.w_pen * 1e-6, self.u_max, self.u_stall)
+        if self.full:
+            T, pen, G, _, ok = _full_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.w_pen * 1e-6, self.u_max,
+                                           self.u_stall, True, self.eps_full, self.u_floor, 1e3)
+            if not math.isfinite(T):
+                return math.inf, G
+        else:
+            T, pen, G, _ = _chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
+                                  self.w_pen * 1e-6, self.u_max, self.u_stall)
         f = T + pen
+        if self.full and self.w_spacing > 0.0:
+            v, gg = _spacing_penalty(P, self.w_spacing)
+            f += v
+            G += gg
         lim = self.limits
         if math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade):
             v, gg = _grade_penalty(P, lim.min_grade, lim.max_grade, self.w_pen, 1e-3, self.eps_plan)
@@ -1405,7 +1703,7 @@ class _Problem:
         """The compiled table when the objective is the bare chain on the ground interpolant."""
         lim = self.limits
         tab = self.gr.table
-        if (self.line != "ground" or tab is None or self.keep is not None or self.nodata is not None
+        if (self.full or self.line != "ground" or tab is None or self.keep is not None or self.nodata is not None
                 or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None):
             return None
         return tab
