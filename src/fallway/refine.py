@@ -50,8 +50,16 @@ _MAXCOR = 10
 _FTOL = 1e-11
 _WINDOW = 25
 _STAT_TOL = 1e-9
+_STAT_TOL_COARSE = 1e-7
 #: iterations between restarts of L-BFGS-B with a fresh preconditioner
 _CHUNK = 100
+#: full-model polish: stationarity tolerance (relative fall of the time over _WINDOW
+#: iterations) and the iteration budget of a level, in vertex-iterations
+_POLISH_TOL = 1e-8
+_POLISH_BUDGET = 20_000
+#: relative gain of the polish on the coarsest level below which only the finest line is
+#: polished (the gravity optimum is then already close to the full-model one)
+_POLISH_GAIN = 1e-3
 
 
 @dataclass(frozen=True, eq=False)
@@ -1307,10 +1315,14 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         for li, n in enumerate(sizes):
             if li > 0:
                 P = opt.project(_refine_density(P, n, smooth), P_start)
-            P, it, res, ok, msg = opt.solve(P, max_iter, gtol)
+            # a level before the last only has to give the next one its shape: a looser
+            # stationarity test there (the slow tangential sliding of its vertices is
+            # redone on the finer level anyway)
+            last = li == len(sizes) - 1
+            P, it, res, ok, msg = opt.solve(P, max_iter, gtol, stat_tol=None if last else _STAT_TOL_COARSE)
             iters += it
             converged, residual = ok, res
-            if not ok:
+            if not ok and last:
                 notes.append(f"level {li + 1} ({n} vertices): {msg}")
 
         # strengthen penalties while a limit is still violated
@@ -1331,20 +1343,35 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             # level's polished line with its vertex density kept
             t_grav = _full_chain(P, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
             Pf, it_sum, ok_p = None, 0, True
-            for n in sizes:
+            for li, n in enumerate(sizes):
+                if li == 1 and gain0 < _POLISH_GAIN:
+                    # the gravity optimum is already close to the full one: polish the
+                    # finest line only, from the gravity optimum
+                    cap = max(50, min(max_iter, _POLISH_BUDGET // max(len(P), 1)))
+                    Pf, it_p, res_p, ok_p, _ = _polish(opt, P, P_start, cap, gtol, (0.0,))
+                    it_sum += it_p
+                    break
                 Pn = opt.project(_refine_density(P if Pf is None else Pf, n, True), P_start)
                 if Pf is None and n == len(P):
                     Pn = P
-                Pn, it_p, res_p, ok_p, _ = _polish(opt, Pn, P_start, max_iter, gtol)
+                # the smoothing continuation on the first level only; later levels start
+                # close to their optimum and get an iteration budget by size
+                cap = max(50, min(max_iter, _POLISH_BUDGET // max(n, 1)))
+                if li == 0:
+                    tc0 = _full_chain(Pn, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+                Pn, it_p, res_p, ok_p, _ = _polish(opt, Pn, P_start, cap, gtol,
+                                                   (0.1, 0.01, 0.0) if li == 0 else (0.0,))
+                if li == 0:
+                    tc1 = _full_chain(Pn, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+                    gain0 = (tc0 - tc1) / tc0 if math.isfinite(tc0) and math.isfinite(tc1) else 1.0
                 it_sum += it_p
                 Pf = Pn
             t_full = _full_chain(Pf, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
             iters += it_sum
             if math.isfinite(t_full) and t_full < t_grav and _meets(opt.violations(Pf), _traverse(Pf, mover)):
                 P = Pf
-                residual = res_p
-                converged = converged and ok_p
-                notes.append(f"full-model polish {t_grav:.6f} s -> {t_full:.6f} s in {it_sum} iterations")
+                notes.append(f"full-model polish {t_grav:.6f} s -> {t_full:.6f} s in {it_sum} iterations"
+                             + ("" if ok_p else f" (stopped at its iteration budget, residual {res_p:.2g} s/m)"))
             else:
                 notes.append("full-model polish found nothing faster than the gravity-normal optimum")
         status = opt.violations(P)
@@ -1458,7 +1485,7 @@ def _normal_basis(X, k):
     return B
 
 
-def _polish(opt, P, P_start, max_iter, gtol):
+def _polish(opt, P, P_start, max_iter, gtol, stages=(0.1, 0.01, 0.0)):
     """Full-model polish: from the gravity-normal optimum, minimise the full model's own
     travel time (centripetal part of the normal force, discrete turning-angle curvature,
     as ``traverse``) with the same limits and bounds; the gradient is the adjoint of the
@@ -1491,8 +1518,8 @@ def _polish(opt, P, P_start, max_iter, gtol):
     ok = False
     opt.full = True
     try:
-        for eps in (0.1 * seg, 0.01 * seg, 0.0):
-            opt.eps_full = eps
+        for frac in stages:
+            opt.eps_full = frac * seg
             X0 = X
             B = _normal_basis(X0, k)
 
@@ -1502,15 +1529,24 @@ def _polish(opt, P, P_start, max_iter, gtol):
                 return f, np.einsum("ikj,ik->ij", B, g.reshape(-1, k)).ravel()
 
             f0 = fun(np.zeros(len(B) * (k - 1)))[0]
+            hist = []
+
+            def stop(intermediate_result):
+                # stationary: over the last _WINDOW iterations the time fell by less than
+                # _POLISH_TOL relatively
+                hist.append(float(intermediate_result.fun))
+                if len(hist) > _WINDOW and hist[-1 - _WINDOW] - hist[-1] <= _POLISH_TOL * abs(hist[-1]):
+                    raise StopIteration
+
             with _OneBlasThread(), np.errstate(all="ignore"):
-                r = minimize(fun, np.zeros(len(B) * (k - 1)), jac=True, method="L-BFGS-B",
+                r = minimize(fun, np.zeros(len(B) * (k - 1)), jac=True, method="L-BFGS-B", callback=stop,
                              options={"maxiter": max_iter, "maxcor": _MAXCOR, "ftol": _FTOL, "gtol": gtol,
                                       "maxls": 40})
             nit += int(r.nit)
             if r.fun <= f0:
                 X = np.clip(X0 + np.einsum("ikj,ij->ik", B, r.x.reshape(len(B), k - 1)).ravel(), lo, hi)
             res = float(np.max(np.abs(r.jac))) if r.jac.size else 0.0
-            ok = bool(r.success)
+            ok = bool(r.success) or (len(hist) > _WINDOW and r.nit < max_iter)
     finally:
         opt.full = False
         opt.eps_full = 0.0
@@ -1761,10 +1797,11 @@ class _Problem:
         sc = 1.0 / np.sqrt(diag)
         return sc * (np.median(hscale) / np.median(sc))
 
-    def solve(self, P, max_iter, gtol, ftol=None):
+    def solve(self, P, max_iter, gtol, ftol=None, stat_tol=None):
         """L-BFGS-B from P, restarted every ``_CHUNK`` iterations with a fresh diagonal
         preconditioner (the stiffness near a start from rest changes as vertices move)."""
         ftol = _FTOL if ftol is None else ftol
+        stol = _STAT_TOL if stat_tol is None else stat_tol
         ends = (P[0].copy(), P[-1].copy())
         X = self.to_vars(P)
         bnds = self.bounds(len(P) - 2)
@@ -1779,7 +1816,7 @@ class _Problem:
         stationary = False
 
         def is_stationary():
-            return len(hist) > _WINDOW and hist[-1 - _WINDOW] - hist[-1] <= _STAT_TOL * abs(hist[-1])
+            return len(hist) > _WINDOW and hist[-1 - _WINDOW] - hist[-1] <= stol * abs(hist[-1])
 
         def stop_when_stationary(intermediate_result):
             # the travel time is stationary: over the last _WINDOW iterations it fell by
