@@ -112,3 +112,21 @@ def test_no_line_meeting_the_limits_is_said_loudly():
         assert broken
         assert any(issubclass(w.category, RefinementWarning) for w in rec)
         assert "no line meeting the limits" in res.message
+
+
+def test_a_lattice_start_that_breaks_the_radius_gives_a_line_that_meets_it():
+    # an 8-neighbour staircase (diagonal, then straight steps of one cell) has a corner of
+    # circumradius ~1.6 m; with a 12 m limit the returned line must meet it, and a slower
+    # return than the start is allowed only with that said in the message
+    from test_refine import zigzag
+
+    t = plane_terrain(30.0)
+    pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
+    assert circumradii(pts).min() < 12.0
+    mover = Mover(mu=0.05, normal="full")
+    res = refine_line(t, pts, mover, limits=Limits(min_radius_m=12.0), n_vertices=41)
+    assert circumradii(res.line).min() >= 12.0 * (1 - RTOL)
+    assert res.limits["min_radius"] in ("inactive", "active")
+    assert res.time_after_s == pytest.approx(traverse(res.line, mover).travel_time_s, rel=1e-12)
+    if res.time_after_s > res.time_before_s:
+        assert "slower than the start line" in res.message

@@ -21,6 +21,22 @@ Vertex placement is part of the problem: the plan positions are free, so vertice
 along the line, and the line is refined coarse to fine with the vertices re-distributed
 between levels so that each segment takes a similar share of a blend of time and length
 (short segments where the line is slow, near a start from rest).
+
+Minimum bend radius: the start line's corners are rounded by arcs of the radius
+(``_fillet_plan``), resampling between levels goes through a cubic spline (a linear
+resampling puts vertices on chords, and three of them near a chord's end make an
+arbitrarily tight circumradius), and triples the exterior penalty leaves slightly too
+tight are smoothed locally (``_repair_radius``).
+
+Full normal-force model (``Mover(normal="full")``): after the gravity-normal optimum a
+polish minimises the full model's time itself, ``_full_chain``: the same segment
+recursion as ``fallway._traverse.traverse_kernel`` forward, and its adjoint in reverse,
+each segment step depending on four vertices (its ends and, through the discrete
+curvature at its ends, their outer neighbours); the local partials of one step are
+central differences in the segment's frame, the chain is exact.  The polish moves
+vertices normal to the line only (free tangential motion lets the optimiser bunch
+vertices so that the discrete curvature undercharges a bend), and smooths the kink of
+the friction of a vertical free fall (plan length sqrt(plan² + eps²), eps lowered to 0).
 """
 
 from __future__ import annotations
@@ -299,6 +315,8 @@ def _full_seg(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
     dy = Q[2, 1] - Q[1, 1]
     dz = Q[2, 2] - Q[1, 2]
     s = math.sqrt(dx * dx + dy * dy + dz * dz)
+    if s <= 1e-12:
+        return u, 0.0, -1.0  # a repeated vertex: no segment (traverse skips it too)
     tx, ty, tz = dx / s, dy / s, dz / s
     drop = -dz
     plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
@@ -316,6 +334,8 @@ def _full_seg(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
         else:
             ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
         so = math.sqrt(ex * ex + ey * ey + ez * ez)
+        if so <= 1e-12:
+            continue
         ox, oy, oz = ex / so, ey / so, ez / so
         # a: turn from the previous direction o to t; b: from t to the next direction o
         if side == 0:
@@ -406,6 +426,9 @@ def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0,
                 for c in range(3):
                     Q[r, c] = P[i, c] - P[j, c]
         s = math.sqrt((Q[2, 0] - Q[1, 0]) ** 2 + (Q[2, 1] - Q[1, 1]) ** 2 + (Q[2, 2] - Q[1, 2]) ** 2)
+        if s <= 1e-12:
+            lam = lam + du_dpen[j]
+            continue
         h = 1e-6 * s
         for r in range(4):
             if (r == 0 and not has_a) or (r == 3 and not has_b):
@@ -1195,11 +1218,20 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     points : array_like (K, 3)
         Start line (the lattice polyline), x, y and ground z in metres.
     mover : Mover
-        Physics; ``normal="gravity"`` is optimised exactly, ``"full"`` is optimised on
-        the gravity functional and then reported (and kept only if faster) with the full
-        model.
+        Physics.  ``normal="gravity"``: the gravity-normal time is minimised.
+        ``normal="full"``: the gravity-normal optimum is then polished on the full
+        model's own time (centripetal part of the normal force, the discrete
+        turning-angle curvature of :func:`fallway.physics.traverse`), with the exact
+        chain of the full-model recursion in reverse for the gradient; the polish is
+        coarse to fine with an iteration budget per level, its vertices move normal to
+        the line (their spacing stays the gravity optimum's), and it is kept only when
+        its full-model time is lower.
     limits : Limits, optional
-        Grade window and minimum bend radius (the speed window is on ``mover``).
+        Grade window and minimum bend radius (the speed window is on ``mover``).  With
+        ``min_radius_m`` the start is the lattice line with its corners replaced by arcs
+        of that radius (where the room between corners allows), lines are resampled on
+        splines between levels, and tight vertex triples left by the penalty are smoothed
+        locally; the radius held is the 3D circumradius of consecutive vertices.
     keepout : Keepout or shapely geometry, optional
         No vertex or segment of the result may enter it.
     line : {"ground", "raised"}
@@ -1218,7 +1250,21 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     Returns
     -------
     RefineResult
-        Never slower than the start line with the same model.
+        Never slower than the start line with the same model, among lines that meet the
+        limits: when the start (lattice) line itself breaks a limit (typically the bend
+        radius at its lattice corners) the fastest line found that meets them is
+        returned even if slower, and ``message`` says so.  When no line meeting the
+        limits is found, the fastest line is returned with a :class:`RefinementWarning`,
+        ``message`` starting "no line meeting the limits was found" and the broken
+        limit's status ``"violated"`` in ``limits``.
+
+    Warns
+    -----
+    RefinementWarning
+        The final level did not converge (the best line found is returned); no line
+        meeting the limits was found; or the refinement failed numerically (the start
+        line is kept).  An iteration budget reached by the full-model polish is only
+        noted in ``message``.
 
     Examples
     --------
