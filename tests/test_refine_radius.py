@@ -15,6 +15,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import shapely
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from fallway.errors import RefinementWarning
 from fallway.limits import Limits
@@ -130,3 +132,25 @@ def test_a_lattice_start_that_breaks_the_radius_gives_a_line_that_meets_it():
     assert res.time_after_s == pytest.approx(traverse(res.line, mover).travel_time_s, rel=1e-12)
     if res.time_after_s > res.time_before_s:
         assert "slower than the start line" in res.message
+
+
+@settings(max_examples=5, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), radius=st.floats(3.0, 25.0), n=st.integers(4, 9))
+def test_the_radius_is_met_or_its_breach_is_said(seed, radius, n):
+    # invariant: the returned line meets the radius (independent circumradius), or carries
+    # a RefinementWarning and a 'violated' status; it is never silent
+    rng = np.random.default_rng(seed)
+    t = plane_terrain(35.0)
+    xs = np.linspace(5.5, 30.5, n)
+    ys = np.linspace(45.5, 5.5, n) + np.concatenate([[0.0], rng.normal(0.0, 3.0, n - 2), [0.0]])
+    pts = on_ground(t, np.column_stack([xs, np.clip(ys, 1.0, 49.0)]))
+    with warnings.catch_warnings(record=True) as rec:
+        warnings.simplefilter("always")
+        res = refine_line(t, pts, Mover(mu=0.05, normal="gravity"), limits=Limits(min_radius_m=radius),
+                          n_vertices=25, max_iter=300)
+    ok = circumradii(res.line).min() >= radius * (1 - RTOL)
+    if ok:
+        assert res.limits["min_radius"] in ("inactive", "active")
+    else:
+        assert res.limits["min_radius"] == "violated"
+        assert any(issubclass(w.category, RefinementWarning) for w in rec)
