@@ -1388,7 +1388,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             # full-model polish, coarse to fine again: each level starts from the previous
             # level's polished line with its vertex density kept
             t_grav = _full_chain(P, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
-            Pf, it_sum, ok_p = None, 0, True
+            Pf, it_sum, ok_p, gain0 = None, 0, True, 1.0
             for li, n in enumerate(sizes):
                 if li == 1 and gain0 < _POLISH_GAIN:
                     # the gravity optimum is already close to the full one: polish the
@@ -1426,7 +1426,6 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             P = _repair_radius(opt, P, P_start, r_min)
             status = opt.violations(P)
         prof = _traverse(P, mover)
-        time_after = prof.travel_time_s
         return _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start,
                        P_round)
     except FallwayError:
