@@ -13,9 +13,10 @@ Measured on the project machine (2 cores, shared with other jobs, load ~2.7-3, s
   before the polish and the level changes: ground 1.53 s gravity / 1.51 s full (13790
   iterations, the 63- and 125-vertex levels stopping at the 4000-iteration cap; full =
   gravity optimum re-timed, 13.6507 s), raised 0.33 s / 0.33 s (full re-timed 8.4629 s).
-  After: ground 1.61 s gravity (4016 iterations: levels before the last use a looser
+  After (two runs): ground 1.18-1.61 s gravity (4016 iterations: levels before the last use a looser
   stationarity test, 1e-7, the last keeps 1e-9; 13.3568 s vs 13.3561 s before) and
-  1.01 s full (13.6432 s), raised 0.24 s gravity (7.0699 s) and 0.96 s full (8.0274 s;
+  0.96-1.01 s full (13.6432 s), raised 0.24-0.33 s gravity (7.0699 s) and 0.96-0.99 s
+  full (8.0274 s;
   the continuous optimum of that model is 8.02739 s, tests/test_refine_full.py).
   What remains on the ground case is about half L-BFGS-B's own per-iteration cost and a
   third the compiled objective; the full-model gradient costs ~2.8 ms at 500 vertices.
