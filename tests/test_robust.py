@@ -250,3 +250,153 @@ def test_no_robust_line_and_bad_input():
         robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.0, 0.5, neighbours=8)
     with pytest.raises(ParameterError):
         robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.2, 0.5, neighbours=8)  # mu outside range
+
+
+# --------------------------------------------------------------------------- speed-ups
+
+def _turn_brute_force(z, start, end, lo, mu, hi, v0, vmax, max_turn_deg):
+    """Fastest nominal simple path, robust over the range, turning at most ``max_turn_deg``."""
+    rows, cols = z.shape
+    cap = math.inf if vmax is None else vmax * vmax
+    best = [math.inf, None]
+    seen = np.zeros_like(z, dtype=bool)
+
+    def turn(a, b):  # plan angle between two king steps, degrees
+        d = abs(math.degrees(math.atan2(-a[0], a[1]) - math.atan2(-b[0], b[1]))) % 360.0
+        return min(d, 360.0 - d)
+
+    def dfs(r, c, t, e, path, last):
+        if t >= best[0]:
+            return
+        if (r, c) == end:
+            best[:] = [t, list(path)]
+            return
+        for d in KING:
+            if last is not None and turn(last, d) > max_turn_deg + 1e-9:
+                continue
+            r2, c2 = r + d[0], c + d[1]
+            if not (0 <= r2 < rows and 0 <= c2 < cols) or seen[r2, c2]:
+                continue
+            drop = z[r, c] - z[r2, c2]
+            plan = math.hypot(*d)
+            out = step(e[0], drop, plan, lo, cap), step(e[1], drop, plan, mu), step(e[2], drop, plan, hi)
+            if any(o is None for o in out):
+                continue
+            seen[r2, c2] = True
+            path.append((r2, c2))
+            dfs(r2, c2, t + out[1][1], tuple(o[0] for o in out), path, d)
+            path.pop()
+            seen[r2, c2] = False
+
+    seen[start] = True
+    dfs(*start, 0.0, (v0 * v0,) * 3, [start], None)
+    return best
+
+
+@pytest.mark.parametrize("seed", [0, 2, 4, 6])
+def test_turn_limit_equals_brute_force(seed):
+    from fallway.limits import Limits
+
+    z = random_dem(seed, noise=0.5, tilt=0.5)
+    t = terrain_of(z)
+    lo, mu, hi, v0, vmax = 0.1, 0.15, 0.3, 1.0, 8.0
+    m = Mover(mu=mu, v0=v0, max_speed=vmax, normal="gravity")
+    ref_t, ref_path = _turn_brute_force(z, (0, 0), (3, 4), lo, mu, hi, v0, vmax, 45.0)
+    try:
+        ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, lo, hi, neighbours=8,
+                                 limits=Limits(max_turn_deg=45.0), energy_tol=0.0)
+    except NoFeasibleLine:
+        assert ref_path is None
+        return
+    cells = [tuple(c) for c in ln.cells.tolist()]
+    if ln.stats["simple"]:
+        assert ln.time_s == pytest.approx(ref_t, rel=1e-9)
+    else:
+        assert ref_path is None or ln.time_s <= ref_t * (1 + 1e-9)
+    steps = np.diff(np.array(cells), axis=0)
+    ang = np.degrees(np.arctan2(-steps[:, 0], steps[:, 1]))
+    turns = np.abs((np.diff(ang) + 180.0) % 360.0 - 180.0)
+    assert np.all(turns <= 45.0 + 1e-9)
+
+
+def test_lo_floor_equals_a_scipy_dijkstra_from_every_cell():
+    # E[n] = min over cells a of zlow[a] + mu * (shortest lattice plan distance n -> a):
+    # scipy's Dijkstra from a super-source joined to every cell a with weight zlow[a]
+    # (shifted to be >= 0); zlow from the 16-stencil geometry: a knight step's one
+    # break point is its midpoint, which lies halfway between two cell centres
+    import scipy.sparse as sp
+    from scipy.sparse.csgraph import dijkstra
+
+    from fallway.lattice.robust import lo_floor
+    from fallway.lattice.search import _Problem
+    from fallway.lattice.stencil import make_stencil
+
+    rng = np.random.default_rng(3)
+    rows, cols = 7, 9
+    z = rng.normal(0.0, 2.0, (rows, cols)) - 0.3 * np.arange(cols)
+    t = terrain_of(z)
+    mu = 0.12
+    offs = make_stencil(16).offsets
+    zlow = z.copy()
+    ii, jj, ww = [], [], []
+    for r in range(rows):
+        for c in range(cols):
+            for dr, dc in offs:
+                r2, c2 = r + dr, c + dc
+                if not (0 <= r2 < rows and 0 <= c2 < cols):
+                    continue
+                ii.append(r * cols + c)
+                jj.append(r2 * cols + c2)
+                ww.append(mu * math.hypot(dr, dc))
+                if abs(dr) + abs(dc) == 3:  # knight step: midpoint between two centres
+                    mr, mc = r + dr / 2, c + dc / 2
+                    a = (math.floor(mr), math.floor(mc))
+                    b = (math.ceil(mr), math.ceil(mc))
+                    zlow[r, c] = min(zlow[r, c], 0.5 * (z[a] + z[b]))
+    n = rows * cols
+    shift = zlow.min()
+    ii += [n] * n
+    jj += list(range(n))
+    ww += list((zlow.ravel() - shift) + 1e-300)
+    g = sp.csr_matrix((ww, (jj, ii)), shape=(n + 1, n + 1))  # reversed: distances run n -> a
+    ref = dijkstra(g.T.tocsr(), indices=n)[:n] + shift
+    p = _Problem(t, Mover(mu=mu, normal="gravity"), 16, None, np.zeros(z.shape, bool))
+    got = lo_floor(p.z, p.blocked, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
+                   p.brk_fa, p.brk_fb, p.brk_w, p.tch_start, p.tch_flat, mu)
+    np.testing.assert_allclose(got, ref, rtol=0, atol=1e-9)
+    # a blocked cell is never a target: it gets inf
+    keep = np.zeros(z.shape, bool)
+    keep[3, 4] = True
+    p = _Problem(t, Mover(mu=mu, normal="gravity"), 16, None, keep)
+    got = lo_floor(p.z, p.blocked, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
+                   p.brk_fa, p.brk_fb, p.brk_w, p.tch_start, p.tch_flat, mu)
+    assert math.isinf(got[3 * cols + 4]) and np.isfinite(np.delete(got, 3 * cols + 4)).all()
+
+
+def test_a_star_order_and_label_cap():
+    # the A* bound changes the order of work, not the answer; a label cap gives a robust
+    # line (checked by traverse at the three frictions) and says it may not be exact
+    # (the 11.8 m/s limit binds at LO: the straight-down optimum reaches 12.1 m/s there)
+    z = random_dem(7, 10, 12, noise=0.1, tilt=0.4)
+    t = terrain_of(z)
+    m = Mover(mu=0.15, v0=1.0, max_speed=11.8, normal="gravity")
+    free = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), Mover(mu=0.15, v0=1.0, normal="gravity"), 0.1, 0.25)
+    assert traverse(free.points, Mover(mu=0.1, v0=1.0, normal="gravity")).speed_m_s.max() > 11.8
+    a = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16)
+    b = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, heuristic=False)
+    assert a.time_s == pytest.approx(b.time_s, rel=1e-9)
+    assert a.stats["labels_settled"] <= b.stats["labels_settled"]
+    assert a.stats["exact"] and a.stats["label_cap"] is None
+    assert a.time_s > free.time_s
+    check_line_at_three(a, m, 0.1, 0.25)
+    # an LO resolution of 1 % of the limit squared: fewer labels, a robust line, no faster
+    c = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, lo_resolution=0.01)
+    assert c.time_s >= a.time_s * (1 - 1e-12) and not c.stats["exact"]
+    assert c.stats["labels_settled"] < a.stats["labels_settled"]
+    check_line_at_three(c, m, 0.1, 0.25)
+    # a cap of one label per state without a speed limit: robust, no faster than exact
+    free_m = Mover(mu=0.15, v0=1.0, normal="gravity")
+    d = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), free_m, 0.1, 0.25, max_per_cell=1)
+    assert d.time_s >= free.time_s * (1 - 1e-12)
+    assert d.stats["label_cap"] == 1 and d.stats["exact"] == (d.stats["labels_capped"] == 0)
+    check_line_at_three(d, free_m, 0.1, 0.25)

@@ -82,7 +82,7 @@ from .._segment import segment_law
 from ..errors import NoFeasibleLine, ParameterError
 from ..limits import Limits
 from ..physics import Mover, check_mu_range, traverse
-from .kernel import _grow_f8, _grow_i4, _heap_pop, _heap_push
+from .kernel import _grow_f8, _grow_i1, _grow_i4, _heap_pop, _heap_push
 from .search import _cell_xy, _keepout_mask, _line_points, _Problem, _snap
 
 __all__ = ["robust_lattice_line", "ROBUST_ENERGY_TOL"]
@@ -103,24 +103,28 @@ R_GRADE = 4
 R_STALL_HI = 5
 R_SPEED_LO = 6
 R_GRID = 7
-N_R = 8
+R_TURN = 8
+R_CAPPED = 9
+N_R = 10
 
 _INIT_CAP = 1 << 14
 _DEFAULT_MAX_LABELS = 50_000_000
 
 
 @njit(cache=True, nogil=True)
-def _dominated(head, nxt, Llo, Lnom, Lhi, n, lo, nom, hi, lo_safe, tol_abs, tol_rel):
-    """True when a settled label at node ``n`` dominates (lo, nom, hi) (times are ordered).
+def _dominated(head, nxt, Llo, Lnom, Lhi, slot, lo, nom, hi, lo_safe, tol_abs, tol_rel, lo_slack):
+    """True when a settled label at state ``slot`` dominates (lo, nom, hi) (times are ordered).
 
     A settled label with ``v2_lo <= lo_safe`` can never exceed the speed limit at LO from
-    this node on, so its LO energy is no handicap whatever the newcomer's.
+    this cell on, so its LO energy is no handicap whatever the newcomer's.  ``lo_slack``
+    (0 for the exact search) lets a settled label with up to that much more LO v² count
+    as dominating: the resolution of the approximate search.
     """
-    q = head[n]
+    q = head[slot]
     tl = tol_abs + tol_rel * lo
     tn = tol_abs + tol_rel * nom
     th = tol_abs + tol_rel * hi
-    lo_ok = max(lo + tl, lo_safe)
+    lo_ok = max(lo + tl + lo_slack, lo_safe)
     while q >= 0:
         if Lnom[q] >= nom - tn and Lhi[q] >= hi - th and Llo[q] <= lo_ok:
             return True
@@ -129,13 +133,106 @@ def _dominated(head, nxt, Llo, Lnom, Lhi, n, lo, nom, hi, lo_safe, tol_abs, tol_
 
 
 @njit(cache=True, nogil=True)
+def lo_floor(z, blocked, rows, cols, cell, off_dr, off_dc, off_plan,
+             brk_start, brk_fa, brk_fb, brk_w, tch_start, tch_flat, mu_lo):
+    """Per cell n: a lower bound of ``z_p + mu_lo * (plan distance n -> p)`` over every point p
+    a lattice line from n can pass (cell centres and sub-segment break points).
+
+    ``zlow[a]`` is the lowest of cell a's height and the break-point heights of the edges
+    leaving it; ``E[n] = min_a (zlow[a] + mu_lo * d(n, a))`` with ``d`` the shortest plan
+    distance over the lattice's own passable edges (a multi-source Dijkstra started from
+    every cell at ``zlow``).  A line from n to a break point q on an edge leaving a is at
+    least ``d(n, a)`` long in plan, so its LO energy gain there is at most
+    ``2 g (z_n - E[n])`` (Coulomb friction takes ``2 g mu_lo`` per metre of plan, drag
+    only more).  Within a sub-segment v² is monotone, so the extremes are at its ends.
+    Blocked cells get ``inf``.
+    """
+    ncell = rows * cols
+    nk = off_dr.shape[0]
+    E = np.full(ncell, np.inf)
+    for n in range(ncell):
+        if blocked[n]:
+            continue
+        r = n // cols
+        c = n - r * cols
+        lo = z[n]
+        for kk in range(nk):
+            r2 = r + off_dr[kk]
+            c2 = c + off_dc[kk]
+            if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
+                continue
+            bad = False
+            for q in range(tch_start[kk], tch_start[kk + 1]):
+                if blocked[n + tch_flat[q]]:
+                    bad = True
+                    break
+            if bad:
+                continue
+            for q in range(brk_start[kk], brk_start[kk + 1]):
+                zq = brk_w[q] * z[n + brk_fa[q]] + (1.0 - brk_w[q]) * z[n + brk_fb[q]]
+                if zq < lo:
+                    lo = zq
+        E[n] = lo
+    hcap = max(ncell, 16)
+    hkey = np.empty(hcap, dtype=np.float64)
+    hidx = np.empty(hcap, dtype=np.int32)
+    hsize = 0
+    for n in range(ncell):
+        if E[n] < np.inf:
+            hsize = _heap_push(hkey, hidx, hsize, E[n], n)
+    done = np.zeros(ncell, dtype=np.bool_)
+    while hsize > 0:
+        key = hkey[0]
+        a, hsize = _heap_pop(hkey, hidx, hsize)
+        if done[a] or key > E[a]:
+            continue
+        done[a] = True
+        ra = a // cols
+        ca = a - ra * cols
+        for kk in range(nk):
+            # the cells n with an edge n -> a along offset kk
+            rn = ra - off_dr[kk]
+            cn = ca - off_dc[kk]
+            if rn < 0 or rn >= rows or cn < 0 or cn >= cols:
+                continue
+            n = rn * cols + cn
+            if blocked[n] or done[n]:
+                continue
+            bad = False
+            for q in range(tch_start[kk], tch_start[kk + 1]):
+                if blocked[n + tch_flat[q]]:
+                    bad = True
+                    break
+            if bad:
+                continue
+            cand = E[a] + mu_lo * off_plan[kk] * cell
+            if cand < E[n]:
+                E[n] = cand
+                if hsize >= hcap:
+                    hcap *= 2
+                    hkey = _grow_f8(hkey, hcap)
+                    hidx = _grow_i4(hidx, hcap)
+                hsize = _heap_push(hkey, hidx, hsize, cand, n)
+    return E
+
+
+@njit(cache=True, nogil=True)
 def robust_search(z, blocked, rows, cols, cell,
                   off_dr, off_dc, off_plan,
                   brk_start, brk_u, brk_fa, brk_fb, brk_w,
-                  tch_start, tch_flat,
+                  tch_start, tch_flat, turn_ok, use_heading,
                   g, mu_lo, mu_nom, mu_hi, kdrag, v2_stall, v2_max, min_grade, max_grade,
-                  start, v2_start, target, zmin, tol_abs, tol_rel, max_labels, init_cap):
+                  start, v2_start, target, lo_safe, inv_v, tol_abs, tol_rel, max_labels, init_cap,
+                  max_per_cell, lo_slack):
     """Label-setting search with labels (t_nom, v2_lo, v2_nom, v2_hi) (module notes).
+
+    ``lo_safe[n]``: a label at cell n whose LO v² is at most this can never exceed the
+    speed limit from there on (``inf`` without a limit).  ``inv_v``: 1 / (an upper bound
+    of the nominal speed) for the A* bound (0 turns it off).  ``use_heading``: states
+    are (cell, heading of the last step) and ``turn_ok[i, j]`` says whether step j may
+    follow step i.  ``max_per_cell`` > 0 keeps at most that many settled labels per
+    state (the earliest; an approximation, counted in ``R_CAPPED``).  ``lo_slack`` > 0:
+    LO energies within that much (m²/s²) count as equal in dominance (approximate).
 
     Returns
     -------
@@ -143,6 +240,7 @@ def robust_search(z, blocked, rows, cols, cell,
     """
     ncell = rows * cols
     nk = off_dr.shape[0]
+    nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_R, dtype=np.int64)
     cap = init_cap
     Lt = np.empty(cap, dtype=np.float64)
@@ -152,13 +250,17 @@ def robust_search(z, blocked, rows, cols, cell,
     Lnode = np.empty(cap, dtype=np.int32)
     Lpar = np.empty(cap, dtype=np.int32)
     Lnext = np.empty(cap, dtype=np.int32)
-    head = np.full(ncell, -1, dtype=np.int32)
+    Lhd = np.empty(cap, dtype=np.int8)
+    head = np.full(ncell * nh, -1, dtype=np.int32)
+    capped = max_per_cell > 0
+    nset = np.zeros(ncell * nh if capped else 1, dtype=np.int32)
     hcap = init_cap
     hkey = np.empty(hcap, dtype=np.float64)
     hidx = np.empty(hcap, dtype=np.int32)
     hsize = 0
     tr = target // cols
     tc = target - tr * cols
+    tz = z[target]
 
     Lt[0] = 0.0
     Llo[0] = v2_start
@@ -167,6 +269,7 @@ def robust_search(z, blocked, rows, cols, cell,
     Lnode[0] = start
     Lpar[0] = -1
     Lnext[0] = -1
+    Lhd[0] = -1
     n_lab = 1
     counters[R_CREATED] = 1
     hsize = _heap_push(hkey, hidx, hsize, 0.0, 0)
@@ -182,12 +285,18 @@ def robust_search(z, blocked, rows, cols, cell,
         lo0 = Llo[li]
         nom0 = Lnom[li]
         hi0 = Lhi[li]
-        if _dominated(head, Lnext, Llo, Lnom, Lhi, n, lo0, nom0, hi0,
-                      v2_max - 2.0 * g * (z[n] - zmin), tol_abs, tol_rel):
+        hd = Lhd[li]
+        slot = n * nh + (hd + 1 if use_heading else 0)
+        if _dominated(head, Lnext, Llo, Lnom, Lhi, slot, lo0, nom0, hi0, lo_safe[n], tol_abs, tol_rel, lo_slack):
             counters[R_DOMINATED] += 1
             continue
-        Lnext[li] = head[n]
-        head[n] = li
+        if capped:
+            if nset[slot] >= max_per_cell:
+                counters[R_CAPPED] += 1
+                continue
+            nset[slot] += 1
+        Lnext[li] = head[slot]
+        head[slot] = li
         counters[R_SETTLED] += 1
         r = n // cols
         c = n - r * cols
@@ -204,6 +313,9 @@ def robust_search(z, blocked, rows, cols, cell,
             break
         zn = z[n]
         for kk in range(nk):
+            if use_heading and hd >= 0 and not turn_ok[hd, kk]:
+                counters[R_TURN] += 1
+                continue
             r2 = r + off_dr[kk]
             c2 = c + off_dc[kk]
             if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
@@ -266,8 +378,8 @@ def robust_search(z, blocked, rows, cols, cell,
                 uprev = uq
             if not ok:
                 continue
-            if _dominated(head, Lnext, Llo, Lnom, Lhi, m, vlo, vnom, vhi,
-                          v2_max - 2.0 * g * (z[m] - zmin), tol_abs, tol_rel):
+            s2 = m * nh + (kk + 1 if use_heading else 0)
+            if _dominated(head, Lnext, Llo, Lnom, Lhi, s2, vlo, vnom, vhi, lo_safe[m], tol_abs, tol_rel, lo_slack):
                 counters[R_DOMINATED] += 1
                 continue
             if n_lab >= cap:
@@ -279,28 +391,68 @@ def robust_search(z, blocked, rows, cols, cell,
                 Lnode = _grow_i4(Lnode, cap)
                 Lpar = _grow_i4(Lpar, cap)
                 Lnext = _grow_i4(Lnext, cap)
+                Lhd = _grow_i1(Lhd, cap)
             q = n_lab
             n_lab += 1
             counters[R_CREATED] += 1
-            Lt[q] = t0 + te
+            tn = t0 + te
+            Lt[q] = tn
             Llo[q] = vlo
             Lnom[q] = vnom
             Lhi[q] = vhi
             Lnode[q] = m
             Lpar[q] = li
             Lnext[q] = -1
+            Lhd[q] = kk
+            key = tn
+            if inv_v > 0.0:
+                dx = (c2 - tc) * cell
+                dy = (r2 - tr) * cell
+                dz = z[m] - tz
+                key = tn + math.sqrt(dx * dx + dy * dy + dz * dz) * inv_v
             if hsize >= hcap:
                 hcap *= 2
                 hkey = _grow_f8(hkey, hcap)
                 hidx = _grow_i4(hidx, hcap)
-            hsize = _heap_push(hkey, hidx, hsize, t0 + te, q)
+            hsize = _heap_push(hkey, hidx, hsize, key, q)
 
     return (status, final, n_lab, Lt, Llo, Lnom, Lhi, Lnode, Lpar, closest, counters)
 
 
+def _check_end_window(mover: Mover, lo: float, hi: float, v2_start: float, drop_m: float, v2_max: float) -> None:
+    """Raise when no line of any shape can work: the plan-length window at the end is empty.
+
+    Without drag the work-energy theorem fixes the energy at the end from the drop and
+    the plan length P alone (gravity-normal Coulomb friction): ``v² = v0² + 2 g (drop -
+    mu P)``.  Arriving under the speed limit at LO needs ``P >= (v0² + 2 g drop -
+    vmax²) / (2 g mu_lo)``; arriving at all at HI needs ``P < (v0² + 2 g drop - v_stall²)
+    / (2 g mu_hi)``.  When the first bound is not below the second no line exists.
+    """
+    if mover.drag != 0.0 or not math.isfinite(v2_max):
+        return
+    g = mover.g
+    e_end = v2_start + 2.0 * g * drop_m
+    p_hi = (e_end - mover.stall_speed ** 2) / (2.0 * g * hi) if hi > 0.0 else math.inf
+    if e_end <= v2_max:
+        return
+    if lo == 0.0:
+        raise NoFeasibleLine(f"no line can work: at mu={lo:g} the mover reaches the end at "
+                             f"{math.sqrt(e_end):.1f} m/s whatever its shape, over the {math.sqrt(v2_max):g} m/s "
+                             "limit; raise the speed limit or narrow the friction range", reason="limits")
+    p_lo = (e_end - v2_max) / (2.0 * g * lo)
+    if p_lo >= p_hi:
+        raise NoFeasibleLine(f"no line can work from mu={lo:g} to mu={hi:g}: to arrive under "
+                             f"{math.sqrt(v2_max):g} m/s at mu={lo:g} a line needs at least {p_lo:.0f} m of plan "
+                             f"length, but at mu={hi:g} it gets to the end only if shorter than {p_hi:.0f} m "
+                             "(work-energy balance, no drag); narrow the friction range, relax the speed limit "
+                             "or move the end points", reason="limits")
+
+
 def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *,
                         neighbours: int = 16, limits: Limits | None = None, keepout=None,
-                        max_labels: int | None = None, energy_tol: float | None = None):
+                        max_labels: int | None = None, energy_tol: float | None = None,
+                        max_per_cell: int | None = None, heuristic: bool = True,
+                        lo_resolution: float = 0.0):
     """The exact robust lattice line: fastest at nominal friction, feasible over [mu_lo, mu_hi].
 
     Among lattice lines from ``start`` to ``end`` that do not stall at ``mu_hi`` and stay
@@ -318,12 +470,26 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
         The friction range.
     neighbours : {8, 16, 32}
     limits : Limits, optional
-        Grade window per sub-segment (a turn limit is not supported here).
+        Grade window per sub-segment and turn limit between steps (as the ordinary
+        search: the state is then the cell and the heading of the last step).
     keepout : Keepout or bool array, optional
     max_labels : int, optional
         Stop with :class:`NoFeasibleLine` after creating this many labels.
     energy_tol : float, optional
         Dominance tolerance relative to each v² (default :data:`ROBUST_ENERGY_TOL`).
+    max_per_cell : int, optional
+        Keep at most this many settled labels per state (the earliest): faster, no
+        longer exact (``stats["exact"]`` False).  Default: the exact Pareto search.
+    heuristic : bool
+        Order the search by the A* bound (module notes); False: plain Dijkstra order.
+    lo_resolution : float
+        Fraction of ``max_speed²``: LO energies closer than this count as equal in the
+        dominance test (approximate search, ``stats["exact"]`` False; the line returned
+        is still checked against the true limits).  Where the speed limit binds at LO
+        the exact Pareto set grows without bound (with no drag the three energies of a
+        label are set by its plan length alone, so two labels at a cell compare only
+        when their lengths are equal); a resolution of 1-2 % bounds it.  Default 0:
+        exact.
 
     Returns
     -------
@@ -354,9 +520,6 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
         raise ParameterError(f"mover must be a fallway.Mover, got {type(mover).__name__}")
     lo, hi = check_mu_range(mover, mu_lo, mu_hi)
     limits = Limits() if limits is None else limits
-    if isinstance(limits, Limits) and limits.max_turn_deg is not None:
-        raise ParameterError("the robust search does not support max_turn_deg; drop the turn limit "
-                             "or check turns on the result")
     keep = _keepout_mask(terrain, keepout)
     s = _snap(terrain, start, "start")
     e = _snap(terrain, end, "end")
@@ -369,26 +532,52 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
         raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
     prob = _Problem(terrain, mover, neighbours, limits, keep)
     v2_start = mover.v0 * mover.v0
+    _check_end_window(mover, lo, hi, v2_start, float(prob.z[s] - prob.z[e]), prob.v2_max)
     v2_scale = v2_start + 2.0 * mover.g * max(prob.z[s] - prob.zmin, 0.0)
     tol_rel = ROBUST_ENERGY_TOL if energy_tol is None else float(energy_tol)
     if not (tol_rel >= 0.0 and math.isfinite(tol_rel)):
         raise ParameterError(f"energy_tol must be a finite number >= 0, got {energy_tol!r}")
     tol_abs = 1e-12 * max(v2_scale, 1e-300) if tol_rel > 0.0 else 0.0
     budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
+    cap = 0 if max_per_cell is None else int(max_per_cell)
+    if cap < 0:
+        raise ParameterError(f"max_per_cell must be a positive number of labels, got {max_per_cell!r}")
+    if not (math.isfinite(lo_resolution) and lo_resolution >= 0.0):
+        raise ParameterError(f"lo_resolution must be a fraction >= 0, got {lo_resolution!r}")
+    lo_slack = float(lo_resolution) * prob.v2_max if math.isfinite(prob.v2_max) else 0.0
     t0 = time.perf_counter()
+    g = mover.g
+    if math.isfinite(prob.v2_max):
+        floor = lo_floor(prob.z, prob.blocked, prob.rows, prob.cols, prob.cell, prob.off_dr, prob.off_dc,
+                         prob.off_plan, prob.brk_start, prob.brk_fa, prob.brk_fb, prob.brk_w,
+                         prob.tch_start, prob.tch_flat, lo)
+        lo_safe = prob.v2_max - 2.0 * g * (prob.z - floor)
+    else:
+        lo_safe = np.full(prob.z.shape, np.inf)
+    # A* bound: the nominal speed never exceeds the LO speed (<= the cap), nor what the
+    # drop from the start allows, nor (with drag) the terminal bound of the ordinary search
+    v2_bound = v2_scale
+    if mover.drag > 0.0:
+        a_max = prob.a_max(mover)
+        v2_bound = min(v2_bound, max(v2_start, a_max / mover.drag) if a_max > 0.0 else v2_start)
+    v2_bound = min(v2_bound, prob.v2_max)
+    inv_v = 1.0 / math.sqrt(v2_bound) if (heuristic and v2_bound > 0.0) else 0.0
     out = robust_search(prob.z, prob.blocked, prob.rows, prob.cols, prob.cell,
                         prob.off_dr, prob.off_dc, prob.off_plan,
                         prob.brk_start, prob.brk_u, prob.brk_fa, prob.brk_fb, prob.brk_w,
-                        prob.tch_start, prob.tch_flat,
-                        mover.g, lo, mover.mu, hi, mover.drag, mover.stall_speed ** 2, prob.v2_max,
-                        prob.min_grade, prob.max_grade, int(s), v2_start, int(e), prob.zmin, tol_abs, tol_rel,
-                        budget, _INIT_CAP)
+                        prob.tch_start, prob.tch_flat, prob.turn_ok, prob.use_heading,
+                        g, lo, mover.mu, hi, mover.drag, mover.stall_speed ** 2, prob.v2_max,
+                        prob.min_grade, prob.max_grade, int(s), v2_start, int(e), lo_safe, inv_v,
+                        tol_abs, tol_rel, budget, _INIT_CAP, cap, lo_slack)
     elapsed = time.perf_counter() - t0
     status, final, n_lab, Lt, Llo, Lnom, Lhi, Lnode, Lpar, closest, cnt = out
     stats = {"labels_created": int(cnt[R_CREATED]), "labels_settled": int(cnt[R_SETTLED]),
              "labels_dominated": int(cnt[R_DOMINATED]), "rejected_grade": int(cnt[R_GRADE]),
              "rejected_stall_hi": int(cnt[R_STALL_HI]), "rejected_speed_lo": int(cnt[R_SPEED_LO]),
-             "rejected_blocked": int(cnt[R_BLOCKED]), "search_s": float(elapsed),
+             "rejected_blocked": int(cnt[R_BLOCKED]), "rejected_turn": int(cnt[R_TURN]),
+             "labels_capped": int(cnt[R_CAPPED]), "exact": (cap == 0 or int(cnt[R_CAPPED]) == 0) and lo_slack == 0.0,
+             "lo_resolution": float(lo_resolution),
+             "label_cap": cap or None, "search_s": float(elapsed),
              "neighbours": int(prob.stencil.size), "energy_tol": float(tol_rel),
              "mu_lo": lo, "mu_nominal": float(mover.mu), "mu_hi": hi}
     if status == LABEL_BUDGET:
