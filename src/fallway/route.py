@@ -13,7 +13,7 @@ from .errors import FallwayIOError, ParameterError
 from .physics import Mover, Profile, traverse
 from .limits import Limits
 
-__all__ = ["LatticeLine", "Route", "ReachMap", "find_route"]
+__all__ = ["LatticeLine", "Route", "ReachMap", "find_route", "route_from_lattice"]
 
 _LINE_KINDS = ("ground", "raised")
 
@@ -252,7 +252,6 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
     >>> print(f"{r.summary['lattice_time_s']:.4f} {r.summary['drop_m']:.1f}")
     1.8876 5.0
     """
-    from .caution import CAUTION
     from .lattice.search import lattice_line
 
     if line not in _LINE_KINDS:
@@ -260,6 +259,51 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
     limits = Limits() if limits is None else limits
     lat = lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits, keepout=keepout,
                        heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
+    return route_from_lattice(terrain, lat, mover, limits=limits, keepout=keepout, line=line, refine=refine,
+                              neighbours=neighbours, via=via, **refine_options)
+
+
+def route_from_lattice(terrain, lat: LatticeLine, mover: Mover, *, limits: Limits | None = None, keepout=None,
+                       line: str = "ground", refine: bool = True, neighbours: int = 16, via=(),
+                       **refine_options) -> Route:
+    """A :class:`Route` from a lattice answer: refinement (optional), timing and summary.
+
+    The second half of :func:`find_route`, for any lattice search (e.g. the robust
+    one, :func:`fallway.lattice.robust.robust_lattice_line`).
+
+    Parameters
+    ----------
+    terrain : Terrain
+    lat : LatticeLine
+    mover : Mover
+    limits, keepout, line, refine, **refine_options
+        As :func:`find_route`.
+    neighbours : int
+        The stencil the lattice line came from (reported).
+    via : sequence of (x, y)
+        The via points it passes (reported).
+
+    Returns
+    -------
+    Route
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.terrain import Terrain
+    >>> from fallway.lattice.search import lattice_line
+    >>> t = Terrain.from_array(-0.5 * np.add.outer(np.arange(6.0), np.arange(6.0)), (1.0, 0, 0, 0, -1.0, 6.0))
+    >>> m = Mover(mu=0.1, normal="gravity")
+    >>> lat = lattice_line(t, (0.5, 5.5), (5.5, 0.5), m)
+    >>> r = route_from_lattice(t, lat, m, refine=False)
+    >>> abs(r.summary["lattice_time_s"] - lat.time_s) < 1e-9
+    True
+    """
+    from .caution import CAUTION
+
+    if line not in _LINE_KINDS:
+        raise ParameterError(f"line must be one of {', '.join(_LINE_KINDS)}; got {line!r}")
+    limits = Limits() if limits is None else limits
     final = lat.points
     refined = False
     extra: dict = {}
