@@ -511,7 +511,7 @@ def test_robust_route_returns_a_line_that_passes_the_envelope():
     t = plane_terrain(0.0, 0.4, rows=30, cols=30)
     s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
     mover = Mover(mu=0.1, normal="gravity")
-    rr = robust_route(t, s0, e0, mover, 0.05, 0.2, refine=False)
+    rr = robust_route(t, s0, e0, mover, 0.05, 0.2, refine=False, method="candidates")
     assert rr.nominal_is_robust and rr.envelope.robust
     assert rr.candidates[0]["label"] == "nominal"
     # the same line checked again, independently of the search, at both ends of the range
@@ -534,7 +534,7 @@ def test_robust_route_replaces_a_nominal_optimum_that_stalls_at_high_friction():
         plan = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(line[:, :2], axis=0).T))])
         return 2 * G0 * ((line[0, 2] - line[:, 2]) - mu * plan)
 
-    rr = robust_route(t, s0, e0, mover, 0.0, 0.075, refine=False)
+    rr = robust_route(t, s0, e0, mover, 0.0, 0.075, refine=False, method="candidates")
     nominal = rr.candidates[0]
     assert not rr.nominal_is_robust and nominal["verdict"] == "stalls at high friction"
     assert rr.envelope.robust and rr.envelope.high.status == "ok"
@@ -629,7 +629,7 @@ def test_robust_route_against_a_speed_limit_tightens_its_searches():
     mover = Mover(mu=0.3, max_speed=30.0, normal="gravity")
     plan = 37 * 5.0
     assert math.sqrt(2 * G0 * (0.5 * plan - 0.2 * plan)) > 30.0 > math.sqrt(2 * G0 * (0.5 * plan - 0.3 * plan))
-    rr = robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, strict=False)
+    rr = robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, strict=False, method="candidates")
     labels = [c["label"] for c in rr.candidates]
     assert labels[0] == "nominal" and "too fast at low friction" in rr.candidates[0]["verdict"]
     assert labels[1] == "high friction" and labels[-1] == "low friction"
@@ -647,7 +647,7 @@ def test_robust_route_against_a_speed_limit_tightens_its_searches():
     else:
         assert rr.route is not None and not rr.envelope.robust
         with pytest.raises(NoFeasibleLine, match="no line found that works"):
-            robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False)
+            robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, method="candidates")
 
 
 def test_read_geojson_with_legacy_crs_member(tmp_path):
@@ -659,3 +659,49 @@ def test_read_geojson_with_legacy_crs_member(tmp_path):
     p.write_text(json.dumps(fc))
     (name, xy), = read_lines(p, crs=UTM33)
     assert name == "chute" and np.allclose(xy, [[X0 + 1.0, Y0 - 1.0], [X0 + 90.0, Y0 - 80.0]], atol=1e-9)
+
+
+def test_exact_robust_route_is_robust_and_no_slower_than_the_candidates():
+    # the cases of the candidate-method tests above, now with the robust lattice search:
+    # its line passes the envelope (traverse at the three frictions) and, being the
+    # lattice optimum under the same constraints, is no slower at nominal friction than
+    # any candidate the heuristic finds (same stencil, no refinement, gravity-normal)
+    cases = [(plane_terrain(0.0, 0.3, rows=40, cols=40), (2, 2), (12, 37), Mover(mu=0.03, normal="gravity"),
+              0.0, 0.075),
+             (plane_terrain(0.0, 0.5, rows=40, cols=40), (1, 20), (38, 20),
+              Mover(mu=0.3, max_speed=30.0, normal="gravity"), 0.2, 0.33)]
+    for t, a, b, mover, lo, hi in cases:
+        s0, e0 = t.cell_center(*a), t.cell_center(*b)
+        ex = robust_route(t, s0, e0, mover, lo, hi, refine=False, strict=False)
+        cand = robust_route(t, s0, e0, mover, lo, hi, refine=False, strict=False, method="candidates")
+        assert ex.method in ("exact", "approximate") and ex.found
+        assert ex.envelope.robust
+        assert ex.route.summary["robust_method"] == ex.method
+        for mu in (lo, hi):  # independently re-timed at both ends of the range
+            again = evaluate_line(t, np.asarray(ex.route.line), Mover(mu=mu, max_speed=mover.max_speed,
+                                                                       normal="gravity"))
+            assert again.status == "ok"
+        if cand.found:
+            assert ex.envelope.nominal.travel_time_s <= cand.envelope.nominal.travel_time_s * (1 + 1e-9)
+
+
+def test_exact_robust_route_proves_an_empty_end_window():
+    # work-energy theorem, no drag (any mechanics text): at the end v² = 2 g (drop - mu P)
+    # for plan length P.  A 50 % plane, 37 cells of 5 m down the fall line, limit 20 m/s:
+    # under 20 m/s at mu 0.1 needs P >= (2 g drop - 400) / (2 g 0.1); getting there at
+    # mu 0.45 needs P < drop / 0.45.  Here the first exceeds the second: no line works.
+    t = plane_terrain(0.0, 0.5, rows=40, cols=40)
+    s0, e0 = t.cell_center(1, 20), t.cell_center(38, 20)
+    drop = 0.5 * 37 * 5.0
+    p_lo = (2 * G0 * drop - 400.0) / (2 * G0 * 0.1)
+    p_hi = drop / 0.45
+    assert p_lo > p_hi
+    mover = Mover(mu=0.3, max_speed=20.0, normal="gravity")
+    with pytest.raises(NoFeasibleLine, match=f"at least {p_lo:.0f} m .* shorter than {p_hi:.0f} m"):
+        robust_route(t, s0, e0, mover, 0.1, 0.45, refine=False)
+    rr = robust_route(t, s0, e0, mover, 0.1, 0.45, refine=False, strict=False)
+    assert not rr.found and rr.route is None and "plan length" in rr.note
+    # with via points the robust lattice search does not apply: the candidate method runs
+    rr = robust_route(t, s0, e0, Mover(mu=0.1, normal="gravity"), 0.05, 0.2, refine=False,
+                      via=[t.cell_center(20, 20)])
+    assert rr.method == "candidates" and "via" in rr.note

@@ -1061,14 +1061,23 @@ class RobustRoute:
     candidates: tuple
     nominal_is_robust: bool
     found: bool = True
+    method: str = "candidates"
+    note: str = ""
+
+
+#: Search options of the ordinary lattice search that the robust one does not take.
+_SEARCH_ONLY = ("heuristic", "energy_tol", "max_labels", "max_per_cell", "via")
 
 
 def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *, limits: Limits | None = None,
-                 max_rounds: int = 3, strict: bool = True, search=None, **kw) -> RobustRoute:
+                 max_rounds: int = 3, strict: bool = True, search=None, method: str = "exact",
+                 max_labels: int = 2_000_000, lo_resolution: float = 0.01, **kw) -> RobustRoute:
     """Fastest line at nominal friction that stays feasible at HI and within the speed limit at LO.
 
-    A heuristic over a few ordinary searches (the exact method needs labels that carry one
-    energy per friction case inside the lattice kernel; see Notes).
+    ``method="exact"`` (default) runs the robust lattice search
+    (:func:`fallway.lattice.robust.robust_lattice_line`: labels carry one energy per
+    friction case), refines its line and checks the result; ``"candidates"`` is the
+    older heuristic over a few ordinary searches (Notes).
 
     Parameters
     ----------
@@ -1086,10 +1095,19 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
         Raise when no candidate is robust (default); otherwise return the nominal
         optimum with ``found=False``.
     search : callable, optional
-        ``search(terrain, start, end, mover, **kw) -> Route``; default
-        :func:`fallway.route.find_route`.
+        ``search(terrain, start, end, mover, **kw) -> Route`` for the candidate
+        method; default :func:`fallway.route.find_route`.
+    method : {"exact", "candidates"}
+        See Notes.  With via points the candidate method is used (the robust lattice
+        search has one leg).
+    max_labels : int
+        Label budget of each robust lattice search.
+    lo_resolution : float
+        When the exact robust search runs out of labels (a speed limit that binds at
+        LO), it is repeated with this LO-energy resolution (a fraction of the limit
+        squared; approximate, see :func:`~fallway.lattice.robust.robust_lattice_line`).
     **kw
-        Passed to the search (neighbours, keepout, refine, ...).
+        Passed to the searches (neighbours, keepout, refine, max_per_cell, ...).
 
     Returns
     -------
@@ -1102,7 +1120,20 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
 
     Notes
     -----
-    Method.  Every candidate is judged by the same check as :func:`envelope`:
+    Exact method.  The robust lattice search finds the lattice line with the least
+    nominal time among those that get through at ``mu_hi`` and stay within the speed
+    limit at ``mu_lo`` (gravity-normal model, exact Pareto labels over the three
+    energies; module notes of :mod:`fallway.lattice.robust`).  Its line is refined at
+    nominal friction and the refined line checked with :func:`envelope` (the reporting
+    model); if the refinement made it lose robustness the lattice line itself is
+    checked and kept.  When the search exhausts ``max_labels`` it is repeated at the
+    LO resolution ``lo_resolution`` (then ``method`` reads ``"approximate"``); when
+    that finds nothing robust either, the candidate method below runs and the best
+    robust line of all is returned.  A robust lattice line may revisit a cell (a loop
+    sheds energy at LO); the note says so.  When the exact search proves that no
+    lattice line works, no candidates are tried.
+
+    Candidate method.  Every candidate is judged by the same check as :func:`envelope`:
     :func:`fallway.physics.traverse` along the candidate line at ``mu_lo``, ``mover.mu``
     and ``mu_hi``; a candidate is *robust* when it does not stall and neither exceeds
     the speed limit nor lifts off at any of the three.  Candidates, in order:
@@ -1142,10 +1173,33 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     """
     lo, hi = _check_mu_range(mover, mu_lo, mu_hi)
     limits = Limits() if limits is None else limits
+    if method not in ("exact", "candidates"):
+        raise ParameterError(f"method must be 'exact' or 'candidates', got {method!r}")
     if search is None:
         from .route import find_route as search
     candidates: list[dict] = []
     found: dict[str, tuple] = {}
+    notes: list[str] = []
+    used = "candidates"
+    if method == "exact" and kw.get("via"):
+        notes.append("via points: the robust lattice search has one leg, so the candidate method was used")
+    elif method == "exact":
+        out = _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, lo_resolution, kw,
+                            candidates, found, notes)
+        used = out["method"]
+        robust = [(r, e) for r, e in found.values() if e.robust]
+        if robust or out["proved_none"]:
+            if robust:
+                r, e = min(robust, key=lambda re: re[1].nominal.travel_time_s)
+                _mark(r, used, lo, hi, notes)
+                return RobustRoute(route=r, envelope=e, candidates=tuple(candidates),
+                                   nominal_is_robust=False, method=used, note="; ".join(notes))
+            if strict:
+                raise NoFeasibleLine(out["message"], reason="limits")
+            return RobustRoute(route=None, envelope=None, candidates=tuple(candidates), nominal_is_robust=False,
+                               found=False, method=used, note="; ".join(notes + [out["message"]]))
+        notes.append("the robust lattice search gave no robust line; the candidate method was tried too")
+        used = f"{used}+candidates"
 
     def attempt(label: str, m: Mover):
         entry = {"label": label, "mu": m.mu, "max_speed": m.max_speed, "verdict": "no feasible line",
@@ -1179,14 +1233,79 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     robust = [(r, e) for r, e in found.values() if e.robust]
     if robust:
         r, e = min(robust, key=lambda re: re[1].nominal.travel_time_s)
-        return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=nominal_ok)
+        _mark(r, used, lo, hi, notes)
+        return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=nominal_ok,
+                           method=used, note="; ".join(notes))
     if strict:
         tried = "; ".join(f"{c['label']}: {c['verdict']}" for c in candidates)
         raise NoFeasibleLine(f"no line found that works from mu={lo:g} to mu={hi:g} ({tried}); "
                              "narrow the friction range, relax the speed limit or move the end points",
                              reason="limits")
     r, e = found.get("nominal", next(iter(found.values()), (None, None)))
-    return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=False, found=False)
+    return RobustRoute(route=r, envelope=e, candidates=tuple(candidates), nominal_is_robust=False, found=False,
+                       method=used, note="; ".join(notes))
+
+
+def _mark(route, method: str, lo: float, hi: float, notes: list[str]) -> None:
+    """Record in the route's summary how its robustness was established."""
+    route.summary.update({"robust_method": method, "robust_mu_range": [lo, hi],
+                          "robust_note": "; ".join(notes)})
+
+
+def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, lo_resolution, kw, candidates, found,
+                  notes) -> dict:
+    """The exact method of :func:`robust_route`: fills ``candidates``/``found``; see its Notes."""
+    from .lattice.robust import robust_lattice_line
+    from .route import route_from_lattice
+
+    lat_kw = {k: kw[k] for k in ("neighbours", "keepout") if k in kw}
+    route_kw = {k: v for k, v in kw.items() if k not in _SEARCH_ONLY}
+    tries = [("exact", 0.0)]
+    if mover.max_speed is not None and lo_resolution > 0.0:
+        tries.append(("approximate", float(lo_resolution)))
+    used, message = "exact", ""
+    for name, res in tries:
+        used = name
+        label = "robust search" if res == 0.0 else f"robust search, LO resolution {res:g}"
+        entry = {"label": label, "mu": mover.mu, "max_speed": mover.max_speed, "verdict": "no feasible line",
+                 "travel_time_s": None, "envelope": None}
+        candidates.append(entry)
+        try:
+            lat = robust_lattice_line(terrain, start, end, mover, lo, hi, limits=limits, max_labels=max_labels,
+                                      max_per_cell=kw.get("max_per_cell"), lo_resolution=res, **lat_kw)
+        except NoFeasibleLine as err:
+            message = str(err)
+            entry["verdict"] = message
+            if "label budget" in message:
+                notes.append(f"{label}: label budget of {max_labels} exhausted")
+                continue
+            exact = res == 0.0 and not kw.get("max_per_cell")
+            return {"method": used, "proved_none": exact, "message": message}
+        if not lat.stats.get("simple", True):
+            notes.append(f"{label}: the robust lattice line revisits a cell (a loop that sheds energy)")
+        if not lat.stats.get("exact", True):
+            used = "approximate"
+        variants = [("refined", route_kw.get("refine", True))] if route_kw.get("refine", True) else []
+        variants.append(("lattice line", False))
+        for vname, ref in variants:
+            r = route_from_lattice(terrain, lat, mover, limits=limits, **{**route_kw, "refine": ref})
+            r.summary.update({"search_exact": bool(lat.stats.get("exact", True)),
+                              "labels_created": int(lat.stats["labels_created"]),
+                              "labels_settled": int(lat.stats["labels_settled"]),
+                              "search_s": float(lat.stats["search_s"])})
+            env = envelope(terrain, np.asarray(r.line, dtype=float), mover, lo, hi, limits=limits,
+                           name=f"{label}, {vname}", computed=True)
+            e2 = dict(entry) if vname != variants[0][0] else entry
+            e2.update(label=f"{label}, {vname}", verdict=env.verdict, travel_time_s=env.nominal.travel_time_s,
+                      envelope=env)
+            if e2 is not entry:
+                candidates.append(e2)
+            found[e2["label"]] = (r, env)
+            if env.robust:
+                break
+            notes.append(f"{label}, {vname}: {env.verdict} with the reporting model")
+        return {"method": used, "proved_none": False, "message": ""}
+    return {"method": used, "proved_none": False, "message": message}
 
 
 # --------------------------------------------------------------------------- figure
