@@ -262,3 +262,31 @@ def test_batch_command_collects_a_table(tmp_path, ramp):
     got = sorted(float(r["travel_time_s"]) for r in rows)
     want = sorted(_incline_time(s, theta, mu) for mu in (0.05, 0.1))
     assert got == pytest.approx(want, rel=1e-6)
+
+
+def test_route_robust_keeps_the_low_friction_speed_under_the_limit(tmp_path, ramp):
+    # 100 m of plan down a 0.3 grade (30 m drop), mu 0.1 in 0.05..0.2, limit 22 m/s.  The
+    # straight fall line reaches sqrt(2 g (30 - 0.05 * 100)) = 22.1 m/s at LO, so the
+    # robust line must be longer: work-energy theorem (any mechanics text, no drag), under
+    # 22 m/s at the end at mu 0.05 needs a plan length P >= (2 g 30 - 22²) / (2 g 0.05)
+    dem, start, end = ramp
+    out = tmp_path / "robust"
+    res = _run(["route", dem, "--start", *start, "--end", *end, "--mu", 0.1, "--normal", "gravity",
+                "--max-speed", 22.0, "--mu-range", 0.05, 0.2, "--robust", "--no-refine", "--out", out])
+    assert res.exit_code == 0, res.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["robust_method"] == "exact" and summary["robust_mu_range"] == [0.05, 0.2]
+    assert summary["friction_envelope"]["envelope_status"] == "robust"
+    with open(out / "profile.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    pts = np.array([[float(r["x"]), float(r["y"]), float(r["z_line"])] for r in rows])
+    plan = float(np.hypot(*np.diff(pts[:, :2], axis=0).T).sum())
+    assert plan >= (2 * G * 30.0 - 22.0 ** 2) / (2 * G * 0.05) * (1 - 1e-9)
+    lo = traverse(pts, Mover(mu=0.05, normal="gravity"))
+    hi = traverse(pts, Mover(mu=0.2, normal="gravity"))
+    assert float(np.max(lo.speed_m_s)) <= 22.0 * (1 + 1e-9) and hi.stalled_at_m is None
+    # the ordinary optimum is faster and too fast at LO: robustness costs time
+    plain = tmp_path / "plain"
+    assert _run(["route", dem, "--start", *start, "--end", *end, "--mu", 0.1, "--normal", "gravity",
+                 "--no-refine", "--out", plain]).exit_code == 0
+    assert json.loads((plain / "summary.json").read_text())["travel_time_s"] < summary["travel_time_s"]

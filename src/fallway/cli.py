@@ -388,6 +388,7 @@ def _run_route(sc, *, quiet: bool, robust: bool = False, cover=None):
 
             rr = robust_route(terrain, start, end, sc.mover, *sc.mu_range, **kw)
             r = rr.route
+            log.info("robust line by the %s method%s", rr.method, f" ({rr.note})" if rr.note else "")
         else:
             r = find_route(terrain, start, end, sc.mover, **kw)
         bar.update()
