@@ -43,6 +43,7 @@ from __future__ import annotations
 
 import math
 
+import dataclasses
 import warnings
 from dataclasses import dataclass, field
 
@@ -100,8 +101,13 @@ class RefineResult:
         What happened, including active or violated limits.
     limits : dict
         Per limit (``keepout``, ``grade``, ``max_speed``, ``stall``, ``min_radius``,
-        ``extent``): ``"inactive"``, ``"active"`` (at its bound within the margin) or
-        ``"violated"``.
+        ``extent``, ``clearance``): ``"inactive"``, ``"active"`` (at its bound within the
+        margin) or ``"violated"``.  ``min_radius`` is judged on the 3D circumradius of
+        consecutive vertices.
+    polish : str
+        Outcome of the full-model polish (``Mover(normal="full")``), e.g.
+        ``"full-model polish 8.463 s -> 8.027 s in 1868 iterations"``; empty when it did
+        not run.
     """
 
     line: np.ndarray
@@ -113,6 +119,7 @@ class RefineResult:
     time_after_s: float
     message: str
     limits: dict = field(default_factory=dict)
+    polish: str = ""
 
 
 # ---------------------------------------------------------------------------------------
@@ -1338,6 +1345,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             sizes.insert(0, (sizes[0] - 1) // 2 + 1)
         r_min = limits.min_radius_m
         smooth = r_min is not None
+        polish_note = ""
         P_seed, P_round = P_start, None
         if smooth:
             # a bend radius limit: start from the lattice line with its corners rounded
@@ -1420,14 +1428,16 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
                              + ("" if ok_p else f" (stopped at its iteration budget, residual {res_p:.2g} s/m)"))
             else:
                 notes.append("full-model polish found nothing faster than the gravity-normal optimum")
+            polish_note = notes[-1]
         status = opt.violations(P)
         if status.get("min_radius") == "violated":
             # the penalty leaves a few tight triples: smooth them out locally
             P = _repair_radius(opt, P, P_start, r_min)
             status = opt.violations(P)
         prof = _traverse(P, mover)
-        return _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start,
-                       P_round)
+        res = _choose(opt, mover, P, prof, status, converged, residual, iters, notes, P_start, prof_start,
+                      P_round)
+        return dataclasses.replace(res, polish=polish_note) if polish_note else res
     except FallwayError:
         raise
     except (ZeroDivisionError, ValueError, FloatingPointError, np.linalg.LinAlgError) as err:
