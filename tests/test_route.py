@@ -91,3 +91,17 @@ def test_reach_geotiff_round_trip(tmp_path):
         assert math.isnan(src.nodata)
         np.testing.assert_array_equal(src.read(1), rm.time_s.astype(np.float32))
         np.testing.assert_array_equal(src.read(2), rm.speed_m_s.astype(np.float32))
+
+
+def test_min_radius_in_plan_and_in_3d_on_a_tilted_circle():
+    # vertices on a circle of radius 10 m in a plane tilted 30° about the x axis: the 3D
+    # circumradius of any three is 10 m (a circle through three of its points); in plan
+    # the circle is an ellipse with semi-axes 10 and 10 cos 30°, whose smallest radius
+    # of curvature is b²/a = 10 cos² 30° = 7.5 m, at the ends of the major axis
+    from fallway.route import _min_radius
+
+    phi = np.linspace(0.0, np.pi, 721)
+    tilt = np.radians(30.0)
+    pts = np.column_stack([10 * np.cos(phi), 10 * np.sin(phi) * np.cos(tilt), 10 * np.sin(phi) * np.sin(tilt)])
+    assert _min_radius(pts, 3) == pytest.approx(10.0, rel=1e-9)
+    assert _min_radius(pts) == pytest.approx(7.5, rel=1e-3)

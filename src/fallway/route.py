@@ -146,19 +146,24 @@ class ReachMap:
             raise
 
 
-def _min_radius(points: np.ndarray) -> float:
-    """Smallest circumradius of three consecutive plan vertices (inf when straight)."""
-    xy = np.asarray(points, dtype=float)[:, :2]
+def _min_radius(points: np.ndarray, dims: int = 2) -> float:
+    """Smallest circumradius of three consecutive vertices, in plan (``dims=2``) or 3D (inf when straight)."""
+    xy = np.asarray(points, dtype=float)[:, :dims]
     if len(xy) > 1:
-        keep = np.concatenate([[True], np.hypot(*np.diff(xy, axis=0).T) > 1e-9])
+        keep = np.concatenate([[True], np.linalg.norm(np.diff(xy, axis=0), axis=1) > 1e-9])
         xy = xy[keep]
     if len(xy) < 3:
         return math.inf
-    a = np.hypot(*(xy[1:-1] - xy[:-2]).T)
-    b = np.hypot(*(xy[2:] - xy[1:-1]).T)
-    c = np.hypot(*(xy[2:] - xy[:-2]).T)
-    cross = np.abs((xy[1:-1, 0] - xy[:-2, 0]) * (xy[2:, 1] - xy[:-2, 1])
-                   - (xy[1:-1, 1] - xy[:-2, 1]) * (xy[2:, 0] - xy[:-2, 0]))
+    u = xy[1:-1] - xy[:-2]
+    w = xy[2:] - xy[:-2]
+    a = np.linalg.norm(u, axis=1)
+    b = np.linalg.norm(xy[2:] - xy[1:-1], axis=1)
+    c = np.linalg.norm(w, axis=1)
+    # twice the triangle's area: |u x w| (the z component alone in plan)
+    if dims == 2:
+        cross = np.abs(u[:, 0] * w[:, 1] - u[:, 1] * w[:, 0])
+    else:
+        cross = np.linalg.norm(np.cross(u, w), axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         r = a * b * c / (2.0 * cross)
     r = r[cross > 1e-12 * np.maximum(a * b, 1e-300)]
@@ -321,7 +326,8 @@ def route_from_lattice(terrain, lat: LatticeLine, mover: Mover, *, limits: Limit
             extra = {"refine_iterations": int(rr.iterations), "refine_residual": _num(rr.residual),
                      "refine_converged": bool(rr.converged), "refine_time_before_s": _num(rr.time_before_s),
                      "refine_time_after_s": _num(rr.time_after_s), "refine_message": str(rr.message),
-                     "refine_limits": dict(getattr(rr, "limits", {}) or {})}
+                     "refine_limits": dict(getattr(rr, "limits", {}) or {}),
+                     "refine_polish": str(getattr(rr, "polish", "") or "")}
     profile = _timed(terrain, final, mover, line)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
     d = np.diff(final, axis=0)
@@ -338,6 +344,7 @@ def route_from_lattice(terrain, lat: LatticeLine, mover: Mover, *, limits: Limit
         "exit_speed_m_s": _num(profile.exit_speed_m_s),
         "max_speed_m_s": _num(np.nanmax(profile.speed_m_s)),
         "min_radius_m": _min_radius(final),
+        "min_radius_3d_m": _min_radius(final, 3),
         "max_grade": _num(np.nanmax(profile.grade)),
         "labels_created": int(st.get("labels_created", 0)),
         "labels_settled": int(st.get("labels_settled", 0)),
