@@ -705,3 +705,22 @@ def test_exact_robust_route_proves_an_empty_end_window():
     rr = robust_route(t, s0, e0, Mover(mu=0.1, normal="gravity"), 0.05, 0.2, refine=False,
                       via=[t.cell_center(20, 20)])
     assert rr.method == "candidates" and "via" in rr.note
+
+
+def test_exact_robust_route_takes_a_robust_nominal_optimum_at_once():
+    # with drag: the ordinary exact search's optimum is robust here (checked independently
+    # by the work-energy ordering: it does not stall at HI, no limit at LO), and no robust
+    # line can beat the unconstrained optimum, so it is the answer, found without the
+    # (three-energy) robust search
+    from fallway.route import find_route
+
+    t = plane_terrain(0.0, 0.4, rows=30, cols=30)
+    s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
+    mover = Mover(mu=0.1, drag=0.01, normal="gravity")
+    rr = robust_route(t, s0, e0, mover, 0.05, 0.2, refine=False)
+    assert rr.method == "exact" and rr.envelope.robust
+    assert rr.candidates[0]["label"].startswith("nominal optimum")
+    plain = find_route(t, s0, e0, mover, refine=False)
+    assert rr.route.travel_time_s == pytest.approx(plain.travel_time_s, rel=1e-12)
+    again = evaluate_line(t, np.asarray(rr.route.line), Mover(mu=0.2, drag=0.01, normal="gravity"))
+    assert again.status == "ok"

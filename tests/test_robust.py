@@ -389,8 +389,8 @@ def test_a_star_order_and_label_cap():
     assert a.stats["exact"] and a.stats["label_cap"] is None
     assert a.time_s > free.time_s
     check_line_at_three(a, m, 0.1, 0.25)
-    # an LO resolution of 1 % of the limit squared: fewer labels, a robust line, no faster
-    c = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, lo_resolution=0.01)
+    # an energy resolution of 1 % of the limit squared: fewer labels, a robust line, no faster
+    c = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, resolution=0.01)
     assert c.time_s >= a.time_s * (1 - 1e-12) and not c.stats["exact"]
     assert c.stats["labels_settled"] < a.stats["labels_settled"]
     check_line_at_three(c, m, 0.1, 0.25)

@@ -1071,7 +1071,7 @@ _SEARCH_ONLY = ("heuristic", "energy_tol", "max_labels", "max_per_cell", "via")
 
 def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *, limits: Limits | None = None,
                  max_rounds: int = 3, strict: bool = True, search=None, method: str = "exact",
-                 max_labels: int = 2_000_000, lo_resolution: float = 0.01, **kw) -> RobustRoute:
+                 max_labels: int = 2_000_000, resolution: float = 0.01, **kw) -> RobustRoute:
     """Fastest line at nominal friction that stays feasible at HI and within the speed limit at LO.
 
     ``method="exact"`` (default) runs the robust lattice search
@@ -1102,10 +1102,10 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
         search has one leg).
     max_labels : int
         Label budget of each robust lattice search.
-    lo_resolution : float
+    resolution : float
         When the exact robust search runs out of labels (a speed limit that binds at
-        LO), it is repeated with this LO-energy resolution (a fraction of the limit
-        squared; approximate, see :func:`~fallway.lattice.robust.robust_lattice_line`).
+        LO, or drag), it is repeated at this energy resolution (approximate; see
+        :func:`~fallway.lattice.robust.robust_lattice_line`).
     **kw
         Passed to the searches (neighbours, keepout, refine, max_per_cell, ...).
 
@@ -1127,7 +1127,7 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     nominal friction and the refined line checked with :func:`envelope` (the reporting
     model); if the refinement made it lose robustness the lattice line itself is
     checked and kept.  When the search exhausts ``max_labels`` it is repeated at the
-    LO resolution ``lo_resolution`` (then ``method`` reads ``"approximate"``); when
+    energy resolution ``resolution`` (then ``method`` reads ``"approximate"``); when
     that finds nothing robust either, the candidate method below runs and the best
     robust line of all is returned.  A robust lattice line may revisit a cell (a loop
     sheds energy at LO); the note says so.  When the exact search proves that no
@@ -1184,7 +1184,7 @@ def robust_route(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, 
     if method == "exact" and kw.get("via"):
         notes.append("via points: the robust lattice search has one leg, so the candidate method was used")
     elif method == "exact":
-        out = _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, lo_resolution, kw,
+        out = _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, resolution, kw,
                             candidates, found, notes)
         used = out["method"]
         robust = [(r, e) for r, e in found.values() if e.robust]
@@ -1252,7 +1252,23 @@ def _mark(route, method: str, lo: float, hi: float, notes: list[str]) -> None:
                           "robust_note": "; ".join(notes)})
 
 
-def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, lo_resolution, kw, candidates, found,
+def _nominal_if_robust(terrain, start, end, mover, lo, hi, limits, lat_kw, kw):
+    """The ordinary nominal lattice optimum when it is exact and robust on the lattice model, else None."""
+    from .lattice.search import lattice_line
+
+    lat = lattice_line(terrain, start, end, mover, limits=limits, max_labels=kw.get("max_labels"),
+                       max_per_cell=kw.get("max_per_cell"), **lat_kw)
+    if not lat.stats.get("exact", True):
+        return None
+    g_model = dataclasses.replace(mover, normal="gravity")
+    at_hi = traverse(lat.points, dataclasses.replace(g_model, mu=hi, max_speed=None))
+    at_lo = traverse(lat.points, dataclasses.replace(g_model, mu=lo))
+    if at_hi.stalled_at_m is not None or len(at_lo.overspeed) or at_lo.stalled_at_m is not None:
+        return None
+    return lat
+
+
+def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, resolution, kw, candidates, found,
                   notes) -> dict:
     """The exact method of :func:`robust_route`: fills ``candidates``/``found``; see its Notes."""
     from .lattice.robust import robust_lattice_line
@@ -1260,19 +1276,29 @@ def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, lo_res
 
     lat_kw = {k: kw[k] for k in ("neighbours", "keepout") if k in kw}
     route_kw = {k: v for k, v in kw.items() if k not in _SEARCH_ONLY}
-    tries = [("exact", 0.0)]
-    if mover.max_speed is not None and lo_resolution > 0.0:
-        tries.append(("approximate", float(lo_resolution)))
+    tries = [("nominal", None), ("exact", 0.0)]
+    if resolution > 0.0:
+        tries.append(("approximate", float(resolution)))
     used, message = "exact", ""
     for name, res in tries:
-        used = name
-        label = "robust search" if res == 0.0 else f"robust search, LO resolution {res:g}"
+        used = "exact" if name == "nominal" else name
+        label = ("nominal optimum" if res is None else "robust search" if res == 0.0
+                 else f"robust search, resolution {res:g}")
         entry = {"label": label, "mu": mover.mu, "max_speed": mover.max_speed, "verdict": "no feasible line",
                  "travel_time_s": None, "envelope": None}
         candidates.append(entry)
         try:
-            lat = robust_lattice_line(terrain, start, end, mover, lo, hi, limits=limits, max_labels=max_labels,
-                                      max_per_cell=kw.get("max_per_cell"), lo_resolution=res, **lat_kw)
+            if res is None:
+                # every robust line is a feasible line of the ordinary nominal search, so
+                # an exact nominal optimum that is robust on the lattice model is the
+                # robust optimum: no need for the (larger) robust search
+                lat = _nominal_if_robust(terrain, start, end, mover, lo, hi, limits, lat_kw, kw)
+                if lat is None:
+                    entry["verdict"] = "not robust on the lattice model (or not exact)"
+                    continue
+            else:
+                lat = robust_lattice_line(terrain, start, end, mover, lo, hi, limits=limits, max_labels=max_labels,
+                                          max_per_cell=kw.get("max_per_cell"), resolution=res, **lat_kw)
         except NoFeasibleLine as err:
             message = str(err)
             entry["verdict"] = message

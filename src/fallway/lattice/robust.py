@@ -112,19 +112,19 @@ _DEFAULT_MAX_LABELS = 50_000_000
 
 
 @njit(cache=True, nogil=True)
-def _dominated(head, nxt, Llo, Lnom, Lhi, slot, lo, nom, hi, lo_safe, tol_abs, tol_rel, lo_slack):
+def _dominated(head, nxt, Llo, Lnom, Lhi, slot, lo, nom, hi, lo_safe, tol_abs, tol_rel, slack):
     """True when a settled label at state ``slot`` dominates (lo, nom, hi) (times are ordered).
 
     A settled label with ``v2_lo <= lo_safe`` can never exceed the speed limit at LO from
-    this cell on, so its LO energy is no handicap whatever the newcomer's.  ``lo_slack``
-    (0 for the exact search) lets a settled label with up to that much more LO v² count
-    as dominating: the resolution of the approximate search.
+    this cell on, so its LO energy is no handicap whatever the newcomer's.  ``slack``
+    (0 for the exact search) lets a settled label up to that much worse in each v²
+    count as dominating: the resolution of the approximate search.
     """
     q = head[slot]
-    tl = tol_abs + tol_rel * lo
-    tn = tol_abs + tol_rel * nom
-    th = tol_abs + tol_rel * hi
-    lo_ok = max(lo + tl + lo_slack, lo_safe)
+    tl = tol_abs + tol_rel * lo + slack
+    tn = tol_abs + tol_rel * nom + slack
+    th = tol_abs + tol_rel * hi + slack
+    lo_ok = max(lo + tl, lo_safe)
     while q >= 0:
         if Lnom[q] >= nom - tn and Lhi[q] >= hi - th and Llo[q] <= lo_ok:
             return True
@@ -223,7 +223,7 @@ def robust_search(z, blocked, rows, cols, cell,
                   tch_start, tch_flat, turn_ok, use_heading,
                   g, mu_lo, mu_nom, mu_hi, kdrag, v2_stall, v2_max, min_grade, max_grade,
                   start, v2_start, target, lo_safe, inv_v, tol_abs, tol_rel, max_labels, init_cap,
-                  max_per_cell, lo_slack):
+                  max_per_cell, slack):
     """Label-setting search with labels (t_nom, v2_lo, v2_nom, v2_hi) (module notes).
 
     ``lo_safe[n]``: a label at cell n whose LO v² is at most this can never exceed the
@@ -231,8 +231,8 @@ def robust_search(z, blocked, rows, cols, cell,
     of the nominal speed) for the A* bound (0 turns it off).  ``use_heading``: states
     are (cell, heading of the last step) and ``turn_ok[i, j]`` says whether step j may
     follow step i.  ``max_per_cell`` > 0 keeps at most that many settled labels per
-    state (the earliest; an approximation, counted in ``R_CAPPED``).  ``lo_slack`` > 0:
-    LO energies within that much (m²/s²) count as equal in dominance (approximate).
+    state (the earliest; an approximation, counted in ``R_CAPPED``).  ``slack`` > 0: energies
+    within that much (m²/s²) count as equal in dominance (approximate).
 
     Returns
     -------
@@ -287,7 +287,7 @@ def robust_search(z, blocked, rows, cols, cell,
         hi0 = Lhi[li]
         hd = Lhd[li]
         slot = n * nh + (hd + 1 if use_heading else 0)
-        if _dominated(head, Lnext, Llo, Lnom, Lhi, slot, lo0, nom0, hi0, lo_safe[n], tol_abs, tol_rel, lo_slack):
+        if _dominated(head, Lnext, Llo, Lnom, Lhi, slot, lo0, nom0, hi0, lo_safe[n], tol_abs, tol_rel, slack):
             counters[R_DOMINATED] += 1
             continue
         if capped:
@@ -379,7 +379,7 @@ def robust_search(z, blocked, rows, cols, cell,
             if not ok:
                 continue
             s2 = m * nh + (kk + 1 if use_heading else 0)
-            if _dominated(head, Lnext, Llo, Lnom, Lhi, s2, vlo, vnom, vhi, lo_safe[m], tol_abs, tol_rel, lo_slack):
+            if _dominated(head, Lnext, Llo, Lnom, Lhi, s2, vlo, vnom, vhi, lo_safe[m], tol_abs, tol_rel, slack):
                 counters[R_DOMINATED] += 1
                 continue
             if n_lab >= cap:
@@ -452,7 +452,7 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
                         neighbours: int = 16, limits: Limits | None = None, keepout=None,
                         max_labels: int | None = None, energy_tol: float | None = None,
                         max_per_cell: int | None = None, heuristic: bool = True,
-                        lo_resolution: float = 0.0):
+                        resolution: float = 0.0):
     """The exact robust lattice line: fastest at nominal friction, feasible over [mu_lo, mu_hi].
 
     Among lattice lines from ``start`` to ``end`` that do not stall at ``mu_hi`` and stay
@@ -482,14 +482,16 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
         longer exact (``stats["exact"]`` False).  Default: the exact Pareto search.
     heuristic : bool
         Order the search by the A* bound (module notes); False: plain Dijkstra order.
-    lo_resolution : float
-        Fraction of ``max_speed²``: LO energies closer than this count as equal in the
-        dominance test (approximate search, ``stats["exact"]`` False; the line returned
-        is still checked against the true limits).  Where the speed limit binds at LO
-        the exact Pareto set grows without bound (with no drag the three energies of a
-        label are set by its plan length alone, so two labels at a cell compare only
-        when their lengths are equal); a resolution of 1-2 % bounds it.  Default 0:
-        exact.
+    resolution : float
+        Approximate search: energies closer than this fraction of a reference v² (the
+        speed limit squared, else the largest v² the drop allows) count as equal in the
+        dominance test (``stats["exact"]`` False; the line returned is still checked
+        against the true limits, so it is robust, only maybe not the fastest).  The
+        exact Pareto set can grow without bound: where the speed limit binds at LO
+        (with no drag the three energies of a label are set by its plan length alone,
+        so two labels at a cell compare only when their lengths are equal) and with
+        drag (three independent energies).  A resolution of about 1 % bounds it.
+        Default 0: exact.
 
     Returns
     -------
@@ -542,9 +544,8 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     cap = 0 if max_per_cell is None else int(max_per_cell)
     if cap < 0:
         raise ParameterError(f"max_per_cell must be a positive number of labels, got {max_per_cell!r}")
-    if not (math.isfinite(lo_resolution) and lo_resolution >= 0.0):
-        raise ParameterError(f"lo_resolution must be a fraction >= 0, got {lo_resolution!r}")
-    lo_slack = float(lo_resolution) * prob.v2_max if math.isfinite(prob.v2_max) else 0.0
+    if not (math.isfinite(resolution) and resolution >= 0.0):
+        raise ParameterError(f"resolution must be a fraction >= 0, got {resolution!r}")
     t0 = time.perf_counter()
     g = mover.g
     if math.isfinite(prob.v2_max):
@@ -562,21 +563,22 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
         v2_bound = min(v2_bound, max(v2_start, a_max / mover.drag) if a_max > 0.0 else v2_start)
     v2_bound = min(v2_bound, prob.v2_max)
     inv_v = 1.0 / math.sqrt(v2_bound) if (heuristic and v2_bound > 0.0) else 0.0
+    slack = float(resolution) * (prob.v2_max if math.isfinite(prob.v2_max) else v2_bound)
     out = robust_search(prob.z, prob.blocked, prob.rows, prob.cols, prob.cell,
                         prob.off_dr, prob.off_dc, prob.off_plan,
                         prob.brk_start, prob.brk_u, prob.brk_fa, prob.brk_fb, prob.brk_w,
                         prob.tch_start, prob.tch_flat, prob.turn_ok, prob.use_heading,
                         g, lo, mover.mu, hi, mover.drag, mover.stall_speed ** 2, prob.v2_max,
                         prob.min_grade, prob.max_grade, int(s), v2_start, int(e), lo_safe, inv_v,
-                        tol_abs, tol_rel, budget, _INIT_CAP, cap, lo_slack)
+                        tol_abs, tol_rel, budget, _INIT_CAP, cap, slack)
     elapsed = time.perf_counter() - t0
     status, final, n_lab, Lt, Llo, Lnom, Lhi, Lnode, Lpar, closest, cnt = out
     stats = {"labels_created": int(cnt[R_CREATED]), "labels_settled": int(cnt[R_SETTLED]),
              "labels_dominated": int(cnt[R_DOMINATED]), "rejected_grade": int(cnt[R_GRADE]),
              "rejected_stall_hi": int(cnt[R_STALL_HI]), "rejected_speed_lo": int(cnt[R_SPEED_LO]),
              "rejected_blocked": int(cnt[R_BLOCKED]), "rejected_turn": int(cnt[R_TURN]),
-             "labels_capped": int(cnt[R_CAPPED]), "exact": (cap == 0 or int(cnt[R_CAPPED]) == 0) and lo_slack == 0.0,
-             "lo_resolution": float(lo_resolution),
+             "labels_capped": int(cnt[R_CAPPED]), "exact": (cap == 0 or int(cnt[R_CAPPED]) == 0) and slack == 0.0,
+             "resolution": float(resolution),
              "label_cap": cap or None, "search_s": float(elapsed),
              "neighbours": int(prob.stencil.size), "energy_tol": float(tol_rel),
              "mu_lo": lo, "mu_nominal": float(mover.mu), "mu_hi": hi}
