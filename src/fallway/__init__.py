@@ -18,7 +18,7 @@ from .errors import (FallwayError, FallwayIOError, NoFeasibleLine, OutputExistsE
 from .terrain import Terrain, load_terrain
 from .physics import STANDARD_GRAVITY, Mover, Profile, SegmentResult, normal_gravity, segment, traverse
 from .limits import Keepout, Limits
-from .route import LatticeLine, ReachMap, Route, find_route
+from .route import LatticeLine, ReachMap, Route, find_route, route_from_lattice
 from .lattice.search import reach
 from .scenario import Scenario, load_scenario
 from .export import (OutputSet, write_profile_csv, write_route_geojson, write_route_gpkg,
@@ -26,7 +26,7 @@ from .export import (OutputSet, write_profile_csv, write_route_geojson, write_ro
 from .plot import plot_map, plot_profile, save_figure
 from .report import write_report_html
 from .refine import RefineResult, refine_line
-from .compare import (Comparison, Envelope, LineResult, drape, envelope, evaluate_line, read_lines,
+from .compare import (Comparison, Envelope, LineResult, RobustRoute, drape, envelope, evaluate_line, read_lines,
                       robust_route)
 from .compare import compare  # noqa: E402  (the function; the module stays importable as fallway.compare)
 from .lattice.robust import robust_lattice_line
@@ -41,12 +41,12 @@ __all__ = [
     "Terrain", "load_terrain",
     "STANDARD_GRAVITY", "Mover", "Profile", "SegmentResult", "normal_gravity", "segment", "traverse",
     "Keepout", "Limits",
-    "LatticeLine", "ReachMap", "Route", "find_route", "reach",
+    "LatticeLine", "ReachMap", "Route", "find_route", "route_from_lattice", "reach",
     "Scenario", "load_scenario",
     "OutputSet", "write_profile_csv", "write_route_geojson", "write_route_gpkg", "write_summary_json",
     "plot_map", "plot_profile", "save_figure", "write_report_html",
     "RefineResult", "refine_line",
     "Comparison", "Envelope", "LineResult", "compare", "drape", "envelope", "evaluate_line", "read_lines",
-    "robust_route",
+    "RobustRoute", "robust_route",
     "robust_lattice_line", "find_route_large", "reach_limited", "run_batch",
 ]
