@@ -11,7 +11,6 @@ import math
 import subprocess
 import sys
 import tomllib
-from pathlib import Path
 
 import numpy as np
 import pytest

@@ -23,10 +23,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from rasterio.crs import CRS
 
-from fallway.compare import (COMPARISON_COLUMNS, ENVELOPE_COLUMNS, Comparison, compare, drape, envelope,
+from fallway.compare import (COMPARISON_COLUMNS, ENVELOPE_COLUMNS, compare, drape, envelope,
                              evaluate_line, min_bend_radius_m, read_lines, robust_route)
 from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
-from fallway.limits import Limits
 from fallway.physics import Mover
 from fallway.terrain import Terrain
 
