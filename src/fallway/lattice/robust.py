@@ -132,6 +132,15 @@ def _dominated(head, nxt, Llo, Lnom, Lhi, slot, lo, nom, hi, lo_safe, tol_abs, t
     return False
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _passable(blocked, n, kk, tch_start, tch_flat):
+    """True when no cell the edge from ``n`` along offset ``kk`` touches is blocked."""
+    for q in range(tch_start[kk], tch_start[kk + 1]):
+        if blocked[n + tch_flat[q]]:
+            return False
+    return True
+
+
 @njit(cache=True, nogil=True)
 def lo_floor(z, blocked, rows, cols, cell, off_dr, off_dc, off_plan,
              brk_start, brk_fa, brk_fb, brk_w, tch_start, tch_flat, mu_lo):
@@ -161,12 +170,7 @@ def lo_floor(z, blocked, rows, cols, cell, off_dr, off_dc, off_plan,
             c2 = c + off_dc[kk]
             if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
                 continue
-            bad = False
-            for q in range(tch_start[kk], tch_start[kk + 1]):
-                if blocked[n + tch_flat[q]]:
-                    bad = True
-                    break
-            if bad:
+            if not _passable(blocked, n, kk, tch_start, tch_flat):
                 continue
             for q in range(brk_start[kk], brk_start[kk + 1]):
                 zq = brk_w[q] * z[n + brk_fa[q]] + (1.0 - brk_w[q]) * z[n + brk_fb[q]]
@@ -198,12 +202,7 @@ def lo_floor(z, blocked, rows, cols, cell, off_dr, off_dc, off_plan,
             n = rn * cols + cn
             if blocked[n] or done[n]:
                 continue
-            bad = False
-            for q in range(tch_start[kk], tch_start[kk + 1]):
-                if blocked[n + tch_flat[q]]:
-                    bad = True
-                    break
-            if bad:
+            if not _passable(blocked, n, kk, tch_start, tch_flat):
                 continue
             cand = E[a] + mu_lo * off_plan[kk] * cell
             if cand < E[n]:
@@ -322,12 +321,7 @@ def robust_search(z, blocked, rows, cols, cell,
                 counters[R_GRID] += 1
                 continue
             m = r2 * cols + c2
-            bad = False
-            for q in range(tch_start[kk], tch_start[kk + 1]):
-                if blocked[n + tch_flat[q]]:
-                    bad = True
-                    break
-            if bad:
+            if not _passable(blocked, n, kk, tch_start, tch_flat):
                 counters[R_BLOCKED] += 1
                 continue
             vlo = lo0
