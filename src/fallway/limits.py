@@ -28,7 +28,11 @@ class Limits:
     max_turn_deg : float or None
         Largest change of plan heading between consecutive lattice steps, degrees.
     min_radius_m : float or None
-        Smallest bend radius of the refined line, metres.
+        Smallest bend radius of the refined line, metres, measured along the line in 3D
+        (circumradius of consecutive vertices; the refinement holds it).  On a slope the
+        plan radius differs (a plan circle of radius R draped on a plane tilted by α has a
+        3D radius down to R cos α); route summaries report both, ``min_radius_m`` (plan)
+        and ``min_radius_3d_m``.
 
     Examples
     --------

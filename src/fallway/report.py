@@ -29,7 +29,8 @@ _MAIN_ROWS = (
     ("drop_m", "Drop", "m", 1),
     ("exit_speed_m_s", "Speed at the end", "m/s", 2),
     ("max_speed_m_s", "Highest speed", "m/s", 2),
-    ("min_radius_m", "Tightest bend radius", "m", 1),
+    ("min_radius_m", "Tightest bend radius in plan", "m", 1),
+    ("min_radius_3d_m", "Tightest bend radius along the line (3D)", "m", 1),
     ("max_grade", "Steepest descent grade", "", 3),
 )
 
