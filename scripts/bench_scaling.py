@@ -4,14 +4,27 @@ For n x n DEMs of 0.25 M, 1 M, 4 M, 16 M and 25 M cells at 2 m (the generator of
 ``bench_large.py``, written to a tiled deflate GeoTIFF), a friction route corner to
 corner (15 % in from opposite corners), 16 neighbours, ``max_per_cell`` labels, through
 :func:`fallway.scale.find_route_large` (coarse-to-fine).  Each size runs in its own
-process: wall time and peak memory (ru_maxrss).  The growth exponent is the
+process: wall time and peak memory (VmHWM, see ``bench_large.peak_mb``).  The growth exponent is the
 least-squares slope of log(time) against log(cells).
 
 Run: ``python scripts/bench_scaling.py [--cap 4] [--refine] [--exact-up-to 4000000]``.
 ``--exact-up-to`` also times the exact full-grid search up to that many cells.
 
-Measured (2 cores, --cap 4, no refinement; 0.25 M cells is small enough for the auto
-coarse factor 1, i.e. the full grid)::
+Measured 2026-12-02 after the compact kernel state (2 cores shared by three people, load
+average ~3, wall times inflated; --cap 4, no refinement; peak = VmHWM of the child,
+``bench_large.peak_mb``; 0.25 M cells is small enough for the auto coarse factor 1, i.e.
+the full grid)::
+
+       cells      mode   wall s  peak MB
+      250000  corridor     3.01      269
+     1000000  corridor     6.63      289
+     4000000  corridor    13.84      372
+    16000000  corridor    32.19      738
+    25000000  corridor    59.14      972
+    corridor: time ~ cells^0.62, peak memory ~ cells^0.28
+
+Earlier (before 2026-12-02, an idle machine; peaks were ``ru_maxrss``, which in a child
+includes the parent's peak - the parent writes the growing DEMs - so they overstate)::
 
        cells      mode   wall s  peak MB
       250000  corridor     1.86      248

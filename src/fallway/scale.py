@@ -134,7 +134,7 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
     >>> print(f"{search_memory_bytes(1_000_000) / 1e6:.0f} MB")
     359 MB
     >>> print(f"{search_memory_bytes(1_000_000, active_cells=100_000) / 1e6:.0f} MB")
-    80 MB
+    64 MB
     """
     cells = int(cells)
     active = cells if active_cells is None else min(int(active_cells), cells)

@@ -59,7 +59,13 @@ flat index of their node (int32) and their parent's pool index (int32); the heap
 int32 pool indices.  A blocked cell is never the end of an edge (its touched cells
 include both ends), so the compact index is only ever looked up for searchable cells.
 The relabelling changes nothing else: the same labels are created, in the same order,
-as with the full-window layout (``cidx`` = flat index; checked in the tests).
+as with the full-window layout (``cidx`` = flat index; checked in the tests).  With
+nothing blocked the compact index is the flat index: the kernel then skips the lookup
+(``nact == rows * cols``) and the front passes a one-element dummy map.
+
+Pushing a label is one helper, :func:`_push_label` (write the pool entry, queue it),
+preceded by :func:`_make_room` only when the pool or the heap is full; the arrays are
+returned only from that rare branch, so the hot path does no reference counting.
 
 Float precision: all times, squared speeds and heap keys stay float64.  ``emax`` and
 ``open_v2`` are compared with a tolerance of ``1e-10`` relative (default), far below
@@ -181,13 +187,9 @@ def _heuristic(node, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v):
 
 
 
-@njit(cache=True, nogil=True, inline="always")
-def _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize,
-                t, v2, node, parent, leg, hd, key):
-    """Append a label to the pool and queue it under ``key`` (both double when full).
-
-    Returns the (possibly reallocated) arrays and the new pool and heap sizes.
-    """
+@njit(cache=True, nogil=True)
+def _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize):
+    """Double the label pool and/or the heap when full (the rare branch of a push)."""
     if n_lab >= Lt.shape[0]:
         cap = 2 * Lt.shape[0]
         Lt = _grow_f8(Lt, cap)
@@ -196,18 +198,27 @@ def _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize,
         Lpar = _grow_i4(Lpar, cap)
         Lleg = _grow_i1(Lleg, cap)
         Lhd = _grow_i1(Lhd, cap)
-    Lt[n_lab] = t
-    Lv2[n_lab] = v2
-    Lnode[n_lab] = node
-    Lpar[n_lab] = parent
-    Lleg[n_lab] = leg
-    Lhd[n_lab] = hd
     if hsize >= hkey.shape[0]:
         hcap = 2 * hkey.shape[0]
         hkey = _grow_f8(hkey, hcap)
         hidx = _grow_i4(hidx, hcap)
-    hsize = _heap_push(hkey, hidx, hsize, key, n_lab)
-    return Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab + 1, hkey, hidx, hsize
+    return Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx
+
+
+@njit(cache=True, nogil=True)
+def _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, q, hsize, t, v2, node, parent, leg, hd, key):
+    """Write label ``q`` into the pool and queue it under ``key``; returns the heap size.
+
+    The caller makes room first (:func:`_make_room`); the arrays are not returned, so
+    the hot path does no reference counting on them.
+    """
+    Lt[q] = t
+    Lv2[q] = v2
+    Lnode[q] = node
+    Lpar[q] = parent
+    Lleg[q] = leg
+    Lhd[q] = hd
+    return _heap_push(hkey, hidx, hsize, key, q)
 
 
 @njit(cache=True, nogil=True)
@@ -223,7 +234,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
     cell (``0 .. nact - 1``) and -1 for a blocked one (nodata, keep-out, outside the
-    corridor); the per-state arrays have ``nact`` entries per leg and heading.
+    corridor); the per-state arrays have ``nact`` entries per leg and heading.  With
+    ``nact == rows * cols`` (nothing blocked) the index is the flat index and ``cidx``
+    is not read (it may be a one-element dummy).
     ``targets`` empty: reach mode (every cell, no heuristic; ``best_t``/``best_v2`` are
     indexed by compact index).  Otherwise the legs end at ``targets[i]`` (flat
     indices) and the search stops at the first label settled at the last target.
@@ -244,6 +257,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     nk = off_dr.shape[0]
     nlegs = targets.shape[0]
     reach_mode = nlegs == 0
+    ident = nact == ncell  # nothing blocked: the compact index is the flat index
     nstate = nact if reach_mode else nact * nlegs
     nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
@@ -287,8 +301,11 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     key0 = 0.0
     if not reach_mode:
         key0 = _heuristic(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
-        Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, 0.0, v2_start, start, -1, 0, -1, key0)
+    if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
+        Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
+                                                             n_lab, hsize)
+    hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, 0.0, v2_start, start, -1, 0, -1, key0)
+    n_lab += 1
     counters[C_CREATED] = 1
 
     status = NOT_REACHED
@@ -304,7 +321,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
         t0 = Lt[li]
         v20 = Lv2[li]
         hd = Lhd[li]
-        cn = cidx[n]
+        cn = n if ident else cidx[n]
         s = cn if reach_mode else leg * nact + cn
         slot = s * nh + (hd + 1 if use_heading else 0)
         if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
@@ -345,8 +362,11 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                     counters[C_DOMINATED] += 1
                     continue
                 key = t0 + _heuristic(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
-                    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, t0, v20, n, li, nleg, hd, key)
+                if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
+                    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
+                                                                         n_lab, hsize)
+                hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, t0, v20, n, li, nleg, hd, key)
+                n_lab += 1
                 counters[C_CREATED] += 1
                 continue
 
@@ -419,7 +439,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             if tn > t_max:
                 counters[C_CUTOFF] += 1
                 continue
-            cm = cidx[m]
+            cm = m if ident else cidx[m]
             sm = (cm if reach_mode else leg * nact + cm) * nh + (kk + 1 if use_heading else 0)
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
@@ -436,8 +456,11 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             key = tn
             if not reach_mode:
                 key += _heuristic(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-            Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize = _push_label(
-                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, n_lab, hkey, hidx, hsize, tn, v2, m, li, leg, kk, key)
+            if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
+                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
+                                                                     n_lab, hsize)
+            hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, tn, v2, m, li, leg, kk, key)
+            n_lab += 1
             counters[C_CREATED] += 1
 
     return (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2,

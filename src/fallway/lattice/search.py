@@ -23,6 +23,15 @@ start (measured on the benchmark DEM with mu 0.25 and drag: ~20 labels per cell 
 cells out, ~300 at 50, ~3700 at 100).  ``max_per_cell`` caps it (keeping the earliest
 arrivals); ``stats["exact"]`` reports whether the cap - or ``max_speed`` - left the
 answer possibly inexact.  ``max_per_cell=1`` is the time-only Dijkstra.
+
+Memory: the kernel's per-state arrays are sized for the searchable cells only (not
+nodata, not keep-out - so a corridor given as keep-out costs state only inside the
+corridor); :meth:`_Problem.index` builds the int32 compact index.  ``stats["state_cells"]``
+is that count.  Estimate before a large run with :func:`fallway.scale.search_memory_bytes`.
+
+Time cut-off: ``reach(..., max_time_s=T)`` stops the search at ``T`` (labels later than
+``T`` are never queued), with the arrivals up to ``T`` unchanged
+(:mod:`fallway.lattice.kernel`, "Time cut-off").
 """
 
 from __future__ import annotations
@@ -138,9 +147,15 @@ class _Problem:
 
         ``compact=False`` gives the full-window layout (index = flat cell index, count =
         all cells of the window): the same search, the per-state arrays sized for the
-        whole window (kept for tests and benchmarks).
+        whole window (kept for tests and benchmarks).  With nothing blocked the index is
+        the identity and a one-element dummy is returned (the kernel does not read it).
         """
         free = ~self.blocked
+        if free.size >= 2 ** 31:
+            raise ParameterError(f"the grid has {free.size} cells; the lattice indexes cells with int32 (fewer than "
+                                 "2**31): search a smaller area (fallway.scale.find_route_large) or coarsen the DEM")
+        if bool(free.all()):  # the identity: the kernel does not read the map
+            return np.zeros(1, dtype=np.int32), int(free.size)
         cidx = np.full(free.size, -1, dtype=np.int32)
         if compact:
             nact = int(np.count_nonzero(free))
@@ -197,7 +212,7 @@ class _Problem:
                         int(max_per_cell or 0), t_max)
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
-        if len(tg) == 0:  # reach: compact index -> window cells
+        if len(tg) == 0 and nact < cidx.size:  # reach: compact index -> window cells
             sel = cidx >= 0
             bt = np.full(cidx.size, np.nan)
             bv = np.full(cidx.size, np.nan)
