@@ -14,15 +14,15 @@ Cases (each in its own process so that the peak memory, ``VmHWM``, is its own):
 Targets (issue 4): reach no slower than scipy; route at most 3 x the scipy figure; peak
 memory under 2 GB each.  Run: ``python scripts/bench_search.py [--size 1000]``.
 
-Measured 2026-12-02, 1000 x 1000, before and after the compact state, the time cut-off
-and the one label-push helper (``kernel._push_label``), on 2 cores shared by three
-people (so the spread is large).  This script, one run each: before reach 1.03 s,
-route 2.98 s (peaks 393 / 348 MB, ru_maxrss); after reach 1.24 s, route 3.79 s (313 /
-355 MB) - at a different moment of load.  Interleaved CPU-time runs (4 searches a
-process, two processes each, alternating before/after): reach min 0.98 vs 1.04 s,
-median 1.20 vs 1.22 s; route min 3.21 vs 3.89 s, median 4.06 vs 4.26 s (+5 %).  The
-route case may be up to ~5 % slower (the helper returns the pool and heap arrays, whose
-reference counts numba updates on every push); the reach is unchanged within the noise.
+Measured 2026-12-02, 1000 x 1000, on 2 cores shared by three people (large spread).
+This script, before the compact state / time cut-off / one push helper: reach 1.03 s,
+route 2.98 s; after (first version of the helper, at another moment of load): reach
+1.24 s, route 3.79 s.  Cleaner: the old and the new kernel called alternately in one
+process on the same arrays, 8 times each, CPU time (final version, ``_push_label``
+without returned arrays, identity index when nothing is blocked): reach min 0.806 /
+median 0.835 s old vs 0.832 / 0.884 s new (+3 to +6 %); route (cap 2) min 4.32 / median
+5.10 s old vs 4.51 / 4.89 s new (within the noise).  A first helper that returned the
+pool and heap arrays on every push measured about +5 % on the route median.
 """
 
 from __future__ import annotations
