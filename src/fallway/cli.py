@@ -528,7 +528,8 @@ def _print_route(r, out_dir, written, env=None) -> None:
 @_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
 @_common_options
 @click.option("--max-time", "max_time_s", type=click.FloatRange(min=0.0, min_open=True),
-              help="Map only arrivals within this many seconds (reads only the area that can be reached).")
+              help="Map only arrivals within this many seconds (the search stops there and reads "
+                   "only the area it can reach).")
 @click.option("--max-distance", "max_distance_m", type=click.FloatRange(min=0.0, min_open=True),
               help="Map only within this plan distance of the start, m (lines confined to that disc).")
 @click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Output GeoTIFF (2 bands: time s, speed m/s).")
