@@ -1397,6 +1397,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             # level's polished line with its vertex density kept
             t_grav = _full_chain(P, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
             Pf, it_sum, ok_p, gain0 = None, 0, True, 1.0
+            level_lines: list = []
             for li, n in enumerate(sizes):
                 if li == 1 and gain0 < _POLISH_GAIN:
                     # the gravity optimum is already close to the full one: polish the
@@ -1420,7 +1421,20 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
                     gain0 = (tc0 - tc1) / tc0 if math.isfinite(tc0) and math.isfinite(tc1) else 1.0
                 it_sum += it_p
                 Pf = Pn
+                # keep every level's polished line: on a long line whose finest level
+                # stops at its budget a coarser level can be faster under the full model
+                tl = _full_chain(Pn, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+                if math.isfinite(tl):
+                    level_lines.append((tl, li, Pn))
             t_full = _full_chain(Pf, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
+            for tl, li, Pl in sorted(level_lines, key=lambda x: x[0]):
+                if not (math.isfinite(t_full) and tl < t_full) or Pl is Pf:
+                    break
+                if _meets(opt.violations(Pl), _traverse(Pl, mover)):
+                    notes.append(f"the polished level {li + 1} ({len(Pl)} vertices) is faster under the full "
+                                 f"model than the finest ({tl:.6f} s vs {t_full:.6f} s) and is returned")
+                    Pf, t_full = Pl, tl
+                    break
             iters += it_sum
             if math.isfinite(t_full) and t_full < t_grav and _meets(opt.violations(Pf), _traverse(Pf, mover)):
                 P = Pf
