@@ -1424,7 +1424,10 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
                 # keep every level's polished line: on a long line whose finest level
                 # stops at its budget a coarser level can be faster under the full model
                 tl = _full_chain(Pn, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
-                if math.isfinite(tl):
+                # a ground line keeps to the ground only with vertices at most ~2 cells apart
+                # (a longer chord bridges or cuts the terrain between its ends)
+                spacing = float(np.sum(np.hypot(*np.diff(Pn[:, :2], axis=0).T))) / max(len(Pn) - 1, 1)
+                if math.isfinite(tl) and (line != "ground" or spacing <= 2.0 * terrain.cell_size):
                     level_lines.append((tl, li, Pn))
             t_full = _full_chain(Pf, mover.v0 ** 2, mover.g, mover.mu, mover.drag, 0.0, -1.0, -1.0, False)[0]
             for tl, li, Pl in sorted(level_lines, key=lambda x: x[0]):
