@@ -23,6 +23,13 @@ load average ~3, so the wall time is inflated; --cap 4; peak = VmHWM):
   refinement) peak at 669 MB with the compact state and 851 MB with the full-window
   state (``scripts/bench_state.py``).
 
+Re-measured 2026-12-02 04:50 UTC on a quiet machine (one process; --cap 4; VmHWM):
+5000 x 5000, 7.07 km: wall 35.3-37.2 s, peak 0.70 GB; the search stages as above.  The
+refinement (full normal-force model, 3536 vertices) kept the lattice line, 281.838 s: its
+gravity-normal optimum stalls under the full model and the full-model polish of the
+finest level stops at its budget (the 633 s run above returned a different, faster
+line from a refinement version in the middle of being changed).
+
 Earlier figures (before 2026-12-02; their peaks are ``ru_maxrss``, which in a child
 started by subprocess includes the parent's own peak - here the DEM generation - so
 they overstate the case's memory; --cap 4, mu 0.2, drag 0.001 /m):
