@@ -30,7 +30,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
-import resource
+import os
 import subprocess
 import sys
 import time
@@ -57,17 +57,8 @@ def terrain(n):
     return Terrain.from_array(z, (cell, 0, 0.0, 0, -cell, n * cell))
 
 
-def peak_mb() -> float:
-    """Peak resident memory of this process, MB.
-
-    ``VmHWM`` of /proc/self/status on Linux: a child started by ``subprocess`` (vfork +
-    exec) inherits its parent's peak in ``ru_maxrss``, but not in ``VmHWM``.
-    """
-    try:
-        with open("/proc/self/status") as fh:
-            return int(next(ln for ln in fh if ln.startswith("VmHWM:")).split()[1]) / 1024.0
-    except (OSError, StopIteration):
-        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from bench_large import peak_mb  # noqa: E402  (one VmHWM reader for every benchmark)
 
 
 def case_scipy(n):

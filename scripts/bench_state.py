@@ -38,7 +38,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -49,17 +48,7 @@ import numpy as np
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 
 
-def peak_mb() -> float:
-    """Peak resident memory of this process, MB.
-
-    ``VmHWM`` of /proc/self/status on Linux: a child started by ``subprocess`` (vfork +
-    exec) inherits its parent's peak in ``ru_maxrss``, but not in ``VmHWM``.
-    """
-    try:
-        with open("/proc/self/status") as fh:
-            return int(next(ln for ln in fh if ln.startswith("VmHWM:")).split()[1]) / 1024.0
-    except (OSError, StopIteration):
-        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+from bench_large import peak_mb  # noqa: E402  (one VmHWM reader for every benchmark)
 
 
 def _force_layout(compact: bool) -> None:
