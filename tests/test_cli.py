@@ -206,6 +206,13 @@ def test_demo_writes_every_output(tmp_path):
     with open(out / "comparison.csv", newline="") as fh:
         names = [r["name"] for r in csv.DictReader(fh)]
     assert {"haul road", "direct", "double-back", "computed optimum"} <= set(names)
+    # the refinement must improve on the lattice line here; both are timed with the same
+    # (full) model, and the exported profile re-times to the reported figure
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["travel_time_s"] < 0.97 * summary["lattice_time_s"]
+    with open(out / "profile.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert float(rows[-1]["time_s"]) == pytest.approx(summary["travel_time_s"], rel=1e-6)
 
 
 def test_route_large_corridor_matches_the_incline_formula(tmp_path, ramp):
