@@ -374,6 +374,17 @@ def _full_seg(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
     return un, t, at
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _gather(P, j, Q):
+    """Rows of ``Q``: vertices j-1 .. j+2 relative to vertex j (rows past an end untouched)."""
+    n = P.shape[0]
+    for r in range(4):
+        i = j - 1 + r
+        if 0 <= i < n:
+            for c in range(3):
+                Q[r, c] = P[i, c] - P[j, c]
+
+
 @njit(cache=True, nogil=True)
 def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, u_floor=0.0, w_stall=0.0):
     """Full-model travel time of the polyline P (N, 3), speed penalties and the gradient.
@@ -402,11 +413,7 @@ def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0,
     for j in range(m):
         has_a = j >= 1
         has_b = j + 1 <= n - 2
-        for r in range(4):
-            i = j - 1 + r
-            if 0 <= i < n:
-                for c in range(3):
-                    Q[r, c] = P[i, c] - P[j, c]
+        _gather(P, j, Q)
         un, t, at = _full_seg(u[j], Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
         if not math.isfinite(t):
             return math.inf, 0.0, grad, u, False
@@ -427,11 +434,7 @@ def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0,
     for j in range(m - 1, -1, -1):
         has_a = j >= 1
         has_b = j + 1 <= n - 2
-        for r in range(4):
-            i = j - 1 + r
-            if 0 <= i < n:
-                for c in range(3):
-                    Q[r, c] = P[i, c] - P[j, c]
+        _gather(P, j, Q)
         s = math.sqrt((Q[2, 0] - Q[1, 0]) ** 2 + (Q[2, 1] - Q[1, 1]) ** 2 + (Q[2, 2] - Q[1, 2]) ** 2)
         if s <= 1e-12:
             lam = lam + du_dpen[j]
