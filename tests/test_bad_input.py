@@ -489,13 +489,13 @@ def test_overwrite_run_failing_keeps_old_results(tmp_path, monkeypatch):
 
 def test_reach_writer_failing_leaves_nothing(tmp_path, monkeypatch):
     from fallway.errors import FallwayIOError
-    from fallway.route import ReachMap
+    import fallway.export
 
-    def half_then_fail(self, path):
+    def half_then_fail(reach_map, path):
         Path(path).write_bytes(b"II*\x00")
         raise FallwayIOError(f"cannot write {path}: No space left on device")
 
-    monkeypatch.setattr(ReachMap, "to_geotiff", half_then_fail)
+    monkeypatch.setattr(fallway.export, "write_reach_geotiff", half_then_fail)
     dem = _plane_tif(tmp_path / "dem.tif")
     out_dir = tmp_path / "maps"
     out_dir.mkdir()

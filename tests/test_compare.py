@@ -602,7 +602,7 @@ def test_sample_site_candidates_behave_as_its_readme_says():
     # the double-back stall, and the direct line runs through the site building (keep-out)
     from importlib.resources import as_file, files
 
-    from fallway.limits import Keepout
+    from fallway.keepout import Keepout
     from fallway.terrain import load_terrain
 
     with as_file(files("fallway.sample_terrain")) as d:

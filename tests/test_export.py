@@ -17,7 +17,7 @@ from fallway.caution import CAUTION
 from fallway.errors import FallwayIOError, OutputExistsError
 from fallway.export import (OutputSet, atomic_path, atomic_write, profile_flags, to_jsonable,
                             write_profile_csv, write_route_geojson, write_route_gpkg, write_summary_json)
-from fallway.limits import Limits
+from fallway.params import Limits
 from fallway.physics import Mover, Profile
 from fallway.route import LatticeLine, Route
 from fallway.terrain import Terrain

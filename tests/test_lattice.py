@@ -30,7 +30,7 @@ from scipy.sparse.csgraph import dijkstra
 
 from fallway.errors import NoFeasibleLine, ParameterError
 from fallway.lattice.search import lattice_line, reach
-from fallway.limits import Limits
+from fallway.params import Limits
 from fallway.physics import Mover, traverse
 from fallway.terrain import Terrain
 

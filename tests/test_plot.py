@@ -195,7 +195,7 @@ def test_large_grid_hillshade_is_thinned_on_cell_centres():
 def test_keepout_in_lonlat_is_drawn_in_map_coordinates(terrain):
     import pyproj
 
-    from fallway.limits import Keepout
+    from fallway.keepout import Keepout
 
     # a keep-out given in WGS 84 (as a lon/lat GeoJSON would be) lands where pyproj puts it
     x0, y0 = terrain.cell_center(20, 20)

@@ -13,7 +13,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from fallway.errors import ParameterError, RefinementWarning
-from fallway.limits import Keepout, Limits
+from fallway.keepout import Keepout
+from fallway.params import Limits
 from fallway.physics import Mover, traverse
 from fallway.refine import RefineResult, _chain, _DistanceField, _Ground, _Problem, refine_line
 from fallway.terrain import Terrain

@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from fallway.errors import RefinementWarning
-from fallway.limits import Limits
+from fallway.params import Limits
 from fallway.physics import Mover, traverse
 from fallway.refine import _fillet_plan, refine_line
 

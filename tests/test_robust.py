@@ -295,7 +295,7 @@ def _turn_brute_force(z, start, end, lo, mu, hi, v0, vmax, max_turn_deg):
 
 @pytest.mark.parametrize("seed", [0, 2, 4, 6])
 def test_turn_limit_equals_brute_force(seed):
-    from fallway.limits import Limits
+    from fallway.params import Limits
 
     z = random_dem(seed, noise=0.5, tilt=0.5)
     t = terrain_of(z)

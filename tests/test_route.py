@@ -82,7 +82,9 @@ def test_reach_geotiff_round_trip(tmp_path):
     rm = reach(t, t.cell_center(8, 9), Mover(mu=0.2, drag=0.01), neighbours=16)
     assert np.isnan(rm.time_s).any() and np.isfinite(rm.time_s).sum() > 10
     out = tmp_path / "reach.tif"
-    rm.to_geotiff(out)
+    from fallway.export import write_reach_geotiff
+
+    write_reach_geotiff(rm, out)
     assert os.listdir(tmp_path) == ["reach.tif"]  # no temporary left behind
     with rasterio.open(out) as src:
         assert src.count == 2 and src.dtypes == ("float32", "float32")

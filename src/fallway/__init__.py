@@ -17,7 +17,8 @@ from .errors import (FallwayError, FallwayIOError, NoFeasibleLine, OutputExistsE
                      ParameterError, RefinementWarning, ScenarioError, TerrainError)
 from .terrain import Terrain, load_terrain
 from .physics import STANDARD_GRAVITY, Mover, Profile, SegmentResult, normal_gravity, segment, traverse
-from .limits import Keepout, Limits
+from .keepout import Keepout
+from .params import LineSpec, Limits, SearchOptions
 from .route import LatticeLine, ReachMap, Route, find_route, route_from_lattice
 from .lattice.search import reach
 from .scenario import Scenario, load_scenario
@@ -40,7 +41,7 @@ __all__ = [
     "RefinementWarning", "ScenarioError", "TerrainError",
     "Terrain", "load_terrain",
     "STANDARD_GRAVITY", "Mover", "Profile", "SegmentResult", "normal_gravity", "segment", "traverse",
-    "Keepout", "Limits",
+    "Keepout", "Limits", "LineSpec", "SearchOptions",
     "LatticeLine", "ReachMap", "Route", "find_route", "route_from_lattice", "reach",
     "Scenario", "load_scenario",
     "OutputSet", "write_profile_csv", "write_route_geojson", "write_route_gpkg", "write_summary_json",

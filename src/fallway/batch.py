@@ -173,7 +173,7 @@ def run_one(spec: dict) -> dict:
                   clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height)
         keep = None
         if large and not src_crs.is_geographic:
-            from .limits import Keepout
+            from .keepout import Keepout
             from .scale import find_route_large
 
             if sc.keepout is not None:
@@ -193,7 +193,7 @@ def run_one(spec: dict) -> dict:
             terrain = load_terrain(sc.dem, bounds=bounds)
             tp = to_terrain_crs(pts, src, terrain.crs)
             if sc.keepout is not None:
-                from .limits import Keepout
+                from .keepout import Keepout
 
                 keep = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
             terrain_crs = terrain.crs

@@ -296,7 +296,7 @@ def _prepare(sc, *, need_end: bool, cover=None):
     via = tuple(pts[1:1 + len(sc.via)])
     keepout = None
     if sc.keepout is not None:
-        from .limits import Keepout
+        from .keepout import Keepout
 
         keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
     return terrain, start, end, via, keepout
@@ -413,7 +413,7 @@ def _native_points(sc):
     pts = to_terrain_crs(pts, src, crs)
     keepout = None
     if sc.keepout is not None:
-        from .limits import Keepout
+        from .keepout import Keepout
 
         keepout = Keepout.from_file(sc.keepout).in_crs(crs)
     end = pts[-1] if sc.end is not None else None
@@ -538,6 +538,7 @@ def _print_route(r, out_dir, written, env=None) -> None:
 def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, **opts):
     """Map the arrival time and speed from --start to every reachable cell of DEM."""
     _setup_logging(quiet, verbose)
+    from . import export
     from .errors import OutputExistsError
     from .export import OutputSet
     from .lattice.search import reach as reach_map
@@ -559,7 +560,7 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
             terrain, start, _, _, keepout = _prepare(sc, need_end=False)
             rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout,
                            max_per_cell=sc.label_cap)
-        rm.to_geotiff(outs.path(out.name))
+        export.write_reach_geotiff(rm, outs.path(out.name))
     if not quiet:
         import numpy as np
 
@@ -612,7 +613,7 @@ def _run_compare(sc, lines_path, *, refine: bool, optimum: bool):
         lines = read_lines(lines_path, crs=terrain.crs)
     keepout = None
     if sc.keepout is not None:
-        from .limits import Keepout
+        from .keepout import Keepout
 
         keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
     cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, optimum=optimum,
@@ -665,6 +666,7 @@ def demo(out_dir, overwrite, quiet):
     _setup_logging(quiet, 0)
     from importlib.resources import as_file, files
 
+    from . import export
     from .export import OutputSet
     from .lattice.search import reach as reach_map
     from .scenario import load_scenario
@@ -680,7 +682,7 @@ def demo(out_dir, overwrite, quiet):
             r, terrain, keepout = _run_route(sc, quiet=quiet, cover=cover)
             rm = reach_map(terrain, r.line[0, :2], sc.mover, neighbours=sc.neighbours, limits=sc.limits,
                            keepout=keepout)
-            rm.to_geotiff(outs.path("reach.tif"))
+            export.write_reach_geotiff(rm, outs.path("reach.tif"))
             lines = read_lines(lines_path, crs=terrain.crs)
             cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, mu_range=sc.mu_range,
                                 route=r)

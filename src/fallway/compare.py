@@ -41,7 +41,7 @@ from typing import Iterable, Sequence
 import numpy as np
 
 from .errors import FallwayIOError, NoFeasibleLine, ParameterError
-from .limits import Limits
+from .params import Limits
 from .physics import Mover, Profile, traverse
 from .physics import check_mu_range as _check_mu_range
 
@@ -581,7 +581,7 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     computed : bool
         Mark the row as the tool's own line.
     keepout : Keepout, shapely geometry or bool ndarray, optional
-        No-go areas in the terrain's CRS (a :class:`fallway.limits.Keepout`, polygons, or
+        No-go areas in the terrain's CRS (a :class:`fallway.keepout.Keepout`, polygons, or
         a mask of the terrain's shape, True = no-go); a line that enters one gets the
         status ``"keepout"``.
 

@@ -5,7 +5,7 @@ temporary name in the destination folder and renamed over the final name only wh
 is complete, so a crash never leaves half a file behind.  :class:`OutputSet` does the
 same for a whole folder of results: a run leaves either the complete set or nothing.
 
-The reach raster is written by :meth:`fallway.route.ReachMap.to_geotiff`, not here.
+The reach raster: :func:`write_reach_geotiff`.
 
 Conventions
 -----------
@@ -420,7 +420,8 @@ def _example_route():
 
     from ._segment import segment_law
     from .physics import Mover, Profile
-    from .route import LatticeLine, Route
+    from .results import LatticeLine
+    from .route import Route
     from .terrain import Terrain
 
     cell = 5.0
@@ -818,3 +819,51 @@ def summary_document(route, extra: dict | None = None, *, crs=None) -> dict:
     if extra:
         doc.update(to_jsonable(dict(extra)))
     return doc
+
+
+def write_reach_geotiff(reach_map, path) -> Path:
+    """Write a two-band float32 GeoTIFF: band 1 arrival time (s), band 2 speed (m/s).
+
+    NaN is the nodata value (unreachable cells).  The file is written under a
+    temporary name in the same folder and renamed when complete.
+
+    Examples
+    --------
+    >>> import numpy as np, tempfile, os, rasterio
+    >>> from affine import Affine
+    >>> from fallway.results import ReachMap
+    >>> rm = ReachMap(np.array([[0.0, 1.0]]), np.array([[0.0, np.nan]]), Affine(1, 0, 0, 0, -1, 1),
+    ...               None, (0.5, 0.5), {})
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     _ = write_reach_geotiff(rm, os.path.join(d, "reach.tif"))
+    ...     with rasterio.open(os.path.join(d, "reach.tif")) as src:
+    ...         print(src.count, src.dtypes[0], src.descriptions)
+    2 float32 ('arrival_time_s', 'arrival_speed_m_s')
+    """
+    import rasterio
+
+    path = os.fspath(path)
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise FallwayIOError(f"output folder {folder} does not exist; create it first")
+    rows, cols = np.shape(reach_map.time_s)
+    fd, tmp = tempfile.mkstemp(prefix=".reach-", suffix=".tif", dir=folder)
+    os.close(fd)
+    try:
+        profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
+                       transform=reach_map.transform, nodata=float("nan"), compress="deflate",
+                       tiled=rows >= 256 and cols >= 256)
+        if reach_map.crs is not None:
+            profile["crs"] = reach_map.crs
+        with rasterio.open(tmp, "w", **profile) as dst:
+            dst.write(np.asarray(reach_map.time_s, dtype=np.float32), 1)
+            dst.write(np.asarray(reach_map.speed_m_s, dtype=np.float32), 2)
+            dst.set_band_description(1, "arrival_time_s")
+            dst.set_band_description(2, "arrival_speed_m_s")
+            dst.update_tags(start_x=str(reach_map.start[0]), start_y=str(reach_map.start[1]))
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.remove(tmp)
+        raise
+    return Path(path)

@@ -54,8 +54,9 @@ from scipy.optimize import minimize
 from ._segment import segment_law
 from ._traverse import _STRAIGHT_RAD, bend_kdg, full_segment_step
 from .errors import FallwayError, ParameterError, RefinementWarning
-from .limits import Limits
+from .params import Limits
 from .physics import Mover, Profile
+from .results import RefineResult
 
 __all__ = ["refine_line", "RefineResult"]
 
@@ -77,49 +78,6 @@ _POLISH_BUDGET = 20_000
 #: relative gain of the polish on the coarsest level below which only the finest line is
 #: polished (the gravity optimum is then already close to the full-model one)
 _POLISH_GAIN = 1e-3
-
-
-@dataclass(frozen=True, eq=False)
-class RefineResult:
-    """The refined line and how the refinement went.
-
-    Attributes
-    ----------
-    line : ndarray (N, 3)
-        Refined vertices x, y, z (m); straight segments between them.
-    profile : Profile
-        ``traverse(line, mover)`` with the mover's own normal-force model.
-    iterations : int
-        Quasi-Newton iterations over all refinement levels.
-    residual : float
-        Final projected gradient norm (largest component, s/m) of the travel time.
-    converged : bool
-        True when the optimiser met its tolerance on the final level.
-    time_before_s, time_after_s : float
-        Travel time of the start line and of ``line`` (same model).
-    message : str
-        What happened, including active or violated limits.
-    limits : dict
-        Per limit (``keepout``, ``grade``, ``max_speed``, ``stall``, ``min_radius``,
-        ``extent``, ``clearance``): ``"inactive"``, ``"active"`` (at its bound within the
-        margin) or ``"violated"``.  ``min_radius`` is judged on the 3D circumradius of
-        consecutive vertices.
-    polish : str
-        Outcome of the full-model polish (``Mover(normal="full")``), e.g.
-        ``"full-model polish 8.463 s -> 8.027 s in 1868 iterations"``; empty when it did
-        not run.
-    """
-
-    line: np.ndarray
-    profile: Profile
-    iterations: int
-    residual: float
-    converged: bool
-    time_before_s: float
-    time_after_s: float
-    message: str
-    limits: dict = field(default_factory=dict)
-    polish: str = ""
 
 
 # ---------------------------------------------------------------------------------------
@@ -883,7 +841,7 @@ def _gravity_profile(P: np.ndarray, mover: Mover) -> Profile:
 class _DistanceField:
     """Signed distance (m, positive outside) to keep-out polygons or to nodata.
 
-    Built from a keep-out object with ``signed_distance(x, y)`` (``fallway.limits.Keepout``)
+    Built from a keep-out object with ``signed_distance(x, y)`` (``fallway.keepout.Keepout``)
     or from a bare shapely geometry.
     """
 

@@ -9,39 +9,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import FallwayIOError, ParameterError
+from .errors import ParameterError
+from .results import LatticeLine, ReachMap
 from .physics import Mover, Profile, traverse
-from .limits import Limits
+from .params import Limits
 
 __all__ = ["LatticeLine", "Route", "ReachMap", "find_route", "route_from_lattice"]
 
 _LINE_KINDS = ("ground", "raised")
-
-
-@dataclass(frozen=True, eq=False)
-class LatticeLine:
-    """The exact best line on the terrain lattice.
-
-    Attributes
-    ----------
-    cells : ndarray of int (M, 2)
-        (row, col) of the visited cell centres, start to end.
-    points : ndarray (K, 3)
-        The 3D polyline the search timed: cell centres plus the points where long
-        stencil edges cross cell boundaries (heights bilinear between centres).
-    profile : Profile
-        Motion along ``points`` with the gravity-normal model the search uses.
-    time_s : float
-        Travel time found by the search.
-    stats : dict
-        Search statistics (labels created/settled/dominated, rejections, seconds).
-    """
-
-    cells: np.ndarray
-    points: np.ndarray
-    profile: Profile
-    time_s: float
-    stats: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True, eq=False)
@@ -75,75 +50,6 @@ class Route:
     def travel_time_s(self) -> float:
         """Reported travel time, seconds."""
         return float(self.summary["travel_time_s"])
-
-
-@dataclass(frozen=True, eq=False)
-class ReachMap:
-    """Earliest arrival time and its speed for every cell reachable from a start.
-
-    Attributes
-    ----------
-    time_s, speed_m_s : ndarray (rows, cols) float
-        NaN where the mover cannot get to.
-    transform, crs
-        The terrain's georeferencing.
-    start : tuple of float
-        (x, y) of the start.
-    stats : dict
-        Search statistics (labels created and settled, seconds).
-    """
-
-    time_s: np.ndarray
-    speed_m_s: np.ndarray
-    transform: object
-    crs: object
-    start: tuple
-    stats: dict
-
-    def to_geotiff(self, path) -> None:
-        """Write a two-band float32 GeoTIFF: band 1 arrival time (s), band 2 speed (m/s).
-
-        NaN is the nodata value (unreachable cells).  The file is written under a
-        temporary name in the same folder and renamed when complete.
-
-        Examples
-        --------
-        >>> import numpy as np, tempfile, os, rasterio
-        >>> from affine import Affine
-        >>> rm = ReachMap(np.array([[0.0, 1.0]]), np.array([[0.0, np.nan]]), Affine(1, 0, 0, 0, -1, 1),
-        ...               None, (0.5, 0.5), {})
-        >>> with tempfile.TemporaryDirectory() as d:
-        ...     rm.to_geotiff(os.path.join(d, "reach.tif"))
-        ...     with rasterio.open(os.path.join(d, "reach.tif")) as src:
-        ...         print(src.count, src.dtypes[0], src.descriptions)
-        2 float32 ('arrival_time_s', 'arrival_speed_m_s')
-        """
-        import rasterio
-
-        path = os.fspath(path)
-        folder = os.path.dirname(os.path.abspath(path))
-        if not os.path.isdir(folder):
-            raise FallwayIOError(f"output folder {folder} does not exist; create it first")
-        rows, cols = np.shape(self.time_s)
-        fd, tmp = tempfile.mkstemp(prefix=".reach-", suffix=".tif", dir=folder)
-        os.close(fd)
-        try:
-            profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
-                           transform=self.transform, nodata=float("nan"), compress="deflate",
-                           tiled=rows >= 256 and cols >= 256)
-            if self.crs is not None:
-                profile["crs"] = self.crs
-            with rasterio.open(tmp, "w", **profile) as dst:
-                dst.write(np.asarray(self.time_s, dtype=np.float32), 1)
-                dst.write(np.asarray(self.speed_m_s, dtype=np.float32), 2)
-                dst.set_band_description(1, "arrival_time_s")
-                dst.set_band_description(2, "arrival_speed_m_s")
-                dst.update_tags(start_x=str(self.start[0]), start_y=str(self.start[1]))
-            os.replace(tmp, path)
-        except BaseException:
-            if os.path.exists(tmp):
-                os.remove(tmp)
-            raise
 
 
 def _min_radius(points: np.ndarray, dims: int = 2) -> float:

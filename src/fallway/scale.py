@@ -90,7 +90,8 @@ from pathlib import Path
 import numpy as np
 
 from .errors import NoFeasibleLine, ParameterError, TerrainError
-from .limits import Keepout, Limits
+from .keepout import Keepout
+from .params import Limits
 from .physics import Mover
 
 __all__ = ["find_route_large", "reach_limited", "search_memory_bytes", "DEFAULT_COARSE_CELLS"]

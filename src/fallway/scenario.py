@@ -53,7 +53,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FallwayError, ParameterError, ScenarioError
-from .limits import Limits
+from .params import Limits
 from .physics import Mover
 
 __all__ = ["Scenario", "load_scenario", "LINE_KINDS", "NEIGHBOURHOODS"]

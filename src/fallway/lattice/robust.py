@@ -9,7 +9,7 @@ friction among the lines on which the mover
 * gets through at ``mu_hi`` (never stalls: speed kept above ``mover.stall_speed``), and
 * stays within ``mover.max_speed`` at ``mu_lo`` (when a speed limit is set),
 
-with the grade window of :class:`~fallway.limits.Limits` on every sub-segment and
+with the grade window of :class:`~fallway.params.Limits` on every sub-segment and
 keep-out / nodata cells impassable, exactly as in the ordinary search
 (:mod:`fallway.lattice.kernel`: same stencil, same sub-segments with bilinear heights,
 same gravity-normal segment law :func:`fallway._segment.segment_law`).
@@ -80,7 +80,7 @@ from numba import njit
 
 from .._segment import segment_law
 from ..errors import NoFeasibleLine, ParameterError
-from ..limits import Limits
+from ..params import Limits
 from ..physics import Mover, check_mu_range, traverse
 from .kernel import _grow_f8, _grow_i1, _grow_i4, _heap_pop, _heap_push
 from .search import _cell_xy, _keepout_mask, _line_points, _Problem, _snap
@@ -510,7 +510,7 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     >>> ln.cells[[0, -1]].tolist()
     [[0, 0], [4, 4]]
     """
-    from ..route import LatticeLine
+    from ..results import LatticeLine
 
     if not isinstance(mover, Mover):
         raise ParameterError(f"mover must be a fallway.Mover, got {type(mover).__name__}")

@@ -43,12 +43,14 @@ from dataclasses import replace
 import numpy as np
 
 from ..errors import NoFeasibleLine, ParameterError
-from ..limits import Keepout, Limits
+from ..keepout import Keepout
+from ..params import Limits
 from ..physics import Mover, traverse
+from ..results import LatticeLine, ReachMap
 from . import kernel as _k
 from .stencil import make_stencil
 
-__all__ = ["reach", "lattice_line", "DEFAULT_ENERGY_TOL", "write_reach_geotiff"]
+__all__ = ["reach", "lattice_line", "DEFAULT_ENERGY_TOL"]
 
 #: Declared dominance tolerance on v², relative to each label's own v².
 DEFAULT_ENERGY_TOL = 1e-10
@@ -399,7 +401,6 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int =
 
 def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits, keepout, heuristic, energy_tol,
                   max_labels, max_per_cell):
-    from ..route import LatticeLine
 
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
@@ -481,7 +482,6 @@ def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits 
     >>> print(f"{rm.speed_m_s[1, 3]:.4f}")
     7.6707
     """
-    from ..route import ReachMap
 
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
@@ -502,8 +502,3 @@ def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits 
     stats["max_time_s"] = None if max_time_s is None else float(max_time_s)
     return ReachMap(time_s=tt, speed_m_s=vv, transform=terrain.transform, crs=terrain.crs,
                     start=tuple(float(v) for v in _cell_xy(terrain, s)), stats=stats)
-
-
-def write_reach_geotiff(reach_map, path) -> None:
-    """Write a reach map as a two-band float32 GeoTIFF (see :meth:`fallway.ReachMap.to_geotiff`)."""
-    reach_map.to_geotiff(path)

@@ -15,7 +15,8 @@ from rasterio.crs import CRS
 
 from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
 from fallway.lattice.search import lattice_line
-from fallway.limits import Keepout, Limits
+from fallway.keepout import Keepout
+from fallway.params import Limits
 from fallway.physics import Mover
 from fallway.terrain import Terrain
 

@@ -1,0 +1,150 @@
+"""Plane and space geometry of polylines: repeated vertices, resampling, bend radius.
+
+One implementation of each measure, shared by the routing summary, the comparison of
+lines and the refinement's limit checks.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import ParameterError
+
+__all__ = ["drop_repeats", "resample_plan", "circumradii", "min_radius_m", "plan_length_m"]
+
+#: Vertices closer than this (m) are the same point.
+SAME_POINT_M = 1e-6
+
+
+def drop_repeats(points, tol_m: float = SAME_POINT_M) -> np.ndarray:
+    """The polyline without vertices within ``tol_m`` (in all its columns) of the previous kept one.
+
+    The last vertex is always kept (it replaces a kept vertex that repeats it).
+
+    Examples
+    --------
+    >>> drop_repeats([(0, 0), (0, 0), (1, 0), (1, 1e-9)]).tolist()
+    [[0.0, 0.0], [1.0, 1e-09]]
+    """
+    p = np.asarray(points, dtype=float)
+    if len(p) <= 1:
+        return p.copy()
+    keep = [0]
+    for i in range(1, len(p)):
+        if np.linalg.norm(p[i] - p[keep[-1]]) > tol_m:
+            keep.append(i)
+        elif i == len(p) - 1 and len(keep) > 1:
+            keep[-1] = i
+    return p[keep]
+
+
+def resample_plan(xy, spacing_m: float) -> np.ndarray:
+    """Plan vertices at an even plan spacing of at most ``spacing_m`` along the polyline.
+
+    Examples
+    --------
+    >>> resample_plan([(0, 0), (10, 0)], 4.0).tolist()
+    [[0.0, 0.0], [3.3333333333333335, 0.0], [6.666666666666667, 0.0], [10.0, 0.0]]
+    """
+    xy = np.asarray(xy, dtype=float)[:, :2]
+    spacing_m = float(spacing_m)
+    if not (math.isfinite(spacing_m) and spacing_m > 0):
+        raise ParameterError(f"spacing_m must be a finite number > 0, got {spacing_m!r}")
+    seg = np.hypot(*np.diff(xy, axis=0).T)
+    cum = np.concatenate([[0.0], np.cumsum(seg)])
+    n = max(2, int(math.ceil(cum[-1] / spacing_m - 1e-9)) + 1)
+    at = np.linspace(0.0, cum[-1], n)
+    return np.column_stack([np.interp(at, cum, xy[:, 0]), np.interp(at, cum, xy[:, 1])])
+
+
+def plan_length_m(points) -> float:
+    """Plan length of a polyline, metres."""
+    d = np.diff(np.asarray(points, dtype=float)[:, :2], axis=0)
+    return float(np.hypot(d[:, 0], d[:, 1]).sum())
+
+
+def circumradii(points, dims: int = 2) -> np.ndarray:
+    """Radius of the circle through each vertex and its two neighbours, in plan or in 3D.
+
+    Parameters
+    ----------
+    points : array_like (N, 2 or 3)
+        Distinct consecutive vertices (see :func:`drop_repeats`).
+    dims : {2, 3}
+        2: plan (x, y); 3: along the line in space.
+
+    Returns
+    -------
+    ndarray (N - 2,)
+        ``inf`` where the three vertices are collinear and the line goes on, ``0`` where
+        it doubles straight back (a 180° turn).
+
+    Examples
+    --------
+    >>> a = np.linspace(0, np.pi / 2, 5)
+    >>> np.round(circumradii(np.column_stack([30 * np.cos(a), 30 * np.sin(a)])), 9).tolist()
+    [30.0, 30.0, 30.0]
+    """
+    if dims not in (2, 3):
+        raise ParameterError(f"dims must be 2 or 3, got {dims!r}")
+    p = np.asarray(points, dtype=float)[:, :dims]
+    if len(p) < 3:
+        return np.zeros(0)
+    u = p[1:-1] - p[:-2]
+    w = p[2:] - p[1:-1]
+    ab = np.linalg.norm(u, axis=1)
+    bc = np.linalg.norm(w, axis=1)
+    ca = np.linalg.norm(p[2:] - p[:-2], axis=1)
+    if dims == 2:
+        cross = np.abs(u[:, 0] * w[:, 1] - u[:, 1] * w[:, 0])
+    else:
+        cross = np.linalg.norm(np.cross(u, w), axis=1)
+    # |u x w| = ab * bc * sin(turn): a turn below 1e-9 rad is straight (radius beyond 1e9 legs)
+    straight = cross <= 1e-9 * ab * bc
+    dot = np.einsum("ij,ij->i", u, w)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(straight, np.where(dot < 0, 0.0, np.inf), ab * bc * ca / (2.0 * cross))
+
+
+def min_radius_m(points, *, dims: int = 2, spacing_m: float | None = None) -> float:
+    """Smallest bend radius of a polyline: the least circumradius of consecutive vertices.
+
+    Parameters
+    ----------
+    points : array_like (N, 2 or 3)
+    dims : {2, 3}
+        Plan (2) or along the line in space (3).
+    spacing_m : float, optional
+        Resample the plan line at this spacing first (plan only).  A computed line's
+        vertices are where an optimiser left them; resampled at one cell, millimetre
+        wiggles between close vertices do not read as millimetre radii.
+
+    Returns
+    -------
+    float
+        Metres; ``inf`` for a straight line or fewer than three distinct vertices.
+
+    Notes
+    -----
+    For vertices on a circle the circumradius is that circle's radius whatever their
+    spacing; for two straights meeting at a corner of turn phi with legs L it is
+    ``L / (2 sin(phi / 2))``.  A 3D circle of radius R drawn on a plane tilted by alpha has
+    a plan radius down to ``R cos² alpha`` at the fall line.
+
+    Examples
+    --------
+    >>> a = np.linspace(0, np.pi / 2, 7)
+    >>> print(f"{min_radius_m(np.column_stack([30 * np.cos(a), 30 * np.sin(a)])):.6f}")
+    30.000000
+    >>> min_radius_m([(0, 0), (5, 0), (10, 0)])
+    inf
+    """
+    p = drop_repeats(np.asarray(points, dtype=float)[:, :dims])
+    if spacing_m is not None and len(p) >= 2:
+        if dims != 2:
+            raise ParameterError("spacing_m resamples the plan line: use it with dims=2")
+        p = resample_plan(p, spacing_m)
+    r = circumradii(p, dims)
+    return float(r.min()) if len(r) else math.inf

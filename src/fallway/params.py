@@ -1,0 +1,315 @@
+"""Parameters of a run: what moves, the limits, the line kind and the search options.
+
+Frozen dataclasses validated at construction: a bad value raises
+:class:`~fallway.errors.ParameterError` naming the value and the allowed range.
+
+* :class:`Mover` - the physics of what moves (friction, drag, start speed, gravity,
+  normal-force model) and its **speed window** (stall speed, speed limit).  The speed
+  window stays on the mover, not on :class:`Limits`, because every motion profile
+  flags it: a profile knows its mover, not the route's limits.
+* :class:`Limits` - the geometric limits of a line (grade window, turn per lattice
+  step, bend radius).
+* :class:`LineSpec` - the kind of line (on the ground, or raised within a clearance
+  band) with its end heights.
+* :class:`SearchOptions` - how the lattice is searched (stencil, label cap, budget,
+  energy tolerance, A* bound) and planned (full grid or coarse-to-fine corridor).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from .errors import ParameterError
+
+__all__ = ["STANDARD_GRAVITY", "Mover", "Limits", "LineSpec", "SearchOptions", "LINE_KINDS", "NEIGHBOURHOODS",
+           "PLANS"]
+
+#: Standard acceleration of gravity, m/s² (3rd CGPM, 1901).
+STANDARD_GRAVITY = 9.80665
+
+_NORMAL_MODELS = ("gravity", "full")
+
+#: Line kinds: on the terrain surface, or raised within a clearance band.
+LINE_KINDS = ("ground", "raised")
+#: Lattice stencils.
+NEIGHBOURHOODS = (8, 16, 32)
+#: Search plans: chosen from the estimate ("auto"), the full grid, or coarse-to-fine.
+PLANS = ("auto", "full", "corridor")
+
+
+def check_number(name: str, value, *, low: float = 0.0, allow_none: bool = False,
+                  strictly_positive: bool = False) -> None:
+    if value is None and allow_none:
+        return
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ParameterError(f"{name} must be a number, got {value!r}") from None
+    if not math.isfinite(v) or v < low or (strictly_positive and v <= low):
+        rng = f"> {low:g}" if strictly_positive else f">= {low:g}"
+        raise ParameterError(f"{name} must be a finite number {rng}, got {value!r}")
+
+
+@dataclass(frozen=True)
+class Mover:
+    """What moves down the line and how it loses energy.
+
+    Parameters
+    ----------
+    mu : float
+        Coulomb (sliding or rolling) friction coefficient, >= 0.
+    drag : float
+        Quadratic drag coefficient k in 1/m (k = rho * C_d * A / (2 m)), >= 0.
+    v0 : float
+        Speed at the start, m/s.
+    g : float
+        Acceleration of gravity, m/s² (standard gravity by default; for local gravity
+        use ``Mover(g=normal_gravity(lat_deg, height_m))``).
+    normal : {"full", "gravity"}
+        ``"gravity"``: the normal force is gravity's component across the path, so
+        friction work is mu * g * plan length.  ``"full"``: the normal force is the
+        vector the line must supply, N = v² kappa n - g_perp, including the centripetal
+        part on curved lines.
+    stall_speed : float
+        The mover stops when it slows below this speed, m/s.
+    max_speed : float or None
+        Highest allowed speed, m/s; a hard limit for the search, a flag in profiles.
+
+    Examples
+    --------
+    >>> Mover(mu=0.2, drag=0.01).normal
+    'full'
+    >>> Mover(mu=-1)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: mu must be a finite number >= 0, got -1
+    """
+
+    mu: float = 0.0
+    drag: float = 0.0
+    v0: float = 0.0
+    g: float = STANDARD_GRAVITY
+    normal: str = "full"
+    stall_speed: float = 0.0
+    max_speed: float | None = None
+
+    def __post_init__(self) -> None:
+        check_number("mu", self.mu)
+        check_number("drag", self.drag)
+        check_number("v0", self.v0)
+        check_number("g", self.g, strictly_positive=True)
+        check_number("stall_speed", self.stall_speed)
+        check_number("max_speed", self.max_speed, allow_none=True, strictly_positive=True)
+        if self.normal not in _NORMAL_MODELS:
+            raise ParameterError(f"normal must be one of {', '.join(_NORMAL_MODELS)}; got {self.normal!r}")
+        for name in ("mu", "drag", "v0", "g", "stall_speed"):
+            object.__setattr__(self, name, float(getattr(self, name)))
+        if self.max_speed is not None:
+            object.__setattr__(self, "max_speed", float(self.max_speed))
+            if self.max_speed <= self.stall_speed:
+                raise ParameterError(f"max_speed ({self.max_speed:g} m/s) must exceed stall_speed ({self.stall_speed:g} m/s)")
+
+    @classmethod
+    def from_drag_area(cls, cda_m2: float, mass_kg: float, air_density: float = 1.225, **kwargs) -> "Mover":
+        """Build a mover from its drag area C_d·A (m²) and mass (kg): k = rho·C_d·A / (2 m).
+
+        Examples
+        --------
+        >>> round(Mover.from_drag_area(0.5, 80.0).drag, 6)
+        0.003828
+        """
+        check_number("cda_m2", cda_m2)
+        check_number("mass_kg", mass_kg, strictly_positive=True)
+        check_number("air_density", air_density)
+        return cls(drag=air_density * cda_m2 / (2.0 * mass_kg), **kwargs)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Geometric limits every segment of a line must respect.
+
+    The speed window (stall speed, max speed) lives on :class:`fallway.Mover`, because
+    profiles flag it too.
+
+    Parameters
+    ----------
+    min_grade, max_grade : float
+        Window for the descent grade of every segment (drop / plan length; 0.1 = 10 %
+        falling; negative = rising).  Defaults: no limit.
+    max_turn_deg : float or None
+        Largest change of plan heading between consecutive lattice steps, degrees.
+    min_radius_m : float or None
+        Smallest bend radius of the refined line, metres, measured along the line in 3D
+        (circumradius of consecutive vertices; the refinement holds it).  On a slope the
+        plan radius differs (a plan circle of radius R draped on a plane tilted by α has a
+        3D radius down to R cos α); route summaries report both, ``min_radius_m`` (plan)
+        and ``min_radius_3d_m``.
+
+    Examples
+    --------
+    >>> Limits(min_grade=0.05, max_grade=0.6).min_grade
+    0.05
+    >>> Limits(min_grade=0.5, max_grade=0.1)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: min_grade (0.5) must not exceed max_grade (0.1)
+    """
+
+    min_grade: float = -math.inf
+    max_grade: float = math.inf
+    max_turn_deg: float | None = None
+    min_radius_m: float | None = None
+
+    def __post_init__(self) -> None:
+        for name in ("min_grade", "max_grade"):
+            v = getattr(self, name)
+            try:
+                v = float(v)
+            except (TypeError, ValueError):
+                raise ParameterError(f"{name} must be a number, got {v!r}") from None
+            if math.isnan(v):
+                raise ParameterError(f"{name} must be a number, got NaN")
+            object.__setattr__(self, name, v)
+        if self.min_grade > self.max_grade:
+            raise ParameterError(f"min_grade ({self.min_grade:g}) must not exceed max_grade ({self.max_grade:g})")
+        if self.max_turn_deg is not None:
+            v = float(self.max_turn_deg)
+            if not (0.0 < v <= 180.0):
+                raise ParameterError(f"max_turn_deg must be in (0, 180], got {self.max_turn_deg!r}")
+            object.__setattr__(self, "max_turn_deg", v)
+        if self.min_radius_m is not None:
+            v = float(self.min_radius_m)
+            if not (math.isfinite(v) and v > 0.0):
+                raise ParameterError(f"min_radius_m must be a finite number > 0, got {self.min_radius_m!r}")
+            object.__setattr__(self, "min_radius_m", v)
+
+
+
+
+@dataclass(frozen=True)
+class LineSpec:
+    """The kind of line and, for a raised line, where it may run above the ground.
+
+    Parameters
+    ----------
+    kind : {"ground", "raised"}
+        ``"ground"``: the line lies on the terrain surface (an open chute, a conveyor on
+        the ground).  ``"raised"``: a trestle, an elevated chute or a flume on posts, its
+        height free within the clearance band.
+    clearance_m : (float, float)
+        ``(min, max)`` height of a raised line above the ground, metres, ``0 <= min <= max``.
+    start_height_m, end_height_m : float
+        Height of a raised line above the ground at its two ends, metres (within the
+        band; 0 means "at the band's nearest edge" is not assumed: give it explicitly).
+
+    Examples
+    --------
+    >>> LineSpec().kind
+    'ground'
+    >>> LineSpec("raised", (0.5, 15.0), 8.0, 2.0).clearance_m
+    (0.5, 15.0)
+    >>> LineSpec("cable")
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: line kind must be one of ground, raised; got 'cable'
+    """
+
+    kind: str = "ground"
+    clearance_m: tuple[float, float] = (0.0, 0.0)
+    start_height_m: float = 0.0
+    end_height_m: float = 0.0
+
+    def __post_init__(self) -> None:
+        if self.kind not in LINE_KINDS:
+            raise ParameterError(f"line kind must be one of {', '.join(LINE_KINDS)}; got {self.kind!r}")
+        try:
+            lo, hi = (float(v) for v in self.clearance_m)
+        except (TypeError, ValueError):
+            raise ParameterError(f"clearance_m must be a pair (min, max) of metres, got {self.clearance_m!r}") from None
+        if not (math.isfinite(lo) and math.isfinite(hi) and 0.0 <= lo <= hi):
+            raise ParameterError(f"clearance_m must be (min, max) with 0 <= min <= max, got ({lo:g}, {hi:g})")
+        object.__setattr__(self, "clearance_m", (lo, hi))
+        for name in ("start_height_m", "end_height_m"):
+            check_number(name, getattr(self, name))
+            h = float(getattr(self, name))
+            object.__setattr__(self, name, h)
+            if self.kind == "raised" and not (lo - 1e-9 <= h <= hi + 1e-9):
+                raise ParameterError(f"{name} ({h:g} m) must lie in the clearance band [{lo:g}, {hi:g}] m")
+
+
+@dataclass(frozen=True)
+class SearchOptions:
+    """How the lattice is searched and planned.
+
+    Parameters
+    ----------
+    neighbours : {8, 16, 32}
+        Lattice stencil (worst metrication 8.2 %, 2.7 %, 1.3 %).
+    label_cap : int or None
+        Keep at most this many labels per lattice state (the earliest arrivals): an
+        approximate search, faster on large rough DEMs; None is the exact Pareto search.
+    max_labels : int or None
+        Label budget of one search; when spent the search stops with
+        ``NoFeasibleLine(reason="label_budget")``.  None: the kernel's own ceiling.
+    energy_tol : float or None
+        Dominance tolerance on v², relative to each label's own v² (None: the default
+        1e-10; 0: exact to the last bit).
+    heuristic : bool
+        Order the search by the admissible A* bound (same answer, fewer labels).
+    plan : {"auto", "full", "corridor"}
+        ``"full"``: one search on the whole area around the points.  ``"corridor"``: a
+        coarse search, then the fine grid inside a widening corridor around the coarse
+        line.  ``"auto"``: the full grid when its memory estimate fits, else the corridor.
+    coarse_factor : int or None
+        Corridor plan: coarsening factor of the first search (None: about 250 k coarse cells).
+    corridor_m : float or None
+        Corridor plan: first corridor half-width, metres (None: four coarse cells).
+    max_widen : int
+        Corridor plan: how many times the corridor may double.
+    widen_tol : float
+        Corridor plan: relative gain below which widening stops.
+
+    Examples
+    --------
+    >>> SearchOptions(neighbours=32, label_cap=4).label_cap
+    4
+    >>> SearchOptions(neighbours=12)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: neighbours must be one of 8, 16, 32; got 12
+    """
+
+    neighbours: int = 16
+    label_cap: int | None = None
+    max_labels: int | None = None
+    energy_tol: float | None = None
+    heuristic: bool = True
+    plan: str = "auto"
+    coarse_factor: int | None = None
+    corridor_m: float | None = None
+    max_widen: int = 4
+    widen_tol: float = 0.002
+
+    def __post_init__(self) -> None:
+        if isinstance(self.neighbours, bool) or self.neighbours not in NEIGHBOURHOODS:
+            raise ParameterError(f"neighbours must be one of 8, 16, 32; got {self.neighbours!r}")
+        object.__setattr__(self, "neighbours", int(self.neighbours))
+        for name in ("label_cap", "max_labels", "coarse_factor"):
+            v = getattr(self, name)
+            if v is not None and (isinstance(v, bool) or not isinstance(v, int) or v < 1):
+                raise ParameterError(f"{name} must be a whole number >= 1 or None; got {v!r}")
+        if self.energy_tol is not None:
+            check_number("energy_tol", self.energy_tol)
+            object.__setattr__(self, "energy_tol", float(self.energy_tol))
+        if not isinstance(self.heuristic, bool):
+            raise ParameterError(f"heuristic must be True or False; got {self.heuristic!r}")
+        if self.plan not in PLANS:
+            raise ParameterError(f"plan must be one of {', '.join(PLANS)}; got {self.plan!r}")
+        if self.corridor_m is not None:
+            check_number("corridor_m", self.corridor_m, strictly_positive=True)
+            object.__setattr__(self, "corridor_m", float(self.corridor_m))
+        if isinstance(self.max_widen, bool) or not isinstance(self.max_widen, int) or self.max_widen < 0:
+            raise ParameterError(f"max_widen must be a whole number >= 0; got {self.max_widen!r}")
+        check_number("widen_tol", self.widen_tol)
+        object.__setattr__(self, "widen_tol", float(self.widen_tol))
