@@ -152,7 +152,7 @@ max_speed = 30.0  # m/s, a hard cap on the line
 
 [limits]
 min_grade = 0.0    # the chute never climbs
-max_turn_deg = 45.0
+max_step_turn_deg = 45.0
 
 [search]
 neighbours = 16

@@ -93,7 +93,7 @@ def make_route(terrain=None, mover=None, *, raised=0.0, n=31):
         "search": {"labels_created": 1234, "labels_settled": 1000, "seconds": 0.25},
         "refinement": {"iterations": 17, "converged": True, "residual": 1.5e-7},
     }
-    return Route(line, prof, lattice, summary, mover, Limits(min_grade=0.05, max_turn_deg=45.0))
+    return Route(line, prof, lattice, summary, mover, Limits(min_grade=0.05, max_step_turn_deg=45.0))
 
 
 @pytest.fixture

@@ -337,7 +337,7 @@ def test_turn_limit_matches_reference_and_holds():
     sets = pareto_ref(z, 10.0, MOVER, (0, 0), max_turn=45.0)
     ref = best_time(sets, (6, 7))
     free = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
-    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, limits=Limits(max_turn_deg=45.0))
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, limits=Limits(max_step_turn_deg=45.0))
     assert ln.time_s == pytest.approx(ref, rel=1e-9)
     assert ref >= free
     steps = np.diff(ln.cells, axis=0)
@@ -668,7 +668,7 @@ def test_compact_and_full_window_layouts_give_identical_searches(case):
     mover = Mover(mu=0.05, drag=0.002, v0=2.0, normal="gravity")
     start, end, via = 0, z.size - 1, 15 * cols + 18
     keep.ravel()[via] = False
-    kw = dict(plain={}, via={"targets": [via, end]}, turn={"limits": Limits(max_turn_deg=50.0)},
+    kw = dict(plain={}, via={"targets": [via, end]}, turn={"limits": Limits(max_step_turn_deg=50.0)},
               cap={"max_per_cell": 1}, reach={"targets": []})[case]
     targets = kw.pop("targets", [end])
     (a, ca), (b, cb) = _run_both(t, mover, keep, start, targets, **kw)

@@ -122,6 +122,6 @@ def test_bad_inputs(tmp_path):
 
 
 def test_limits_validation():
-    with pytest.raises(ParameterError, match="max_turn_deg"):
-        Limits(max_turn_deg=0.0)
+    with pytest.raises(ParameterError, match="max_step_turn_deg"):
+        Limits(max_step_turn_deg=0.0)
     assert Limits(min_grade=-0.1, max_grade=0.3).max_grade == 0.3

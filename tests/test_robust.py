@@ -254,8 +254,8 @@ def test_no_robust_line_and_bad_input():
 
 # --------------------------------------------------------------------------- speed-ups
 
-def _turn_brute_force(z, start, end, lo, mu, hi, v0, vmax, max_turn_deg):
-    """Fastest nominal simple path, robust over the range, turning at most ``max_turn_deg``."""
+def _turn_brute_force(z, start, end, lo, mu, hi, v0, vmax, max_step_turn_deg):
+    """Fastest nominal simple path, robust over the range, turning at most ``max_step_turn_deg``."""
     rows, cols = z.shape
     cap = math.inf if vmax is None else vmax * vmax
     best = [math.inf, None]
@@ -272,7 +272,7 @@ def _turn_brute_force(z, start, end, lo, mu, hi, v0, vmax, max_turn_deg):
             best[:] = [t, list(path)]
             return
         for d in KING:
-            if last is not None and turn(last, d) > max_turn_deg + 1e-9:
+            if last is not None and turn(last, d) > max_step_turn_deg + 1e-9:
                 continue
             r2, c2 = r + d[0], c + d[1]
             if not (0 <= r2 < rows and 0 <= c2 < cols) or seen[r2, c2]:
@@ -304,7 +304,7 @@ def test_turn_limit_equals_brute_force(seed):
     ref_t, ref_path = _turn_brute_force(z, (0, 0), (3, 4), lo, mu, hi, v0, vmax, 45.0)
     try:
         ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, lo, hi, neighbours=8,
-                                 limits=Limits(max_turn_deg=45.0), energy_tol=0.0)
+                                 limits=Limits(max_step_turn_deg=45.0), energy_tol=0.0)
     except NoFeasibleLine:
         assert ref_path is None
         return

@@ -29,7 +29,7 @@ max_speed = 20.0
 [limits]
 min_grade = 0.02
 max_grade = 0.8
-max_turn_deg = 60.0
+max_step_turn_deg = 60.0
 min_radius_m = 8.0
 
 [search]

@@ -175,7 +175,7 @@ def _common_options(fn):
         click.option("--max-grade", type=float, help="Largest descent grade of any segment."),
         click.option("--max-speed", type=float, help="Speed limit, m/s."),
         click.option("--stall-speed", type=float, help="The mover stops below this speed, m/s."),
-        click.option("--max-turn", type=float, help="Largest heading change per lattice step, degrees."),
+        click.option("--max-step-turn", "max_turn", type=float, help="Largest change of heading from one lattice step to the next, degrees (a search limit; the refined line is held by --min-radius)."),
         click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons."),
         click.option("-q", "--quiet", is_flag=True, help="Print errors only."),
         click.option("-v", "--verbose", count=True, help="More log output (-vv for debug)."),
@@ -205,7 +205,7 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
                      ("max_speed", max_speed), ("stall_speed", stall_speed)):
         if val is not None:
             d["mover"][key] = val
-    for key, val in (("min_grade", min_grade), ("max_grade", max_grade), ("max_turn_deg", max_turn),
+    for key, val in (("min_grade", min_grade), ("max_grade", max_grade), ("max_step_turn_deg", max_turn),
                      ("min_radius_m", extra.get("min_radius"))):
         if val is not None:
             d["limits"][key] = val

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 from .errors import ParameterError
 
 __all__ = ["STANDARD_GRAVITY", "Mover", "Limits", "LineSpec", "SearchOptions", "LINE_KINDS", "NEIGHBOURHOODS",
-           "PLANS"]
+           "PLANS", "checked_options"]
 
 #: Standard acceleration of gravity, m/s² (3rd CGPM, 1901).
 STANDARD_GRAVITY = 9.80665
@@ -137,8 +137,10 @@ class Limits:
     min_grade, max_grade : float
         Window for the descent grade of every segment (drop / plan length; 0.1 = 10 %
         falling; negative = rising).  Defaults: no limit.
-    max_turn_deg : float or None
-        Largest change of plan heading between consecutive lattice steps, degrees.
+    max_step_turn_deg : float or None
+        Largest change of plan heading from one lattice step to the next, degrees: a limit
+        of the lattice search only (it steers the search towards gentle lines); the
+        refined line is held by ``min_radius_m``.
     min_radius_m : float or None
         Smallest bend radius of the refined line, metres, measured along the line in 3D
         (circumradius of consecutive vertices; the refinement holds it).  On a slope the
@@ -158,7 +160,7 @@ class Limits:
 
     min_grade: float = -math.inf
     max_grade: float = math.inf
-    max_turn_deg: float | None = None
+    max_step_turn_deg: float | None = None
     min_radius_m: float | None = None
 
     def __post_init__(self) -> None:
@@ -173,11 +175,11 @@ class Limits:
             object.__setattr__(self, name, v)
         if self.min_grade > self.max_grade:
             raise ParameterError(f"min_grade ({self.min_grade:g}) must not exceed max_grade ({self.max_grade:g})")
-        if self.max_turn_deg is not None:
-            v = float(self.max_turn_deg)
+        if self.max_step_turn_deg is not None:
+            v = float(self.max_step_turn_deg)
             if not (0.0 < v <= 180.0):
-                raise ParameterError(f"max_turn_deg must be in (0, 180], got {self.max_turn_deg!r}")
-            object.__setattr__(self, "max_turn_deg", v)
+                raise ParameterError(f"max_step_turn_deg must be in (0, 180], got {self.max_step_turn_deg!r}")
+            object.__setattr__(self, "max_step_turn_deg", v)
         if self.min_radius_m is not None:
             v = float(self.min_radius_m)
             if not (math.isfinite(v) and v > 0.0):
@@ -313,3 +315,39 @@ class SearchOptions:
             raise ParameterError(f"max_widen must be a whole number >= 0; got {self.max_widen!r}")
         check_number("widen_tol", self.widen_tol)
         object.__setattr__(self, "widen_tol", float(self.widen_tol))
+
+
+def checked_options(fn):
+    """Make an unknown keyword argument of a public function a :class:`ParameterError`.
+
+    Python's own ``TypeError`` names the argument but not the ones allowed; this says
+    both, in the project's error tree.
+
+    Examples
+    --------
+    >>> @checked_options
+    ... def f(a, *, speed_m_s=1.0):
+    ...     return a * speed_m_s
+    >>> f(2, speed_m_s=3.0)
+    6.0
+    >>> f(2, speed=3.0)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: f: unknown option speed; allowed: speed_m_s
+    """
+    import functools
+    import inspect
+
+    sig = inspect.signature(fn)
+    names = [p.name for p in sig.parameters.values()
+             if p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD)]
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        unknown = [k for k in kwargs if k not in names]
+        if unknown:
+            allowed = [p.name for p in sig.parameters.values() if p.kind == p.KEYWORD_ONLY] or names
+            raise ParameterError(f"{fn.__name__}: unknown option {unknown[0]}; allowed: {', '.join(allowed)}")
+        return fn(*args, **kwargs)
+
+    return wrapper

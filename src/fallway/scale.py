@@ -399,7 +399,7 @@ def find_route_large(source, start, end, mover: Mover, *, via=(), keepout=None, 
     pts = [tuple(map(float, start))] + [tuple(map(float, p)) for p in via] + [tuple(map(float, end))]
     neighbours = int(find_route_kwargs.get("neighbours", 16))
     limits = find_route_kwargs.get("limits") or Limits()
-    turn = limits.max_turn_deg is not None
+    turn = limits.max_step_turn_deg is not None
     cap = find_route_kwargs.get("max_per_cell")
     legs = 1 + len(via)
     cell = src.cell
@@ -576,7 +576,7 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
     if m is not None:
         out |= m
     _check_memory(win.z.size, "the reach search", neighbours=neighbours, legs=1,
-                  turn_limit=limits.max_turn_deg is not None, max_per_cell=reach_kwargs.get("max_per_cell"),
+                  turn_limit=limits.max_step_turn_deg is not None, max_per_cell=reach_kwargs.get("max_per_cell"),
                   memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True,
                   active_cells=int(np.count_nonzero(~out)))
     rm = reach(win, start, mover, keepout=_keep_for(src, win, out), max_time_s=max_time_s, **reach_kwargs)

@@ -26,7 +26,7 @@ Layout (every section and key optional; unknown keys are rejected)::
     [limits]                         # fallway.Limits
     min_grade = 0.0
     max_grade = 1.0
-    max_turn_deg = 45.0
+    max_step_turn_deg = 45.0
     min_radius_m = 10.0
 
     [search]

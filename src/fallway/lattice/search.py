@@ -125,7 +125,7 @@ class _Problem:
         self.brk_w = np.ascontiguousarray(st.break_w)
         self.tch_start = np.ascontiguousarray(st.touch_start)
         self.tch_flat = np.ascontiguousarray(st.touch[:, 0] * cols + st.touch[:, 1])
-        turn = limits.max_turn_deg if use_limits else None
+        turn = limits.max_step_turn_deg if use_limits else None
         self.use_heading = turn is not None
         self.turn_ok = np.ascontiguousarray(st.turn_ok(turn))
         self.min_grade = limits.min_grade if use_limits else -math.inf

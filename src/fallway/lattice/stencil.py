@@ -178,14 +178,14 @@ class Stencil:
         return [(float(self.break_u[i]), tuple(self.break_a[i]), tuple(self.break_b[i]), float(self.break_w[i]))
                 for i in range(s, e)]
 
-    def turn_ok(self, max_turn_deg: float | None) -> np.ndarray:
+    def turn_ok(self, max_step_turn_deg: float | None) -> np.ndarray:
         """(K, K) bool: may a step along offset j follow a step along offset i?"""
         k = len(self.offsets)
-        if max_turn_deg is None:
+        if max_step_turn_deg is None:
             return np.ones((k, k), dtype=np.bool_)
         d = self.direction_deg
         diff = np.abs((d[None, :] - d[:, None] + 180.0) % 360.0 - 180.0)
-        return diff <= max_turn_deg + 1e-9
+        return diff <= max_step_turn_deg + 1e-9
 
 
 _CACHE: dict[int, Stencil] = {}
