@@ -2,10 +2,10 @@
 
 * ``large``   - 5000 x 5000 cells at 2 m (synthetic, deterministic, written as a tiled
   deflate GeoTIFF), friction route across ~7 km (diagonal), 16 neighbours, refinement
-  on, through :func:`fallway.scale.find_route_large` (windowed reads).  Targets: wall
+  on, through :func:`fallway.routing.find_route` with the corridor plan (windowed reads).  Targets: wall
   time < 300 s, peak memory (peak resident set of the process, VmHWM) < 8 GB.
 * ``check``   - a 2000 x 2000 DEM (same generator): the corridor answer against the exact
-  full-grid search (``exact=True``), same search options.  Target: within 0.5 %.
+  full-grid search (``plan="full"``), same search options.  Target: within 0.5 %.
 
 Every case runs in its own process and reports its own peak (``VmHWM``; ``ru_maxrss``
 of a child includes its parent's peak, which made the figures before 2026-12-02
@@ -102,20 +102,21 @@ def peak_mb() -> float:
 
 
 def case(path, n, frac, cap, exact, refine):
+    from fallway.params import SearchOptions
     from fallway.physics import Mover
-    from fallway.scale import find_route_large
+    from fallway.routing import find_route
 
     start, end = points(n, frac)
     mover = Mover(mu=0.2, drag=0.001)
     t0 = time.perf_counter()
-    r = find_route_large(path, start, end, mover, neighbours=16, max_per_cell=cap, exact=exact, refine=refine)
+    search = SearchOptions(neighbours=16, label_cap=cap, plan="full" if exact else "corridor")
+    r = find_route(path, start, end, mover, search=search, refine=refine)
     wall = time.perf_counter() - t0
     s = r.summary
-    return {"wall_s": wall, "peak_mb": peak_mb(), "travel_time_s": s["travel_time_s"],
-            "lattice_time_s": s["lattice_time_s"], "plan_length_m": s["plan_length_m"],
-            "scale": s["scale"], "corridor_steps": s["corridor_steps"], "timings": s["scale_timings_s"],
-            "labels_created": s["labels_created"], "refined": s["refined"],
-            "refine_converged": s.get("refine_converged"), "feasible": s["feasible"]}
+    return {"wall_s": wall, "peak_mb": peak_mb(), "travel_time_s": s.travel_time_s,
+            "lattice_time_s": s.lattice_time_s, "plan_length_m": s.plan_length_m, "search_plan": s.search_plan,
+            "corridor": s.corridor, "compute_s": r.compute_s, "labels_created": s.labels_created,
+            "refined": s.refined, "refine_converged": s.refine_converged, "feasible": s.feasible}
 
 
 def main() -> None:

@@ -3,7 +3,7 @@
 For n x n DEMs of 0.25 M, 1 M, 4 M, 16 M and 25 M cells at 2 m (the generator of
 ``bench_large.py``, written to a tiled deflate GeoTIFF), a friction route corner to
 corner (15 % in from opposite corners), 16 neighbours, ``max_per_cell`` labels, through
-:func:`fallway.scale.find_route_large` (coarse-to-fine).  Each size runs in its own
+:func:`fallway.routing.find_route` with the corridor plan (coarse-to-fine).  Each size runs in its own
 process: wall time and peak memory (VmHWM, see ``bench_large.peak_mb``).  The growth exponent is the
 least-squares slope of log(time) against log(cells).
 
@@ -75,7 +75,7 @@ def main() -> None:
                 row = {"n": n, "cells": n * n, "mode": "exact" if exact else "corridor", "wall_s": res["wall_s"],
                        "peak_mb": res["peak_mb"], "lattice_time_s": res["lattice_time_s"],
                        "travel_time_s": res["travel_time_s"], "labels_created": res["labels_created"],
-                       "steps": [(s["corridor_m"], s["cells"]) for s in res["corridor_steps"]]}
+                       "steps": [(s["corridor_m"], s["cells"]) for s in (res["corridor"] or {}).get("steps", [])]}
                 rows.append(row)
                 print(json.dumps(row), flush=True)
     print(f"\n{'cells':>10} {'mode':>9} {'wall s':>8} {'peak MB':>8} {'travel s':>9}")

@@ -308,7 +308,7 @@ def test_south_up_raster_works(tmp_path):
         _assert_complete(tmp_path / name)
         res.append(json.loads((tmp_path / name / "summary.json").read_text()))
     a, b = res
-    assert a["start"] == b["start"] and a["end"] == b["end"]
+    assert a["start_xyz"] == b["start_xyz"] and a["end_xyz"] == b["end_xyz"]
     # plane falling 0.3 east over 55 m: 16.5 m drop between the end cells (geometry)
     assert a["drop_m"] == pytest.approx(16.5, abs=1e-6)
     assert a["travel_time_s"] == pytest.approx(b["travel_time_s"], rel=1e-12)

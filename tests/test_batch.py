@@ -11,8 +11,9 @@ import pytest
 
 from fallway.batch import expand_batch, run_batch
 from fallway.errors import ScenarioError
+from fallway.params import LineSpec
 from fallway.physics import Mover
-from fallway.route import find_route
+from fallway.routing import find_route
 from fallway.terrain import Terrain
 
 G = 9.80665
@@ -73,9 +74,9 @@ def check_rows(rows, terrain):
     for r in ok:
         end = tuple(float(v) for v in r["points.end"].split())
         mover = Mover(mu=r["mover.mu"], normal="gravity")
-        single = find_route(terrain, tuple(START), end, mover, neighbours=16, refine=False, line=r["line.kind"])
-        assert r["travel_time_s"] == pytest.approx(single.summary["travel_time_s"], rel=1e-12)
-        assert r["exit_speed_m_s"] == pytest.approx(single.summary["exit_speed_m_s"], rel=1e-12)
+        single = find_route(terrain, tuple(START), end, mover, refine=False, line=LineSpec(r["line.kind"]))
+        assert r["travel_time_s"] == pytest.approx(single.summary.travel_time_s, rel=1e-12)
+        assert r["exit_speed_m_s"] == pytest.approx(single.summary.exit_speed_m_s, rel=1e-12)
         if end == tuple(ENDS[0]):
             # straight down the row: constant acceleration on an incline with Coulomb
             # friction (e.g. Meriam & Kraige, Dynamics), a = g (drop - mu plan) / length
@@ -141,7 +142,7 @@ def test_expansion_order_names_and_errors():
         expand_batch({"options": {"speed": 1}})
 
 
-def test_large_option_runs_the_corridor_search(site, tmp_path):
+def test_plan_option_runs_the_corridor_search(site, tmp_path):
     d, terrain = site
     (tmp_path / "large.toml").write_text(f"""
 [base]
@@ -156,7 +157,7 @@ normal = "gravity"
 [vary]
 mover.mu = {MUS}
 [options]
-large = true
+plan = "corridor"
 coarse_factor = 2
 corridor_m = 8.0
 """)
@@ -164,7 +165,7 @@ corridor_m = 8.0
     assert [r["status"] for r in rows] == ["ok", "ok"]
     for r in rows:
         single = find_route(terrain, tuple(START), tuple(ENDS[0]), Mover(mu=r["mover.mu"], normal="gravity"),
-                            neighbours=16, refine=False)
-        assert r["travel_time_s"] == pytest.approx(single.summary["travel_time_s"], rel=1e-12)
+                            refine=False)
+        assert r["travel_time_s"] == pytest.approx(single.summary.travel_time_s, rel=1e-12)
         s = json.loads((tmp_path / "out" / r["name"] / "summary.json").read_text())
-        assert s["scale"]["mode"] == "corridor" and len(s["corridor_steps"]) >= 2
+        assert s["search_plan"] == "corridor" and len(s["corridor"]["steps"]) >= 2

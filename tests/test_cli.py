@@ -215,19 +215,18 @@ def test_demo_writes_every_output(tmp_path):
     assert float(rows[-1]["time_s"]) == pytest.approx(summary["travel_time_s"], rel=1e-6)
 
 
-def test_route_large_corridor_matches_the_incline_formula(tmp_path, ramp):
+def test_route_corridor_plan_matches_the_incline_formula(tmp_path, ramp):
     # the coarse-to-fine path through the CLI: same closed form as the plain search
     dem, start, end = ramp
     out = tmp_path / "large"
     res = _run(["route", dem, "--start", *start, "--end", *end, "--mu", 0.1, "--normal", "gravity",
-                "--large", "--coarse", 3, "--no-refine", "--out", out])
+                "--plan", "corridor", "--coarse", 3, "--no-refine", "--out", out])
     assert res.exit_code == 0, res.output
     summary = json.loads((out / "summary.json").read_text())
     theta = math.atan(0.3)
     assert summary["travel_time_s"] == pytest.approx(_incline_time(100.0 / math.cos(theta), theta, 0.1), rel=1e-6)
-    assert summary["corridor_steps"] and "scale_timings_s" not in summary   # timings stay out of summary.json
-    res = _run(["route", dem, "--start", *start, "--end", *end, "--exact", "--out", tmp_path / "x"])
-    assert res.exit_code == 2 and "--large" in res.output
+    assert summary["search_plan"] == "corridor" and summary["corridor"]["steps"]
+    assert not any("compute" in k for k in summary)  # seconds of computing stay out of summary.json
 
 
 def test_reach_with_a_time_cut_off(tmp_path, ramp):

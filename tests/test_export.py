@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 import csv
 import json
 import math
@@ -19,7 +21,8 @@ from fallway.export import (OutputSet, atomic_path, atomic_write, profile_flags,
                             write_profile_csv, write_route_geojson, write_route_gpkg, write_summary_json)
 from fallway.params import Limits
 from fallway.physics import Mover, Profile
-from fallway.route import LatticeLine, Route
+from fallway.results import LatticeLine, Route, RouteSummary
+from fallway.params import LineSpec, SearchOptions
 from fallway.terrain import Terrain
 
 X0, Y0, CELL = 452_000.0, 5_301_000.0, 5.0
@@ -80,20 +83,21 @@ def make_route(terrain=None, mover=None, *, raised=0.0, n=31):
     lat_prof = make_profile(lat_pts, mover)
     lattice = LatticeLine(np.column_stack([rows, cols]), lat_pts, lat_prof, lat_prof.travel_time_s)
     d = np.diff(line, axis=0)
-    summary = {
-        "travel_time_s": prof.travel_time_s,
-        "lattice_time_s": lattice.time_s,
-        "length_m": float(prof.station_m[-1]),
-        "plan_length_m": float(np.hypot(d[:, 0], d[:, 1]).sum()),
-        "drop_m": float(line[0, 2] - line[-1, 2]),
-        "exit_speed_m_s": prof.exit_speed_m_s,
-        "max_speed_m_s": float(np.nanmax(prof.speed_m_s)),
-        "min_radius_m": 31.5,
-        "max_grade": float(np.max(prof.grade)),
-        "search": {"labels_created": 1234, "labels_settled": 1000, "seconds": 0.25},
-        "refinement": {"iterations": 17, "converged": True, "residual": 1.5e-7},
-    }
-    return Route(line, prof, lattice, summary, mover, Limits(min_grade=0.05, max_step_turn_deg=45.0))
+    summary = RouteSummary(
+        line_kind="ground", feasible=True, travel_time_s=prof.travel_time_s, exit_speed_m_s=prof.exit_speed_m_s,
+        max_speed_m_s=float(np.nanmax(prof.speed_m_s)), length_m=float(prof.station_m[-1]),
+        plan_length_m=float(np.hypot(d[:, 0], d[:, 1]).sum()), drop_m=float(line[0, 2] - line[-1, 2]),
+        min_radius_plan_m=31.5, min_radius_3d_m=31.0, max_grade=float(np.max(prof.grade)), violated_limits=[],
+        start_xyz=line[0].tolist(), end_xyz=line[-1].tolist(), via_xy=[], lattice_time_s=lattice.time_s,
+        lattice_model_time_s=lattice.time_s, neighbours=16, search_plan="full", search_exact=True, label_cap=None,
+        labels_created=1234, labels_settled=1000, corridor={"steps": [{"corridor_m": 40.0, "feasible": True}]},
+        refined=True, refine_choice="gravity optimum", refine_converged=True, refine_iterations=17,
+        refine_residual_s_per_m=1.5e-7, refine_message="refined", refine_limits={"grade": "inactive"},
+        refine_candidates=None, robust_method=None, robust_mu_range=None, robust_note=None,
+        robust_candidates=None, caution=CAUTION)
+    return Route(line=line, profile=prof, lattice=lattice, summary=summary, mover=mover,
+                 limits=Limits(min_grade=0.05, max_step_turn_deg=45.0), line_spec=LineSpec(), search=SearchOptions(),
+                 refinement=None, terrain=terrain)
 
 
 @pytest.fixture
@@ -151,8 +155,8 @@ def test_geojson_is_rfc7946_and_round_trips_with_pyproj(route, tmp_path):
     # UTM 33N has its central meridian at 15 E; x = 452 km lies west of it, near 47.8 N
     assert 14.0 < lonlatz[0, 0] < 15.0 and 47.0 < lonlatz[0, 1] < 48.5
     props = f["properties"]
-    assert props["travel_time_s"] == pytest.approx(route.summary["travel_time_s"], rel=1e-15)
-    assert props["search"]["labels_created"] == 1234
+    assert props["travel_time_s"] == pytest.approx(route.summary.travel_time_s, rel=1e-15)
+    assert props["labels_created"] == 1234 and props["corridor"]["steps"][0]["corridor_m"] == 40.0
     # bbox covers the coordinates
     # GDAL reads it back as a WGS 84 LineString Z (its GeoJSON driver follows RFC 7946)
     import pyogrio
@@ -187,7 +191,7 @@ def test_geojson_splits_at_the_antimeridian(tmp_path):
     xe, ye = to_utm.transform(-179.9, 52.0)
     line = np.array([[xw - 2000.0, yw, 300.0], [xw, yw, 290.0], [xe, ye, 280.0], [xe + 2000.0, ye, 270.0]])
     r = make_route(t)
-    r = Route(line, make_profile(line, r.mover), r.lattice, r.summary, r.mover, r.limits)
+    r = dataclasses.replace(r, line=line, profile=make_profile(line, r.mover))
     doc = json.loads(write_route_geojson(r, tmp_path / "am.geojson", "EPSG:32660").read_text())
     f = check_rfc7946(doc)
     assert f["geometry"]["type"] == "MultiLineString"  # RFC 7946 §3.1.9
@@ -222,9 +226,9 @@ def test_geojson_round_trip_anywhere_in_the_zone(tmp_path_factory, pts):
 
     line = np.array(pts, dtype=float)
     base = make_route()
-    r = Route(line, Profile(line, np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)),
-                            np.zeros(len(line)), np.ones(len(line)), None, np.array([]), np.array([])),
-              base.lattice, base.summary, base.mover, base.limits)
+    r = dataclasses.replace(base, line=line, profile=Profile(
+        line, np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)),
+        np.ones(len(line)), None, np.array([]), np.array([])))
     path = tmp_path_factory.mktemp("rt") / "r.geojson"
     f = check_rfc7946(json.loads(write_route_geojson(r, path, "EPSG:32633").read_text()))
     lonlat = np.array(f["geometry"]["coordinates"])
@@ -254,9 +258,9 @@ def test_gpkg_two_layers_native_crs(route, tmp_path):
         np.testing.assert_array_equal(shapely.get_coordinates(g, include_z=True), expect)
         cols = dict(zip(meta["fields"], fields))
         if layer == "line":
-            assert cols["travel_time_s"][0] == route.summary["travel_time_s"]
-            assert cols["search_labels_created"][0] == 1234
-            assert bool(cols["refinement_converged"][0]) is True
+            assert cols["travel_time_s"][0] == route.summary.travel_time_s
+            assert cols["labels_created"][0] == 1234
+            assert bool(cols["refine_converged"][0]) is True
         else:
             assert cols["time_s"][0] == route.lattice.time_s
 
@@ -352,7 +356,7 @@ def test_profile_csv_flags_and_empty_cells(terrain, tmp_path):
     assert prof.stalled_at_m is not None
     prof = Profile(prof.points, prof.station_m, prof.speed_m_s, prof.time_s, prof.grade, prof.normal_ratio,
                    prof.stalled_at_m, np.array([prof.station_m[2] + 0.1]), np.array([]))
-    r = Route(r.line, prof, r.lattice, r.summary, mover, r.limits)
+    r = dataclasses.replace(r, profile=prof, mover=mover)
     rows = _read_csv(write_profile_csv(r, terrain, tmp_path / "profile.csv"))
     flags = [row["flags"] for row in rows]
     i_stall = int(np.searchsorted(prof.station_m, prof.stalled_at_m)) - 1
@@ -393,24 +397,22 @@ def test_summary_json_stable_valid_and_complete(route, tmp_path):
         raise AssertionError(f"non-standard JSON constant {name}")
 
     doc = json.loads(text, parse_constant=refuse)
-    for key in ("travel_time_s", "lattice_time_s", "length_m", "plan_length_m", "drop_m", "exit_speed_m_s",
-                "max_speed_m_s", "min_radius_m", "max_grade", "crs", "start", "end", "mover", "limits",
-                "caution", "search", "refinement", "scenario"):
-        assert key in doc, key
+    fields = list(RouteSummary.__dataclass_fields__)
+    # the summary's fields in their fixed order, then the inputs, the CRS and the extra entries
+    assert list(doc) == fields + ["mover", "limits", "line_spec", "search", "crs", "scenario"]
     assert doc["caution"] == CAUTION
     assert doc["crs"] == "EPSG:32633"
     assert doc["limits"]["max_grade"] is None  # inf = no limit -> null
     assert doc["limits"]["min_grade"] == 0.05
     assert doc["mover"]["mu"] == 0.1 and doc["mover"]["normal"] == "gravity"
-    assert doc["start"] == pytest.approx(route.line[0].tolist())
-    assert doc["end"] == pytest.approx(route.line[-1].tolist())
-    assert list(doc) == sorted(doc)
+    assert doc["start_xyz"] == pytest.approx(route.line[0].tolist())
+    assert doc["end_xyz"] == pytest.approx(route.line[-1].tolist())
 
 
 def test_summary_json_after_stall_has_no_nan(terrain, tmp_path):
     r = make_route(terrain, Mover(mu=0.6, v0=2.0, normal="gravity"))
-    summary = dict(r.summary, exit_speed_m_s=float("nan"), travel_time_s=float("inf"))
-    r = Route(r.line, r.profile, r.lattice, summary, r.mover, r.limits)
+    summary = dataclasses.replace(r.summary, exit_speed_m_s=float("nan"), travel_time_s=float("inf"))
+    r = dataclasses.replace(r, summary=summary)
     doc = json.loads(write_summary_json(r, tmp_path / "s.json").read_text())
     assert doc["exit_speed_m_s"] is None and doc["travel_time_s"] is None
 
@@ -521,12 +523,10 @@ def test_profile_csv_carries_a_traverse_profile(terrain, tmp_path):
     # the columns are the motion model's own numbers, to the written precision
     from fallway import physics
 
-    if not hasattr(physics, "traverse"):
-        pytest.skip("fallway.physics.traverse is not available yet")
     r = make_route(terrain)
     mover = Mover(mu=0.1, drag=0.004, v0=0.5, normal="full")
     prof = physics.traverse(r.line, mover)
-    r = Route(r.line, prof, r.lattice, r.summary, mover, r.limits)
+    r = dataclasses.replace(r, profile=prof, mover=mover)
     rows = _read_csv(write_profile_csv(r, terrain, tmp_path / "profile.csv"))
     for col, ref in (("station_m", prof.station_m), ("speed_m_s", prof.speed_m_s), ("time_s", prof.time_s),
                      ("grade", prof.grade), ("normal_ratio", prof.normal_ratio)):

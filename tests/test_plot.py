@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 import math
 
 import numpy as np
@@ -11,7 +13,7 @@ from hypothesis import given, settings, strategies as st
 
 from fallway.physics import Mover, Profile
 from fallway.plot import nice_step, plot_map, plot_profile, save_figure
-from fallway.route import ReachMap, Route
+from fallway.results import ReachMap
 
 # the route builders live beside the export tests (same synthetic site)
 from test_export import make_profile, make_route, make_terrain
@@ -103,7 +105,7 @@ def test_profile_plot_ground_line_speed_time_and_flags(terrain):
     assert p.stalled_at_m is not None
     p = Profile(p.points, p.station_m, p.speed_m_s, p.time_s, p.grade, p.normal_ratio, p.stalled_at_m,
                 np.array([p.station_m[3]]), np.array([]))
-    r = Route(r.line, p, r.lattice, r.summary, mover, r.limits)
+    r = dataclasses.replace(r, profile=p, mover=mover)
     ax = plot_profile(r, terrain)
     fig = ax.figure
     assert len(fig.axes) == 3  # heights, speed, time

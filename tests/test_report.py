@@ -88,15 +88,15 @@ def test_report_has_numbers_parameters_and_caution(site, report):
     p.feed(text)
     cells = [c.strip() for c in p.cells]
     i = cells.index("Travel time")
-    assert cells[i + 1] == f"{route.summary['travel_time_s']:.2f} s"
+    assert cells[i + 1] == f"{route.summary.travel_time_s:.2f} s"
     i = cells.index("Drop")
-    assert cells[i + 1] == f"{route.summary['drop_m']:.1f} m"
+    assert cells[i + 1] == f"{route.summary.drop_m:.1f} m"
     assert cells[cells.index("mu") + 1] == "0.1000"
     assert cells[cells.index("max_grade") + 1] == "no limit"  # Limits default: inf
     assert cells[cells.index("search.neighbours") + 1] == "16"
-    assert cells[cells.index("search.labels_created") + 1] == "1234"
+    assert cells[cells.index("labels_created") + 1] == "1234"
     assert "synthetic slope" in cells
-    assert cells[cells.index("refinement.residual") + 1] == "1.5e-07"  # small numbers keep their digits
+    assert cells[cells.index("refine_residual_s_per_m") + 1] == "1.5e-07"  # small numbers keep their digits
 
 
 def test_report_draws_its_own_plots_and_escapes_text(site, tmp_path):

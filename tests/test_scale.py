@@ -1,4 +1,4 @@
-"""Large-terrain search: coarse-to-fine against the full grid, windowed reads, cut-offs."""
+"""Large terrain: the corridor plan against the full grid, windowed reads, reach cut-offs."""
 
 from __future__ import annotations
 
@@ -9,8 +9,11 @@ import pytest
 
 from fallway.errors import NoFeasibleLine, ParameterError, TerrainError
 from fallway.lattice.search import lattice_line, reach
+from fallway.params import SearchOptions
 from fallway.physics import Mover
-from fallway.scale import _block_mean, find_route_large, reach_limited, search_memory_bytes
+from fallway.routing import find_route
+from fallway.routing import reach as reach_limited
+from fallway.scale import _block_mean, search_memory_bytes
 from fallway.terrain import Terrain
 
 G = 9.80665
@@ -40,23 +43,25 @@ def test_straight_plane_line_matches_incline_formula():
     # with the gravity-normal model a = g (drop - mu plan) / length per segment
     t = plane(sx=0.3)
     mover = Mover(mu=0.1, normal="gravity")
-    r = find_route_large(t, (10.5, 100.5), (190.5, 100.5), mover, coarse_factor=4, neighbours=8, refine=False)
+    r = find_route(t, (10.5, 100.5), (190.5, 100.5), mover, refine=False,
+                   search=SearchOptions(plan="corridor", coarse_factor=4, neighbours=8))
     L_plan = 180.0
     length = L_plan * math.hypot(1.0, 0.3)
     a = G * (0.3 * L_plan - 0.1 * L_plan) / length
     assert r.lattice.time_s == pytest.approx(math.sqrt(2 * length / a), rel=1e-9)
-    assert r.summary["scale"]["mode"] == "corridor"
+    assert r.summary.search_plan == "corridor"
 
 
 def test_corridor_equals_full_grid_when_wide_enough():
     t = hills()
     mover = Mover(mu=0.0)
     s, e = (20.0, 380.0), (380.0, 20.0)
-    full = lattice_line(t, s, e, mover, neighbours=16)
-    r = find_route_large(t, s, e, mover, coarse_factor=5, corridor_m=60.0, neighbours=16, refine=False)
+    full = lattice_line(t, s, e, mover, options=SearchOptions(neighbours=16))
+    r = find_route(t, s, e, mover, refine=False,
+                   search=SearchOptions(plan="corridor", coarse_factor=5, corridor_m=60.0, neighbours=16))
     assert r.lattice.time_s == pytest.approx(full.time_s, rel=1e-12)
-    assert r.summary["scale"]["window_cells"] <= t.z.size
-    steps = r.summary["corridor_steps"]
+    assert r.terrain.z.size <= t.z.size
+    steps = r.summary.corridor["steps"]
     assert len(steps) >= 2 and all(st["feasible"] for st in steps)
     # nested corridors: the exact search never gets slower with more room
     times = [st["time_s"] for st in steps]
@@ -75,10 +80,10 @@ def test_widening_finds_the_detour_round_a_thin_wall():
     t, keep = wall_case()
     mover = Mover(mu=0.0)
     s, e = (20.5, 99.5), (180.5, 99.5)
-    full = lattice_line(t, s, e, mover, neighbours=8, keepout=keep)
-    r = find_route_large(t, s, e, mover, keepout=keep, coarse_factor=4, corridor_m=8.0, max_widen=5,
-                         neighbours=8, refine=False)
-    steps = r.summary["corridor_steps"]
+    full = lattice_line(t, s, e, mover, keepout=keep, options=SearchOptions(neighbours=8))
+    r = find_route(t, s, e, mover, keepout=keep, refine=False,
+                   search=SearchOptions(plan="corridor", coarse_factor=4, corridor_m=8.0, max_widen=5, neighbours=8))
+    steps = r.summary.corridor["steps"]
     feas = [st["feasible"] for st in steps]
     # the wall reaches 40 cells either side of the straight line: 8, 16, 32 m corridors
     # are cut, 64 m is the first one with a passage
@@ -95,8 +100,8 @@ def test_widening_finds_the_detour_round_a_thin_wall():
 def test_too_narrow_widening_reports_no_line():
     t, keep = wall_case()
     with pytest.raises(NoFeasibleLine, match="corridors up to 16 m"):
-        find_route_large(t, (20.5, 99.5), (180.5, 99.5), Mover(mu=0.0), keepout=keep, coarse_factor=4,
-                         corridor_m=8.0, max_widen=1, neighbours=8, refine=False)
+        find_route(t, (20.5, 99.5), (180.5, 99.5), Mover(mu=0.0), keepout=keep, refine=False,
+                   search=SearchOptions(plan="corridor", coarse_factor=4, corridor_m=8.0, max_widen=1, neighbours=8))
 
 
 def test_file_source_reads_only_windows_and_matches_memory(tmp_path):
@@ -112,30 +117,30 @@ def test_file_source_reads_only_windows_and_matches_memory(tmp_path):
     t = Terrain.from_array(t.z, (2.0, 0, 0.0, 0, -2.0, 480.0), "EPSG:32633")
     mover = Mover(mu=0.0)
     s, e = (150.0, 330.0), (330.0, 150.0)
-    full = lattice_line(t, s, e, mover, neighbours=16)
-    kw = dict(neighbours=16, refine=False)
+    full = lattice_line(t, s, e, mover, options=SearchOptions(neighbours=16))
+    kw = dict(refine=False)
     # the exact search through a window of the file equals the search on the whole grid
-    ex = find_route_large(path, s, e, mover, exact=True, **kw)
+    ex = find_route(path, s, e, mover, search=SearchOptions(plan="full"), **kw)
     assert ex.lattice.time_s == pytest.approx(full.time_s, rel=1e-12)
     # so does the corridor answer when the corridor is wide enough (the coarse grid of
     # the file comes from GDAL's average resampling, not our block mean)
-    a = find_route_large(path, s, e, mover, coarse_factor=4, corridor_m=100.0, **kw)
+    a = find_route(path, s, e, mover, search=SearchOptions(plan="corridor", coarse_factor=4, corridor_m=100.0),
+                   **kw)
     assert a.lattice.time_s == pytest.approx(full.time_s, rel=1e-12)
     # the search area is the points' box plus half its side, not the whole DEM
-    left, bottom, right, top = a.summary["scale"]["area_bounds"]
-    assert (right - left) * (top - bottom) / 4.0 < 240 * 240
-    assert a.summary["scale"]["window_cells"] < 240 * 240
+    assert a.terrain.z.size < 240 * 240
 
 
 def test_exact_mode_equals_plain_search_and_memory_error():
     t = hills(n=120)
     mover = Mover(mu=0.0)
     s, e = (20.0, 220.0), (220.0, 20.0)
-    r = find_route_large(t, s, e, mover, exact=True, neighbours=16, refine=False)
-    assert r.summary["scale"]["mode"] == "exact"
+    r = find_route(t, s, e, mover, search=SearchOptions(plan="full", neighbours=16), refine=False)
+    assert r.summary.search_plan == "full"
     assert r.lattice.time_s == pytest.approx(lattice_line(t, s, e, mover).time_s, rel=1e-12)
     with pytest.raises(TerrainError, match="coarsen"):
-        find_route_large(t, s, e, mover, exact=True, memory_limit_bytes=1_000_000, refine=False)
+        find_route(t, s, e, mover, search=SearchOptions(plan="full"), memory_limit_bytes=1_000_000,
+                   refine=False)
 
 
 def test_memory_check_counts_only_the_corridor_cells():
@@ -143,17 +148,16 @@ def test_memory_check_counts_only_the_corridor_cells():
     # too small for the whole window still admits the corridor search
     t = hills()
     s, e = (20.0, 380.0), (380.0, 20.0)
-    kw = dict(coarse_factor=5, corridor_m=30.0, max_widen=0, neighbours=16, refine=False)
-    r = find_route_large(t, s, e, Mover(mu=0.0), **kw)
-    win = r.summary["scale"]["window_cells"]
-    cells = r.summary["corridor_steps"][0]["cells"]
+    kw = dict(search=SearchOptions(plan="corridor", coarse_factor=5, corridor_m=30.0, max_widen=0), refine=False)
+    r = find_route(t, s, e, Mover(mu=0.0), **kw)
+    win = r.terrain.z.size
+    cells = r.summary.corridor["steps"][0]["cells"]
     assert cells < 0.5 * win
     budget = (search_memory_bytes(win, active_cells=cells) + search_memory_bytes(win)) // 2
-    r2 = find_route_large(t, s, e, Mover(mu=0.0), memory_limit_bytes=budget, **kw)
+    r2 = find_route(t, s, e, Mover(mu=0.0), memory_limit_bytes=budget, **kw)
     assert r2.lattice.time_s == r.lattice.time_s
     with pytest.raises(TerrainError, match="the corridor search .* coarsen"):
-        find_route_large(t, s, e, Mover(mu=0.0), memory_limit_bytes=search_memory_bytes(win, active_cells=cells) // 2,
-                         **kw)
+        find_route(t, s, e, Mover(mu=0.0), memory_limit_bytes=search_memory_bytes(win, active_cells=cells) // 2, **kw)
 
 
 def test_block_mean_of_a_plane_is_the_plane_at_block_centres():
@@ -173,8 +177,8 @@ def test_reach_time_cutoff_is_exact_up_to_the_cutoff():
     mover = Mover(mu=0.0)
     start = (80.0, 240.0)
     t_max = 3.0
-    full = reach(t, start, mover, neighbours=16)
-    lim = reach_limited(t, start, mover, max_time_s=t_max, neighbours=16)
+    full = reach(t, start, mover, options=SearchOptions(neighbours=16))
+    lim = reach_limited(t, start, mover, max_time_s=t_max, search=SearchOptions(neighbours=16))
     # map the window back onto the full grid
     r0, c0 = (int(round(v)) for v in t.rowcol(*(lim.transform @ (0.5, 0.5))))
     h, w = lim.time_s.shape
@@ -195,7 +199,7 @@ def test_reach_time_cutoff_is_exact_up_to_the_cutoff():
 def test_reach_distance_cutoff_confines_to_the_disc():
     t = plane(n=100, sx=0.2)
     mover = Mover(mu=0.05, normal="gravity")
-    lim = reach_limited(t, (20.5, 50.5), mover, max_distance_m=30.0, neighbours=8)
+    lim = reach_limited(t, (20.5, 50.5), mover, max_distance_m=30.0, search=SearchOptions(neighbours=8))
     rr, cc = np.mgrid[0:lim.time_s.shape[0], 0:lim.time_s.shape[1]]
     a = lim.transform
     x, y = a.c + a.a * (cc + 0.5), a.f + a.e * (rr + 0.5)
@@ -212,7 +216,7 @@ def test_reach_distance_cutoff_confines_to_the_disc():
 
 def test_bad_arguments():
     t = plane(n=40)
-    with pytest.raises(ParameterError, match="max_time_s or max_distance_m"):
-        reach_limited(t, (5.5, 20.5), Mover())
+    with pytest.raises(ParameterError, match="max_time_s must be a positive"):
+        reach_limited(t, (5.5, 20.5), Mover(), max_time_s=-1.0)
     with pytest.raises(ParameterError, match="corridor_m"):
-        find_route_large(t, (5.5, 20.5), (35.5, 20.5), Mover(), coarse_factor=2, corridor_m=-1.0, refine=False)
+        SearchOptions(plan="corridor", coarse_factor=2, corridor_m=-1.0)

@@ -55,8 +55,8 @@ def test_full_file_resolves_relative_paths(tmp_path):
     assert sc.keepout == str(tmp_path / "no-go.geojson")
     assert sc.via == ((250.0, 120.0),)
     assert sc.mover.mu == 0.15 and sc.mover.normal == "gravity" and sc.mover.max_speed == 20.0
-    assert sc.limits.min_radius_m == 8.0 and sc.neighbours == 32 and sc.refine is False
-    assert sc.line == "raised" and sc.clearance == (0.0, 12.0) and sc.mu_range == (0.1, 0.2)
+    assert sc.limits.min_radius_m == 8.0 and sc.search.neighbours == 32 and sc.refine is False
+    assert sc.line.kind == "raised" and sc.line.clearance_m == (0.0, 12.0) and sc.mu_range == (0.1, 0.2)
 
 
 def test_round_trip_through_tomllib(tmp_path):
@@ -83,7 +83,7 @@ def test_infinite_grade_limits_are_left_out_of_the_written_file():
     ({"mover": {"normal": "both"}}, r"mover\.normal must be one of gravity, full"),
     ({"search": {"neighbours": 12}}, r"search\.neighbours must be one of 8, 16, 32"),
     ({"search": {"refine": "yes"}}, r"search\.refine must be true or false"),
-    ({"line": {"kind": "flying"}}, r"line\.kind must be 'ground' or 'raised'"),
+    ({"line": {"kind": "flying"}}, r"line\.kind must be one of ground, raised"),
     ({"line": {"clearance": [5.0, 1.0]}}, r"line\.clearance must be \[min, max\]"),
     ({"points": {"start": [1.0]}}, r"points\.start must be a pair"),
     ({"points": {"end": [1.0, math.nan]}}, r"points\.end must be finite"),

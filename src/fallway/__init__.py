@@ -15,39 +15,41 @@ Examples
 from .caution import CAUTION
 from .errors import (FallwayError, FallwayIOError, NoFeasibleLine, OutputExistsError,
                      ParameterError, RefinementWarning, ScenarioError, TerrainError)
+from .params import STANDARD_GRAVITY, Limits, LineSpec, Mover, SearchOptions
 from .terrain import Terrain, load_terrain
-from .physics import STANDARD_GRAVITY, Mover, Profile, SegmentResult, normal_gravity, segment, traverse
+from .physics import Profile, SegmentResult, normal_gravity, segment, traverse
 from .keepout import Keepout
-from .params import LineSpec, Limits, SearchOptions
-from .route import LatticeLine, ReachMap, Route, find_route, route_from_lattice
-from .lattice.search import reach
+from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
+from .refine import refine_line
+from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line
+from .vector import read_lines
+from .routing import compare, find_route, reach
 from .scenario import Scenario, load_scenario
-from .export import (OutputSet, write_profile_csv, write_route_geojson, write_route_gpkg,
+from .export import (OutputSet, write_profile_csv, write_reach_geotiff, write_route_geojson, write_route_gpkg,
                      write_summary_json)
-from .plot import plot_map, plot_profile, save_figure
+from .plot import comparison_figure, plot_map, plot_profile, save_figure
 from .report import write_report_html
-from .refine import RefineResult, refine_line
-from .compare import (Comparison, Envelope, LineResult, RobustRoute, drape, envelope, evaluate_line, read_lines,
-                      robust_route)
-from .compare import compare  # noqa: E402  (the function; the module stays importable as fallway.compare)
-from .lattice.robust import robust_lattice_line
-from .scale import find_route_large, reach_limited
+from .app import run_scenario
 from .batch import run_batch
 
-__version__ = "0.1.0"
+from importlib.metadata import version as _version
+
+__version__ = _version("fallway")
 
 __all__ = [
     "CAUTION", "FallwayError", "FallwayIOError", "NoFeasibleLine", "OutputExistsError", "ParameterError",
     "RefinementWarning", "ScenarioError", "TerrainError",
+    "STANDARD_GRAVITY", "Mover", "Limits", "LineSpec", "SearchOptions",
     "Terrain", "load_terrain",
-    "STANDARD_GRAVITY", "Mover", "Profile", "SegmentResult", "normal_gravity", "segment", "traverse",
-    "Keepout", "Limits", "LineSpec", "SearchOptions",
-    "LatticeLine", "ReachMap", "Route", "find_route", "route_from_lattice", "reach",
+    "Profile", "SegmentResult", "normal_gravity", "segment", "traverse",
+    "Keepout",
+    "LatticeLine", "ReachMap", "RefineCandidate", "RefineResult", "Route", "RouteSummary",
+    "refine_line",
+    "Comparison", "Envelope", "LineResult", "drape", "envelope", "evaluate_line", "read_lines",
+    "find_route", "reach", "compare",
     "Scenario", "load_scenario",
-    "OutputSet", "write_profile_csv", "write_route_geojson", "write_route_gpkg", "write_summary_json",
-    "plot_map", "plot_profile", "save_figure", "write_report_html",
-    "RefineResult", "refine_line",
-    "Comparison", "Envelope", "LineResult", "compare", "drape", "envelope", "evaluate_line", "read_lines",
-    "RobustRoute", "robust_route",
-    "robust_lattice_line", "find_route_large", "reach_limited", "run_batch",
+    "OutputSet", "write_profile_csv", "write_reach_geotiff", "write_route_geojson", "write_route_gpkg",
+    "write_summary_json",
+    "comparison_figure", "plot_map", "plot_profile", "save_figure", "write_report_html",
+    "run_scenario", "run_batch",
 ]

@@ -18,11 +18,11 @@ Batch file layout::
     name = "steep-start"
     points = { start = [512250.0, 5401300.0], end = [512800.0, 5400900.0] }
 
-    [options]                    # optional: how each run is searched
-    large = false                # true: fallway.scale.find_route_large (coarse-to-fine)
-    coarse_factor = 4            # the other keys go to find_route_large / find_route
+    [options]                    # optional: how each run is searched (fallway.SearchOptions)
+    plan = "auto"                # or "full", "corridor" (coarse-to-fine)
+    coarse_factor = 4
     corridor_m = 40.0
-    max_per_cell = 4
+    label_cap = 4
 
 Keys under ``[vary]`` are dotted paths into the scenario (``mover.mu``, ``points.end``,
 ``line.kind``, ``search.neighbours``...), each a list of values.  Product runs are named
@@ -51,8 +51,8 @@ __all__ = ["run_batch", "expand_batch", "BATCH_COLUMNS"]
 #: Fixed columns of batch.csv (the varied parameters come between name and these).
 BATCH_COLUMNS = ("travel_time_s", "lattice_time_s", "exit_speed_m_s", "status", "error")
 
-_OPTION_KEYS = ("large", "coarse_factor", "corridor_m", "exact", "max_widen", "widen_tol", "max_per_cell",
-                "energy_tol", "max_labels", "heuristic")
+_OPTION_KEYS = ("plan", "coarse_factor", "corridor_m", "max_widen", "widen_tol", "label_cap", "energy_tol",
+                "max_labels", "heuristic")
 
 
 def _flatten(d: dict) -> dict:
@@ -141,86 +141,24 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     return runs, options
 
 
-def _load_points(sc):
-    """Terrain around the scenario's points, and the points in its CRS (as the CLI does)."""
-    from .errors import ParameterError
-    from .points import WGS84, dem_crs, to_terrain_crs
-    from .terrain import load_terrain
-
-    if sc.dem is None or sc.start is None or sc.end is None:
-        raise ParameterError("a batch run needs dem, points.start and points.end")
-    src_crs = dem_crs(sc.dem)
-    pts = [sc.start] + list(sc.via) + [sc.end]
-    src = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
-    native = to_terrain_crs(pts, src, src_crs)
-    return src_crs, native, load_terrain, pts, src
-
-
 def run_one(spec: dict) -> dict:
-    """Run one batch entry (picklable in and out); never raises for a failed run."""
-    import math as _m
+    """Run one batch entry (picklable in and out); a failed run is a row with its error."""
+    import dataclasses
 
-    from . import export
+    from .app import run_scenario
     from .scenario import Scenario
 
     row = {"name": spec["name"], **{k: _cell(v) for k, v in spec["params"].items()}}
     try:
         sc = Scenario.from_dict(spec["scenario"], base_dir=spec.get("base_dir"))
         opts = dict(spec.get("options", {}))
-        large = bool(opts.pop("large", False))
-        src_crs, native, load_terrain, pts, src = _load_points(sc)
-        kw = dict(via=(), neighbours=sc.neighbours, limits=sc.limits, line=sc.line, refine=sc.refine,
-                  clearance=sc.clearance, start_height=sc.start_height, end_height=sc.end_height)
-        keep = None
-        if large and not src_crs.is_geographic:
-            from .keepout import Keepout
-            from .scale import find_route_large
-
-            if sc.keepout is not None:
-                keep = Keepout.from_file(sc.keepout).in_crs(src_crs)
-            via = tuple(native[1:-1])
-            terrain_crs = src_crs
-            r = find_route_large(sc.dem, native[0], native[-1], sc.mover, keepout=keep, **{**kw, "via": via}, **opts)
-            terrain = None
-        else:
-            from .points import to_terrain_crs
-            from .route import find_route
-
-            for k in ("coarse_factor", "corridor_m", "exact", "max_widen", "widen_tol"):
-                opts.pop(k, None)
-            bounds = None if src_crs.is_geographic else (min(p[0] for p in native), min(p[1] for p in native),
-                                                        max(p[0] for p in native), max(p[1] for p in native))
-            terrain = load_terrain(sc.dem, bounds=bounds)
-            tp = to_terrain_crs(pts, src, terrain.crs)
-            if sc.keepout is not None:
-                from .keepout import Keepout
-
-                keep = Keepout.from_file(sc.keepout).in_crs(terrain.crs)
-            terrain_crs = terrain.crs
-            r = find_route(terrain, tp[0], tp[-1], sc.mover, keepout=keep, **{**kw, "via": tuple(tp[1:-1])}, **opts)
-        out = Path(spec["out_dir"]) / spec["name"]
-        out.mkdir(parents=True, exist_ok=True)
-        if terrain is None:
-            from .terrain import load_terrain as _lt
-
-            xs, ys = r.line[:, 0], r.line[:, 1]
-            terrain = _lt(sc.dem, bounds=(float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())),
-                          margin_m=50.0)
-        summary = {k: v for k, v in r.summary.items() if k not in ("search_s", "scale_timings_s")}
-        import dataclasses
-
-        r = dataclasses.replace(r, summary=summary)
-        export.write_summary_json(r, out / "summary.json", extra={"scenario": sc.to_dict(), "batch_run": spec["name"]},
-                                  crs=terrain_crs)
-        export.write_route_geojson(r, out / "route.geojson", terrain_crs)
-        export.write_profile_csv(r, terrain, out / "profile.csv")
+        if opts:
+            sc = dataclasses.replace(sc, search=dataclasses.replace(sc.search, **opts))  # validated
+        r, _ = run_scenario(sc, Path(spec["out_dir"]) / spec["name"], overwrite=True, outputs="core")
         s = r.summary
-        row.update(travel_time_s=s.get("travel_time_s"), lattice_time_s=s.get("lattice_time_s"),
-                   exit_speed_m_s=s.get("exit_speed_m_s"), status="ok", error="")
-        for k in ("travel_time_s", "lattice_time_s", "exit_speed_m_s"):
-            if row[k] is not None and not _m.isfinite(row[k]):
-                row[k] = None
-    except Exception as err:  # noqa: BLE001 - a failed run is a row, never the end of the batch
+        row.update(travel_time_s=s.travel_time_s, lattice_time_s=s.lattice_time_s,
+                   exit_speed_m_s=s.exit_speed_m_s, status="ok", error="")
+    except Exception as err:  # noqa: BLE001 - a failed run is a row of batch.csv, never the end of the batch
         msg = " ".join(str(err).split()) or type(err).__name__
         row.update(travel_time_s=None, lattice_time_s=None, exit_speed_m_s=None, status="error",
                    error=f"{type(err).__name__}: {msg}")

@@ -419,9 +419,9 @@ def _example_route():
     from affine import Affine
 
     from ._segment import segment_law
-    from .physics import Mover, Profile
-    from .results import LatticeLine
-    from .route import Route
+    from .params import Limits, LineSpec, Mover, SearchOptions
+    from .physics import Profile
+    from .results import LatticeLine, Route, RouteSummary
     from .terrain import Terrain
 
     cell = 5.0
@@ -438,9 +438,19 @@ def _example_route():
                    np.array([tan30, tan30]), np.full(2, math.cos(math.radians(30.0))), None,
                    np.array([]), np.array([]))
     lattice = LatticeLine(np.array([[1, 0], [1, 7]]), line, prof, t)
-    summary = {"travel_time_s": t, "lattice_time_s": t, "length_m": 50.0, "plan_length_m": plan,
-               "drop_m": 25.0, "exit_speed_m_s": math.sqrt(v2)}
-    return Route(line, prof, lattice, summary, mover), terrain
+    v = math.sqrt(v2)
+    summary = RouteSummary(
+        line_kind="ground", feasible=True, travel_time_s=t, exit_speed_m_s=v, max_speed_m_s=v, length_m=50.0,
+        plan_length_m=plan, drop_m=25.0, min_radius_plan_m=math.inf, min_radius_3d_m=math.inf, max_grade=tan30,
+        violated_limits=[], start_xyz=line[0].tolist(), end_xyz=line[-1].tolist(), via_xy=[], lattice_time_s=t,
+        lattice_model_time_s=t, neighbours=16, search_plan="full", search_exact=True, label_cap=None,
+        labels_created=0, labels_settled=0, corridor=None, refined=False, refine_choice=None,
+        refine_converged=None, refine_iterations=None, refine_residual_s_per_m=None, refine_message=None,
+        refine_limits=None, refine_candidates=None, robust_method=None, robust_mu_range=None, robust_note=None,
+        robust_candidates=None, caution=CAUTION)
+    route = Route(line=line, profile=prof, lattice=lattice, summary=summary, mover=mover, limits=Limits(),
+                  line_spec=LineSpec(), search=SearchOptions(), refinement=None, terrain=terrain)
+    return route, terrain
 
 
 def profile_flags(profile, mover=None) -> list[str]:
@@ -570,7 +580,7 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
         geometry = {"type": "LineString", "coordinates": _geojson_coords(parts[0])}
     else:
         geometry = {"type": "MultiLineString", "coordinates": [_geojson_coords(p) for p in parts]}
-    props = to_jsonable(dict(route.summary))
+    props = to_jsonable(route.summary.to_dict())
     props.setdefault("height_reference", "heights as in the DEM (not converted to WGS 84 ellipsoidal heights)")
     all_coords = np.concatenate(parts)
     bbox = [round(float(all_coords[:, 0].min()), GEOJSON_LONLAT_DECIMALS),
@@ -678,7 +688,7 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     pts = _route_points(route)
     wkt = _pyproj_crs(crs).to_wkt()
     line_wkb = np.array([shapely.to_wkb(shapely.linestrings(pts), output_dimension=3)], dtype=object)
-    fields_line = flatten(to_jsonable(dict(route.summary)))
+    fields_line = flatten(to_jsonable(route.summary.to_dict()))
     fields_line.update({f"line_{k}": v for k, v in _line_numbers(pts, route.profile).items()})
     names1, arrays1 = _field_arrays(fields_line)
     lat_pts = np.asarray(route.lattice.points, dtype=float)
@@ -767,12 +777,12 @@ def write_summary_json(route, path: str | os.PathLike, extra: dict | None = None
                        crs=None) -> Path:
     """Write the route's numbers, its parameters and the caution as sorted, stable JSON.
 
-    Top-level keys: every entry of ``route.summary``; ``mover`` and ``limits``
-    (``dataclasses.asdict``); ``start`` and ``end`` ([x, y, z] of the first and last
-    vertex, map coordinates); ``crs`` (``"EPSG:n"`` or WKT, when given); ``caution``
-    (:data:`fallway.caution.CAUTION`); then ``extra`` (e.g. the scenario, search
-    statistics), which wins on equal keys.  ``inf`` and ``NaN`` are written as
-    ``null`` (a limit of ``null`` means no limit).  Same inputs, same bytes.
+    Keys in a fixed order: the fields of :class:`~fallway.results.RouteSummary` in
+    their order (the same whatever the options; ``null`` where absent); ``mover``,
+    ``limits``, ``line_spec`` and ``search`` (``dataclasses.asdict``); ``crs``
+    (``"EPSG:n"`` or WKT, when given); then ``extra`` (e.g. the scenario), which wins on
+    equal keys.  ``inf`` and ``NaN`` are written as ``null`` (a limit of ``null`` means
+    no limit).  Same inputs, same bytes.
 
     Parameters
     ----------
@@ -798,7 +808,7 @@ def write_summary_json(route, path: str | os.PathLike, extra: dict | None = None
     ('EPSG:32633', None, 0.2)
     """
     doc = summary_document(route, extra, crs=crs)
-    text = json.dumps(doc, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False)
+    text = json.dumps(doc, indent=2, allow_nan=False, ensure_ascii=False)
     path = Path(path)
     with atomic_write(path) as f:
         f.write(text + "\n")
@@ -807,15 +817,11 @@ def write_summary_json(route, path: str | os.PathLike, extra: dict | None = None
 
 def summary_document(route, extra: dict | None = None, *, crs=None) -> dict:
     """The JSON-ready dictionary :func:`write_summary_json` writes."""
-    pts = _route_points(route)
-    doc: dict[str, Any] = dict(to_jsonable(dict(route.summary)))
-    doc["mover"] = to_jsonable(dataclasses.asdict(route.mover))
-    doc["limits"] = to_jsonable(dataclasses.asdict(route.limits))
-    doc["start"] = to_jsonable(pts[0])
-    doc["end"] = to_jsonable(pts[-1])
+    doc: dict[str, Any] = dict(to_jsonable(route.summary.to_dict()))
+    for name in ("mover", "limits", "line_spec", "search"):
+        doc[name] = to_jsonable(dataclasses.asdict(getattr(route, name)))
     if crs is not None:
         doc["crs"] = crs_label(crs)
-    doc["caution"] = CAUTION
     if extra:
         doc.update(to_jsonable(dict(extra)))
     return doc

@@ -12,7 +12,7 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["drop_repeats", "resample_plan", "circumradii", "min_radius_m", "plan_length_m"]
+__all__ = ["drop_repeats", "resample_plan", "circumradii", "min_radius_m", "plan_length_m", "raised_heights_m"]
 
 #: Vertices closer than this (m) are the same point.
 SAME_POINT_M = 1e-6
@@ -148,3 +148,22 @@ def min_radius_m(points, *, dims: int = 2, spacing_m: float | None = None) -> fl
         p = resample_plan(p, spacing_m)
     r = circumradii(p, dims)
     return float(r.min()) if len(r) else math.inf
+
+
+def raised_heights_m(xy, start_height_m: float, end_height_m: float, clearance_m: tuple[float, float]) -> np.ndarray:
+    """Heights above the ground of a raised line: linear in plan distance, held in the band.
+
+    The start line of a raised line before the refinement frees its heights (and the line
+    reported when refinement is off).
+
+    Examples
+    --------
+    >>> raised_heights_m([(0, 0), (10, 0), (40, 0)], 8.0, 2.0, (2.0, 15.0)).tolist()
+    [8.0, 6.5, 2.0]
+    """
+    xy = np.asarray(xy, dtype=float)[:, :2]
+    seg = np.hypot(*np.diff(xy, axis=0).T)
+    frac = np.concatenate([[0.0], np.cumsum(seg)])
+    frac = frac / frac[-1] if frac[-1] > 0 else np.linspace(0.0, 1.0, len(frac))
+    h = float(start_height_m) + (float(end_height_m) - float(start_height_m)) * frac
+    return np.clip(h, float(clearance_m[0]), float(clearance_m[1]))

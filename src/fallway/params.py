@@ -201,9 +201,10 @@ class LineSpec:
         height free within the clearance band.
     clearance_m : (float, float)
         ``(min, max)`` height of a raised line above the ground, metres, ``0 <= min <= max``.
-    start_height_m, end_height_m : float
-        Height of a raised line above the ground at its two ends, metres (within the
-        band; 0 means "at the band's nearest edge" is not assumed: give it explicitly).
+    start_height_m, end_height_m : float or None
+        Height of a raised line above the ground at its two ends, metres, within the
+        band.  None (default): the band's lower edge for a raised line, 0 for a ground
+        line; after construction both are numbers.
 
     Examples
     --------
@@ -219,8 +220,8 @@ class LineSpec:
 
     kind: str = "ground"
     clearance_m: tuple[float, float] = (0.0, 0.0)
-    start_height_m: float = 0.0
-    end_height_m: float = 0.0
+    start_height_m: float | None = None
+    end_height_m: float | None = None
 
     def __post_init__(self) -> None:
         if self.kind not in LINE_KINDS:
@@ -233,6 +234,8 @@ class LineSpec:
             raise ParameterError(f"clearance_m must be (min, max) with 0 <= min <= max, got ({lo:g}, {hi:g})")
         object.__setattr__(self, "clearance_m", (lo, hi))
         for name in ("start_height_m", "end_height_m"):
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, lo if self.kind == "raised" else 0.0)
             check_number(name, getattr(self, name))
             h = float(getattr(self, name))
             object.__setattr__(self, name, h)

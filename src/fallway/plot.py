@@ -16,7 +16,7 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["plot_map", "plot_profile", "save_figure", "nice_step"]
+__all__ = ["plot_map", "plot_profile", "comparison_figure", "save_figure", "nice_step"]
 
 _LINE_COLOUR = "#c0392b"
 _LATTICE_COLOUR = "#1f4e79"
@@ -220,9 +220,9 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
     if route is not None:
         lat = np.asarray(route.lattice.points, dtype=float)
         ax.plot(lat[:, 0], lat[:, 1], color=_LATTICE_COLOUR, linestyle="--", linewidth=1.3, zorder=5,
-                label=f"lattice line ({route.summary.get('lattice_time_s') or route.lattice.time_s:.1f} s)", gid="fallway-lattice")
+                label=f"lattice line ({route.summary.lattice_time_s or route.lattice.time_s:.1f} s)", gid="fallway-lattice")
         line = np.asarray(route.line, dtype=float)
-        tt = route.summary.get("travel_time_s")
+        tt = route.summary.travel_time_s
         lbl = f"line ({float(tt):.1f} s)" if isinstance(tt, (int, float)) and math.isfinite(float(tt)) else "line"
         ax.plot(line[:, 0], line[:, 1], color=_LINE_COLOUR, linewidth=2.2, zorder=6, label=lbl,
                 gid="fallway-line")
@@ -400,3 +400,79 @@ def save_figure(fig, path: str | os.PathLike, *, formats=("png", "svg"), dpi: in
             fig.savefig(tmp, format=fmt, dpi=dpi, metadata=meta)
         out.append(target)
     return out
+
+
+def comparison_figure(terrain, comparison, *, keepout=None, figsize=(14.0, 6.0)):
+    """One page: the lines on the hillshade (left) and their long-sections (right).
+
+    Parameters
+    ----------
+    terrain : Terrain
+    comparison : Comparison
+    keepout : optional
+        No-go areas drawn on the map (as :func:`fallway.plot.plot_map` takes them).
+    figsize : (float, float)
+        Inches.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Made without pyplot (rendered by Agg); each line's artists carry the gid
+        ``"fallway-compare-<rank>"`` (rank from 1, map and long-section alike).  The
+        long-section shows the line heights (solid, left axis) and speeds (dotted, right
+        axis) against station; a stall is marked with a cross.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.physics import Mover
+    >>> from fallway.terrain import Terrain
+    >>> t = Terrain.from_array(np.tile(-0.5 * np.arange(30.0), (10, 1)), (2.0, 0, 0, 0, -2.0, 20.0))
+    >>> from fallway.routing import compare
+    >>> cmp = compare(t, [("a", [(1.0, 10.0), (57.0, 10.0)])], Mover(mu=0.1), optimum=False)
+    >>> fig = comparison_figure(t, cmp)
+    >>> sorted({ln.get_gid() for ax in fig.axes for ln in ax.lines if ln.get_gid()})
+    ['fallway-compare-1']
+    """
+    import matplotlib
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=figsize, layout="constrained")
+    ax_map, ax_z = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.0, 1.3]})
+    plot_map(terrain, keepout=keepout, ax=ax_map)
+    ax_v = ax_z.twinx()
+    colours = matplotlib.colormaps["tab10"]
+    for rank, r in enumerate(comparison.rows, start=1):
+        if r.points is None or r.profile is None:
+            continue
+        c = colours((rank - 1) % 10)
+        gid = f"fallway-compare-{rank}"
+        if r.travel_time_s is not None:
+            label = f"{rank}. {r.name} ({r.travel_time_s:.1f} s, {r.status})"
+        else:
+            label = f"{rank}. {r.name} (stalls at {r.stalled_at_m:.0f} m)"
+        lw = 2.6 if r.computed else 1.8
+        pts = r.points
+        st_m = np.asarray(r.profile.station_m, dtype=float)
+        ax_map.plot(pts[:, 0], pts[:, 1], color=c, linewidth=lw, zorder=6, label=label, gid=gid)
+        ax_z.plot(st_m, pts[:, 2], color=c, linewidth=lw, label=label, gid=gid)
+        ax_v.plot(st_m, r.profile.speed_m_s, color=c, linewidth=1.0, linestyle=":", gid=gid)
+        if r.stalled_at_m is not None:
+            zs = float(np.interp(r.stalled_at_m, st_m, pts[:, 2]))
+            ax_z.plot([r.stalled_at_m], [zs], marker="x", color=c, markersize=9, linestyle="none", gid=gid)
+    first = next((r for r in comparison.rows if r.points is not None), None)
+    if first is not None:
+        ax_map.plot([first.points[0, 0]], [first.points[0, 1]], marker="^", color="white", markeredgecolor="black",
+                    markersize=10, linestyle="none", zorder=7, label="start")
+    ax_map.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    ax_z.set_xlabel("station along the line (m)")
+    ax_z.set_ylabel("height (m), solid")
+    ax_v.set_ylabel("speed (m/s), dotted")
+    ax_z.grid(True, linewidth=0.4, alpha=0.5)
+    title = "Candidate lines"
+    if comparison.mu_range is not None:
+        title += f" (friction {comparison.mover.mu:g}, range {comparison.mu_range[0]:g} to {comparison.mu_range[1]:g})"
+    else:
+        title += f" (friction {comparison.mover.mu:g})"
+    fig.suptitle(title, fontsize=11)
+    return fig

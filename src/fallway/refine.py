@@ -1428,7 +1428,10 @@ def _refine_once(terrain, points, mover: Mover, *, limits: Limits | None = None,
 
 
 
-def refine_line(terrain, points, mover: Mover, **kw) -> RefineResult:
+def refine_line(terrain, points, mover: Mover, *, line=None, **kw) -> RefineResult:
+    if line is not None and not isinstance(line, str):
+        kw.update(line=line.kind, clearance=line.clearance_m, start_height=line.start_height_m,
+                  end_height=line.end_height_m)
     res = _refine_once(terrain, points, mover, **kw)
     if mover.normal != "full" or res.time_after_s < res.time_before_s:
         return res

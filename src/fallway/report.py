@@ -29,7 +29,7 @@ _MAIN_ROWS = (
     ("drop_m", "Drop", "m", 1),
     ("exit_speed_m_s", "Speed at the end", "m/s", 2),
     ("max_speed_m_s", "Highest speed", "m/s", 2),
-    ("min_radius_m", "Tightest bend radius in plan", "m", 1),
+    ("min_radius_plan_m", "Tightest bend radius in plan", "m", 1),
     ("min_radius_3d_m", "Tightest bend radius along the line (3D)", "m", 1),
     ("max_grade", "Steepest descent grade", "", 3),
 )
@@ -164,7 +164,7 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     """
     from .export import profile_flags
 
-    summary = dict(route.summary)
+    summary = route.summary.to_dict()
     if map_png is None or profile_png is None:
         from .plot import plot_map, plot_profile
 
@@ -197,7 +197,7 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     n_lift = sum("liftoff" in f for f in flags)
     if n_lift:
         notes.append(f"{n_lift} places where an open chute would need the load held down (lift-off on a crest).")
-    for k in ("refinement_converged", "converged"):
+    for k in ("refine_converged",):
         if summary.get(k) is False:
             notes.append("The refinement stopped before it converged; the best line found is shown.")
             break
@@ -358,7 +358,7 @@ def comparison_html(comparison, *, comparison_png=None, parameters: dict | None 
 
     Examples
     --------
-    >>> from fallway.compare import Comparison, evaluate_line
+    >>> from fallway.evaluate import Comparison, evaluate_line
     >>> from fallway.physics import Mover
     >>> m = Mover(normal="gravity")
     >>> rows = [evaluate_line(None, [(0, 0, 10.0), (40.0, 0, 0.0)], m, name="steep")]

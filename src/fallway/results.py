@@ -175,6 +175,9 @@ class RouteSummary:
         Smallest bend radius in plan and along the line in space (inf when straight).
     max_grade : float or None
         Steepest descent grade of a segment (drop / plan; 0.3 = 30 %).
+    violated_limits : list of str
+        The limits the reported line breaks (``"stalls"``, ``"keepout"``, ``"overspeed"``,
+        ``"grade"``, ``"radius"``, and the refinement's own checks); empty when it meets all.
     start_xyz, end_xyz : list of float
         The line's first and last vertex (x, y, z) in the terrain's CRS.
     via_xy : list of list of float
@@ -213,6 +216,9 @@ class RouteSummary:
         Every candidate line: name, time, limit status, failure.
     robust_method, robust_mu_range, robust_note
         The robust plan: how robustness was established, the friction range, notes.
+    robust_candidates : list of dict or None
+        Every line the robust plan tried: label, friction and speed cap of its search,
+        verdict across the range, nominal travel time.
     caution : str
         The safety note every output carries.
     """
@@ -228,6 +234,7 @@ class RouteSummary:
     min_radius_plan_m: float
     min_radius_3d_m: float
     max_grade: float | None
+    violated_limits: list
     start_xyz: list
     end_xyz: list
     via_xy: list
@@ -251,6 +258,7 @@ class RouteSummary:
     robust_method: str | None
     robust_mu_range: list | None
     robust_note: str | None
+    robust_candidates: list | None
     caution: str
 
     def to_dict(self) -> dict[str, Any]:

@@ -29,12 +29,15 @@ Layout (every section and key optional; unknown keys are rejected)::
     max_step_turn_deg = 45.0
     min_radius_m = 10.0
 
-    [search]
+    [search]                         # fallway.SearchOptions
     neighbours = 16
     refine = true
     label_cap = 4                    # optional: approximate search, at most 4 labels per cell
+    plan = "auto"                    # or "full", "corridor" (coarse-to-fine)
+    coarse_factor = 4                # corridor plan: coarsening factor
+    corridor_m = 40.0                # corridor plan: first corridor half-width, m
 
-    [line]
+    [line]                           # fallway.LineSpec
     kind = "ground"                  # or "raised"
     clearance = [0.5, 15.0]
     start_height = 0.0
@@ -53,13 +56,9 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FallwayError, ParameterError, ScenarioError
-from .params import Limits
-from .physics import Mover
+from .params import Limits, LineSpec, Mover, SearchOptions
 
-__all__ = ["Scenario", "load_scenario", "LINE_KINDS", "NEIGHBOURHOODS"]
-
-LINE_KINDS = ("ground", "raised")
-NEIGHBOURHOODS = (8, 16, 32)
+__all__ = ["Scenario", "load_scenario"]
 
 _SCHEMA: dict[str, Any] = {
     "dem": str,
@@ -67,7 +66,8 @@ _SCHEMA: dict[str, Any] = {
     "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
     "mover": {f.name: f.name for f in fields(Mover)},
     "limits": {f.name: f.name for f in fields(Limits)},
-    "search": {"neighbours": int, "refine": bool, "label_cap": int},
+    "search": {"neighbours": int, "refine": bool, "label_cap": int, "plan": str, "coarse_factor": int,
+               "corridor_m": float},
     "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
     "envelope": {"mu_range": "pair"},
 }
@@ -105,7 +105,7 @@ class Scenario:
     --------
     >>> s = Scenario.from_dict({"points": {"start": [0, 10], "end": [50, 0]},
     ...                         "mover": {"mu": 0.1}})
-    >>> s.mover.mu, s.neighbours, s.line
+    >>> s.mover.mu, s.search.neighbours, s.line.kind
     (0.1, 16, 'ground')
     >>> Scenario.from_dict({"mover": {"mass": 3}})
     Traceback (most recent call last):
@@ -121,33 +121,12 @@ class Scenario:
     lonlat: bool = False
     mover: Mover = field(default_factory=Mover)
     limits: Limits = field(default_factory=Limits)
-    neighbours: int = 16
+    line: LineSpec = field(default_factory=LineSpec)
+    search: SearchOptions = field(default_factory=SearchOptions)
     refine: bool = True
-    label_cap: int | None = None
-    line: str = "ground"
-    clearance: tuple[float, float] = (0.0, 0.0)
-    start_height: float = 0.0
-    end_height: float = 0.0
     mu_range: tuple[float, float] | None = None
 
     def __post_init__(self) -> None:
-        if self.neighbours not in NEIGHBOURHOODS:
-            raise ScenarioError(f"search.neighbours must be one of 8, 16, 32; got {self.neighbours!r}")
-        if self.label_cap is not None and self.label_cap < 1:
-            raise ScenarioError(f"search.label_cap must be a whole number >= 1; got {self.label_cap!r}")
-        if self.line not in LINE_KINDS:
-            raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {self.line!r}")
-        lo, hi = self.clearance
-        if lo < 0 or hi < lo:
-            raise ScenarioError(f"line.clearance must be [min, max] with 0 <= min <= max; got [{lo:g}, {hi:g}]")
-        for name in ("start_height", "end_height"):
-            if getattr(self, name) < 0:
-                raise ScenarioError(f"line.{name} must be >= 0 m above ground; got {getattr(self, name):g}")
-        if self.line == "raised":
-            for name in ("start_height", "end_height"):
-                h = getattr(self, name)
-                if not (lo <= h <= hi) and h != 0.0:
-                    raise ScenarioError(f"line.{name} ({h:g} m) must lie in the clearance band [{lo:g}, {hi:g}] m")
         if self.mu_range is not None:
             a, b = self.mu_range
             if not (0 <= a <= b):
@@ -181,27 +160,38 @@ class Scenario:
             kw["lonlat"] = _bool("points.lonlat", pts["lonlat"])
         kw["mover"] = _build(Mover, "mover", data.get("mover", {}))
         kw["limits"] = _build(Limits, "limits", data.get("limits", {}))
-        search = data.get("search", {})
-        if "neighbours" in search:
-            n = search["neighbours"]
-            if isinstance(n, bool) or not isinstance(n, int):
-                raise ScenarioError(f"search.neighbours must be one of 8, 16, 32; got {n!r}")
-            kw["neighbours"] = n
+        search = dict(data.get("search", {}))
         if "refine" in search:
-            kw["refine"] = _bool("search.refine", search["refine"])
-        if "label_cap" in search:
-            n = search["label_cap"]
-            if isinstance(n, bool) or not isinstance(n, int):
-                raise ScenarioError(f"search.label_cap must be a whole number >= 1; got {n!r}")
-            kw["label_cap"] = n
+            kw["refine"] = _bool("search.refine", search.pop("refine"))
+        for key in ("neighbours", "label_cap", "coarse_factor"):
+            if key in search and (isinstance(search[key], bool) or not isinstance(search[key], int)):
+                raise ScenarioError(f"search.{key} must be a whole number; got {search[key]!r}")
+        if "plan" in search and not isinstance(search["plan"], str):
+            raise ScenarioError(f"search.plan must be a string; got {search['plan']!r}")
+        if "corridor_m" in search:
+            search["corridor_m"] = _number("search.corridor_m", search["corridor_m"])
+        try:
+            kw["search"] = SearchOptions(**search)
+        except ParameterError as err:
+            raise ScenarioError(f"search.{err}") from err
         line = data.get("line", {})
+        lk: dict[str, Any] = {}
         if "kind" in line:
-            kw["line"] = line["kind"]
+            if not isinstance(line["kind"], str):
+                raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {line['kind']!r}")
+            lk["kind"] = line["kind"]
         if "clearance" in line:
-            kw["clearance"] = tuple(_number("line.clearance", v) for v in _pair("line.clearance", line["clearance"]))
+            lo, hi = (_number("line.clearance", v) for v in _pair("line.clearance", line["clearance"]))
+            if lo < 0 or hi < lo:
+                raise ScenarioError(f"line.clearance must be [min, max] with 0 <= min <= max; got [{lo:g}, {hi:g}]")
+            lk["clearance_m"] = (lo, hi)
         for name in ("start_height", "end_height"):
             if name in line:
-                kw[name] = _number(f"line.{name}", line[name])
+                lk[f"{name}_m"] = _number(f"line.{name}", line[name])
+        try:
+            kw["line"] = LineSpec(**lk)
+        except ParameterError as err:
+            raise ScenarioError(f"line.{str(err).replace('_m ', ' ').replace('line kind', 'kind')}") from err
         env = data.get("envelope", {})
         if "mu_range" in env:
             kw["mu_range"] = tuple(_number("envelope.mu_range", v) for v in _pair("envelope.mu_range", env["mu_range"]))
@@ -225,11 +215,13 @@ class Scenario:
         d["mover"] = {k: v for k, v in asdict(self.mover).items() if v is not None}
         d["limits"] = {k: v for k, v in asdict(self.limits).items()
                        if v is not None and not (isinstance(v, float) and math.isinf(v))}
-        d["search"] = {"neighbours": self.neighbours, "refine": self.refine}
-        if self.label_cap is not None:
-            d["search"]["label_cap"] = self.label_cap
-        d["line"] = {"kind": self.line, "clearance": list(self.clearance),
-                     "start_height": self.start_height, "end_height": self.end_height}
+        sd = {"neighbours": self.search.neighbours, "refine": self.refine, "plan": self.search.plan}
+        for key in ("label_cap", "coarse_factor", "corridor_m"):
+            if getattr(self.search, key) is not None:
+                sd[key] = getattr(self.search, key)
+        d["search"] = sd
+        d["line"] = {"kind": self.line.kind, "clearance": list(self.line.clearance_m),
+                     "start_height": self.line.start_height_m, "end_height": self.line.end_height_m}
         if self.mu_range is not None:
             d["envelope"] = {"mu_range": list(self.mu_range)}
         return d

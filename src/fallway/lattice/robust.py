@@ -442,7 +442,16 @@ def _check_end_window(mover: Mover, lo: float, hi: float, v2_start: float, drop_
                              "or move the end points", reason="limits")
 
 
-def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *,
+def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *, limits=None, keepout=None,
+                        allowed=None, options=None, resolution: float = 0.0):
+    from ..params import SearchOptions
+    o = SearchOptions() if options is None else options
+    return _robust_old(terrain, start, end, mover, mu_lo, mu_hi, neighbours=o.neighbours, limits=limits,
+                       keepout=keepout, max_labels=o.max_labels, energy_tol=o.energy_tol, max_per_cell=o.label_cap,
+                       heuristic=o.heuristic, resolution=resolution)
+
+
+def _robust_old(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *,
                         neighbours: int = 16, limits: Limits | None = None, keepout=None,
                         max_labels: int | None = None, energy_tol: float | None = None,
                         max_per_cell: int | None = None, heuristic: bool = True,
@@ -578,7 +587,7 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
              "mu_lo": lo, "mu_nominal": float(mover.mu), "mu_hi": hi}
     if status == LABEL_BUDGET:
         raise NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end; raise max_labels "
-                             "or coarsen the grid", reason="unreachable", closest=_cell_xy(terrain, int(closest)))
+                             "or coarsen the grid", reason="label_budget", closest=_cell_xy(terrain, int(closest)))
     if status != OK:
         where = _cell_xy(terrain, int(closest))
         txt = f"closest reached cell ({where[0]:.1f}, {where[1]:.1f})"

@@ -319,7 +319,18 @@ def _line_points(terrain, stencil, nodes: list[int]) -> tuple[np.ndarray, np.nda
     return cells, np.column_stack([x, y, rc[:, 2]])
 
 
-def lattice_line(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
+def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
+                 allowed=None, options=None):
+    from ..params import SearchOptions
+    o = SearchOptions() if options is None else options
+    if allowed is not None:
+        keepout = _keepout_mask(terrain, keepout) | ~np.asarray(allowed, bool)
+    return _lattice_line_old(terrain, start, end, mover, via=via, neighbours=o.neighbours, limits=limits,
+                             keepout=keepout, heuristic=o.heuristic, energy_tol=o.energy_tol, max_labels=o.max_labels,
+                             max_per_cell=o.label_cap)
+
+
+def _lattice_line_old(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
                  keepout=None, heuristic: bool = True, energy_tol: float | None = None,
                  max_labels: int | None = None, max_per_cell: int | None = None):
     """The exact minimum-time line on the terrain lattice.
@@ -424,7 +435,7 @@ def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits,
     res = prob.run(s, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
     if res["status"] == _k.LABEL_BUDGET:
         raise NoFeasibleLine(f"label budget of {max_labels} exhausted before reaching the end; raise max_labels "
-                             "or coarsen the grid", reason="unreachable", closest=_cell_xy(terrain, res["closest"]))
+                             "or coarsen the grid", reason="label_budget", closest=_cell_xy(terrain, res["closest"]))
     if res["status"] != _k.OK:
         raise _diagnose(terrain, mover, neighbours, limits, keep, s, targets, res, heuristic, energy_tol, max_labels,
                         max_per_cell)
@@ -449,7 +460,17 @@ def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits,
     return LatticeLine(cells=cells, points=points, profile=profile, time_s=t_final, stats=stats)
 
 
-def reach(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits | None = None, keepout=None,
+def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout=None, allowed=None, options=None,
+          max_time_s: float | None = None):
+    from ..params import SearchOptions
+    o = SearchOptions() if options is None else options
+    if allowed is not None:
+        keepout = _keepout_mask(terrain, keepout) | ~np.asarray(allowed, bool)
+    return _reach_old(terrain, start, mover, neighbours=o.neighbours, limits=limits, keepout=keepout,
+                      energy_tol=o.energy_tol, max_labels=o.max_labels, max_per_cell=o.label_cap, max_time_s=max_time_s)
+
+
+def _reach_old(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits | None = None, keepout=None,
           energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None,
           max_time_s: float | None = None):
     """Earliest arrival time and its speed at every cell reachable from ``start``.

@@ -1,4 +1,4 @@
-"""Tests of fallway.compare: reading candidate lines, draping, timing, ranking, envelope.
+"""Evaluating and comparing lines: reading candidate lines, draping, timing, ranking, envelope, robust plan.
 
 References (outside the project) are named beside each check:
 - incline with Coulomb friction, any mechanics text: a = g (sin t - mu cos t),
@@ -23,11 +23,35 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from rasterio.crs import CRS
 
-from fallway.compare import (COMPARISON_COLUMNS, ENVELOPE_COLUMNS, compare, drape, envelope,
-                             evaluate_line, min_bend_radius_m, read_lines, robust_route)
 from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
+from fallway.evaluate import COMPARISON_COLUMNS, ENVELOPE_COLUMNS, drape, envelope, evaluate_line
+from fallway.geometry import min_radius_m
+from fallway.params import SearchOptions
 from fallway.physics import Mover
+from fallway.routing import compare, find_route
 from fallway.terrain import Terrain
+from fallway.vector import read_lines
+
+
+def min_bend_radius_m(xy, spacing_m=None):
+    return min_radius_m(xy, dims=2, spacing_m=spacing_m)
+
+
+def robust(t, s0, e0, mover, lo, hi, **kw):
+    """The robust plan of find_route (raises NoFeasibleLine when no line works)."""
+    return find_route(t, s0, e0, mover, mu_range=(lo, hi), robust=True, **kw)
+
+
+def by_candidates(t, s0, e0, mover, lo, hi, *, refine=False):
+    """The single-friction candidate searches on their own (the robust plan's fallback)."""
+    from fallway.params import Limits, LineSpec
+    from fallway.routing import _candidate_searches, _Job
+    from fallway.scale import terrain_source
+
+    job = _Job(mover=mover, limits=Limits(), line=LineSpec(), search=SearchOptions(), refine=refine, via=())
+    tried = []
+    best = _candidate_searches(terrain_source(t), [tuple(s0), tuple(e0)], job, (lo, hi), None, tried)
+    return best, tried
 
 G0 = 9.80665  # standard gravity (3rd CGPM, 1901)
 UTM33 = CRS.from_epsg(32633)
@@ -510,12 +534,11 @@ def test_robust_route_returns_a_line_that_passes_the_envelope():
     t = plane_terrain(0.0, 0.4, rows=30, cols=30)
     s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
     mover = Mover(mu=0.1, normal="gravity")
-    rr = robust_route(t, s0, e0, mover, 0.05, 0.2, refine=False, method="candidates")
-    assert rr.nominal_is_robust and rr.envelope.robust
-    assert rr.candidates[0]["label"] == "nominal"
+    best, tried = by_candidates(t, s0, e0, mover, 0.05, 0.2)
+    assert [c["label"] for c in tried] == ["nominal"] and best.envelope.robust
     # the same line checked again, independently of the search, at both ends of the range
     for mu in (0.05, 0.2):
-        again = evaluate_line(t, np.asarray(rr.route.line), Mover(mu=mu, normal="gravity"))
+        again = evaluate_line(t, np.asarray(best.line), Mover(mu=mu, normal="gravity"))
         assert again.status == "ok"
 
 
@@ -533,21 +556,20 @@ def test_robust_route_replaces_a_nominal_optimum_that_stalls_at_high_friction():
         plan = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(line[:, :2], axis=0).T))])
         return 2 * G0 * ((line[0, 2] - line[:, 2]) - mu * plan)
 
-    rr = robust_route(t, s0, e0, mover, 0.0, 0.075, refine=False, method="candidates")
-    nominal = rr.candidates[0]
-    assert not rr.nominal_is_robust and nominal["verdict"] == "stalls at high friction"
-    assert rr.envelope.robust and rr.envelope.high.status == "ok"
-    assert np.all(v2_along(rr.route.line, 0.075)[1:] > 0.0)
+    best, tried = by_candidates(t, s0, e0, mover, 0.0, 0.075)
+    nominal = tried[0]
+    assert nominal["label"] == "nominal" and nominal["verdict"] == "stalls at high friction"
+    assert best.envelope.robust and best.envelope.high.status == "ok"
+    assert np.all(v2_along(best.line, 0.075)[1:] > 0.0)
     # never faster at nominal friction than the unconstrained nominal optimum
-    assert rr.envelope.nominal.travel_time_s >= nominal["travel_time_s"]
-    from fallway.route import find_route
+    assert best.envelope.nominal.travel_time_s >= nominal["travel_time_s"]
 
     first = find_route(t, s0, e0, mover, refine=False)
     assert np.min(v2_along(first.line, 0.075)[1:]) < 0.0  # the nominal optimum does stall at HI
 
 
 def test_comparison_figure_draws_every_line(tmp_path):
-    from fallway.compare import comparison_figure
+    from fallway.plot import comparison_figure
 
     t = site_terrain()
     cmp = compare(t, SITE_LINES, Mover(mu=0.2, drag=0.004, v0=1.0, normal="gravity"), optimum=False)
@@ -628,25 +650,21 @@ def test_robust_route_against_a_speed_limit_tightens_its_searches():
     mover = Mover(mu=0.3, max_speed=30.0, normal="gravity")
     plan = 37 * 5.0
     assert math.sqrt(2 * G0 * (0.5 * plan - 0.2 * plan)) > 30.0 > math.sqrt(2 * G0 * (0.5 * plan - 0.3 * plan))
-    rr = robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, strict=False, method="candidates")
-    labels = [c["label"] for c in rr.candidates]
-    assert labels[0] == "nominal" and "too fast at low friction" in rr.candidates[0]["verdict"]
+    best, tried = by_candidates(t, s0, e0, mover, 0.2, 0.33)
+    labels = [c["label"] for c in tried]
+    assert labels[0] == "nominal" and "too fast at low friction" in tried[0]["verdict"]
     assert labels[1] == "high friction" and labels[-1] == "low friction"
-    caps = [c["max_speed"] for c in rr.candidates[1:-1]]
+    caps = [c["max_speed"] for c in tried[1:-1]]
     assert caps[0] == 30.0 and all(b < a for a, b in zip(caps, caps[1:]))  # each round tighter
     # the search at LO with the limit keeps every vertex under it (work-energy, no drag)
-    low = rr.candidates[-1]["envelope"]
+    low = tried[-1]["envelope"]
     assert low is not None and low.low.overspeed_m is None
     line = low.low.points
     plan_cum = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(line[:, :2], axis=0).T))])
     v2 = 2 * G0 * ((line[0, 2] - line[:, 2]) - 0.2 * plan_cum)
     assert np.max(v2) <= 30.0 ** 2 * (1 + 1e-9)
-    if rr.found:
-        assert rr.envelope.robust
-    else:
-        assert rr.route is not None and not rr.envelope.robust
-        with pytest.raises(NoFeasibleLine, match="no line found that works"):
-            robust_route(t, s0, e0, mover, 0.2, 0.33, refine=False, method="candidates")
+    if best is not None:
+        assert best.envelope.robust
 
 
 def test_read_geojson_with_legacy_crs_member(tmp_path):
@@ -671,16 +689,15 @@ def test_exact_robust_route_is_robust_and_no_slower_than_the_candidates():
               Mover(mu=0.3, max_speed=30.0, normal="gravity"), 0.2, 0.33)]
     for t, a, b, mover, lo, hi in cases:
         s0, e0 = t.cell_center(*a), t.cell_center(*b)
-        ex = robust_route(t, s0, e0, mover, lo, hi, refine=False, strict=False)
-        cand = robust_route(t, s0, e0, mover, lo, hi, refine=False, strict=False, method="candidates")
-        assert ex.method in ("exact", "approximate") and ex.found
-        assert ex.envelope.robust
-        assert ex.route.summary["robust_method"] == ex.method
+        ex = robust(t, s0, e0, mover, lo, hi, refine=False)
+        cand, _ = by_candidates(t, s0, e0, mover, lo, hi)
+        assert ex.summary.robust_method in ("exact", "approximate") and ex.summary.search_plan == "robust"
+        assert ex.envelope.robust and ex.summary.feasible
         for mu in (lo, hi):  # independently re-timed at both ends of the range
-            again = evaluate_line(t, np.asarray(ex.route.line), Mover(mu=mu, max_speed=mover.max_speed,
-                                                                       normal="gravity"))
+            again = evaluate_line(t, np.asarray(ex.line), Mover(mu=mu, max_speed=mover.max_speed,
+                                                                 normal="gravity"))
             assert again.status == "ok"
-        if cand.found:
+        if cand is not None:
             assert ex.envelope.nominal.travel_time_s <= cand.envelope.nominal.travel_time_s * (1 + 1e-9)
 
 
@@ -697,13 +714,10 @@ def test_exact_robust_route_proves_an_empty_end_window():
     assert p_lo > p_hi
     mover = Mover(mu=0.3, max_speed=20.0, normal="gravity")
     with pytest.raises(NoFeasibleLine, match=f"at least {p_lo:.0f} m .* shorter than {p_hi:.0f} m"):
-        robust_route(t, s0, e0, mover, 0.1, 0.45, refine=False)
-    rr = robust_route(t, s0, e0, mover, 0.1, 0.45, refine=False, strict=False)
-    assert not rr.found and rr.route is None and "plan length" in rr.note
+        robust(t, s0, e0, mover, 0.1, 0.45, refine=False)
     # with via points the robust lattice search does not apply: the candidate method runs
-    rr = robust_route(t, s0, e0, Mover(mu=0.1, normal="gravity"), 0.05, 0.2, refine=False,
-                      via=[t.cell_center(20, 20)])
-    assert rr.method == "candidates" and "via" in rr.note
+    rr = robust(t, s0, e0, Mover(mu=0.1, normal="gravity"), 0.05, 0.2, refine=False, via=[t.cell_center(20, 20)])
+    assert rr.summary.robust_method == "candidates" and "via" in rr.summary.robust_note
 
 
 def test_exact_robust_route_takes_a_robust_nominal_optimum_at_once():
@@ -711,15 +725,13 @@ def test_exact_robust_route_takes_a_robust_nominal_optimum_at_once():
     # by the work-energy ordering: it does not stall at HI, no limit at LO), and no robust
     # line can beat the unconstrained optimum, so it is the answer, found without the
     # (three-energy) robust search
-    from fallway.route import find_route
-
     t = plane_terrain(0.0, 0.4, rows=30, cols=30)
     s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
     mover = Mover(mu=0.1, drag=0.01, normal="gravity")
-    rr = robust_route(t, s0, e0, mover, 0.05, 0.2, refine=False)
-    assert rr.method == "exact" and rr.envelope.robust
-    assert rr.candidates[0]["label"].startswith("nominal optimum")
+    rr = robust(t, s0, e0, mover, 0.05, 0.2, refine=False)
+    assert rr.summary.robust_method == "exact" and rr.envelope.robust
+    assert rr.summary.robust_candidates[0]["label"].startswith("nominal optimum")
     plain = find_route(t, s0, e0, mover, refine=False)
-    assert rr.route.travel_time_s == pytest.approx(plain.travel_time_s, rel=1e-12)
-    again = evaluate_line(t, np.asarray(rr.route.line), Mover(mu=0.2, drag=0.01, normal="gravity"))
+    assert rr.travel_time_s == pytest.approx(plain.travel_time_s, rel=1e-12)
+    again = evaluate_line(t, np.asarray(rr.line), Mover(mu=0.2, drag=0.01, normal="gravity"))
     assert again.status == "ok"

@@ -1,0 +1,281 @@
+"""Runs of a scenario: the one path the command line, batch runs and the demo share.
+
+A :class:`~fallway.scenario.Scenario` is resolved once (:func:`resolve_site`: the DEM,
+the points moved into its CRS, the keep-out read and moved too), handed to
+:func:`fallway.routing.find_route` (or :func:`~fallway.routing.compare`,
+:func:`~fallway.routing.reach`), and its outputs written as one
+:class:`~fallway.export.OutputSet`: every file complete, or none.
+
+The library never prints: these functions return what they did, and the caller (the
+command line) says it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import re
+from pathlib import Path
+
+from .errors import ParameterError, TerrainError
+from .params import checked_options
+
+__all__ = ["Site", "resolve_site", "run_scenario", "run_compare", "run_reach", "run_demo", "ROUTE_FILES",
+           "CORE_FILES"]
+
+#: The files a route run writes (``outputs="full"``).
+ROUTE_FILES = ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "map.png", "map.svg",
+               "profile.png", "profile.svg", "report.html")
+#: The files of a batch run (``outputs="core"``).
+CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Site:
+    """A scenario's terrain, points and keep-out, all in one CRS.
+
+    Attributes
+    ----------
+    terrain : Terrain or Path
+        The loaded terrain (a geographic DEM reprojected to UTM, or a window asked
+        for), or the GeoTIFF path (a projected DEM: the search plan reads its windows).
+    start, end : (x, y)
+        In the terrain's CRS (``end`` None for a reach).
+    via : tuple of (x, y)
+    keepout : Keepout or None
+    crs : CRS
+        The terrain's CRS.
+    """
+
+    terrain: object
+    start: tuple
+    end: tuple | None
+    via: tuple
+    keepout: object
+    crs: object
+
+
+def load_area(dem, bounds):
+    """:func:`fallway.terrain.load_terrain` with a too-large area refused in plain terms."""
+    from .terrain import load_terrain
+
+    try:
+        return load_terrain(dem, bounds=bounds)
+    except TerrainError as err:
+        head, sep, tail = str(err).partition("; pass bounds=")
+        if not sep:
+            raise
+        fit = re.search(r"about (\d+) m or more fits", tail)
+        cells = f"{fit.group(1)} m cells or coarser fit" if fit else "coarser cells fit"
+        raise TerrainError(f"{head}; the points span too large an area at this resolution: put them closer "
+                           f"together, or resample the DEM first ({cells}; e.g. gdalwarp -tr N N in.tif out.tif)"
+                           ) from err
+
+
+def resolve_site(sc, *, need_end: bool = True, cover=None, load: bool = False) -> Site:
+    """The scenario's DEM, points and keep-out in one CRS (the one place that does this).
+
+    Parameters
+    ----------
+    sc : Scenario
+    need_end : bool
+        A route needs an end point; a reach does not.
+    cover : sequence of (x, y), optional
+        More points, in the DEM's CRS, that the terrain must hold (candidate lines);
+        implies ``load``.
+    load : bool
+        Load the terrain around the points now (otherwise a projected DEM is passed on as
+        its path, and the search plan reads the windows it needs).  A geographic DEM is
+        always loaded (reprojected to its UTM zone).
+    """
+    from .keepout import Keepout
+    from .points import WGS84, dem_crs, to_terrain_crs
+
+    if sc.dem is None:
+        raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    if sc.start is None:
+        raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
+    if need_end and sc.end is None:
+        raise ParameterError("no end point: pass --end X Y or set points.end in the scenario")
+    src_crs = dem_crs(sc.dem)
+    pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
+    given = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
+    if src_crs.is_geographic or load or cover:
+        bounds = None
+        if not src_crs.is_geographic and need_end:
+            native = to_terrain_crs(pts, given, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
+            xs = [p[0] for p in native]
+            ys = [p[1] for p in native]
+            bounds = (min(xs), min(ys), max(xs), max(ys))
+        terrain = load_area(sc.dem, bounds)
+        crs = terrain.crs
+    else:
+        terrain = Path(sc.dem)
+        crs = src_crs
+    pts = to_terrain_crs(pts, given, crs)
+    keepout = Keepout.from_file(sc.keepout).in_crs(crs) if sc.keepout is not None else None
+    end = pts[-1] if sc.end is not None else None
+    return Site(terrain=terrain, start=pts[0], end=end, via=tuple(pts[1:1 + len(sc.via)]), keepout=keepout, crs=crs)
+
+
+def _route_of(sc, site: Site, *, robust: bool):
+    from .routing import find_route
+
+    if robust and sc.mu_range is None:
+        raise ParameterError("a robust line needs a friction range: --mu-range LO HI (or envelope.mu_range)")
+    return find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
+                      keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
+                      robust=robust)
+
+
+@checked_options
+def run_scenario(sc, out_dir, *, overwrite: bool = False, robust: bool = False, timings: bool = False,
+                 outputs: str = "full"):
+    """Find the scenario's route and write its outputs; returns ``(route, written file names)``.
+
+    Parameters
+    ----------
+    sc : Scenario
+    out_dir : path
+    overwrite : bool
+        Replace results already in ``out_dir``.
+    robust : bool
+        The robust plan over the scenario's friction range.
+    timings : bool
+        Also write ``run.json`` with the seconds of computing per stage.
+    outputs : {"full", "core"}
+        Every route output (:data:`ROUTE_FILES`), or the batch set (:data:`CORE_FILES`).
+    """
+    from .export import OutputSet
+
+    if outputs not in ("full", "core"):
+        raise ParameterError(f"outputs must be 'full' or 'core', got {outputs!r}")
+    with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
+        route = _route_of(sc, resolve_site(sc), robust=robust)
+        written = write_route(outs, sc, route, timings=timings, core_only=outputs == "core")
+    return route, written
+
+
+def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool = False, core_only: bool = False):
+    """Every output file of one route into an open output set; returns the names written."""
+    from . import export, plot, report
+
+    terrain = route.terrain
+    if timings:
+        with export.atomic_write(outs.path("run.json")) as fh:
+            fh.write(json.dumps(export.to_jsonable(route.compute_s), sort_keys=True, indent=2) + "\n")
+    extra = {"scenario": sc.to_dict()}
+    if route.envelope is not None:
+        extra["friction_envelope"] = {"mu_range": list(sc.mu_range), **route.envelope.columns()}
+    export.write_summary_json(route, outs.path("summary.json"), extra=extra, crs=terrain.crs)
+    export.write_route_geojson(route, outs.path("route.geojson"), terrain.crs)
+    export.write_profile_csv(route, terrain, outs.path("profile.csv"))
+    if core_only:
+        return sorted(outs._names)
+    export.write_route_gpkg(route, outs.path("route.gpkg"), terrain.crs)
+    with export.atomic_write(outs.path("scenario.toml")) as fh:
+        fh.write(sc.to_toml())
+    ax = plot.plot_map(terrain, route, reach=reach, keepout=route.keepout)
+    plot.save_figure(ax.figure, outs.path("map.png"))
+    outs.path("map.svg")
+    ax = plot.plot_profile(route, terrain)
+    plot.save_figure(ax.figure, outs.path("profile.png"))
+    outs.path("profile.svg")
+    cmp_png = None
+    if comparison is not None:
+        comparison.to_csv(outs.path("comparison.csv"))
+        plot.save_figure(plot.comparison_figure(terrain, comparison, keepout=route.keepout),
+                         outs.path("comparison.png"))
+        outs.path("comparison.svg")
+        cmp_png = outs.path("comparison.png")
+    params = sc.to_dict()
+    if route.envelope is not None:
+        params = {**params, "friction envelope": route.envelope.columns()}
+    report.write_report_html(route, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
+                             profile_png=outs.path("profile.png"), parameters=params,
+                             comparison=comparison, comparison_png=cmp_png)
+    return sorted(outs._names)
+
+
+@checked_options
+def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: bool = True, optimum: bool = True):
+    """Time and rank the candidate lines of a file on the scenario's DEM; returns the Comparison."""
+    from . import plot, report
+    from .export import OutputSet
+    from .points import dem_crs
+    from .routing import compare
+    from .vector import read_lines
+
+    if sc.dem is None:
+        raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    src = dem_crs(sc.dem)
+    with OutputSet(out_dir, overwrite=overwrite) as outs:
+        lines = read_lines(lines_path, crs=src)
+        bounds = None
+        if not src.is_geographic:
+            xs = [float(v) for _, p in lines for v in p[:, 0]]
+            ys = [float(v) for _, p in lines for v in p[:, 1]]
+            bounds = (min(xs), min(ys), max(xs), max(ys))
+        terrain = load_area(sc.dem, bounds)
+        if terrain.crs != src:
+            lines = read_lines(lines_path, crs=terrain.crs)
+        from .keepout import Keepout
+
+        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs) if sc.keepout is not None else None
+        cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, optimum=optimum, search=sc.search,
+                      refine=refine, mu_range=sc.mu_range)
+        cmp.to_csv(outs.path("comparison.csv"))
+        plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=keepout), outs.path("comparison.png"))
+        outs.path("comparison.svg")
+        report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
+                                     parameters=sc.to_dict())
+    return cmp
+
+
+@checked_options
+def run_reach(sc, out_path, *, overwrite: bool = False, max_time_s: float | None = None,
+              max_distance_m: float | None = None):
+    """Map arrival time and speed from the scenario's start; writes one GeoTIFF and returns the ReachMap."""
+    from .errors import OutputExistsError
+    from .export import OutputSet, write_reach_geotiff
+    from .routing import reach
+
+    out = Path(out_path)
+    if out.exists() and not overwrite:
+        raise OutputExistsError(f"{out} exists; pass --overwrite to replace it")
+    site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
+    # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
+    with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
+        rm = reach(site.terrain, site.start, sc.mover, limits=sc.limits, keepout=site.keepout, search=sc.search,
+                   max_time_s=max_time_s, max_distance_m=max_distance_m)
+        write_reach_geotiff(rm, outs.path(out.name))
+    return rm
+
+
+@checked_options
+def run_demo(out_dir, *, overwrite: bool = False):
+    """The whole job on the bundled, invented sample site; returns ``(route, comparison, written)``."""
+    from importlib.resources import as_file, files
+
+    from .export import OutputSet, write_reach_geotiff
+    from .points import dem_crs
+    from .routing import compare, reach
+    from .scenario import load_scenario
+    from .vector import read_lines
+
+    with as_file(files("fallway.sample_terrain")) as site_dir:
+        sc = load_scenario(Path(site_dir) / "scenario.toml")
+        lines_path = Path(site_dir) / "lines.geojson"
+        cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
+        with OutputSet(out_dir, overwrite=overwrite) as outs:
+            site = resolve_site(sc, cover=cover)
+            route = _route_of(sc, site, robust=False)
+            terrain = route.terrain
+            rm = reach(terrain, tuple(route.line[0, :2]), sc.mover, limits=sc.limits, keepout=site.keepout,
+                       search=sc.search)
+            write_reach_geotiff(rm, outs.path("reach.tif"))
+            lines = read_lines(lines_path, crs=terrain.crs)
+            cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, mu_range=sc.mu_range,
+                          route=route)
+            written = write_route(outs, sc, route, reach=rm, comparison=cmp)
+    return route, cmp, written

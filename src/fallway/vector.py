@@ -1,0 +1,207 @@
+"""Vector inputs: candidate lines from GeoJSON or GeoPackage files."""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+
+from .errors import FallwayIOError, ParameterError
+from .geometry import drop_repeats
+
+__all__ = ["read_lines"]
+
+# consecutive plan vertices closer than this (m) are one vertex
+_SAME_POINT_M = 1e-6
+
+
+def _crs_object(crs):
+    """A pyproj CRS from anything rasterio or pyproj accept (None stays None)."""
+    if crs is None:
+        return None
+    from pyproj import CRS
+
+    if isinstance(crs, CRS):
+        return crs
+    to_wkt = getattr(crs, "to_wkt", None)
+    try:
+        return CRS.from_user_input(to_wkt() if callable(to_wkt) else crs)
+    except Exception as err:  # pyproj raises its own CRSError
+        raise ParameterError(f"cannot use {crs!r} as a CRS: {str(err).splitlines()[0]}") from err
+
+
+def _unique_names(names: Sequence[str | None]) -> list[str]:
+    """Fill missing names with ``line-<k>`` (k = 1-based file order); suffix duplicates."""
+    out: list[str] = []
+    seen: set[str] = set()
+    for k, n in enumerate(names, start=1):
+        base = str(n).strip() if n is not None else ""
+        if not base or base.lower() == "nan":
+            base = f"line-{k}"
+        name, j = base, 2
+        while name in seen:
+            name = f"{base}-{j}"
+            j += 1
+        seen.add(name)
+        out.append(name)
+    return out
+
+
+def _drop_repeats(coords: np.ndarray, tol_m: float = _SAME_POINT_M) -> np.ndarray:
+    """Remove vertices within ``tol_m`` of the last kept one (a GIS double click)."""
+    return drop_repeats(coords, tol_m)
+
+
+def _line_layer(p: Path):
+    """The layer to read when none is named: the only one, or the only one with lines."""
+    import pyogrio
+
+    layers = pyogrio.list_layers(p)
+    if len(layers) <= 1:
+        return None
+    lines = [str(n) for n, kind in layers if kind is None or "line" in str(kind).lower() or kind == "Unknown"]
+    if len(lines) == 1:
+        return lines[0]
+    names = ", ".join(str(n) for n, _ in layers)
+    raise ParameterError(f"{p} holds {len(layers)} layers ({names}); put the candidate lines in one layer "
+                         "or name the layer to read")
+
+
+def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | None = None
+               ) -> list[tuple[str, np.ndarray]]:
+    """Read named LineStrings from a GeoJSON or GeoPackage file.
+
+    Parameters
+    ----------
+    path : path-like
+        A GeoJSON file (RFC 7946: longitude/latitude on WGS 84) or a GeoPackage (any
+        CRS, read from the file), or anything else GDAL reads as vector data.
+    crs : CRS, optional
+        Target CRS (the terrain's; rasterio or pyproj CRS, or an ``"EPSG:..."`` string).
+        The lines are reprojected into it; without it they stay in the file's CRS.
+    layer : str or int, optional
+        Layer of a multi-layer file.  Default: the only layer, or the only layer with
+        line (or unknown) geometry; a file with several such layers is an error.
+
+    Returns
+    -------
+    list of (name, ndarray)
+        In file order.  Each array is (N, 2) x, y, or (N, 3) x, y, z when the file holds
+        heights (a raised line); z is in the file's units, not reprojected.  Names come
+        from the ``name`` property (any case); a missing or empty name becomes
+        ``line-<k>`` with k the feature's 1-based position in the file, and a repeated
+        name gets a suffix (``A``, ``A-2``).
+
+    Raises
+    ------
+    FallwayIOError
+        The file is missing or GDAL cannot read it.
+    ParameterError
+        No features, a feature that is not a LineString (a MultiLineString of one part
+        is accepted), a line with fewer than two distinct vertices, coordinates outside
+        the longitude/latitude range in a file whose CRS is geographic (a projected line
+        saved without CRS information), or no CRS while ``crs`` is given.
+
+    Notes
+    -----
+    Heights that are all exactly 0 (or missing) are taken as a 2D line: many GIS tools
+    write 0 where a drawn line has no height.  Consecutive repeated vertices are merged.
+
+    Examples
+    --------
+    >>> import json, pathlib, tempfile
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "lines.geojson"
+    >>> fc = {"type": "FeatureCollection", "features": [
+    ...     {"type": "Feature", "properties": {"name": "A"},
+    ...      "geometry": {"type": "LineString", "coordinates": [[15, 45], [15.001, 44.999]]}},
+    ...     {"type": "Feature", "properties": {},
+    ...      "geometry": {"type": "LineString", "coordinates": [[15, 45], [15.002, 44.999]]}}]}
+    >>> _ = p.write_text(json.dumps(fc))
+    >>> [(name, xy.shape) for name, xy in read_lines(p, crs="EPSG:32633")]
+    [('A', (2, 2)), ('line-2', (2, 2))]
+    """
+    import pyogrio.raw
+    import shapely
+    from pyogrio.errors import DataLayerError, DataSourceError
+
+    p = Path(path)
+    if not p.exists():
+        raise FallwayIOError(f"line file not found: {p}")
+    if p.is_dir() and p.suffix.lower() not in (".gdb",):
+        raise FallwayIOError(f"{p} is a folder; give the GeoJSON or GeoPackage file of the lines")
+    try:
+        if layer is None:
+            layer = _line_layer(p)
+        meta, _fids, geoms, field_data = pyogrio.raw.read(p, layer=layer)
+    except (DataSourceError, DataLayerError) as err:
+        msg = str(err).splitlines()[0] if str(err) else type(err).__name__
+        raise FallwayIOError(f"cannot read {p} as GeoJSON or GeoPackage ({msg}); check the file") from err
+    if geoms is None or len(geoms) == 0:
+        raise ParameterError(f"{p} holds no features; draw at least one LineString with a name property")
+    fields = [str(f) for f in meta.get("fields", [])]
+    name_idx = next((i for i, f in enumerate(fields) if f == "name"),
+                    next((i for i, f in enumerate(fields) if f.lower() == "name"), None))
+    raw_names = list(field_data[name_idx]) if name_idx is not None else [None] * len(geoms)
+    raw_names = [None if (n is None or (isinstance(n, float) and math.isnan(n))) else n for n in raw_names]
+    src = _crs_object(meta.get("crs"))
+    dst = _crs_object(crs)
+
+    lines: list[np.ndarray] = []
+    for i, wkb in enumerate(geoms):
+        label = f"feature {i + 1}" + (f" '{raw_names[i]}'" if raw_names[i] not in (None, "") else "")
+        if wkb is None:
+            raise ParameterError(f"{label} in {p} has no geometry; give it a LineString or delete it")
+        g = shapely.from_wkb(wkb)
+        kind = g.geom_type
+        if kind == "MultiLineString" and len(g.geoms) == 1:
+            g = g.geoms[0]
+            kind = g.geom_type
+        if kind == "MultiLineString":
+            raise ParameterError(f"{label} in {p} is a MultiLineString of {len(g.geoms)} parts; "
+                                 "merge it into one LineString or split it into named features")
+        if kind != "LineString":
+            raise ParameterError(f"{label} in {p} is a {kind}, not a LineString; "
+                                 "give every feature a LineString geometry")
+        c = shapely.get_coordinates(g, include_z=True)
+        if not np.all(np.isfinite(c[:, :2])):
+            raise ParameterError(f"{label} in {p} has non-finite coordinates; fix the geometry")
+        z = c[:, 2]
+        has_z = bool(np.all(np.isfinite(z))) and bool(np.any(z != 0.0))
+        c = c if has_z else c[:, :2]
+        c = _drop_repeats(c)
+        if len(c) < 2:
+            raise ParameterError(f"{label} in {p} has fewer than 2 distinct vertices; draw a line with a start and an end")
+        if src is not None and src.is_geographic:
+            if np.any(np.abs(c[:, 0]) > 360.0) or np.any(np.abs(c[:, 1]) > 90.0):
+                raise ParameterError(
+                    f"{label} in {p} has coordinates outside the longitude/latitude range "
+                    f"(first vertex {c[0, 0]:.3f}, {c[0, 1]:.3f}): a GeoJSON must be in lon/lat (RFC 7946); "
+                    "reproject it to EPSG:4326 or save it as a GeoPackage with its CRS")
+        lines.append(c)
+
+    if dst is not None:
+        if src is None:
+            raise ParameterError(f"{p} has no CRS information; assign the CRS of its coordinates "
+                                 "(or save it as GeoJSON in lon/lat)")
+        if not src.equals(dst):
+            from pyproj import Transformer
+
+            tr = Transformer.from_crs(src, dst, always_xy=True)
+            out = []
+            for c in lines:
+                x, y = tr.transform(c[:, 0], c[:, 1])
+                cc = c.copy()
+                cc[:, 0] = x
+                cc[:, 1] = y
+                if not np.all(np.isfinite(cc[:, :2])):
+                    raise ParameterError(f"a line in {p} cannot be projected into the terrain's CRS; "
+                                         "check that it lies in the DEM's area")
+                out.append(cc)
+            lines = out
+    names = _unique_names(raw_names)
+    return list(zip(names, lines))
+
+
