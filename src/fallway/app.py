@@ -72,7 +72,19 @@ def load_area(dem, bounds):
                            ) from err
 
 
-def resolve_site(sc, *, need_end: bool = True, cover=None, load: bool = False) -> Site:
+def _load_covering(dem, points):
+    """The DEM around (x, y) points in its own CRS (all of it for a geographic DEM or no points)."""
+    from .points import dem_crs
+
+    bounds = None
+    if points and not dem_crs(dem).is_geographic:
+        xs = [float(p[0]) for p in points]
+        ys = [float(p[1]) for p in points]
+        bounds = (min(xs), min(ys), max(xs), max(ys))
+    return load_area(dem, bounds)
+
+
+def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=None, load: bool = False) -> Site:
     """The scenario's DEM, points and keep-out in one CRS (the one place that does this).
 
     Parameters
@@ -80,6 +92,8 @@ def resolve_site(sc, *, need_end: bool = True, cover=None, load: bool = False) -
     sc : Scenario
     need_end : bool
         A route needs an end point; a reach does not.
+    need_start : bool
+        False for a comparison of given lines (no points: the terrain covers ``cover``).
     cover : sequence of (x, y), optional
         More points, in the DEM's CRS, that the terrain must hold (candidate lines);
         implies ``load``.
@@ -93,6 +107,10 @@ def resolve_site(sc, *, need_end: bool = True, cover=None, load: bool = False) -
 
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    if not need_start:
+        terrain = _load_covering(sc.dem, cover or ())
+        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs) if sc.keepout is not None else None
+        return Site(terrain=terrain, start=None, end=None, via=(), keepout=keepout, crs=terrain.crs)
     if sc.start is None:
         raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
     if need_end and sc.end is None:
@@ -101,13 +119,8 @@ def resolve_site(sc, *, need_end: bool = True, cover=None, load: bool = False) -
     pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
     given = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
     if src_crs.is_geographic or load or cover:
-        bounds = None
-        if not src_crs.is_geographic and need_end:
-            native = to_terrain_crs(pts, given, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
-            xs = [p[0] for p in native]
-            ys = [p[1] for p in native]
-            bounds = (min(xs), min(ys), max(xs), max(ys))
-        terrain = load_area(sc.dem, bounds)
+        native = to_terrain_crs(pts, given, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
+        terrain = _load_covering(sc.dem, native if need_end else ())
         crs = terrain.crs
     else:
         terrain = Path(sc.dem)
@@ -211,21 +224,14 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
     src = dem_crs(sc.dem)
     with OutputSet(out_dir, overwrite=overwrite) as outs:
         lines = read_lines(lines_path, crs=src)
-        bounds = None
-        if not src.is_geographic:
-            xs = [float(v) for _, p in lines for v in p[:, 0]]
-            ys = [float(v) for _, p in lines for v in p[:, 1]]
-            bounds = (min(xs), min(ys), max(xs), max(ys))
-        terrain = load_area(sc.dem, bounds)
+        site = resolve_site(sc, need_start=False, cover=[tuple(p[:2]) for _, line in lines for p in line])
+        terrain = site.terrain
         if terrain.crs != src:
             lines = read_lines(lines_path, crs=terrain.crs)
-        from .keepout import Keepout
-
-        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs) if sc.keepout is not None else None
-        cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, optimum=optimum, search=sc.search,
-                      refine=refine, mu_range=sc.mu_range)
+        cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, optimum=optimum,
+                      search=sc.search, refine=refine, mu_range=sc.mu_range)
         cmp.to_csv(outs.path("comparison.csv"))
-        plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=keepout), outs.path("comparison.png"))
+        plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=site.keepout), outs.path("comparison.png"))
         outs.path("comparison.svg")
         report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
                                      parameters=sc.to_dict())
