@@ -16,7 +16,7 @@ from rasterio.crs import CRS
 from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
 from fallway.lattice.search import lattice_line
 from fallway.keepout import Keepout
-from fallway.params import Limits
+from fallway.params import Limits, SearchOptions
 from fallway.physics import Mover
 from fallway.terrain import Terrain
 
@@ -76,9 +76,9 @@ def test_geopackage_and_route_avoids_the_area(tmp_path):
     assert k.crs == pyproj.CRS(UTM)
     start = t.cell_center(15, 0)
     end = t.cell_center(15, 39)
-    free = lattice_line(t, start, end, Mover(mu=0.1), neighbours=16)
+    free = lattice_line(t, start, end, Mover(mu=0.1), options=SearchOptions(neighbours=16))
     assert shapely.intersects(shapely.LineString(free.points[:, :2]), utm_polygon())  # the area is in the way
-    ln = lattice_line(t, start, end, Mover(mu=0.1), neighbours=16, keepout=k)
+    ln = lattice_line(t, start, end, Mover(mu=0.1), keepout=k, options=SearchOptions(neighbours=16))
     assert not shapely.intersects(shapely.LineString(ln.points[:, :2]), utm_polygon())
     assert ln.time_s > free.time_s
 

@@ -14,6 +14,7 @@ from rasterio.crs import CRS
 
 from fallway.errors import ParameterError
 from fallway.lattice.search import reach
+from fallway.params import SearchOptions
 from fallway.physics import Mover, traverse
 from fallway.route import _min_radius, find_route
 from fallway.terrain import Terrain
@@ -79,7 +80,7 @@ def test_bad_line_kind():
 
 def test_reach_geotiff_round_trip(tmp_path):
     t = valley()
-    rm = reach(t, t.cell_center(8, 9), Mover(mu=0.2, drag=0.01), neighbours=16)
+    rm = reach(t, t.cell_center(8, 9), Mover(mu=0.2, drag=0.01), options=SearchOptions(neighbours=16))
     assert np.isnan(rm.time_s).any() and np.isfinite(rm.time_s).sum() > 10
     out = tmp_path / "reach.tif"
     from fallway.export import write_reach_geotiff

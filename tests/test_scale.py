@@ -9,6 +9,7 @@ import pytest
 
 from fallway.errors import NoFeasibleLine, ParameterError, TerrainError
 from fallway.lattice.search import lattice_line, reach
+from fallway.params import SearchOptions
 from fallway.physics import Mover
 from fallway.scale import _block_mean, find_route_large, reach_limited, search_memory_bytes
 from fallway.terrain import Terrain
@@ -52,7 +53,7 @@ def test_corridor_equals_full_grid_when_wide_enough():
     t = hills()
     mover = Mover(mu=0.0)
     s, e = (20.0, 380.0), (380.0, 20.0)
-    full = lattice_line(t, s, e, mover, neighbours=16)
+    full = lattice_line(t, s, e, mover, options=SearchOptions(neighbours=16))
     r = find_route_large(t, s, e, mover, coarse_factor=5, corridor_m=60.0, neighbours=16, refine=False)
     assert r.lattice.time_s == pytest.approx(full.time_s, rel=1e-12)
     assert r.summary["scale"]["window_cells"] <= t.z.size
@@ -75,7 +76,7 @@ def test_widening_finds_the_detour_round_a_thin_wall():
     t, keep = wall_case()
     mover = Mover(mu=0.0)
     s, e = (20.5, 99.5), (180.5, 99.5)
-    full = lattice_line(t, s, e, mover, neighbours=8, keepout=keep)
+    full = lattice_line(t, s, e, mover, keepout=keep, options=SearchOptions(neighbours=8))
     r = find_route_large(t, s, e, mover, keepout=keep, coarse_factor=4, corridor_m=8.0, max_widen=5,
                          neighbours=8, refine=False)
     steps = r.summary["corridor_steps"]
@@ -112,7 +113,7 @@ def test_file_source_reads_only_windows_and_matches_memory(tmp_path):
     t = Terrain.from_array(t.z, (2.0, 0, 0.0, 0, -2.0, 480.0), "EPSG:32633")
     mover = Mover(mu=0.0)
     s, e = (150.0, 330.0), (330.0, 150.0)
-    full = lattice_line(t, s, e, mover, neighbours=16)
+    full = lattice_line(t, s, e, mover, options=SearchOptions(neighbours=16))
     kw = dict(neighbours=16, refine=False)
     # the exact search through a window of the file equals the search on the whole grid
     ex = find_route_large(path, s, e, mover, exact=True, **kw)
@@ -173,7 +174,7 @@ def test_reach_time_cutoff_is_exact_up_to_the_cutoff():
     mover = Mover(mu=0.0)
     start = (80.0, 240.0)
     t_max = 3.0
-    full = reach(t, start, mover, neighbours=16)
+    full = reach(t, start, mover, options=SearchOptions(neighbours=16))
     lim = reach_limited(t, start, mover, max_time_s=t_max, neighbours=16)
     # map the window back onto the full grid
     r0, c0 = (int(round(v)) for v in t.rowcol(*(lim.transform @ (0.5, 0.5))))

@@ -542,6 +542,7 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
     from .errors import OutputExistsError
     from .export import OutputSet
     from .lattice.search import reach as reach_map
+    from .params import SearchOptions
 
     out = Path(out_path)
     if out.exists() and not overwrite:
@@ -558,8 +559,8 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
                                max_per_cell=sc.label_cap)
         else:
             terrain, start, _, _, keepout = _prepare(sc, need_end=False)
-            rm = reach_map(terrain, start, sc.mover, neighbours=sc.neighbours, limits=sc.limits, keepout=keepout,
-                           max_per_cell=sc.label_cap)
+            rm = reach_map(terrain, start, sc.mover, limits=sc.limits, keepout=keepout,
+                           options=SearchOptions(neighbours=sc.neighbours, label_cap=sc.label_cap))
         export.write_reach_geotiff(rm, outs.path(out.name))
     if not quiet:
         import numpy as np
@@ -669,6 +670,7 @@ def demo(out_dir, overwrite, quiet):
     from . import export
     from .export import OutputSet
     from .lattice.search import reach as reach_map
+    from .params import SearchOptions
     from .scenario import load_scenario
 
     with as_file(files("fallway.sample_terrain")) as site:
@@ -680,8 +682,8 @@ def demo(out_dir, overwrite, quiet):
         cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
         with OutputSet(out_dir, overwrite=overwrite) as outs:
             r, terrain, keepout = _run_route(sc, quiet=quiet, cover=cover)
-            rm = reach_map(terrain, r.line[0, :2], sc.mover, neighbours=sc.neighbours, limits=sc.limits,
-                           keepout=keepout)
+            rm = reach_map(terrain, r.line[0, :2], sc.mover, limits=sc.limits, keepout=keepout,
+                           options=SearchOptions(neighbours=sc.neighbours))
             export.write_reach_geotiff(rm, outs.path("reach.tif"))
             lines = read_lines(lines_path, crs=terrain.crs)
             cmp = compare_lines(terrain, lines, sc.mover, limits=sc.limits, keepout=keepout, mu_range=sc.mu_range,

@@ -1255,9 +1255,11 @@ def _mark(route, method: str, lo: float, hi: float, notes: list[str]) -> None:
 def _nominal_if_robust(terrain, start, end, mover, lo, hi, limits, lat_kw, kw):
     """The ordinary nominal lattice optimum when it is exact and robust on the lattice model, else None."""
     from .lattice.search import lattice_line
+    from .params import SearchOptions
 
-    lat = lattice_line(terrain, start, end, mover, limits=limits, max_labels=kw.get("max_labels"),
-                       max_per_cell=kw.get("max_per_cell"), **lat_kw)
+    lat = lattice_line(terrain, start, end, mover, limits=limits, keepout=lat_kw.get("keepout"),
+                       options=SearchOptions(neighbours=lat_kw.get("neighbours", 16), max_labels=kw.get("max_labels"),
+                                             label_cap=kw.get("max_per_cell")))
     if not lat.stats.get("exact", True):
         return None
     g_model = dataclasses.replace(mover, normal="gravity")
@@ -1272,6 +1274,7 @@ def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, resolu
                   notes) -> dict:
     """The exact method of :func:`robust_route`: fills ``candidates``/``found``; see its Notes."""
     from .lattice.robust import robust_lattice_line
+    from .params import SearchOptions
     from .route import route_from_lattice
 
     lat_kw = {k: kw[k] for k in ("neighbours", "keepout") if k in kw}
@@ -1297,8 +1300,11 @@ def _robust_exact(terrain, start, end, mover, lo, hi, limits, max_labels, resolu
                     entry["verdict"] = "not robust on the lattice model (or not exact)"
                     continue
             else:
-                lat = robust_lattice_line(terrain, start, end, mover, lo, hi, limits=limits, max_labels=max_labels,
-                                          max_per_cell=kw.get("max_per_cell"), resolution=res, **lat_kw)
+                lat = robust_lattice_line(terrain, start, end, mover, lo, hi, limits=limits,
+                                          keepout=lat_kw.get("keepout"), resolution=res,
+                                          options=SearchOptions(neighbours=lat_kw.get("neighbours", 16),
+                                                                max_labels=max_labels,
+                                                                label_cap=kw.get("max_per_cell")))
         except NoFeasibleLine as err:
             message = str(err)
             entry["verdict"] = message

@@ -164,12 +164,14 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 1
     1.8876 5.0
     """
     from .lattice.search import lattice_line
+    from .params import SearchOptions
 
     if line not in _LINE_KINDS:
         raise ParameterError(f"line must be one of {', '.join(_LINE_KINDS)}; got {line!r}")
     limits = Limits() if limits is None else limits
-    lat = lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits, keepout=keepout,
-                       heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
+    lat = lattice_line(terrain, start, end, mover, via=via, limits=limits, keepout=keepout,
+                       options=SearchOptions(neighbours=neighbours, heuristic=heuristic, energy_tol=energy_tol,
+                                             max_labels=max_labels, label_cap=max_per_cell))
     return route_from_lattice(terrain, lat, mover, limits=limits, keepout=keepout, line=line, refine=refine,
                               neighbours=neighbours, via=via, **refine_options)
 

@@ -385,6 +385,7 @@ def find_route_large(source, start, end, mover: Mover, *, via=(), keepout=None, 
     ('corridor', True)
     """
     from .lattice.search import lattice_line
+    from .params import SearchOptions
     from .route import find_route
     from .terrain import Terrain
 
@@ -441,7 +442,13 @@ def find_route_large(source, start, end, mover: Mover, *, via=(), keepout=None, 
     search_kw = _route_kw(find_route_kwargs)
     t0 = time.perf_counter()
     try:
-        cl = lattice_line(coarse, start, end, mover, via=via, keepout=_keep_for(src, coarse, cmask), **search_kw)
+        cl = lattice_line(coarse, start, end, mover, via=via, keepout=_keep_for(src, coarse, cmask),
+                          limits=search_kw.get("limits"),
+                          options=SearchOptions(neighbours=search_kw.get("neighbours", 16),
+                                                heuristic=search_kw.get("heuristic", True),
+                                                energy_tol=search_kw.get("energy_tol"),
+                                                max_labels=search_kw.get("max_labels"),
+                                                label_cap=search_kw.get("max_per_cell")))
     except NoFeasibleLine as err:
         raise NoFeasibleLine(f"coarse grid ({coarse.cell_size:g} m cells): {err}; try a smaller coarse_factor "
                              "or exact=True", reason=err.reason, closest=err.closest) from err
@@ -472,7 +479,13 @@ def find_route_large(source, start, end, mover: Mover, *, via=(), keepout=None, 
         timings[f"corridor_{k}_read_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         try:
-            ln = lattice_line(fine, start, end, mover, via=via, keepout=_keep_for(src, fine, out), **search_kw)
+            ln = lattice_line(fine, start, end, mover, via=via, keepout=_keep_for(src, fine, out),
+                              limits=search_kw.get("limits"),
+                              options=SearchOptions(neighbours=search_kw.get("neighbours", 16),
+                                                    heuristic=search_kw.get("heuristic", True),
+                                                    energy_tol=search_kw.get("energy_tol"),
+                                                    max_labels=search_kw.get("max_labels"),
+                                                    label_cap=search_kw.get("max_per_cell")))
             steps.append({"corridor_m": w, "time_s": float(ln.time_s), "cells": cells, "feasible": True})
             prev = best
             if best is None or ln.time_s < best[2].time_s:
@@ -543,6 +556,7 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
     ((23, 12), True)
     """
     from .lattice.search import reach
+    from .params import SearchOptions
     from .route import ReachMap
     from .terrain import Terrain
 
@@ -579,7 +593,12 @@ def reach_limited(source, start, mover: Mover, *, max_time_s: float | None = Non
                   turn_limit=limits.max_step_turn_deg is not None, max_per_cell=reach_kwargs.get("max_per_cell"),
                   memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True,
                   active_cells=int(np.count_nonzero(~out)))
-    rm = reach(win, start, mover, keepout=_keep_for(src, win, out), max_time_s=max_time_s, **reach_kwargs)
+    rm = reach(win, start, mover, keepout=_keep_for(src, win, out), max_time_s=max_time_s,
+               limits=reach_kwargs.get("limits"),
+               options=SearchOptions(neighbours=reach_kwargs.get("neighbours", 16),
+                                     energy_tol=reach_kwargs.get("energy_tol"),
+                                     max_labels=reach_kwargs.get("max_labels"),
+                                     label_cap=reach_kwargs.get("max_per_cell")))
     tt, vv = rm.time_s, rm.speed_m_s
     stats = dict(rm.stats)
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
