@@ -458,6 +458,154 @@ def test_nodata_wall():
         lattice_line(t, xy(t, 5, 6), xy(t, 5, 11), Mover(mu=0.1))
 
 
+# ----------------------------------------------------------------------------- search domain, reasons, options
+
+def components(free):
+    """Connected parts of the free cells as the 8-neighbour lattice sees them (scipy.ndimage.label).
+
+    A diagonal step is passable only when both cells beside it are free too (it touches
+    all four cells of its square), so two free cells are linked on the 8-stencil exactly
+    when they are 4-connected: ``ndimage.label`` with its default cross structure.
+    """
+    from scipy import ndimage
+
+    return ndimage.label(free)[0]
+
+
+def test_domain_that_cuts_every_passage_is_blamed_on_the_corridor():
+    # Reference: scipy.ndimage.label shows the domain separates start from end while the
+    # whole grid connects them; the same search without the domain finds the line.
+    t = terrain_of(_plane(gx=-0.3), 5.0)
+    s, e = (5, 0), (5, 11)
+    domain = np.ones(t.shape, dtype=bool)
+    domain[:, 6] = False
+    lab = components(domain)
+    assert lab[s] != lab[e] and components(np.ones(t.shape, bool))[s] == components(np.ones(t.shape, bool))[e]
+    free = lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), options=SearchOptions(neighbours=32))
+    with pytest.raises(NoFeasibleLine, match="corridor") as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), allowed=domain, options=SearchOptions(neighbours=32))
+    assert ei.value.reason == "corridor"
+    assert ei.value.closest[0] < xy(t, 5, 6)[0]  # stopped west of the cut
+    # the same mask given as a keep-out is a keep-out
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=~domain, options=SearchOptions(neighbours=32))
+    assert ei.value.reason == "keepout"
+    # a domain with a passage: the line stays inside it and is no faster than the free one
+    domain[8, 6] = True
+    assert components(domain)[s] == components(domain)[e]
+    ln = lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), allowed=domain, options=SearchOptions(neighbours=32))
+    assert domain[ln.cells[:, 0], ln.cells[:, 1]].all() and ln.time_s >= free.time_s
+    assert ln.stats["state_cells"] == int(domain.sum())
+
+
+def test_keepout_inside_the_domain_is_blamed_on_the_keepout():
+    # A corridor (rows 2..8) with a keep-out wall across it; the keep-out also fills the
+    # rows outside the corridor (there it is irrelevant: those cells are not searched).
+    # Reference: scipy.ndimage.label - without the keep-out the corridor connects the
+    # points, with it it does not.
+    t = terrain_of(_plane(gx=-0.3), 5.0)
+    s, e = (5, 0), (5, 11)
+    domain = np.zeros(t.shape, dtype=bool)
+    domain[2:9, :] = True
+    keep = np.zeros(t.shape, dtype=bool)
+    keep[:, 6] = True
+    lab = components(domain & ~keep)
+    assert lab[s] != lab[e] and components(domain)[s] == components(domain)[e]
+    with pytest.raises(NoFeasibleLine, match="keep-out") as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=keep, allowed=domain,
+                     options=SearchOptions(neighbours=16))
+    assert ei.value.reason == "keepout"
+    # a gap in the wall outside the corridor only: still the keep-out, judged inside the domain
+    keep[0, 6] = False
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=keep, allowed=domain,
+                     options=SearchOptions(neighbours=16))
+    assert ei.value.reason == "keepout"
+    # a point outside the domain is refused before any search
+    with pytest.raises(NoFeasibleLine, match="outside the search domain") as ei:
+        lattice_line(t, xy(t, 0, 0), xy(t, *e), Mover(mu=0.1), allowed=domain)
+    assert ei.value.reason == "corridor"
+    with pytest.raises(NoFeasibleLine) as ei:
+        reach(t, xy(t, 0, 0), Mover(mu=0.1), allowed=domain)
+    assert ei.value.reason == "corridor"
+
+
+def test_diagnosis_tries_only_the_obstacles_that_stopped_an_edge(monkeypatch):
+    # A stall with a keep-out the search never reaches: the failed search ran exactly as
+    # it would without the keep-out, so the diagnosis does not search again without it.
+    # Reference: the reason is the one of the same case without any keep-out.
+    from fallway.lattice import search as S
+
+    t = terrain_of(_plane(gx=-0.1), 5.0)  # 10 % slope, mu 0.3: friction wins from rest
+    keep = np.zeros(t.shape, dtype=bool)
+    keep[0, 11] = True
+    with pytest.raises(NoFeasibleLine) as ref:
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3))
+    runs = []
+    run = S._Problem.run
+    monkeypatch.setattr(S._Problem, "run", lambda self, *a, **k: runs.append(1) or run(self, *a, **k))
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3), keepout=keep)
+    assert ei.value.reason == ref.value.reason == "stall"
+    assert len(runs) == 1
+
+
+def test_reach_with_a_domain_equals_scipy_dijkstra():
+    # The domain (a diagonal corridor) and a few keep-out holes inside it: scipy's
+    # Dijkstra on the lattice of the cells both allow.
+    t, z, keep = corridor_case(seed=6)
+    rows, cols = z.shape
+    r, c = np.mgrid[0:rows, 0:cols]
+    domain = np.abs(r * (cols - 1) - c * (rows - 1)) / math.hypot(rows - 1, cols - 1) <= 5.0
+    holes = keep & domain
+    mover = Mover(v0=1.5, normal="gravity")
+    e0 = mover.v0 ** 2 + 2 * G * z[0, 0]
+    ref = dijkstra(frictionless_graph16(z, 4.0, domain & ~holes, e0), indices=0).reshape(z.shape)
+    rm = reach(t, xy(t, 0, 0), mover, keepout=holes, allowed=domain, options=SearchOptions(neighbours=16))
+    ok = np.isfinite(ref)
+    assert ok.sum() > 200
+    assert np.array_equal(ok, np.isfinite(rm.time_s))
+    np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
+    assert rm.stats["state_cells"] == int((domain & ~holes).sum())
+
+
+def test_label_budget_has_its_own_reason():
+    # Reference: the same search without a budget finds the line, so the budget is what
+    # stopped it; callers branch on the reason, not on the message.
+    z = rough_dem(30)
+    t = terrain_of(z)
+    full = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8))
+    assert full.stats["labels_created"] > 20
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8, max_labels=20))
+    assert ei.value.reason == "label_budget" and ei.value.closest is not None
+    assert "label budget of 20" in str(ei.value)
+    rm = reach(t, xy(t, 0, 0), MOVER, options=SearchOptions(neighbours=8, max_labels=20))
+    assert rm.stats["complete"] is False
+
+
+def test_fronts_check_their_options():
+    # Reference: the keywords each front declares (inspect.signature); the old search
+    # keywords now live on SearchOptions and are refused by name.
+    import inspect
+
+    t = terrain_of(_plane(), 5.0)
+    a, b = xy(t, 5, 0), xy(t, 5, 11)
+    assert [p for p in inspect.signature(lattice_line).parameters][-5:] == ["via", "limits", "keepout", "allowed",
+                                                                           "options"]
+    with pytest.raises(ParameterError, match="lattice_line: unknown option neighbours; allowed: via, limits, "
+                                             "keepout, allowed, options"):
+        lattice_line(t, a, b, Mover(), neighbours=8)
+    with pytest.raises(ParameterError, match="reach: unknown option max_per_cell"):
+        reach(t, a, Mover(), max_per_cell=2)
+    with pytest.raises(ParameterError, match="must be a fallway.SearchOptions"):
+        lattice_line(t, a, b, Mover(), options={"neighbours": 8})
+    with pytest.raises(ParameterError, match="allowed mask must have the terrain's shape"):
+        lattice_line(t, a, b, Mover(), allowed=np.ones((2, 2), bool))
+    with pytest.raises(ParameterError, match="bool mask"):
+        lattice_line(t, a, b, Mover(), allowed=np.ones(t.shape))
+
+
 def test_points_outside_the_grid():
     t = terrain_of(_plane(), 5.0)
     with pytest.raises(ParameterError, match="end .* outside"):

@@ -416,3 +416,91 @@ def test_a_star_order_and_label_cap():
     assert d.stats["label_cap"] == 1 and d.stats["exact"] == (d.stats["labels_capped"] == 0)
     check_line_at_three(d, free_m, 0.1, 0.25)
 
+
+# --------------------------------------------------------------------------- compact state, reasons, options
+
+def corridor_dem(seed=3, rows=12, cols=14):
+    """A rough slope, a diagonal corridor of keep-out outside it and a few holes inside."""
+    rng = np.random.default_rng(seed)
+    z = random_dem(seed, rows, cols, noise=0.3, tilt=0.45)
+    r, c = np.mgrid[0:rows, 0:cols]
+    keep = np.abs(r * (cols - 1) - c * (rows - 1)) / math.hypot(rows - 1, cols - 1) > 3.0
+    keep |= rng.random((rows, cols)) < 0.08
+    keep[0, 0] = keep[-1, -1] = False
+    return z, keep
+
+
+@pytest.mark.parametrize("case", ["plain", "speed", "turn", "cap", "resolution"])
+def test_robust_compact_state_equals_full_window_state(case):
+    # Reference: the full-window layout (per-state arrays and the LO floor sized for
+    # every cell of the window, index = flat index: the layout before the compact
+    # state).  Same labels in the same order: same counters, same chain, same energies.
+    from fallway.lattice.search import _Problem
+    from fallway.params import Limits
+
+    z, keep = corridor_dem()
+    t = terrain_of(z)
+    vmax = {"speed": 14.3, "resolution": 14.3}.get(case)  # binds: the free optimum reaches 14.44 m/s at LO
+    m = Mover(mu=0.15, v0=1.0, max_speed=vmax, normal="gravity")
+    limits = Limits(max_step_turn_deg=50.0) if case == "turn" else None
+    prob = _Problem(t, m, 16, limits, keep)
+    start, end = 0, z.size - 1
+    kw = dict(heuristic=True, energy_tol=None, max_labels=None, label_cap=2 if case == "cap" else None,
+              resolution=0.01 if case == "resolution" else 0.0)
+    out = []
+    for compact in (True, False):
+        res = prob.run_robust(start, end, 0.1, 0.3, compact=compact, **kw)
+        chain, p = [], res["final"]
+        while p >= 0:
+            chain.append((int(res["node"][p]), float(res["t"][p]), tuple(res["e"][p].tolist())))
+            p = int(res["parent"][p])
+        out.append((res, chain))
+    (a, ca), (b, cb) = out
+    assert a["stats"]["state_cells"] == int((~keep).sum()) < z.size == b["stats"]["state_cells"]
+    assert a["status"] == b["status"] == 0 and len(ca) > 5
+    assert np.array_equal(a["counters"], b["counters"])
+    assert ca == cb
+    assert not keep.ravel()[[n for n, _, _ in ca]].any()
+
+
+def test_robust_reasons_keepout_corridor_and_label_budget():
+    # Reference: scipy.ndimage.label (4-connectivity, what the 8-stencil's diagonal rule
+    # makes of the free cells) shows the obstacle cuts start from end; the search
+    # without it finds a robust line.
+    from scipy import ndimage
+
+    z = random_dem(0, 6, 8, noise=0.1, tilt=0.6)
+    t = terrain_of(z)
+    m = Mover(mu=0.15, v0=1.0, normal="gravity")
+    s, e = xy(t, (0, 0)), xy(t, (5, 7))
+    wall = np.zeros(z.shape, dtype=bool)
+    wall[:, 4] = True
+    assert ndimage.label(~wall)[0][0, 0] != ndimage.label(~wall)[0][5, 7]
+    free = robust_lattice_line(t, s, e, m, 0.1, 0.25, options=SearchOptions(neighbours=8))
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, keepout=wall, options=SearchOptions(neighbours=8))
+    assert ei.value.reason == "keepout"
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, allowed=~wall, options=SearchOptions(neighbours=8))
+    assert ei.value.reason == "corridor"
+    assert free.stats["labels_created"] > 10
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, options=SearchOptions(neighbours=8, max_labels=10))
+    assert ei.value.reason == "label_budget" and "label budget of 10" in str(ei.value)
+
+
+def test_robust_front_checks_its_options():
+    # Reference: the keywords the front declares (inspect.signature); the front stays
+    # importable from the kernel module, where it used to live.
+    import inspect
+
+    import fallway.lattice.robust as R
+
+    assert R.robust_lattice_line is robust_lattice_line
+    t = terrain_of(random_dem(1))
+    m = Mover(mu=0.1, v0=0.5, normal="gravity")
+    kws = [p.name for p in inspect.signature(robust_lattice_line).parameters.values() if p.kind == p.KEYWORD_ONLY]
+    assert kws == ["limits", "keepout", "allowed", "options", "resolution"]
+    with pytest.raises(ParameterError, match="robust_lattice_line: unknown option max_per_cell; allowed: limits, "
+                                             "keepout, allowed, options, resolution"):
+        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, 0.05, 0.2, max_per_cell=1)
