@@ -12,7 +12,11 @@ Cases (each in its own process so that the peak memory, ``VmHWM``, is its own):
   search on a 60 x 60 corner of the DEM.
 
 Targets (issue 4): reach no slower than scipy; route at most 3 x the scipy figure; peak
-memory under 2 GB each.  Run: ``python scripts/bench_search.py [--size 1000]``.
+memory under 2 GB each.  Run: ``python scripts/bench_search.py [--size 1000]``;
+``--case reach`` or ``--case route`` runs one case in this process (after ``--case scipy``
+has written the reference).  The script runs against this checkout's API
+(``options=SearchOptions(...)``) or the one before it (``neighbours=``, ``max_per_cell=``),
+so the same file times an older checkout for A/B comparisons (:func:`front_kw`).
 
 Measured 2026-12-02, 1000 x 1000, on 2 cores shared by three people (large spread).
 This script, before the compact state / time cut-off / one push helper: reach 1.03 s,
@@ -59,6 +63,25 @@ def terrain(n):
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from bench_large import peak_mb  # noqa: E402  (one VmHWM reader for every benchmark)
+
+
+def front_kw(fn, *, neighbours=16, label_cap=None, max_labels=None, heuristic=None, energy_tol=None) -> dict:
+    """Search keywords for the lattice front ``fn`` in the API of the installed fallway.
+
+    This checkout: one ``options=SearchOptions(...)``; before it (for A/B runs against an
+    older checkout): ``neighbours=``, ``max_per_cell=``, ``max_labels=``, ...
+    """
+    import inspect
+
+    opt = {k: v for k, v in dict(neighbours=neighbours, label_cap=label_cap, max_labels=max_labels,
+                                  heuristic=heuristic, energy_tol=energy_tol).items() if v is not None}
+    if "options" in inspect.signature(fn).parameters:
+        from fallway.params import SearchOptions
+
+        return {"options": SearchOptions(**opt)}
+    if "label_cap" in opt:
+        opt["max_per_cell"] = opt.pop("label_cap")
+    return opt
 
 
 def case_scipy(n):
@@ -116,8 +139,8 @@ def warm():
     from fallway.physics import Mover
 
     t = terrain(12)
-    reach(t, t.cell_center(0, 0), Mover(v0=0.5), neighbours=16)
-    lattice_line(t, t.cell_center(0, 0), t.cell_center(11, 11), Mover(mu=0.25, drag=0.002), neighbours=16)
+    reach(t, t.cell_center(0, 0), Mover(v0=0.5), **front_kw(reach))
+    lattice_line(t, t.cell_center(0, 0), t.cell_center(11, 11), Mover(mu=0.25, drag=0.002), **front_kw(lattice_line))
 
 
 def case_reach(n):
@@ -129,7 +152,7 @@ def case_reach(n):
     t_warm = time.perf_counter() - t0
     t = terrain(n)
     t0 = time.perf_counter()
-    rm = reach(t, t.cell_center(0, 0), Mover(v0=0.5), neighbours=16)
+    rm = reach(t, t.cell_center(0, 0), Mover(v0=0.5), **front_kw(reach))
     total = time.perf_counter() - t0
     ref = np.load("/tmp/_bench_scipy_reach.npy").reshape(n, n)
     ok = np.isfinite(ref)
@@ -149,16 +172,17 @@ def case_route(n, cap):
     t = terrain(n)
     mover = Mover(mu=0.25, drag=0.002)
     t0 = time.perf_counter()
-    ln = lattice_line(t, t.cell_center(0, 0), t.cell_center(n - 1, n - 1), mover, neighbours=16, max_per_cell=cap)
+    ln = lattice_line(t, t.cell_center(0, 0), t.cell_center(n - 1, n - 1), mover,
+                      **front_kw(lattice_line, label_cap=cap))
     total = time.perf_counter() - t0
     out = {"case": "route", "total_s": total, "kernel_s": ln.stats["search_s"], "time_s": ln.time_s,
            "labels_created": ln.stats["labels_created"], "labels_settled": ln.stats["labels_settled"],
            "labels_capped": ln.stats["labels_capped"], "cap": cap, "peak_mb": peak_mb()}
     m = min(60, n)
     small = Terrain.from_array(t.z[:m, :m], t.transform, t.crs)
-    a = lattice_line(small, small.cell_center(0, 0), small.cell_center(m - 1, m - 1), mover, neighbours=16,
-                     max_per_cell=cap)
-    b = lattice_line(small, small.cell_center(0, 0), small.cell_center(m - 1, m - 1), mover, neighbours=16)
+    a = lattice_line(small, small.cell_center(0, 0), small.cell_center(m - 1, m - 1), mover,
+                     **front_kw(lattice_line, label_cap=cap))
+    b = lattice_line(small, small.cell_center(0, 0), small.cell_center(m - 1, m - 1), mover, **front_kw(lattice_line))
     out["cap_vs_exact_rel_60"] = a.time_s / b.time_s - 1.0
     out["exact_60_s"] = b.stats["search_s"]
     out["exact_60_labels"] = b.stats["labels_created"]

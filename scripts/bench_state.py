@@ -76,7 +76,7 @@ def case_corridor(path, n, cap, compact):
             "labels_created": s["labels_created"]}
 
 
-def case_reach(path, t_max, cap, kernel_cutoff):
+def case_reach(path, n, t_max, cap, kernel_cutoff):
     from bench_large import points
 
     import fallway.lattice.search as S
@@ -86,7 +86,7 @@ def case_reach(path, t_max, cap, kernel_cutoff):
     if not kernel_cutoff:  # the area window alone: search everything in it, mask afterwards
         reach = S.reach
         S.reach = lambda *a, **k: reach(*a, **{**k, "max_time_s": None})
-    start, _ = points(2000, 0.15)
+    start, _ = points(n, 0.15)
     t0 = time.perf_counter()
     rm = reach_limited(path, start, Mover(mu=0.2, drag=0.001), max_time_s=t_max, neighbours=16, max_per_cell=cap)
     wall = time.perf_counter() - t0
@@ -114,7 +114,7 @@ def main() -> None:
         print(json.dumps(case_corridor(a.path, a.n, a.cap, bool(a.flag))))
         return
     if a.case == "reach":
-        print(json.dumps(case_reach(a.path, a.reach_t, a.cap, bool(a.flag))))
+        print(json.dumps(case_reach(a.path, a.reach_n, a.reach_t, a.cap, bool(a.flag))))
         return
     from bench_large import make_dem
 
@@ -125,7 +125,8 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as d:
         p2 = os.path.join(d, f"dem{a.reach_n}.tif")
         make_dem(a.reach_n, p2)
-        res = {f: child("--case", "reach", "--path", p2, "--reach-t", a.reach_t, "--cap", a.cap, "--flag", f)
+        res = {f: child("--case", "reach", "--path", p2, "--reach-n", a.reach_n, "--reach-t", a.reach_t,
+                        "--cap", a.cap, "--flag", f)
                for f in (1, 0)}
         same = np.array_equal(np.load(p2 + ".reach1.npy"), np.load(p2 + ".reach0.npy"), equal_nan=True)
         for f, name in ((1, "kernel cut-off"), (0, "area window only")):

@@ -30,6 +30,7 @@ from hypothesis import strategies as st
 
 from fallway.errors import FallwayError, NoFeasibleLine, RefinementWarning
 from fallway.lattice.search import lattice_line, reach
+from fallway.params import SearchOptions
 from fallway.physics import Mover, traverse
 from fallway.route import find_route
 from fallway.terrain import Terrain
@@ -152,7 +153,7 @@ def test_find_route_refined_never_crashes(case, mover, n):
 def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
     t, s, e = case
     try:
-        rm = reach(t, t.cell_center(*s), mover, neighbours=n)
+        rm = reach(t, t.cell_center(*s), mover, options=SearchOptions(neighbours=n))
     except FallwayError:
         return
     tm, v = np.asarray(rm.time_s), np.asarray(rm.speed_m_s)
@@ -164,7 +165,7 @@ def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
     if e == s:
         return
     try:
-        lat = lattice_line(t, t.cell_center(*s), t.cell_center(*e), mover, neighbours=n)
+        lat = lattice_line(t, t.cell_center(*s), t.cell_center(*e), mover, options=SearchOptions(neighbours=n))
     except NoFeasibleLine:
         assert not ok[e], "reach arrives where the route search found no line"
         return
@@ -182,8 +183,8 @@ def test_astar_bound_does_not_change_the_answer(case, mover, n):
     res = []
     for h in (True, False):
         try:
-            res.append(lattice_line(t, t.cell_center(*s), t.cell_center(*e), mover, neighbours=n,
-                                    heuristic=h).time_s)
+            res.append(lattice_line(t, t.cell_center(*s), t.cell_center(*e), mover,
+                                    options=SearchOptions(neighbours=n, heuristic=h)).time_s)
         except FallwayError as err:
             res.append(type(err).__name__)
     if isinstance(res[0], float) and isinstance(res[1], float):

@@ -30,7 +30,7 @@ from scipy.sparse.csgraph import dijkstra
 
 from fallway.errors import NoFeasibleLine, ParameterError
 from fallway.lattice.search import lattice_line, reach
-from fallway.params import Limits
+from fallway.params import Limits, SearchOptions
 from fallway.physics import Mover, traverse
 from fallway.terrain import Terrain
 
@@ -191,7 +191,7 @@ def test_reach_frictionless_equals_scipy_dijkstra():
     g = sp.csr_matrix((w_, (a_, b_)), shape=(rows * cols,) * 2)
     ref = dijkstra(g, indices=idx[start]).reshape(rows, cols)
     t = terrain_of(z, cell)
-    rm = reach(t, xy(t, *start), mover, neighbours=8)
+    rm = reach(t, xy(t, *start), mover, options=SearchOptions(neighbours=8))
     ok = np.isfinite(ref)
     assert np.array_equal(ok, np.isfinite(rm.time_s))
     np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
@@ -233,7 +233,7 @@ def test_point_to_point_frictionless_16_equals_networkx():
     ref = nx.dijkstra_path_length(gr, start, end)
     t = terrain_of(z, cell)
     for h in (True, False):
-        ln = lattice_line(t, xy(t, *start), xy(t, *end), mover, neighbours=16, heuristic=h)
+        ln = lattice_line(t, xy(t, *start), xy(t, *end), mover, options=SearchOptions(neighbours=16, heuristic=h))
         assert ln.time_s == pytest.approx(ref, rel=1e-9)
 
 
@@ -246,9 +246,9 @@ def test_friction_drag_equals_pareto_reference(seed):
     sets = pareto_ref(z, 10.0, MOVER, (0, 0))
     ref = best_time(sets, (6, 7))
     for h in (True, False):
-        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, heuristic=h)
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8, heuristic=h))
         assert ln.time_s == pytest.approx(ref, rel=1e-9)
-    rm = reach(t, xy(t, 0, 0), MOVER, neighbours=8)
+    rm = reach(t, xy(t, 0, 0), MOVER, options=SearchOptions(neighbours=8))
     want = np.full(z.shape, np.nan)
     for n, labs in sets.items():
         want[n] = min(lab[0] for lab in labs)
@@ -263,24 +263,27 @@ def test_time_only_dijkstra_is_wrong_with_friction():
     exact = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
     wrong = time_only_ref(z, 10.0, MOVER, (0, 0), (6, 7))
     assert wrong > exact * 1.02
-    assert lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8).time_s == pytest.approx(exact, rel=1e-9)
+    assert lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER,
+                        options=SearchOptions(neighbours=8)).time_s == pytest.approx(exact, rel=1e-9)
     z = rough_dem(23)
     t = terrain_of(z)
     assert time_only_ref(z, 10.0, MOVER, (0, 0), (6, 7)) == math.inf
     exact = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
     assert math.isfinite(exact)
-    assert lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8).time_s == pytest.approx(exact, rel=1e-9)
+    assert lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER,
+                        options=SearchOptions(neighbours=8)).time_s == pytest.approx(exact, rel=1e-9)
 
 
 def test_cap_of_one_label_per_cell_is_the_time_only_dijkstra():
-    # max_per_cell=1 keeps the earliest arrival per cell: exactly the time-only search
+    # label_cap=1 keeps the earliest arrival per cell: exactly the time-only search
     for seed in (30, 68):
         z = rough_dem(seed)
         t = terrain_of(z)
-        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, max_per_cell=1, heuristic=False)
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER,
+                          options=SearchOptions(neighbours=8, label_cap=1, heuristic=False))
         assert ln.time_s == pytest.approx(time_only_ref(z, 10.0, MOVER, (0, 0), (6, 7)), rel=1e-9)
         assert ln.stats["exact"] is False
-        exact = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8)
+        exact = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8))
         assert exact.stats["exact"] is True and exact.time_s < ln.time_s
 
 
@@ -291,7 +294,7 @@ def test_reported_time_equals_retiming_the_points(n):
     r, c = np.mgrid[0:rows, 0:cols]
     z = 90.0 - 2.0 * r - 1.8 * c + rng.normal(scale=0.6, size=(rows, cols))
     t = terrain_of(z, 5.0)
-    ln = lattice_line(t, xy(t, 1, 1), xy(t, 18, 20), MOVER, neighbours=n)
+    ln = lattice_line(t, xy(t, 1, 1), xy(t, 18, 20), MOVER, options=SearchOptions(neighbours=n))
     # the points: cell centres plus break points on the bilinear interpolant
     np.testing.assert_allclose(t.sample_linear(ln.points[:, 0], ln.points[:, 1]), ln.points[:, 2], atol=1e-9)
     tt, v = retime(ln.points, MOVER)
@@ -308,8 +311,9 @@ def test_default_energy_tolerance_within_1e6_of_exact():
     z = 120.0 - 2.0 * r - 1.8 * c + rng.normal(scale=1.0, size=(rows, cols))
     t = terrain_of(z, 5.0)
     mover = Mover(mu=0.2, drag=0.01, v0=0.5, normal="gravity")
-    a = lattice_line(t, xy(t, 0, 0), xy(t, 29, 29), mover, neighbours=16)
-    b = lattice_line(t, xy(t, 0, 0), xy(t, 29, 29), mover, neighbours=16, energy_tol=0.0, heuristic=False)
+    a = lattice_line(t, xy(t, 0, 0), xy(t, 29, 29), mover, options=SearchOptions(neighbours=16))
+    b = lattice_line(t, xy(t, 0, 0), xy(t, 29, 29), mover,
+                     options=SearchOptions(neighbours=16, energy_tol=0.0, heuristic=False))
     assert abs(a.time_s - b.time_s) <= 1e-6 * b.time_s
     assert b.time_s <= a.time_s * (1 + 1e-12)  # zero tolerance is exact: never slower
 
@@ -326,7 +330,8 @@ def test_via_point_carries_the_pareto_set():
     naive = best_time(pareto_ref(z, 10.0, MOVER, (4, 2), seeds=[fastest]), (6, 7))
     assert naive > exact * 1.05
     for h in (True, False):
-        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, via=[xy(t, 4, 2)], neighbours=8, heuristic=h)
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, via=[xy(t, 4, 2)],
+                          options=SearchOptions(neighbours=8, heuristic=h))
         assert ln.time_s == pytest.approx(exact, rel=1e-9)
         assert [4, 2] in ln.cells.tolist()
 
@@ -337,7 +342,8 @@ def test_turn_limit_matches_reference_and_holds():
     sets = pareto_ref(z, 10.0, MOVER, (0, 0), max_turn=45.0)
     ref = best_time(sets, (6, 7))
     free = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
-    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, limits=Limits(max_step_turn_deg=45.0))
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, limits=Limits(max_step_turn_deg=45.0),
+                      options=SearchOptions(neighbours=8))
     assert ln.time_s == pytest.approx(ref, rel=1e-9)
     assert ref >= free
     steps = np.diff(ln.cells, axis=0)
@@ -352,7 +358,7 @@ def test_grade_window_matches_reference_and_holds():
     lim = Limits(min_grade=0.0, max_grade=0.5)
     ref = best_time(pareto_ref(z, 10.0, MOVER, (0, 0), min_grade=0.0, max_grade=0.5), (6, 7))
     assert ref > best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7)) * 1.1  # the window binds
-    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8, limits=lim)
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, limits=lim, options=SearchOptions(neighbours=8))
     assert ln.time_s == pytest.approx(ref, rel=1e-9)
     d = np.diff(ln.points, axis=0)
     grade = -d[:, 2] / np.hypot(d[:, 0], d[:, 1])
@@ -364,10 +370,10 @@ def test_max_speed_is_never_exceeded():
     # dominance rule is no longer exact in principle, see the kernel notes).
     z = rough_dem(30)
     t = terrain_of(z)
-    free = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, neighbours=8)
+    free = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8))
     assert np.nanmax(free.profile.speed_m_s) > 8.0
     capped = Mover(mu=MOVER.mu, drag=MOVER.drag, v0=MOVER.v0, normal="gravity", max_speed=8.0)
-    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), capped, neighbours=8)
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), capped, options=SearchOptions(neighbours=8))
     assert np.nanmax(ln.profile.speed_m_s) <= 8.0 + 1e-9
     assert ln.time_s > free.time_s
     assert retime(ln.points, MOVER)[0] == pytest.approx(ln.time_s, rel=1e-9)
@@ -385,7 +391,8 @@ def test_property_astar_equals_plain_equals_reference(noise, mu, drag, v0):
     got = []
     for h in (True, False):
         try:
-            got.append(lattice_line(t, xy(t, 0, 0), xy(t, 4, 5), mover, neighbours=8, heuristic=h).time_s)
+            got.append(lattice_line(t, xy(t, 0, 0), xy(t, 4, 5), mover,
+                                    options=SearchOptions(neighbours=8, heuristic=h)).time_s)
         except NoFeasibleLine:
             got.append(math.inf)
     if math.isinf(ref):
@@ -405,14 +412,14 @@ def _plane(rows=10, cols=12, gx=-0.2, gy=0.0):
 def test_uphill():
     t = terrain_of(_plane(), 5.0)
     with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, xy(t, 5, 11), xy(t, 5, 0), Mover(v0=1.0), neighbours=8)
+        lattice_line(t, xy(t, 5, 11), xy(t, 5, 0), Mover(v0=1.0), options=SearchOptions(neighbours=8))
     assert ei.value.reason == "uphill"
 
 
 def test_stall():
     t = terrain_of(_plane(gx=-0.1), 5.0)  # 10 % slope, mu 0.3: friction wins from rest
     with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3), neighbours=16)
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3), options=SearchOptions(neighbours=16))
     assert ei.value.reason == "stall"
     assert ei.value.closest is not None
 
@@ -420,7 +427,8 @@ def test_stall():
 def test_limits():
     t = terrain_of(_plane(gx=-0.2), 5.0)
     with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), neighbours=16, limits=Limits(min_grade=0.5))
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), limits=Limits(min_grade=0.5),
+                     options=SearchOptions(neighbours=16))
     assert ei.value.reason == "limits"
 
 
@@ -429,11 +437,11 @@ def test_keepout_wall_and_gap():
     wall = np.zeros(t.shape, dtype=bool)
     wall[:, 6] = True
     with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), neighbours=32, keepout=wall)
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), keepout=wall, options=SearchOptions(neighbours=32))
     assert ei.value.reason == "keepout"
     assert ei.value.closest[0] < xy(t, 5, 6)[0]  # stopped west of the wall
     wall[1, 6] = False  # a gap: the line must use it (long edges may not jump the wall)
-    ln = lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), neighbours=32, keepout=wall)
+    ln = lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), keepout=wall, options=SearchOptions(neighbours=32))
     rows, cols = t.rowcol(ln.points[:, 0], ln.points[:, 1])
     near_wall = np.abs(cols - 6) <= 0.5
     assert np.all(np.abs(rows[near_wall] - 1) <= 0.5)
@@ -444,10 +452,158 @@ def test_nodata_wall():
     z[:, 6] = np.nan
     t = terrain_of(z, 5.0)
     with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), neighbours=32)
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), options=SearchOptions(neighbours=32))
     assert ei.value.reason == "nodata"
     with pytest.raises(NoFeasibleLine, match="nodata"):
         lattice_line(t, xy(t, 5, 6), xy(t, 5, 11), Mover(mu=0.1))
+
+
+# ----------------------------------------------------------------------------- search domain, reasons, options
+
+def components(free):
+    """Connected parts of the free cells as the 8-neighbour lattice sees them (scipy.ndimage.label).
+
+    A diagonal step is passable only when both cells beside it are free too (it touches
+    all four cells of its square), so two free cells are linked on the 8-stencil exactly
+    when they are 4-connected: ``ndimage.label`` with its default cross structure.
+    """
+    from scipy import ndimage
+
+    return ndimage.label(free)[0]
+
+
+def test_domain_that_cuts_every_passage_is_blamed_on_the_corridor():
+    # Reference: scipy.ndimage.label shows the domain separates start from end while the
+    # whole grid connects them; the same search without the domain finds the line.
+    t = terrain_of(_plane(gx=-0.3), 5.0)
+    s, e = (5, 0), (5, 11)
+    domain = np.ones(t.shape, dtype=bool)
+    domain[:, 6] = False
+    lab = components(domain)
+    assert lab[s] != lab[e] and components(np.ones(t.shape, bool))[s] == components(np.ones(t.shape, bool))[e]
+    free = lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), options=SearchOptions(neighbours=32))
+    with pytest.raises(NoFeasibleLine, match="corridor") as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), allowed=domain, options=SearchOptions(neighbours=32))
+    assert ei.value.reason == "corridor"
+    assert ei.value.closest[0] < xy(t, 5, 6)[0]  # stopped west of the cut
+    # the same mask given as a keep-out is a keep-out
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=~domain, options=SearchOptions(neighbours=32))
+    assert ei.value.reason == "keepout"
+    # a domain with a passage: the line stays inside it and is no faster than the free one
+    domain[8, 6] = True
+    assert components(domain)[s] == components(domain)[e]
+    ln = lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), allowed=domain, options=SearchOptions(neighbours=32))
+    assert domain[ln.cells[:, 0], ln.cells[:, 1]].all() and ln.time_s >= free.time_s
+    assert ln.stats["state_cells"] == int(domain.sum())
+
+
+def test_keepout_inside_the_domain_is_blamed_on_the_keepout():
+    # A corridor (rows 2..8) with a keep-out wall across it; the keep-out also fills the
+    # rows outside the corridor (there it is irrelevant: those cells are not searched).
+    # Reference: scipy.ndimage.label - without the keep-out the corridor connects the
+    # points, with it it does not.
+    t = terrain_of(_plane(gx=-0.3), 5.0)
+    s, e = (5, 0), (5, 11)
+    domain = np.zeros(t.shape, dtype=bool)
+    domain[2:9, :] = True
+    keep = np.zeros(t.shape, dtype=bool)
+    keep[:, 6] = True
+    lab = components(domain & ~keep)
+    assert lab[s] != lab[e] and components(domain)[s] == components(domain)[e]
+    with pytest.raises(NoFeasibleLine, match="keep-out") as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=keep, allowed=domain,
+                     options=SearchOptions(neighbours=16))
+    assert ei.value.reason == "keepout"
+    # a gap in the wall outside the corridor only: still the keep-out, judged inside the domain
+    keep[0, 6] = False
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, *s), xy(t, *e), Mover(mu=0.1), keepout=keep, allowed=domain,
+                     options=SearchOptions(neighbours=16))
+    assert ei.value.reason == "keepout"
+    # a point outside the domain is refused before any search
+    with pytest.raises(NoFeasibleLine, match="outside the search domain") as ei:
+        lattice_line(t, xy(t, 0, 0), xy(t, *e), Mover(mu=0.1), allowed=domain)
+    assert ei.value.reason == "corridor"
+    with pytest.raises(NoFeasibleLine) as ei:
+        reach(t, xy(t, 0, 0), Mover(mu=0.1), allowed=domain)
+    assert ei.value.reason == "corridor"
+
+
+def test_diagnosis_tries_only_the_obstacles_that_stopped_an_edge(monkeypatch):
+    # A stall with a keep-out the search never reaches: the failed search ran exactly as
+    # it would without the keep-out, so the diagnosis does not search again without it.
+    # Reference: the reason is the one of the same case without any keep-out.
+    from fallway.lattice import search as S
+
+    t = terrain_of(_plane(gx=-0.1), 5.0)  # 10 % slope, mu 0.3: friction wins from rest
+    keep = np.zeros(t.shape, dtype=bool)
+    keep[0, 11] = True
+    with pytest.raises(NoFeasibleLine) as ref:
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3))
+    runs = []
+    run = S._Problem.run
+    monkeypatch.setattr(S._Problem, "run", lambda self, *a, **k: runs.append(1) or run(self, *a, **k))
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.3), keepout=keep)
+    assert ei.value.reason == ref.value.reason == "stall"
+    assert len(runs) == 1
+
+
+def test_reach_with_a_domain_equals_scipy_dijkstra():
+    # The domain (a diagonal corridor) and a few keep-out holes inside it: scipy's
+    # Dijkstra on the lattice of the cells both allow.
+    t, z, keep = corridor_case(seed=6)
+    rows, cols = z.shape
+    r, c = np.mgrid[0:rows, 0:cols]
+    domain = np.abs(r * (cols - 1) - c * (rows - 1)) / math.hypot(rows - 1, cols - 1) <= 5.0
+    holes = keep & domain
+    mover = Mover(v0=1.5, normal="gravity")
+    e0 = mover.v0 ** 2 + 2 * G * z[0, 0]
+    ref = dijkstra(frictionless_graph16(z, 4.0, domain & ~holes, e0), indices=0).reshape(z.shape)
+    rm = reach(t, xy(t, 0, 0), mover, keepout=holes, allowed=domain, options=SearchOptions(neighbours=16))
+    ok = np.isfinite(ref)
+    assert ok.sum() > 200
+    assert np.array_equal(ok, np.isfinite(rm.time_s))
+    np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
+    assert rm.stats["state_cells"] == int((domain & ~holes).sum())
+
+
+def test_label_budget_has_its_own_reason():
+    # Reference: the same search without a budget finds the line, so the budget is what
+    # stopped it; callers branch on the reason, not on the message.
+    z = rough_dem(30)
+    t = terrain_of(z)
+    full = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8))
+    assert full.stats["labels_created"] > 20
+    with pytest.raises(NoFeasibleLine) as ei:
+        lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8, max_labels=20))
+    assert ei.value.reason == "label_budget" and ei.value.closest is not None
+    assert "label budget of 20" in str(ei.value)
+    rm = reach(t, xy(t, 0, 0), MOVER, options=SearchOptions(neighbours=8, max_labels=20))
+    assert rm.stats["complete"] is False
+
+
+def test_fronts_check_their_options():
+    # Reference: the keywords each front declares (inspect.signature); the old search
+    # keywords now live on SearchOptions and are refused by name.
+    import inspect
+
+    t = terrain_of(_plane(), 5.0)
+    a, b = xy(t, 5, 0), xy(t, 5, 11)
+    assert [p for p in inspect.signature(lattice_line).parameters][-5:] == ["via", "limits", "keepout", "allowed",
+                                                                           "options"]
+    with pytest.raises(ParameterError, match="lattice_line: unknown option neighbours; allowed: via, limits, "
+                                             "keepout, allowed, options"):
+        lattice_line(t, a, b, Mover(), neighbours=8)
+    with pytest.raises(ParameterError, match="reach: unknown option max_per_cell"):
+        reach(t, a, Mover(), max_per_cell=2)
+    with pytest.raises(ParameterError, match="must be a fallway.SearchOptions"):
+        lattice_line(t, a, b, Mover(), options={"neighbours": 8})
+    with pytest.raises(ParameterError, match="allowed mask must have the terrain's shape"):
+        lattice_line(t, a, b, Mover(), allowed=np.ones((2, 2), bool))
+    with pytest.raises(ParameterError, match="bool mask"):
+        lattice_line(t, a, b, Mover(), allowed=np.ones(t.shape))
 
 
 def test_points_outside_the_grid():
@@ -493,10 +649,10 @@ def test_speed_cap_that_does_not_bind_gives_the_exact_answer(seed):
     # enumeration of simple paths on a small lattice.
     z = rough_dem(seed, rows=4, cols=5)
     t = terrain_of(z)
-    free = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), MOVER, neighbours=8)
+    free = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), MOVER, options=SearchOptions(neighbours=8))
     vmax = float(np.nanmax(free.profile.speed_m_s))
     capped = Mover(mu=MOVER.mu, drag=MOVER.drag, v0=MOVER.v0, normal="gravity", max_speed=vmax * 1.01)
-    ln = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), capped, neighbours=8)
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), capped, options=SearchOptions(neighbours=8))
     assert ln.stats["speed_cap_binding"] is False
     ref = brute_force_capped(z, 10.0, capped, (0, 0), (3, 4))
     assert ln.time_s == pytest.approx(ref, rel=1e-9)
@@ -504,7 +660,7 @@ def test_speed_cap_that_does_not_bind_gives_the_exact_answer(seed):
     tight = Mover(mu=MOVER.mu, drag=MOVER.drag, v0=MOVER.v0, normal="gravity", max_speed=vmax * 0.9)
     ref_t = brute_force_capped(z, 10.0, tight, (0, 0), (3, 4))
     try:
-        ln = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), tight, neighbours=8)
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), tight, options=SearchOptions(neighbours=8))
     except NoFeasibleLine:
         assert ref_t == math.inf or ref_t > 0    # heuristic may miss a line; says so
     else:
@@ -585,7 +741,7 @@ def test_corridor_reach_frictionless_16_equals_scipy_dijkstra():
     e0 = mover.v0 ** 2 + 2 * G * z[start]
     ref = dijkstra(frictionless_graph16(z, 4.0, ~keep, e0), indices=start[0] * z.shape[1] + start[1])
     ref = ref.reshape(z.shape)
-    rm = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep)
+    rm = reach(t, xy(t, *start), mover, keepout=keep, options=SearchOptions(neighbours=16))
     ok = np.isfinite(ref)
     assert ok.sum() > 200  # the corridor is really searched
     assert np.array_equal(ok, np.isfinite(rm.time_s))
@@ -605,13 +761,13 @@ def test_reach_time_cutoff_equals_scipy_dijkstra_limit():
     t_max = float(np.nanmedian(full[np.isfinite(full)]))
     # scipy: nodes farther than ``limit`` are left at inf
     ref = dijkstra(g, indices=0, limit=t_max).reshape(z.shape)
-    rm = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep, max_time_s=t_max)
+    rm = reach(t, xy(t, *start), mover, keepout=keep, max_time_s=t_max, options=SearchOptions(neighbours=16))
     ok = np.isfinite(ref)
     assert 50 < ok.sum() < np.isfinite(full).sum()
     assert np.array_equal(ok, np.isfinite(rm.time_s))
     np.testing.assert_allclose(rm.time_s[ok], ref[ok], rtol=1e-9, atol=1e-12)
     assert np.nanmax(rm.time_s) <= t_max
-    uncut = reach(t, xy(t, *start), mover, neighbours=16, keepout=keep)
+    uncut = reach(t, xy(t, *start), mover, keepout=keep, options=SearchOptions(neighbours=16))
     assert rm.stats["labels_created"] < uncut.stats["labels_created"]
     assert rm.stats["labels_cut_off"] > 0 and uncut.stats["labels_cut_off"] == 0
 
@@ -633,9 +789,9 @@ def test_friction_reach_cutoff_is_the_full_reach_masked(mover):
     # before any later one, so the cut search reproduces the full one up to t_max
     t = hills_terrain()
     start = t.cell_center(5, 5)
-    full = reach(t, start, mover, neighbours=16)
+    full = reach(t, start, mover, options=SearchOptions(neighbours=16))
     t_max = float(np.nanpercentile(full.time_s, 40))
-    cut = reach(t, start, mover, neighbours=16, max_time_s=t_max)
+    cut = reach(t, start, mover, max_time_s=t_max, options=SearchOptions(neighbours=16))
     early = full.time_s <= t_max
     assert early.sum() > 100
     assert np.array_equal(np.isfinite(cut.time_s), early)
@@ -644,14 +800,14 @@ def test_friction_reach_cutoff_is_the_full_reach_masked(mover):
     assert cut.stats["labels_settled"] < full.stats["labels_settled"]
 
 
-def _run_both(t, mover, keep, start, targets, limits=None, max_per_cell=None, heuristic=True):
+def _run_both(t, mover, keep, start, targets, limits=None, label_cap=None, heuristic=True):
     from fallway.lattice.search import _Problem
 
     prob = _Problem(t, mover, 16, limits, keep)
     out = []
     for compact in (True, False):
         res = prob.run(start, targets, heuristic=heuristic, energy_tol=None, max_labels=None,
-                       max_per_cell=max_per_cell, compact=compact)
+                       label_cap=label_cap, compact=compact)
         chain = []
         p = res["final"]
         while p >= 0:
@@ -669,7 +825,7 @@ def test_compact_and_full_window_layouts_give_identical_searches(case):
     start, end, via = 0, z.size - 1, 15 * cols + 18
     keep.ravel()[via] = False
     kw = dict(plain={}, via={"targets": [via, end]}, turn={"limits": Limits(max_step_turn_deg=50.0)},
-              cap={"max_per_cell": 1}, reach={"targets": []})[case]
+              cap={"label_cap": 1}, reach={"targets": []})[case]
     targets = kw.pop("targets", [end])
     (a, ca), (b, cb) = _run_both(t, mover, keep, start, targets, **kw)
     assert a["stats"]["state_cells"] == int((~keep).sum())
@@ -702,7 +858,7 @@ def test_property_compact_equals_full_and_cutoff_equals_masked(noise, holes, mu,
     if not np.isfinite(full).sum() > 1:
         return
     t_max = float(np.nanquantile(full[full > 0], frac))
-    cut = reach(t, xy(t, 0, 0), mover, neighbours=16, keepout=keep, max_time_s=t_max)
+    cut = reach(t, xy(t, 0, 0), mover, keepout=keep, max_time_s=t_max, options=SearchOptions(neighbours=16))
     early = full <= t_max
     assert np.array_equal(np.isfinite(cut.time_s), early)
     assert np.array_equal(cut.time_s[early], full[early])

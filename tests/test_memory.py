@@ -24,6 +24,7 @@ PROBE = textwrap.dedent('''
     import gc, json, sys
     import numpy as np
     import fallway.lattice.search as S
+    from fallway.params import SearchOptions
     from fallway.physics import Mover
     from fallway.scale import search_memory_bytes
     from fallway.terrain import Terrain
@@ -37,8 +38,9 @@ PROBE = textwrap.dedent('''
     cell = 2.0
     small = Terrain.from_array(100.0 - 0.3 * np.add.outer(np.arange(20.0), np.arange(20.0)),
                                (cell, 0, 0, 0, -cell, 40.0))
-    S.lattice_line(small, (1, 39), (39, 1), Mover(mu=0.1, drag=0.001), max_per_cell=2)
-    S.reach(small, (1, 39), Mover(), max_per_cell=2)
+    cap2 = SearchOptions(label_cap=2)
+    S.lattice_line(small, (1, 39), (39, 1), Mover(mu=0.1, drag=0.001), options=cap2)
+    S.reach(small, (1, 39), Mover(), options=cap2)
     gc.collect()
     with open("/proc/self/clear_refs", "w") as fh:  # reset the peak (VmHWM) to the current RSS
         fh.write("5")
@@ -54,9 +56,9 @@ PROBE = textwrap.dedent('''
     mover = Mover(mu=0.15, drag=0.001)
     if mode == "route":
         st = S.lattice_line(t, (1.0, n * cell - 1.0), (n * cell - 1.0, 1.0), mover, keepout=keep,
-                            max_per_cell=2).stats
+                            options=cap2).stats
     else:
-        st = S.reach(t, (1.0, n * cell - 1.0), mover, keepout=keep, max_per_cell=2).stats
+        st = S.reach(t, (1.0, n * cell - 1.0), mover, keepout=keep, options=cap2).stats
     peak = status("VmHWM")
     states = st["state_cells"]
     est = search_memory_bytes(n * n, active_cells=states, max_per_cell=2,

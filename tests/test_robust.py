@@ -19,8 +19,8 @@ import numpy as np
 import pytest
 
 from fallway.errors import NoFeasibleLine, ParameterError
-from fallway.lattice.robust import robust_lattice_line
-from fallway.lattice.search import lattice_line
+from fallway.lattice.search import lattice_line, robust_lattice_line
+from fallway.params import SearchOptions
 from fallway.physics import Mover, traverse
 from fallway.terrain import Terrain
 
@@ -167,7 +167,8 @@ def run_case(z, lo, mu, hi, v0, vmax, energy_tol=0.0):
     start, end = (0, 0), (z.shape[0] - 1, z.shape[1] - 1)
     mover = Mover(mu=mu, v0=v0, max_speed=vmax, normal="gravity")
     try:
-        ln = robust_lattice_line(t, xy(t, start), xy(t, end), mover, lo, hi, neighbours=8, energy_tol=energy_tol)
+        ln = robust_lattice_line(t, xy(t, start), xy(t, end), mover, lo, hi,
+                                 options=SearchOptions(neighbours=8, energy_tol=energy_tol))
     except NoFeasibleLine:
         # no robust simple path either (walks: see module notes of the kernel)
         assert brute_force(z, start, end, lo, mu, hi, v0, vmax)[1] is None
@@ -197,8 +198,8 @@ def test_robust_answer_differs_where_the_nominal_optimum_is_not_robust(seed, noi
                                                                        failure):
     z = random_dem(seed, noise=noise, tilt=tilt)
     t = terrain_of(z)
-    nominal = lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), Mover(mu=mu, v0=v0, normal="gravity"), neighbours=8,
-                           energy_tol=0.0)
+    nominal = lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), Mover(mu=mu, v0=v0, normal="gravity"),
+                           options=SearchOptions(neighbours=8, energy_tol=0.0))
     if failure == "stall":  # the ordinary optimum stalls at HI ...
         assert traverse(nominal.points, Mover(mu=hi, v0=v0, normal="gravity")).stalled_at_m is not None
     else:  # ... or is over the speed limit at LO
@@ -222,8 +223,9 @@ def test_zero_width_range_equals_the_ordinary_search():
     z = random_dem(11, 6, 7)
     t = terrain_of(z)
     m = Mover(mu=0.15, v0=1.0, normal="gravity")
-    a = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (5, 6)), m, 0.15, 0.15, neighbours=16, energy_tol=0.0)
-    b = lattice_line(t, xy(t, (0, 0)), xy(t, (5, 6)), m, neighbours=16, energy_tol=0.0)
+    a = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (5, 6)), m, 0.15, 0.15,
+                            options=SearchOptions(neighbours=16, energy_tol=0.0))
+    b = lattice_line(t, xy(t, (0, 0)), xy(t, (5, 6)), m, options=SearchOptions(neighbours=16, energy_tol=0.0))
     assert a.time_s == pytest.approx(b.time_s, rel=1e-12)
     check_line_at_three(a, m, 0.15, 0.15)
 
@@ -234,9 +236,10 @@ def test_sixteen_neighbours_default_tolerance_and_keepout():
     keep = np.zeros(z.shape, dtype=bool)
     keep[2:6, 3] = True
     m = Mover(mu=0.12, v0=1.0, normal="gravity")
-    ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (7, 8)), m, 0.05, 0.25, neighbours=16, keepout=keep)
-    exact = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (7, 8)), m, 0.05, 0.25, neighbours=16, keepout=keep,
-                                energy_tol=0.0)
+    ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (7, 8)), m, 0.05, 0.25, keepout=keep,
+                             options=SearchOptions(neighbours=16))
+    exact = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (7, 8)), m, 0.05, 0.25, keepout=keep,
+                                options=SearchOptions(neighbours=16, energy_tol=0.0))
     assert ln.time_s == pytest.approx(exact.time_s, rel=1e-9)
     assert not keep[ln.cells[:, 0], ln.cells[:, 1]].any()
     check_line_at_three(ln, m, 0.05, 0.25)
@@ -247,9 +250,10 @@ def test_no_robust_line_and_bad_input():
     t = terrain_of(np.zeros((3, 4)))
     m = Mover(mu=0.1, v0=0.5, normal="gravity")
     with pytest.raises(NoFeasibleLine):
-        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.0, 0.5, neighbours=8)
+        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.0, 0.5, options=SearchOptions(neighbours=8))
     with pytest.raises(ParameterError):
-        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.2, 0.5, neighbours=8)  # mu outside range
+        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (2, 3)), m, 0.2, 0.5,
+                            options=SearchOptions(neighbours=8))  # mu outside range
 
 
 # --------------------------------------------------------------------------- speed-ups
@@ -303,8 +307,9 @@ def test_turn_limit_equals_brute_force(seed):
     m = Mover(mu=mu, v0=v0, max_speed=vmax, normal="gravity")
     ref_t, ref_path = _turn_brute_force(z, (0, 0), (3, 4), lo, mu, hi, v0, vmax, 45.0)
     try:
-        ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, lo, hi, neighbours=8,
-                                 limits=Limits(max_step_turn_deg=45.0), energy_tol=0.0)
+        ln = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, lo, hi,
+                                 limits=Limits(max_step_turn_deg=45.0),
+                                 options=SearchOptions(neighbours=8, energy_tol=0.0))
     except NoFeasibleLine:
         assert ref_path is None
         return
@@ -361,16 +366,24 @@ def test_lo_floor_equals_a_scipy_dijkstra_from_every_cell():
     g = sp.csr_matrix((ww, (jj, ii)), shape=(n + 1, n + 1))  # reversed: distances run n -> a
     ref = dijkstra(g.T.tocsr(), indices=n)[:n] + shift
     p = _Problem(t, Mover(mu=mu, normal="gravity"), 16, None, np.zeros(z.shape, bool))
-    got = lo_floor(p.z, p.blocked, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
+    cidx, nact = p.index()
+    got = lo_floor(p.z, p.blocked, cidx, nact, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
                    p.brk_fa, p.brk_fb, p.brk_w, p.tch_start, p.tch_flat, mu)
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-9)
     # a blocked cell is never a target: it gets inf
     keep = np.zeros(z.shape, bool)
     keep[3, 4] = True
     p = _Problem(t, Mover(mu=mu, normal="gravity"), 16, None, keep)
-    got = lo_floor(p.z, p.blocked, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
+    # compact layout: the blocked cell has no entry at all
+    cidx, nact = p.index()
+    got = lo_floor(p.z, p.blocked, cidx, nact, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
                    p.brk_fa, p.brk_fb, p.brk_w, p.tch_start, p.tch_flat, mu)
-    assert math.isinf(got[3 * cols + 4]) and np.isfinite(np.delete(got, 3 * cols + 4)).all()
+    assert nact == rows * cols - 1 and cidx[3 * cols + 4] == -1 and np.isfinite(got).all()
+    # full-window layout: the blocked cell is never a target, it gets inf
+    cidx, nact = p.index(compact=False)
+    full = lo_floor(p.z, p.blocked, cidx, nact, p.rows, p.cols, p.cell, p.off_dr, p.off_dc, p.off_plan, p.brk_start,
+                    p.brk_fa, p.brk_fb, p.brk_w, p.tch_start, p.tch_flat, mu)
+    assert math.isinf(full[3 * cols + 4]) and np.array_equal(np.delete(full, 3 * cols + 4), got)
 
 
 def test_a_star_order_and_label_cap():
@@ -382,21 +395,108 @@ def test_a_star_order_and_label_cap():
     m = Mover(mu=0.15, v0=1.0, max_speed=11.8, normal="gravity")
     free = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), Mover(mu=0.15, v0=1.0, normal="gravity"), 0.1, 0.25)
     assert traverse(free.points, Mover(mu=0.1, v0=1.0, normal="gravity")).speed_m_s.max() > 11.8
-    a = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16)
-    b = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, heuristic=False)
+    a = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, options=SearchOptions(neighbours=16))
+    b = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25,
+                            options=SearchOptions(neighbours=16, heuristic=False))
     assert a.time_s == pytest.approx(b.time_s, rel=1e-9)
     assert a.stats["labels_settled"] <= b.stats["labels_settled"]
     assert a.stats["exact"] and a.stats["label_cap"] is None
     assert a.time_s > free.time_s
     check_line_at_three(a, m, 0.1, 0.25)
     # an energy resolution of 1 % of the limit squared: fewer labels, a robust line, no faster
-    c = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, neighbours=16, resolution=0.01)
+    c = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), m, 0.1, 0.25, resolution=0.01,
+                            options=SearchOptions(neighbours=16))
     assert c.time_s >= a.time_s * (1 - 1e-12) and not c.stats["exact"]
     assert c.stats["labels_settled"] < a.stats["labels_settled"]
     check_line_at_three(c, m, 0.1, 0.25)
     # a cap of one label per state without a speed limit: robust, no faster than exact
     free_m = Mover(mu=0.15, v0=1.0, normal="gravity")
-    d = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), free_m, 0.1, 0.25, max_per_cell=1)
+    d = robust_lattice_line(t, xy(t, (0, 0)), xy(t, (9, 11)), free_m, 0.1, 0.25, options=SearchOptions(label_cap=1))
     assert d.time_s >= free.time_s * (1 - 1e-12)
     assert d.stats["label_cap"] == 1 and d.stats["exact"] == (d.stats["labels_capped"] == 0)
     check_line_at_three(d, free_m, 0.1, 0.25)
+
+
+# --------------------------------------------------------------------------- compact state, reasons, options
+
+def corridor_dem(seed=3, rows=12, cols=14):
+    """A rough slope, a diagonal corridor of keep-out outside it and a few holes inside."""
+    rng = np.random.default_rng(seed)
+    z = random_dem(seed, rows, cols, noise=0.3, tilt=0.45)
+    r, c = np.mgrid[0:rows, 0:cols]
+    keep = np.abs(r * (cols - 1) - c * (rows - 1)) / math.hypot(rows - 1, cols - 1) > 3.0
+    keep |= rng.random((rows, cols)) < 0.08
+    keep[0, 0] = keep[-1, -1] = False
+    return z, keep
+
+
+@pytest.mark.parametrize("case", ["plain", "speed", "turn", "cap", "resolution"])
+def test_robust_compact_state_equals_full_window_state(case):
+    # Reference: the full-window layout (per-state arrays and the LO floor sized for
+    # every cell of the window, index = flat index: the layout before the compact
+    # state).  Same labels in the same order: same counters, same chain, same energies.
+    from fallway.lattice.search import _Problem
+    from fallway.params import Limits
+
+    z, keep = corridor_dem()
+    t = terrain_of(z)
+    vmax = {"speed": 14.3, "resolution": 14.3}.get(case)  # binds: the free optimum reaches 14.44 m/s at LO
+    m = Mover(mu=0.15, v0=1.0, max_speed=vmax, normal="gravity")
+    limits = Limits(max_step_turn_deg=50.0) if case == "turn" else None
+    prob = _Problem(t, m, 16, limits, keep)
+    start, end = 0, z.size - 1
+    kw = dict(heuristic=True, energy_tol=None, max_labels=None, label_cap=2 if case == "cap" else None,
+              resolution=0.01 if case == "resolution" else 0.0)
+    out = []
+    for compact in (True, False):
+        res = prob.run_robust(start, end, 0.1, 0.3, compact=compact, **kw)
+        chain, p = [], res["final"]
+        while p >= 0:
+            chain.append((int(res["node"][p]), float(res["t"][p]), tuple(res["e"][p].tolist())))
+            p = int(res["parent"][p])
+        out.append((res, chain))
+    (a, ca), (b, cb) = out
+    assert a["stats"]["state_cells"] == int((~keep).sum()) < z.size == b["stats"]["state_cells"]
+    assert a["status"] == b["status"] == 0 and len(ca) > 5
+    assert np.array_equal(a["counters"], b["counters"])
+    assert ca == cb
+    assert not keep.ravel()[[n for n, _, _ in ca]].any()
+
+
+def test_robust_reasons_keepout_corridor_and_label_budget():
+    # Reference: scipy.ndimage.label (4-connectivity, what the 8-stencil's diagonal rule
+    # makes of the free cells) shows the obstacle cuts start from end; the search
+    # without it finds a robust line.
+    from scipy import ndimage
+
+    z = random_dem(0, 6, 8, noise=0.1, tilt=0.6)
+    t = terrain_of(z)
+    m = Mover(mu=0.15, v0=1.0, normal="gravity")
+    s, e = xy(t, (0, 0)), xy(t, (5, 7))
+    wall = np.zeros(z.shape, dtype=bool)
+    wall[:, 4] = True
+    assert ndimage.label(~wall)[0][0, 0] != ndimage.label(~wall)[0][5, 7]
+    free = robust_lattice_line(t, s, e, m, 0.1, 0.25, options=SearchOptions(neighbours=8))
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, keepout=wall, options=SearchOptions(neighbours=8))
+    assert ei.value.reason == "keepout"
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, allowed=~wall, options=SearchOptions(neighbours=8))
+    assert ei.value.reason == "corridor"
+    assert free.stats["labels_created"] > 10
+    with pytest.raises(NoFeasibleLine) as ei:
+        robust_lattice_line(t, s, e, m, 0.1, 0.25, options=SearchOptions(neighbours=8, max_labels=10))
+    assert ei.value.reason == "label_budget" and "label budget of 10" in str(ei.value)
+
+
+def test_robust_front_checks_its_options():
+    # Reference: the keywords the front declares (inspect.signature)
+    import inspect
+
+    t = terrain_of(random_dem(1))
+    m = Mover(mu=0.1, v0=0.5, normal="gravity")
+    kws = [p.name for p in inspect.signature(robust_lattice_line).parameters.values() if p.kind == p.KEYWORD_ONLY]
+    assert kws == ["limits", "keepout", "allowed", "options", "resolution"]
+    with pytest.raises(ParameterError, match="robust_lattice_line: unknown option max_per_cell; allowed: limits, "
+                                             "keepout, allowed, options, resolution"):
+        robust_lattice_line(t, xy(t, (0, 0)), xy(t, (3, 4)), m, 0.05, 0.2, max_per_cell=1)

@@ -46,15 +46,39 @@ class OutputExistsError(FallwayIOError):
 class NoFeasibleLine(FallwayError):
     """No line satisfies the physics and the limits.
 
+    Callers branch on ``reason``, never on the message text.
+
     Parameters
     ----------
     message : str
         What stopped every line, and what to try.
     reason : str
-        One of ``"stall"``, ``"limits"``, ``"keepout"``, ``"nodata"``, ``"uphill"``,
-        ``"unreachable"``.
+        What stopped it, one of:
+
+        * ``"stall"`` - friction and drag take all the energy (in the robust search: at
+          the high friction);
+        * ``"limits"`` - the grade, turn or speed limits (in the robust search also: too
+          fast at the low friction);
+        * ``"keepout"`` - keep-out areas (a point in one, or a line exists once the
+          keep-out inside the search domain is lifted);
+        * ``"nodata"`` - nodata cells (a point on one, or a line exists once they are
+          filled);
+        * ``"uphill"`` - a point lies above the start's energy height, or every line
+          would climb too high;
+        * ``"unreachable"`` - no lattice line connects the points, for none of the
+          reasons above;
+        * ``"corridor"`` - the search domain (e.g. a corridor): a point lies outside it,
+          or a line exists only once it is lifted;
+        * ``"label_budget"`` - the search spent its label budget first (raise it, cap
+          the labels per state, or coarsen the grid).
     closest : tuple of float, optional
         Map coordinates (x, y) of the reached cell nearest to the target.
+
+    Examples
+    --------
+    >>> err = NoFeasibleLine("label budget of 20 exhausted", reason="label_budget")
+    >>> err.reason
+    'label_budget'
     """
 
     def __init__(self, message: str, *, reason: str = "unreachable",

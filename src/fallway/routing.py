@@ -42,8 +42,7 @@ from .errors import NoFeasibleLine, ParameterError, RefinementWarning, TerrainEr
 from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, enters_keepout, envelope, row_for_line
 from .geometry import drop_repeats, min_radius_m, raised_heights_m
 from .keepout import Keepout
-from .lattice.robust import robust_lattice_line
-from .lattice.search import lattice_line
+from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
 from .params import Limits, LineSpec, Mover, SearchOptions, checked_options
 from .physics import check_mu_range, traverse

@@ -1,16 +1,21 @@
-"""The label-setting search on the terrain lattice (numba; flat arrays, status codes).
+"""The ordinary label-setting search on the terrain lattice (numba; flat arrays, status codes).
 
 One kernel serves the reach map (no target), point-to-point queries and chains of via
 points.  Nothing here raises or allocates Python objects per edge; the Python front
-(:mod:`fallway.lattice.search`) validates the inputs and translates the status.
+(:mod:`fallway.lattice.search`) validates the inputs and translates the status.  The
+heap, the label pool, the edge walk and the compact index are the shared compiled core
+(:mod:`fallway.lattice.core`); this module holds what is the ordinary search's own:
+labels with one energy, the O(1) dominance test, via legs, the reach mode and the time
+cut-off.
 
 Labels
 ------
 A label is (t, v², node, parent, leg, heading): arrival time, squared speed, the flat cell
 index, the label it was extended from, the index of the via-leg it belongs to and the
 stencil offset of the step that led to it (-1 at the start; used only with a turn
-limit).  Labels live in a pool of parallel arrays that doubles when full; the binary heap
-holds pool indices keyed by t (+ the A* bound).
+limit).  Labels live in the core's pool of parallel arrays that doubles when full (the
+energy in ``Le[:, 0]``, the leg in the int8 ``Laux``); the binary heap holds pool indices
+keyed by t (+ the A* bound).
 
 Dominance: label 1 dominates label 2 at the same (leg, node [, heading]) when
 ``t1 <= t2`` and ``v2_1 >= v2_2 - tol``.  It is sound because on every segment the exit
@@ -53,7 +58,7 @@ The per-state arrays (``emax``, ``open_t``, ``open_v2``, ``nset``) and, in reach
 cell of the window: ``cidx`` (int32, one per window cell) maps a cell to its compact
 index, -1 where it is blocked (nodata, keep-out, outside a corridor).  A corridor a tenth
 of its bounding window thus needs a tenth of the state.  The window-sized inputs are the
-heights (float64), the blocked flags (bool, read on the hot edge test because a byte
+heights (float64), the blocked codes (uint8, read on the hot edge test because a byte
 array is kinder to the cache than the int32 map) and ``cidx``.  Labels store the window
 flat index of their node (int32) and their parent's pool index (int32); the heap holds
 int32 pool indices.  A blocked cell is never the end of an edge (its touched cells
@@ -63,9 +68,10 @@ as with the full-window layout (``cidx`` = flat index; checked in the tests).  W
 nothing blocked the compact index is the flat index: the kernel then skips the lookup
 (``nact == rows * cols``) and the front passes a one-element dummy map.
 
-Pushing a label is one helper, :func:`_push_label` (write the pool entry, queue it),
-preceded by :func:`_make_room` only when the pool or the heap is full; the arrays are
-returned only from that rare branch, so the hot path does no reference counting.
+Pushing a label is one helper, :func:`fallway.lattice.core.push_label` (write the pool
+entry, queue it), preceded by :func:`fallway.lattice.core.make_room` only when the pool
+or the heap is full; the arrays are returned only from that rare branch, so the hot path
+does no reference counting.
 
 Float precision: all times, squared speeds and heap keys stay float64.  ``emax`` and
 ``open_v2`` are compared with a tolerance of ``1e-10`` relative (default), far below
@@ -91,140 +97,18 @@ import math
 import numpy as np
 from numba import njit
 
-from .._segment import segment_law
+from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL,
+                   C_TURN, C_UPHILL, LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_STALL, N_COUNTERS, NOT_REACHED, OK,
+                   astar_bound, count_blocked, heap_pop, law_step, make_room, new_pool, passable, push_label,
+                   state_of, sub_count, sub_segment)
 
-# status codes
-OK = 0
-NOT_REACHED = 1
-LABEL_BUDGET = 2
-
-# counters (index into the returned int64 array)
-C_CREATED = 0
-C_SETTLED = 1
-C_DOMINATED = 2
-C_GRID = 3
-C_BLOCKED = 4
-C_GRADE = 5
-C_STALL = 6
-C_SPEED = 7
-C_TURN = 8
-C_UPHILL = 9
-C_CAPPED = 10
-C_CUTOFF = 11
-N_COUNTERS = 12
-
-
-@njit(cache=True, nogil=True)
-def _heap_push(hkey, hidx, size, key, idx):
-    i = size
-    while i > 0:
-        p = (i - 1) >> 1
-        if hkey[p] <= key:
-            break
-        hkey[i] = hkey[p]
-        hidx[i] = hidx[p]
-        i = p
-    hkey[i] = key
-    hidx[i] = idx
-    return size + 1
-
-
-@njit(cache=True, nogil=True)
-def _heap_pop(hkey, hidx, size):
-    top = hidx[0]
-    size -= 1
-    if size > 0:
-        key = hkey[size]
-        idx = hidx[size]
-        i = 0
-        while True:
-            c = 2 * i + 1
-            if c >= size:
-                break
-            if c + 1 < size and hkey[c + 1] < hkey[c]:
-                c += 1
-            if hkey[c] >= key:
-                break
-            hkey[i] = hkey[c]
-            hidx[i] = hidx[c]
-            i = c
-        hkey[i] = key
-        hidx[i] = idx
-    return top, size
-
-
-@njit(cache=True, nogil=True)
-def _grow_f8(a, n):
-    b = np.empty(n, dtype=a.dtype)
-    b[: a.shape[0]] = a
-    return b
-
-
-@njit(cache=True, nogil=True)
-def _grow_i4(a, n):
-    b = np.empty(n, dtype=a.dtype)
-    b[: a.shape[0]] = a
-    return b
-
-
-@njit(cache=True, nogil=True)
-def _grow_i1(a, n):
-    b = np.empty(n, dtype=a.dtype)
-    b[: a.shape[0]] = a
-    return b
-
-
-@njit(cache=True, nogil=True)
-def _heuristic(node, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v):
-    if inv_v == 0.0:
-        return 0.0
-    r = node // cols
-    c = node - r * cols
-    dx = (c - tgt_c[leg]) * cell
-    dy = (r - tgt_r[leg]) * cell
-    dz = z[node] - tgt_z[leg]
-    return (math.sqrt(dx * dx + dy * dy + dz * dz) + remaining[leg]) * inv_v
-
-
-
-@njit(cache=True, nogil=True)
-def _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize):
-    """Double the label pool and/or the heap when full (the rare branch of a push)."""
-    if n_lab >= Lt.shape[0]:
-        cap = 2 * Lt.shape[0]
-        Lt = _grow_f8(Lt, cap)
-        Lv2 = _grow_f8(Lv2, cap)
-        Lnode = _grow_i4(Lnode, cap)
-        Lpar = _grow_i4(Lpar, cap)
-        Lleg = _grow_i1(Lleg, cap)
-        Lhd = _grow_i1(Lhd, cap)
-    if hsize >= hkey.shape[0]:
-        hcap = 2 * hkey.shape[0]
-        hkey = _grow_f8(hkey, hcap)
-        hidx = _grow_i4(hidx, hcap)
-    return Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx
-
-
-@njit(cache=True, nogil=True)
-def _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, q, hsize, t, v2, node, parent, leg, hd, key):
-    """Write label ``q`` into the pool and queue it under ``key``; returns the heap size.
-
-    The caller makes room first (:func:`_make_room`); the arrays are not returned, so
-    the hot path does no reference counting on them.
-    """
-    Lt[q] = t
-    Lv2[q] = v2
-    Lnode[q] = node
-    Lpar[q] = parent
-    Lleg[q] = leg
-    Lhd[q] = hd
-    return _heap_push(hkey, hidx, hsize, key, q)
+__all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
 
 
 @njit(cache=True, nogil=True)
 def search(z, blocked, cidx, nact, rows, cols, cell,
-           off_dr, off_dc, off_plan,
-           brk_start, brk_u, brk_fa, brk_fb, brk_w,
+           off_dr, off_dc,
+           brk_start, brk_fa, brk_fb, brk_w, sub_plan,
            tch_start, tch_flat,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
@@ -233,18 +117,19 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
-    cell (``0 .. nact - 1``) and -1 for a blocked one (nodata, keep-out, outside the
-    corridor); the per-state arrays have ``nact`` entries per leg and heading.  With
-    ``nact == rows * cols`` (nothing blocked) the index is the flat index and ``cidx``
-    is not read (it may be a one-element dummy).
+    cell (``0 .. nact - 1``) and -1 for a blocked one (``blocked`` nonzero: nodata,
+    keep-out, outside the search domain); the per-state arrays have ``nact`` entries per
+    leg and heading.  With ``nact == rows * cols`` (nothing blocked) the index is the
+    flat index and ``cidx`` is not read (it may be a one-element dummy).
     ``targets`` empty: reach mode (every cell, no heuristic; ``best_t``/``best_v2`` are
     indexed by compact index).  Otherwise the legs end at ``targets[i]`` (flat
     indices) and the search stops at the first label settled at the last target.
     ``brk_fa``/``brk_fb``/``tch_flat`` are flat index offsets from the edge's start cell
     (valid because every referenced cell lies inside the edge's bounding box, which is
-    inside the grid when both ends are).  The dominance tolerance on v² is ``tol_abs +
-    tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most that many settled labels per
-    (leg, node[, heading]) - the earliest ones - and drops later arrivals (an
+    inside the grid when both ends are); ``sub_plan`` the plan length of every
+    sub-segment (:func:`fallway.lattice.core.sub_segment`).  The dominance tolerance on v²
+    is ``tol_abs + tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most that many settled
+    labels per (leg, node[, heading]) - the earliest ones - and drops later arrivals (an
     approximation, counted in ``C_CAPPED``); 0 keeps the exact Pareto set.  Labels
     later than ``t_max`` are neither queued nor settled (``C_CUTOFF``; ``inf``: none).
 
@@ -252,6 +137,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     -------
     status, final_label, n_labels, t, v2, node, parent, leg, best_t, best_v2,
     closest_node, counters
+        ``v2`` is the pool's energy array ``Le`` (one column).
     """
     ncell = rows * cols
     nk = off_dr.shape[0]
@@ -270,14 +156,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
         tgt_c[i] = targets[i] - tgt_r[i] * cols
         tgt_z[i] = z[targets[i]]
 
-    Lt = np.empty(init_cap, dtype=np.float64)
-    Lv2 = np.empty(init_cap, dtype=np.float64)
-    Lnode = np.empty(init_cap, dtype=np.int32)
-    Lpar = np.empty(init_cap, dtype=np.int32)
-    Lleg = np.empty(init_cap, dtype=np.int8)
-    Lhd = np.empty(init_cap, dtype=np.int8)
-    hkey = np.empty(init_cap, dtype=np.float64)
-    hidx = np.empty(init_cap, dtype=np.int32)
+    Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = new_pool(init_cap, 1, np.empty(0, dtype=np.int8))
     hsize = 0
     n_lab = 0
     # Highest v² settled so far per (leg, node[, heading]).  Labels settle at a node in
@@ -300,11 +179,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
 
     key0 = 0.0
     if not reach_mode:
-        key0 = _heuristic(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-    if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-        Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
-                                                             n_lab, hsize)
-    hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, 0.0, v2_start, start, -1, 0, -1, key0)
+        key0 = astar_bound(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+    Le[0, 0] = v2_start
+    hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, 0.0, start, -1, -1, 0, key0)
     n_lab += 1
     counters[C_CREATED] = 1
 
@@ -315,13 +192,13 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
-        li, hsize = _heap_pop(hkey, hidx, hsize)
+        li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
         leg = Lleg[li]
         t0 = Lt[li]
-        v20 = Lv2[li]
+        v20 = Le[li, 0]
         hd = Lhd[li]
-        cn = n if ident else cidx[n]
+        cn = state_of(cidx, ident, n)
         s = cn if reach_mode else leg * nact + cn
         slot = s * nh + (hd + 1 if use_heading else 0)
         if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
@@ -361,11 +238,12 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 if emax[s2] >= v20 - (tol_abs + tol_rel * v20):
                     counters[C_DOMINATED] += 1
                     continue
-                key = t0 + _heuristic(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                key = t0 + astar_bound(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
                 if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                    Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
-                                                                         n_lab, hsize)
-                hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, t0, v20, n, li, nleg, hd, key)
+                    Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
+                                                                       n_lab, hsize)
+                Le[n_lab, 0] = v20
+                hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, t0, n, li, hd, nleg, key)
                 n_lab += 1
                 counters[C_CREATED] += 1
                 continue
@@ -385,61 +263,41 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 counters[C_GRID] += 1
                 continue
             m = r2 * cols + c2
-            bad = False
-            for q in range(tch_start[kk], tch_start[kk + 1]):
-                if blocked[n + tch_flat[q]]:
-                    bad = True
-                    break
-            if bad:
-                counters[C_BLOCKED] += 1
+            code = passable(blocked, n, kk, tch_start, tch_flat)
+            if code:
+                count_blocked(counters, code)
                 continue
-            # walk the sub-segments of the edge
+            # walk the sub-segments of the edge (the core's walk), the law on each
             v2 = v20
             te = 0.0
             zprev = zn
-            uprev = 0.0
-            plan_k = off_plan[kk] * cell
-            ok = True
-            b0 = brk_start[kk]
-            b1 = brk_start[kk + 1]
-            for q in range(b0, b1 + 1):
-                if q < b1:
-                    zq = brk_w[q] * z[n + brk_fa[q]] + (1.0 - brk_w[q]) * z[n + brk_fb[q]]
-                    uq = brk_u[q]
-                else:
-                    zq = z[m]
-                    uq = 1.0
-                plan = (uq - uprev) * plan_k
-                drop = zprev - zq
-                grade = drop / plan
-                if grade < min_grade or grade > max_grade:
-                    counters[C_GRADE] += 1
-                    ok = False
+            law = LAW_OK
+            for i in range(sub_count(brk_start, kk)):
+                zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
+                                                            sub_plan, min_grade, max_grade)
+                if not ok:
+                    law = LAW_GRADE
                     break
-                length = math.sqrt(plan * plan + drop * drop)
-                v2o, dt, st = segment_law(v2, drop, plan, length, g, mu, kdrag, v2_stall)
-                if st >= 0.0:
+                v2, dt, law = law_step(v2, drop, plan, length, g, mu, kdrag, v2_stall, v2_max)
+                if law != LAW_OK:
+                    break
+                te += dt
+            if law != LAW_OK:
+                if law == LAW_GRADE:
+                    counters[C_GRADE] += 1
+                elif law == LAW_STALL:
                     if mu == 0.0 and kdrag == 0.0:
                         counters[C_UPHILL] += 1
                     else:
                         counters[C_STALL] += 1
-                    ok = False
-                    break
-                if v2o > v2_max:
+                else:
                     counters[C_SPEED] += 1
-                    ok = False
-                    break
-                v2 = v2o
-                te += dt
-                zprev = zq
-                uprev = uq
-            if not ok:
                 continue
             tn = t0 + te
             if tn > t_max:
                 counters[C_CUTOFF] += 1
                 continue
-            cm = m if ident else cidx[m]
+            cm = state_of(cidx, ident, m)
             sm = (cm if reach_mode else leg * nact + cm) * nh + (kk + 1 if use_heading else 0)
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
@@ -455,13 +313,14 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 open_v2[sm] = v2
             key = tn
             if not reach_mode:
-                key += _heuristic(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                key += astar_bound(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
             if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx = _make_room(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx,
-                                                                     n_lab, hsize)
-            hsize = _push_label(Lt, Lv2, Lnode, Lpar, Lleg, Lhd, hkey, hidx, n_lab, hsize, tn, v2, m, li, leg, kk, key)
+                Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
+                                                                   n_lab, hsize)
+            Le[n_lab, 0] = v2
+            hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, tn, m, li, kk, leg, key)
             n_lab += 1
             counters[C_CREATED] += 1
 
-    return (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2,
+    return (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2,
             closest, counters)

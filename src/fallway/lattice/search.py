@@ -1,8 +1,21 @@
-"""Python front of the lattice search: validate, cast, call the kernel, explain failures.
+"""Typed fronts of the lattice search: validate, cast, call a kernel, explain failures.
+
+* :func:`lattice_line` - the exact minimum-time line (through via points);
+* :func:`reach` - earliest arrival time and speed at every cell;
+* :func:`robust_lattice_line` - the fastest line at nominal friction that works over a
+  friction range.
+
+Each takes the search options as one :class:`~fallway.params.SearchOptions` (stencil,
+label cap, label budget, energy tolerance, A* bound; the planning fields are the
+router's and are not read here) and rejects an unknown keyword with a
+:class:`~fallway.errors.ParameterError` (:func:`~fallway.params.checked_options`).  The
+kernels are :mod:`fallway.lattice.kernel` and :mod:`fallway.lattice.robust`, on the
+shared compiled core :mod:`fallway.lattice.core`.
 
 Points given as map coordinates (x, y) in the terrain CRS snap to the *nearest cell
 centre*; a point outside the grid raises :class:`~fallway.errors.ParameterError`, one on
-a nodata or keep-out cell raises :class:`~fallway.errors.NoFeasibleLine`.
+a nodata or keep-out cell or outside the search domain raises
+:class:`~fallway.errors.NoFeasibleLine`.
 
 Physics on the lattice: the search times every sub-segment with the closed-form
 gravity-normal segment law (friction work mu * g * plan length, drag k v²) even when
@@ -20,18 +33,38 @@ relative (checked against the exact search with zero tolerance in the tests).
 
 Size: on rough terrain the exact Pareto set per cell grows with the distance from the
 start (measured on the benchmark DEM with mu 0.25 and drag: ~20 labels per cell 25
-cells out, ~300 at 50, ~3700 at 100).  ``max_per_cell`` caps it (keeping the earliest
-arrivals); ``stats["exact"]`` reports whether the cap - or ``max_speed`` - left the
-answer possibly inexact.  ``max_per_cell=1`` is the time-only Dijkstra.
+cells out, ~300 at 50, ~3700 at 100).  ``SearchOptions.label_cap`` caps it (keeping the
+earliest arrivals); ``stats["exact"]`` reports whether the cap - or ``max_speed`` - left
+the answer possibly inexact.  ``label_cap=1`` is the time-only Dijkstra.
+``SearchOptions.max_labels`` is the label budget of one search.
 
-Memory: the kernel's per-state arrays are sized for the searchable cells only (not
-nodata, not keep-out - so a corridor given as keep-out costs state only inside the
-corridor); :meth:`_Problem.index` builds the int32 compact index.  ``stats["state_cells"]``
-is that count.  Estimate before a large run with :func:`fallway.scale.search_memory_bytes`.
+Search domain: ``allowed`` (a bool mask of the terrain's shape) is where the search may
+go, e.g. a corridor around a coarse line.  Cells outside it are not searched and cost no
+kernel state, like keep-out cells, but they are not a keep-out: a failure is diagnosed
+inside the domain first, and blamed on the domain (reason ``"corridor"``) only when a
+line exists once the domain is lifted.
+
+Memory: the kernels' per-state arrays are sized for the searchable cells only (not
+nodata, not keep-out, not outside the domain); :meth:`_Problem.index` builds the int32
+compact index.  ``stats["state_cells"]`` is that count.  Estimate before a large run
+with :func:`fallway.scale.search_memory_bytes`.
 
 Time cut-off: ``reach(..., max_time_s=T)`` stops the search at ``T`` (labels later than
 ``T`` are never queued), with the arrivals up to ``T`` unchanged
 (:mod:`fallway.lattice.kernel`, "Time cut-off").
+
+Failure diagnosis
+-----------------
+When no line is found the front relaxes one obstacle at a time and searches again,
+in this order, and names the first that frees a line (``NoFeasibleLine.reason``):
+the keep-out inside the search domain (``"keepout"``); the grade, turn and speed limits
+(``"limits"``); nodata cells, filled from their nearest neighbours (``"nodata"``); the
+search domain (``"corridor"``).  A relaxation is tried only when the failed search was
+stopped by that obstacle at least once: the kernels count the edges stopped by nodata,
+keep-out and out-of-domain cells, and when that count is zero the relaxed search would
+run exactly as the failed one did.  Without a line, the reason is ``"stall"``,
+``"uphill"`` or ``"unreachable"`` from what stopped the edges.  A search that spends its
+label budget raises ``reason="label_budget"`` at once.
 """
 
 from __future__ import annotations
@@ -44,19 +77,38 @@ import numpy as np
 
 from ..errors import NoFeasibleLine, ParameterError
 from ..keepout import Keepout
-from ..params import Limits
-from ..physics import Mover, traverse
+from ..params import Limits, SearchOptions, checked_options
+from ..physics import Mover, check_mu_range, traverse
 from ..results import LatticeLine, ReachMap
-from . import kernel as _k
+from . import core as _c
+from .kernel import search as _search
+from .robust import ROBUST_ENERGY_TOL, lo_floor, robust_search
 from .stencil import make_stencil
 
-__all__ = ["reach", "lattice_line", "DEFAULT_ENERGY_TOL"]
+__all__ = ["reach", "lattice_line", "robust_lattice_line", "DEFAULT_ENERGY_TOL", "ROBUST_ENERGY_TOL"]
 
 #: Declared dominance tolerance on v², relative to each label's own v².
 DEFAULT_ENERGY_TOL = 1e-10
 
 _INIT_CAP = 1 << 16
 _DEFAULT_MAX_LABELS = 400_000_000
+_ROBUST_INIT_CAP = 1 << 14
+_ROBUST_MAX_LABELS = 50_000_000
+
+
+# ----------------------------------------------------------------------------- inputs
+
+def _options(options) -> SearchOptions:
+    if options is None:
+        return SearchOptions()
+    if not isinstance(options, SearchOptions):
+        raise ParameterError(f"options must be a fallway.SearchOptions, got {type(options).__name__}")
+    return options
+
+
+def _check_mover(mover) -> None:
+    if not isinstance(mover, Mover):
+        raise ParameterError(f"mover must be a fallway.Mover, got {type(mover).__name__}")
 
 
 def _snap(terrain, xy, name: str) -> int:
@@ -90,13 +142,59 @@ def _keepout_mask(terrain, keepout) -> np.ndarray:
     return m
 
 
+def _domain_mask(terrain, allowed) -> np.ndarray | None:
+    """The search domain as a bool mask, or None when it is the whole terrain."""
+    if allowed is None:
+        return None
+    m = np.asarray(allowed)
+    if m.dtype != np.bool_:
+        raise ParameterError(f"allowed must be a bool mask, got dtype {m.dtype}")
+    rows, cols = terrain.shape
+    if m.shape != (rows, cols):
+        raise ParameterError(f"allowed mask must have the terrain's shape {rows}x{cols}, got {m.shape}")
+    return None if bool(m.all()) else m
+
+
+def _cell_xy(terrain, flat: int) -> tuple[float, float]:
+    cols = terrain.shape[1]
+    return terrain.cell_center(flat // cols, flat % cols)
+
+
+def _check_points(terrain, keep, domain, points, names) -> None:
+    """Raise when a point lies in a keep-out area or outside the search domain."""
+    for flat, name in zip(points, names):
+        xy = _cell_xy(terrain, flat)
+        if keep.ravel()[flat]:
+            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
+                                 reason="keepout", closest=None)
+        if domain is not None and not domain.ravel()[flat]:
+            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) lies outside the search domain; widen it "
+                                 "(allowed) or move the point", reason="corridor", closest=None)
+
+
+def _check_uphill(terrain, mover, start, points, names):
+    zs = terrain.z.ravel()
+    ceiling = zs[start] + mover.v0 ** 2 / (2.0 * mover.g)
+    for p, name in zip(points, names):
+        if zs[p] > ceiling + 1e-9:
+            xy = _cell_xy(terrain, p)
+            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) at {zs[p]:.2f} m lies above the start's energy "
+                                 f"height {ceiling:.2f} m; a gravity line cannot climb there",
+                                 reason="uphill", closest=_cell_xy(terrain, start))
+
+
+# ----------------------------------------------------------------------------- kernel arrays
+
 class _Problem:
-    """Arrays the kernel needs, built once per query."""
+    """Arrays the kernels need, built once per query.
+
+    ``blocked`` (uint8 per window cell) carries the bits :data:`~fallway.lattice.core.NODATA`,
+    :data:`~fallway.lattice.core.KEEPOUT` and :data:`~fallway.lattice.core.OUTSIDE`.
+    """
 
     def __init__(self, terrain, mover: Mover, neighbours: int, limits: Limits | None, keep: np.ndarray,
-                 z_override: np.ndarray | None = None, use_limits: bool = True):
-        if not isinstance(mover, Mover):
-            raise ParameterError(f"mover must be a fallway.Mover, got {type(mover).__name__}")
+                 domain: np.ndarray | None = None, z_override: np.ndarray | None = None, use_limits: bool = True):
+        _check_mover(mover)
         limits = Limits() if limits is None else limits
         if not isinstance(limits, Limits):
             raise ParameterError(f"limits must be a fallway.Limits, got {type(limits).__name__}")
@@ -108,21 +206,27 @@ class _Problem:
         self.rows, self.cols = rows, cols
         z = terrain.z if z_override is None else z_override
         nodata = ~np.isfinite(z)
-        self.nodata = nodata
-        self.keep = keep
-        self.blocked = np.ascontiguousarray((nodata | keep).ravel())
+        blocked = nodata.view(np.uint8).ravel().copy()  # NODATA is bit 1
+        np.bitwise_or(blocked, _c.KEEPOUT, out=blocked, where=keep.ravel())
+        if domain is not None:
+            np.bitwise_or(blocked, _c.OUTSIDE, out=blocked, where=~domain.ravel())
+        self.blocked = blocked
         self.z = np.ascontiguousarray(np.where(nodata, 0.0, z).ravel(), dtype=np.float64)
         self.zmin = float(np.min(z[~nodata])) if (~nodata).any() else 0.0
+        del nodata
         self.cell = terrain.cell_size
         off = st.offsets
         self.off_dr = np.ascontiguousarray(off[:, 0])
         self.off_dc = np.ascontiguousarray(off[:, 1])
         self.off_plan = np.ascontiguousarray(st.plan_cells)
         self.brk_start = np.ascontiguousarray(st.break_start)
-        self.brk_u = np.ascontiguousarray(st.break_u)
-        self.brk_fa = np.ascontiguousarray(st.break_a[:, 0] * cols + st.break_a[:, 1]) if len(st.break_u) else np.zeros(0, np.int64)
-        self.brk_fb = np.ascontiguousarray(st.break_b[:, 0] * cols + st.break_b[:, 1]) if len(st.break_u) else np.zeros(0, np.int64)
+        nb = len(st.break_u)
+        self.brk_fa = np.ascontiguousarray(st.break_a[:, 0] * cols + st.break_a[:, 1]) if nb else np.zeros(0, np.int64)
+        self.brk_fb = np.ascontiguousarray(st.break_b[:, 0] * cols + st.break_b[:, 1]) if nb else np.zeros(0, np.int64)
         self.brk_w = np.ascontiguousarray(st.break_w)
+        # plan length of every sub-segment, metres: (u_q - u_{q-1}) * (edge plan length)
+        nsub = np.diff(st.break_start) + 1
+        self.sub_plan = np.ascontiguousarray(st.sub_du * np.repeat(st.plan_cells * self.cell, nsub))
         self.tch_start = np.ascontiguousarray(st.touch_start)
         self.tch_flat = np.ascontiguousarray(st.touch[:, 0] * cols + st.touch[:, 1])
         turn = limits.max_step_turn_deg if use_limits else None
@@ -134,6 +238,7 @@ class _Problem:
         self.v2_max = math.inf if vmax is None else vmax * vmax
 
     def a_max(self, mover: Mover) -> float:
+        """An upper bound of the drive g (G - mu) / sqrt(1 + G²) over every sub-segment."""
         z = self.terrain.z
 
         def steepest(axis: int) -> float:
@@ -150,13 +255,13 @@ class _Problem:
         ``compact=False`` gives the full-window layout (index = flat cell index, count =
         all cells of the window): the same search, the per-state arrays sized for the
         whole window (kept for tests and benchmarks).  With nothing blocked the index is
-        the identity and a one-element dummy is returned (the kernel does not read it).
+        the identity and a one-element dummy is returned (the kernels do not read it).
         """
-        free = ~self.blocked
+        free = self.blocked == 0
         if free.size >= 2 ** 31:
             raise ParameterError(f"the grid has {free.size} cells; the lattice indexes cells with int32 (fewer than "
-                                 "2**31): search a smaller area (fallway.scale.find_route_large) or coarsen the DEM")
-        if bool(free.all()):  # the identity: the kernel does not read the map
+                                 "2**31): search a smaller area (the corridor plan) or coarsen the DEM")
+        if bool(free.all()):  # the identity: the kernels do not read the map
             return np.zeros(1, dtype=np.int32), int(free.size)
         cidx = np.full(free.size, -1, dtype=np.int32)
         if compact:
@@ -167,17 +272,32 @@ class _Problem:
             cidx[free] = np.flatnonzero(free).astype(np.int32)
         return cidx, nact
 
-    def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
-            max_labels: int | None, max_per_cell: int | None = None, max_time_s: float | None = None,
-            compact: bool = True):
+    def _tolerance(self, start: int, energy_tol: float | None, default: float) -> tuple[float, float, float]:
         m = self.mover
         v2_start = m.v0 * m.v0
         v2_scale = v2_start + 2.0 * m.g * max(self.z[start] - self.zmin, 0.0)
-        tol_rel = DEFAULT_ENERGY_TOL if energy_tol is None else float(energy_tol)
-        if not (tol_rel >= 0.0 and math.isfinite(tol_rel)):
-            raise ParameterError(f"energy_tol must be a finite number >= 0, got {energy_tol!r}")
+        tol_rel = default if energy_tol is None else float(energy_tol)
         # relative to each label's own v², with a floor far below any meaningful speed
         tol_abs = 1e-12 * max(v2_scale, 1e-300) if tol_rel > 0.0 else 0.0
+        return tol_rel, tol_abs, v2_scale
+
+    def _drag_bound(self, v2: float) -> float:
+        """With drag, v² falls wherever it exceeds a/k (d(v²)/ds = 2a - 2kv²), so v² <=
+        max(v0², a_max/k).  a = g (G - mu)/sqrt(1 + G²) grows with the descent grade G of a
+        sub-segment, and G <= |grad z| of the bilinear surface <= hypot(max |dz| along
+        rows, max |dz| along columns) / cell."""
+        m = self.mover
+        v2_start = m.v0 * m.v0
+        a_max = self.a_max(m)
+        return min(v2, max(v2_start, a_max / m.drag) if a_max > 0.0 else v2_start)
+
+    def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
+            max_labels: int | None, label_cap: int | None = None, max_time_s: float | None = None,
+            compact: bool = True) -> dict:
+        """Run the ordinary kernel; a dict of the status, the label pool and the stats."""
+        m = self.mover
+        v2_start = m.v0 * m.v0
+        tol_rel, tol_abs, v2_scale = self._tolerance(start, energy_tol, DEFAULT_ENERGY_TOL)
         tg = np.asarray(targets, dtype=np.int64)
         remaining = np.zeros(max(len(tg), 1), dtype=np.float64)
         cols = self.cols
@@ -187,33 +307,26 @@ class _Problem:
             dy = (a // cols - b // cols) * self.cell
             dz = self.z[a] - self.z[b]
             remaining[i] = remaining[i + 1] + math.sqrt(dx * dx + dy * dy + dz * dz)
+        use_bound = bool(heuristic and len(tg))
         vbound = math.sqrt(v2_scale)
-        if m.drag > 0.0 and inv_v_wanted(heuristic, tg):
-            # With drag, v² falls wherever it exceeds a/k (d(v²)/ds = 2a - 2kv²), so
-            # v² <= max(v0², a_max/k).  a = g (G - mu)/sqrt(1 + G²) grows with the descent
-            # grade G of a sub-segment, and G <= |grad z| of the bilinear surface <=
-            # hypot(max |dz| along rows, max |dz| along columns) / cell.
-            a_max = self.a_max(m)
-            vt2 = max(v2_start, a_max / m.drag) if a_max > 0.0 else v2_start
-            vbound = min(vbound, math.sqrt(vt2))
+        if m.drag > 0.0 and use_bound:
+            vbound = min(vbound, math.sqrt(self._drag_bound(v2_scale)))
         if self.v2_max < math.inf:
             vbound = min(vbound, math.sqrt(self.v2_max))
-        inv_v = 1.0 / vbound if (heuristic and len(tg) and vbound > 0.0) else 0.0
+        inv_v = 1.0 / vbound if (use_bound and vbound > 0.0) else 0.0
         budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
         t_max = math.inf if max_time_s is None else float(max_time_s)
-        if not t_max > 0.0:
-            raise ParameterError(f"max_time_s must be a positive number of seconds, got {max_time_s!r}")
         cidx, nact = self.index(compact)
         t0 = time.perf_counter()
-        out = _k.search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
-                        self.off_dr, self.off_dc, self.off_plan,
-                        self.brk_start, self.brk_u, self.brk_fa, self.brk_fb, self.brk_w,
-                        self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
-                        m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
-                        int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
-                        int(max_per_cell or 0), t_max)
+        out = _search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
+                      self.off_dr, self.off_dc,
+                      self.brk_start, self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan,
+                      self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
+                      m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
+                      int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
+                      int(label_cap or 0), t_max)
         elapsed = time.perf_counter() - t0
-        (status, final, n_lab, Lt, Lv2, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
+        (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         if len(tg) == 0 and nact < cidx.size:  # reach: compact index -> window cells
             sel = cidx >= 0
             bt = np.full(cidx.size, np.nan)
@@ -223,82 +336,133 @@ class _Problem:
             best_t, best_v2 = bt, bv
         del cidx
         stats = {
-            "labels_created": int(counters[_k.C_CREATED]),
-            "labels_settled": int(counters[_k.C_SETTLED]),
-            "labels_dominated": int(counters[_k.C_DOMINATED]),
-            "rejected_grade": int(counters[_k.C_GRADE]),
-            "rejected_stall": int(counters[_k.C_STALL] + counters[_k.C_UPHILL]),
-            "rejected_speed": int(counters[_k.C_SPEED]),
-            "rejected_turn": int(counters[_k.C_TURN]),
-            "rejected_blocked": int(counters[_k.C_BLOCKED]),
-            "labels_capped": int(counters[_k.C_CAPPED]),
-            "labels_cut_off": int(counters[_k.C_CUTOFF]),
+            "labels_created": int(counters[_c.C_CREATED]),
+            "labels_settled": int(counters[_c.C_SETTLED]),
+            "labels_dominated": int(counters[_c.C_DOMINATED]),
+            "rejected_grade": int(counters[_c.C_GRADE]),
+            "rejected_stall": int(counters[_c.C_STALL] + counters[_c.C_UPHILL]),
+            "rejected_speed": int(counters[_c.C_SPEED]),
+            "rejected_turn": int(counters[_c.C_TURN]),
+            "rejected_blocked": int(counters[_c.C_BLOCKED]),
+            "labels_capped": int(counters[_c.C_CAPPED]),
+            "labels_cut_off": int(counters[_c.C_CUTOFF]),
             "state_cells": int(nact),
-            "max_per_cell": int(max_per_cell or 0),
-            "exact": bool(counters[_k.C_CAPPED] == 0 and self.v2_max == math.inf),
+            "label_cap": None if not label_cap else int(label_cap),
+            "exact": bool(counters[_c.C_CAPPED] == 0 and self.v2_max == math.inf),
             "search_s": float(elapsed),
             "neighbours": int(self.stencil.size),
             "energy_tol": float(tol_rel),
             "heuristic": bool(inv_v > 0.0),
         }
-        return dict(status=int(status), final=int(final), t=Lt, v2=Lv2, node=Lnode, parent=Lpar,
+        return dict(status=int(status), final=int(final), t=Lt, v2=Le[:, 0], node=Lnode, parent=Lpar,
                     best_t=best_t, best_v2=best_v2, closest=int(closest), counters=counters, stats=stats)
 
+    def run_robust(self, start: int, end: int, mu_lo: float, mu_hi: float, *, heuristic: bool,
+                   energy_tol: float | None, max_labels: int | None, label_cap: int | None,
+                   resolution: float, compact: bool = True) -> dict:
+        """Run the robust kernel; a dict of the status, the label pool and the stats."""
+        m = self.mover
+        g = m.g
+        v2_start = m.v0 * m.v0
+        tol_rel, tol_abs, v2_scale = self._tolerance(start, energy_tol, ROBUST_ENERGY_TOL)
+        budget = _ROBUST_MAX_LABELS if max_labels is None else int(max_labels)
+        cap = int(label_cap or 0)
+        cidx, nact = self.index(compact)
+        t0 = time.perf_counter()
+        if math.isfinite(self.v2_max):
+            floor = lo_floor(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell, self.off_dr,
+                             self.off_dc, self.off_plan, self.brk_start, self.brk_fa, self.brk_fb, self.brk_w,
+                             self.tch_start, self.tch_flat, mu_lo)
+            zc = self.z if nact == self.z.size else self.z[cidx >= 0]
+            floor -= zc  # in place: E - z, then the LO v² below which no overspeed is possible
+            floor *= 2.0 * g
+            floor += self.v2_max
+            lo_safe = floor
+            del zc
+        else:
+            lo_safe = np.full(nact, np.inf)
+        # A* bound: the nominal speed never exceeds the LO speed (<= the cap), nor what the
+        # drop from the start allows, nor (with drag) the terminal bound of the ordinary search
+        v2_bound = v2_scale
+        if m.drag > 0.0:
+            v2_bound = self._drag_bound(v2_bound)
+        v2_bound = min(v2_bound, self.v2_max)
+        inv_v = 1.0 / math.sqrt(v2_bound) if (heuristic and v2_bound > 0.0) else 0.0
+        slack = float(resolution) * (self.v2_max if math.isfinite(self.v2_max) else v2_bound)
+        out = robust_search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
+                            self.off_dr, self.off_dc,
+                            self.brk_start, self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan,
+                            self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
+                            g, mu_lo, m.mu, mu_hi, m.drag, m.stall_speed ** 2, self.v2_max,
+                            self.min_grade, self.max_grade, int(start), v2_start, int(end), lo_safe, inv_v,
+                            tol_abs, tol_rel, budget, _ROBUST_INIT_CAP, cap, slack)
+        elapsed = time.perf_counter() - t0
+        del cidx, lo_safe
+        status, final, n_lab, Lt, Le, Lnode, Lpar, closest, cnt = out
+        stats = {"labels_created": int(cnt[_c.C_CREATED]), "labels_settled": int(cnt[_c.C_SETTLED]),
+                 "labels_dominated": int(cnt[_c.C_DOMINATED]), "rejected_grade": int(cnt[_c.C_GRADE]),
+                 "rejected_stall_hi": int(cnt[_c.C_STALL]), "rejected_speed_lo": int(cnt[_c.C_SPEED]),
+                 "rejected_blocked": int(cnt[_c.C_BLOCKED]), "rejected_turn": int(cnt[_c.C_TURN]),
+                 "labels_capped": int(cnt[_c.C_CAPPED]),
+                 "exact": (cap == 0 or int(cnt[_c.C_CAPPED]) == 0) and slack == 0.0,
+                 "resolution": float(resolution), "label_cap": cap or None, "search_s": float(elapsed),
+                 "state_cells": int(nact), "neighbours": int(self.stencil.size), "energy_tol": float(tol_rel),
+                 "mu_lo": float(mu_lo), "mu_nominal": float(m.mu), "mu_hi": float(mu_hi)}
+        return dict(status=int(status), final=int(final), t=Lt, e=Le, node=Lnode, parent=Lpar,
+                    closest=int(closest), counters=cnt, stats=stats)
 
-def inv_v_wanted(heuristic: bool, targets) -> bool:
-    return bool(heuristic and len(targets))
+
+# ----------------------------------------------------------------------------- failures
+
+def _budget_error(terrain, budget, closest) -> NoFeasibleLine:
+    return NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end; raise "
+                          "SearchOptions.max_labels, set a label_cap or coarsen the grid", reason="label_budget",
+                          closest=_cell_xy(terrain, closest))
 
 
-def _cell_xy(terrain, flat: int) -> tuple[float, float]:
-    cols = terrain.shape[1]
-    return terrain.cell_center(flat // cols, flat % cols)
+def _diagnose(terrain, closest_flat: int, counters, found, *, keep, domain, limits, mover, robust=False):
+    """Find why no line exists: relax one obstacle at a time (module notes, "Failure diagnosis").
 
-
-def _diagnose(terrain, mover, neighbours, limits, keep, start, targets, first, heuristic, energy_tol, max_labels,
-              max_per_cell):
-    """Find why no line exists by relaxing one obstacle at a time."""
-    closest = _cell_xy(terrain, first["closest"])
+    ``found(**relax)`` reruns the failed search on a :class:`_Problem` built with the
+    given changes (``keep``, ``domain``, ``z_override``, ``use_limits``) and says whether
+    it reaches the end.
+    """
+    closest = _cell_xy(terrain, closest_flat)
     where = f"closest reached cell ({closest[0]:.1f}, {closest[1]:.1f})"
-    if keep.any():
-        p = _Problem(terrain, mover, neighbours, limits, np.zeros_like(keep))
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
-            return NoFeasibleLine(f"keep-out areas block every line; {where}; shrink the keep-out or move the points",
-                                  reason="keepout", closest=closest)
+    if counters[_c.C_KEEPOUT] > 0 and found(keep=np.zeros_like(keep)):
+        return NoFeasibleLine(f"keep-out areas block every line; {where}; shrink the keep-out or move the points",
+                              reason="keepout", closest=closest)
     lim = limits if limits is not None else Limits()
-    if lim != Limits() or mover.max_speed is not None:
-        p = _Problem(terrain, mover, neighbours, limits, keep, use_limits=False)
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
-            return NoFeasibleLine(f"the grade, turn or speed limits block every line; {where}; relax the limits",
-                                  reason="limits", closest=closest)
+    if (lim != Limits() or mover.max_speed is not None) and found(use_limits=False):
+        return NoFeasibleLine(f"the grade, turn or speed limits block every line; {where}; relax the limits",
+                              reason="limits", closest=closest)
     nod = ~np.isfinite(terrain.z)
-    if nod.any() and (~nod).any():
+    if counters[_c.C_NODATA] > 0 and (~nod).any():
         from scipy import ndimage
+
         idx = ndimage.distance_transform_edt(nod, return_distances=False, return_indices=True)
         filled = terrain.z[tuple(idx)]
-        p = _Problem(terrain, mover, neighbours, limits, keep, z_override=filled)
-        if p.run(start, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)["status"] == _k.OK:
+        del idx
+        if found(z_override=filled):
             return NoFeasibleLine(f"nodata cells block every line; {where}; fill the DEM gaps or move the points",
                                   reason="nodata", closest=closest)
-    c = first["counters"]
-    if c[_k.C_STALL] > 0:
-        return NoFeasibleLine(f"the mover stalls on every line (friction and drag take all its energy); {where}; "
-                              "lower mu or drag, or raise v0", reason="stall", closest=closest)
-    if c[_k.C_UPHILL] > 0:
-        return NoFeasibleLine(f"every line would have to climb higher than the start energy allows; {where}",
-                              reason="uphill", closest=closest)
+    if domain is not None and counters[_c.C_OUTSIDE] > 0 and found(domain=None):
+        return NoFeasibleLine(f"the search domain (corridor) cuts every line, a line exists outside it; {where}; "
+                              "widen the corridor", reason="corridor", closest=closest)
+    if robust:
+        if counters[_c.C_STALL] > 0 or counters[_c.C_SPEED] > 0:
+            return NoFeasibleLine(f"no line works over the friction range (every line stalls at high friction or "
+                                  f"is too fast at low friction); {where}; narrow the range or relax the speed "
+                                  "limit", reason="stall" if counters[_c.C_SPEED] == 0 else "limits",
+                                  closest=closest)
+    else:
+        if counters[_c.C_STALL] > 0:
+            return NoFeasibleLine(f"the mover stalls on every line (friction and drag take all its energy); {where}; "
+                                  "lower mu or drag, or raise v0", reason="stall", closest=closest)
+        if counters[_c.C_UPHILL] > 0:
+            return NoFeasibleLine(f"every line would have to climb higher than the start energy allows; {where}",
+                                  reason="uphill", closest=closest)
     return NoFeasibleLine(f"no lattice line connects the points; {where}", reason="unreachable", closest=closest)
-
-
-def _check_uphill(terrain, mover, start, points, names):
-    cols = terrain.shape[1]
-    zs = terrain.z.ravel()
-    ceiling = zs[start] + mover.v0 ** 2 / (2.0 * mover.g)
-    for p, name in zip(points, names):
-        if zs[p] > ceiling + 1e-9:
-            xy = _cell_xy(terrain, p)
-            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) at {zs[p]:.2f} m lies above the start's energy "
-                                 f"height {ceiling:.2f} m; a gravity line cannot climb there",
-                                 reason="uphill", closest=_cell_xy(terrain, start))
 
 
 def _line_points(terrain, stencil, nodes: list[int]) -> tuple[np.ndarray, np.ndarray]:
@@ -319,20 +483,24 @@ def _line_points(terrain, stencil, nodes: list[int]) -> tuple[np.ndarray, np.nda
     return cells, np.column_stack([x, y, rc[:, 2]])
 
 
+def _chain(final: int, parent, node) -> list[int]:
+    """Cells of the label chain ending at ``final``, start first (repeats of a cell in a row dropped)."""
+    nodes: list[int] = []
+    p = final
+    while p >= 0:
+        n = int(node[p])
+        if not nodes or nodes[-1] != n:
+            nodes.append(n)
+        p = int(parent[p])
+    nodes.reverse()
+    return nodes
+
+
+# ----------------------------------------------------------------------------- fronts
+
+@checked_options
 def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
-                 allowed=None, options=None):
-    from ..params import SearchOptions
-    o = SearchOptions() if options is None else options
-    if allowed is not None:
-        keepout = _keepout_mask(terrain, keepout) | ~np.asarray(allowed, bool)
-    return _lattice_line_old(terrain, start, end, mover, via=via, neighbours=o.neighbours, limits=limits,
-                             keepout=keepout, heuristic=o.heuristic, energy_tol=o.energy_tol, max_labels=o.max_labels,
-                             max_per_cell=o.label_cap)
-
-
-def _lattice_line_old(terrain, start, end, mover: Mover, *, via=(), neighbours: int = 16, limits: Limits | None = None,
-                 keepout=None, heuristic: bool = True, energy_tol: float | None = None,
-                 max_labels: int | None = None, max_per_cell: int | None = None):
+                 allowed: np.ndarray | None = None, options: SearchOptions | None = None) -> LatticeLine:
     """The exact minimum-time line on the terrain lattice.
 
     Parameters
@@ -344,110 +512,101 @@ def _lattice_line_old(terrain, start, end, mover: Mover, *, via=(), neighbours: 
         Physics; the lattice uses the gravity-normal friction model (module notes).
     via : sequence of (x, y)
         Points the line must pass through, in order; the energy carries through them.
-    neighbours : {8, 16, 32}
     limits : Limits, optional
-        Grade window per sub-segment, max turn per step; the speed window comes from
-        ``mover.stall_speed`` and ``mover.max_speed``.
+        Grade window per sub-segment, max turn per step (``max_step_turn_deg``); the
+        speed window comes from ``mover.stall_speed`` and ``mover.max_speed``.
     keepout : Keepout or bool array, optional
         No-go areas (a mask must have the terrain's shape).
-    heuristic : bool
-        Use the A* bound (same answer, fewer labels).
-    energy_tol : float, optional
-        Dominance tolerance relative to a label's v² (default
-        :data:`DEFAULT_ENERGY_TOL`; 0 = exact).
-    max_labels : int, optional
-        Stop with :class:`NoFeasibleLine` after creating this many labels.
-    max_per_cell : int, optional
-        Keep at most this many non-dominated labels per cell (the earliest arrivals).
-        None (default): the exact Pareto search.  On rough terrain the exact Pareto
-        set grows with distance (measured: ~20 labels per cell 25 cells from the start,
-        ~300 at 50, ~3700 at 100), so large grids need a cap; ``stats["exact"]`` says
-        whether the cap (or a binding ``max_speed``) made the answer approximate.
-        With ``mover.max_speed`` set the uncapped search runs first: its line is the
-        exact answer when it stays under the speed limit (``stats["speed_cap_binding"]``
+    allowed : bool array, optional
+        The search domain (e.g. a corridor), of the terrain's shape: cells where it is
+        False are not searched.  Not a keep-out: a failure is blamed on it (reason
+        ``"corridor"``) only when a line exists without it (module notes).
+    options : SearchOptions, optional
+        ``neighbours``, ``label_cap``, ``max_labels``, ``energy_tol``, ``heuristic``
+        (None: the defaults).  ``label_cap`` keeps at most that many labels per state
+        (the earliest arrivals): on rough terrain the exact Pareto set grows with
+        distance (measured: ~20 labels per cell 25 cells from the start, ~300 at 50,
+        ~3700 at 100), so large grids need a cap; ``stats["exact"]`` says whether the cap
+        (or a binding ``max_speed``) made the answer approximate.  With
+        ``mover.max_speed`` set the uncapped search runs first: its line is the exact
+        answer when it stays under the speed limit (``stats["speed_cap_binding"]``
         False); otherwise the capped search runs, which is approximate (a faster label
         can be pruned that would later overspeed - dominance is then a heuristic).
 
     Returns
     -------
     LatticeLine
-        With ``stats``: labels created/settled, search seconds, start/end cells.
+        With ``stats``: labels created/settled, ``label_cap``, ``exact``, search
+        seconds, ``state_cells``, start/end cells, exit speed.
 
     Raises
     ------
     NoFeasibleLine
-        With ``reason`` one of "stall", "limits", "keepout", "nodata", "uphill",
-        "unreachable" and ``closest`` the reached cell nearest to the target.
+        With ``reason`` one of ``"stall"``, ``"limits"``, ``"keepout"``, ``"nodata"``,
+        ``"uphill"``, ``"unreachable"``, ``"corridor"``, ``"label_budget"`` and
+        ``closest`` the reached cell nearest to the target.
+    ParameterError
+        A bad argument, or an unknown keyword.
 
     Examples
     --------
     >>> import numpy as np
+    >>> from fallway.params import SearchOptions
     >>> from fallway.terrain import Terrain
     >>> z = -0.5 * np.add.outer(np.arange(6.0), np.arange(6.0))
     >>> t = Terrain.from_array(z, (1.0, 0, 0, 0, -1.0, 6.0))
-    >>> ln = lattice_line(t, (0.5, 5.5), (5.5, 0.5), Mover(mu=0.1), neighbours=8)
+    >>> ln = lattice_line(t, (0.5, 5.5), (5.5, 0.5), Mover(mu=0.1), options=SearchOptions(neighbours=8))
     >>> ln.cells[[0, -1]].tolist()
     [[0, 0], [5, 5]]
     """
+    _check_mover(mover)
+    opts = _options(options)
     if mover.max_speed is not None:
         # With a speed cap "more energy never hurts" fails (a faster label may overspeed
         # later), so the capped search is approximate.  The uncapped optimum is exact
         # whenever it respects the cap (the capped lines are a subset of the uncapped
         # ones), and when no uncapped line exists no capped one does either.
-        free = _lattice_line(terrain, start, end, replace(mover, max_speed=None), via=via,
-                             neighbours=neighbours, limits=limits, keepout=keepout, heuristic=heuristic,
-                             energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
+        free = _lattice_line(terrain, start, end, replace(mover, max_speed=None), via, limits, keepout, allowed, opts)
         if float(np.nanmax(free.profile.speed_m_s)) <= mover.max_speed:
             free.stats["speed_cap_binding"] = False
             return free
-        capped = _lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits,
-                               keepout=keepout, heuristic=heuristic, energy_tol=energy_tol,
-                               max_labels=max_labels, max_per_cell=max_per_cell)
+        capped = _lattice_line(terrain, start, end, mover, via, limits, keepout, allowed, opts)
         capped.stats["speed_cap_binding"] = True
         return capped
-    return _lattice_line(terrain, start, end, mover, via=via, neighbours=neighbours, limits=limits,
-                         keepout=keepout, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels,
-                         max_per_cell=max_per_cell)
+    return _lattice_line(terrain, start, end, mover, via, limits, keepout, allowed, opts)
 
 
-def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits, keepout, heuristic, energy_tol,
-                  max_labels, max_per_cell):
-
+def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allowed, opts: SearchOptions):
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
+    domain = _domain_mask(terrain, allowed)
     s = _snap(terrain, start, "start")
     if len(via) > 100:
         raise ParameterError(f"at most 100 via points are supported, got {len(via)}; split the route")
     vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
     e = _snap(terrain, end, "end")
     targets = vias + [e]
-    for flat, name in zip(targets, [f"via point {i + 1}" for i in range(len(vias))] + ["end"]):
-        if keep.ravel()[flat]:
-            xy = _cell_xy(terrain, flat)
-            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
-                                 reason="keepout", closest=None)
-    if keep.ravel()[s]:
-        xy = _cell_xy(terrain, s)
-        raise NoFeasibleLine(f"start ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
-                             reason="keepout", closest=None)
-    _check_uphill(terrain, mover, s, targets, [f"via point {i + 1}" for i in range(len(vias))] + ["end"])
-    prob = _Problem(terrain, mover, neighbours, limits, keep)
-    res = prob.run(s, targets, heuristic=heuristic, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell)
-    if res["status"] == _k.LABEL_BUDGET:
-        raise NoFeasibleLine(f"label budget of {max_labels} exhausted before reaching the end; raise max_labels "
-                             "or coarsen the grid", reason="label_budget", closest=_cell_xy(terrain, res["closest"]))
-    if res["status"] != _k.OK:
-        raise _diagnose(terrain, mover, neighbours, limits, keep, s, targets, res, heuristic, energy_tol, max_labels,
-                        max_per_cell)
-    nodes = []
-    p = res["final"]
-    parent, node = res["parent"], res["node"]
-    while p >= 0:
-        n = int(node[p])
-        if not nodes or nodes[-1] != n:
-            nodes.append(n)
-        p = int(parent[p])
-    nodes.reverse()
+    names = [f"via point {i + 1}" for i in range(len(vias))] + ["end"]
+    _check_points(terrain, keep, domain, [s] + targets, ["start"] + names)
+    _check_uphill(terrain, mover, s, targets, names)
+    nb = opts.neighbours
+    run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
+                  label_cap=opts.label_cap)
+    prob = _Problem(terrain, mover, nb, limits, keep, domain)
+    res = prob.run(s, targets, **run_kw)
+    if res["status"] == _c.LABEL_BUDGET:
+        raise _budget_error(terrain, opts.max_labels or _DEFAULT_MAX_LABELS, res["closest"])
+    if res["status"] != _c.OK:
+        del prob
+
+        def found(**relax) -> bool:
+            kw = dict(keep=keep, domain=domain) | relax
+            p = _Problem(terrain, mover, nb, limits, kw.pop("keep"), kw.pop("domain"), **kw)
+            return p.run(s, targets, **run_kw)["status"] == _c.OK
+
+        raise _diagnose(terrain, res["closest"], res["counters"], found, keep=keep, domain=domain, limits=limits,
+                        mover=mover)
+    nodes = _chain(res["final"], res["parent"], res["node"])
     if len(nodes) == 1:
         raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
     cells, points = _line_points(terrain, prob.stencil, nodes)
@@ -460,26 +619,24 @@ def _lattice_line(terrain, start, end, mover: Mover, *, via, neighbours, limits,
     return LatticeLine(cells=cells, points=points, profile=profile, time_s=t_final, stats=stats)
 
 
-def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout=None, allowed=None, options=None,
-          max_time_s: float | None = None):
-    from ..params import SearchOptions
-    o = SearchOptions() if options is None else options
-    if allowed is not None:
-        keepout = _keepout_mask(terrain, keepout) | ~np.asarray(allowed, bool)
-    return _reach_old(terrain, start, mover, neighbours=o.neighbours, limits=limits, keepout=keepout,
-                      energy_tol=o.energy_tol, max_labels=o.max_labels, max_per_cell=o.label_cap, max_time_s=max_time_s)
-
-
-def _reach_old(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Limits | None = None, keepout=None,
-          energy_tol: float | None = None, max_labels: int | None = None, max_per_cell: int | None = None,
-          max_time_s: float | None = None):
+@checked_options
+def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout=None,
+          allowed: np.ndarray | None = None, options: SearchOptions | None = None,
+          max_time_s: float | None = None) -> ReachMap:
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
-    Parameters are those of :func:`lattice_line` (``start`` snaps to the nearest cell
-    centre).  The speed is that of the earliest label (a later, faster arrival may exist).
+    ``start`` snaps to the nearest cell centre.  The speed is that of the earliest label
+    (a later, faster arrival may exist).
 
     Parameters
     ----------
+    terrain : Terrain
+    start : (x, y)
+    mover : Mover
+    limits, keepout, allowed, options
+        As for :func:`lattice_line` (``options.heuristic`` has no use without a target).
+        When the label budget (``options.max_labels``) is spent the map holds what was
+        settled so far and ``stats["complete"]`` is False.
     max_time_s : float, optional
         Time cut-off: labels later than this are neither queued nor settled, so the
         search stops expanding at the cut-off.  Every arrival up to ``max_time_s`` is
@@ -494,32 +651,195 @@ def _reach_old(terrain, start, mover: Mover, *, neighbours: int = 16, limits: Li
         and CRS, and search statistics (``labels_cut_off``: labels dropped by the
         cut-off; ``state_cells``: cells the per-state arrays were sized for).
 
+    Raises
+    ------
+    NoFeasibleLine
+        The start lies on nodata (``"nodata"``), in a keep-out area (``"keepout"``) or
+        outside the search domain (``"corridor"``).
+
     Examples
     --------
     >>> import numpy as np
+    >>> from fallway.params import SearchOptions
     >>> from fallway.terrain import Terrain
     >>> t = Terrain.from_array(-np.arange(4.0)[None, :].repeat(3, 0), (1.0, 0, 0, 0, -1.0, 3.0))
-    >>> rm = reach(t, (0.5, 1.5), Mover(), neighbours=8)
+    >>> rm = reach(t, (0.5, 1.5), Mover(), options=SearchOptions(neighbours=8))
     >>> print(f"{rm.speed_m_s[1, 3]:.4f}")
     7.6707
     """
-
+    _check_mover(mover)
+    opts = _options(options)
+    if max_time_s is not None and not float(max_time_s) > 0.0:
+        raise ParameterError(f"max_time_s must be a positive number of seconds, got {max_time_s!r}")
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
+    domain = _domain_mask(terrain, allowed)
     s = _snap(terrain, start, "start")
-    if keep.ravel()[s]:
-        xy = _cell_xy(terrain, s)
-        raise NoFeasibleLine(f"start ({xy[0]:.1f}, {xy[1]:.1f}) lies in a keep-out area; move it out",
-                             reason="keepout", closest=None)
-    prob = _Problem(terrain, mover, neighbours, limits, keep)
-    res = prob.run(s, [], heuristic=False, energy_tol=energy_tol, max_labels=max_labels, max_per_cell=max_per_cell,
-                   max_time_s=max_time_s)
+    _check_points(terrain, keep, domain, [s], ["start"])
+    prob = _Problem(terrain, mover, opts.neighbours, limits, keep, domain)
+    res = prob.run(s, [], heuristic=False, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
+                   label_cap=opts.label_cap, max_time_s=max_time_s)
     shape = terrain.shape
     tt = res["best_t"].reshape(shape)
     vv = np.sqrt(res["best_v2"]).reshape(shape)
     stats = dict(res["stats"])
     stats["cells_reached"] = int(np.isfinite(tt).sum())
-    stats["complete"] = res["status"] != _k.LABEL_BUDGET
+    stats["complete"] = res["status"] != _c.LABEL_BUDGET
     stats["max_time_s"] = None if max_time_s is None else float(max_time_s)
     return ReachMap(time_s=tt, speed_m_s=vv, transform=terrain.transform, crs=terrain.crs,
                     start=tuple(float(v) for v in _cell_xy(terrain, s)), stats=stats)
+
+
+def _check_end_window(mover: Mover, lo: float, hi: float, v2_start: float, drop_m: float, v2_max: float) -> None:
+    """Raise when no line of any shape can work: the plan-length window at the end is empty.
+
+    Without drag the work-energy theorem fixes the energy at the end from the drop and
+    the plan length P alone (gravity-normal Coulomb friction): ``v² = v0² + 2 g (drop -
+    mu P)``.  Arriving under the speed limit at LO needs ``P >= (v0² + 2 g drop -
+    vmax²) / (2 g mu_lo)``; arriving at all at HI needs ``P < (v0² + 2 g drop - v_stall²)
+    / (2 g mu_hi)``.  When the first bound is not below the second no line exists.
+    """
+    if mover.drag != 0.0 or not math.isfinite(v2_max):
+        return
+    g = mover.g
+    e_end = v2_start + 2.0 * g * drop_m
+    p_hi = (e_end - mover.stall_speed ** 2) / (2.0 * g * hi) if hi > 0.0 else math.inf
+    if e_end <= v2_max:
+        return
+    if lo == 0.0:
+        raise NoFeasibleLine(f"no line can work: at mu={lo:g} the mover reaches the end at "
+                             f"{math.sqrt(e_end):.1f} m/s whatever its shape, over the {math.sqrt(v2_max):g} m/s "
+                             "limit; raise the speed limit or narrow the friction range", reason="limits")
+    p_lo = (e_end - v2_max) / (2.0 * g * lo)
+    if p_lo >= p_hi:
+        raise NoFeasibleLine(f"no line can work from mu={lo:g} to mu={hi:g}: to arrive under "
+                             f"{math.sqrt(v2_max):g} m/s at mu={lo:g} a line needs at least {p_lo:.0f} m of plan "
+                             f"length, but at mu={hi:g} it gets to the end only if shorter than {p_hi:.0f} m "
+                             "(work-energy balance, no drag); narrow the friction range, relax the speed limit "
+                             "or move the end points", reason="limits")
+
+
+@checked_options
+def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: float, *,
+                        limits: Limits | None = None, keepout=None, allowed: np.ndarray | None = None,
+                        options: SearchOptions | None = None, resolution: float = 0.0) -> LatticeLine:
+    """The exact robust lattice line: fastest at nominal friction, feasible over [mu_lo, mu_hi].
+
+    Among lattice lines from ``start`` to ``end`` that do not stall at ``mu_hi`` and stay
+    within ``mover.max_speed`` at ``mu_lo``, the one with the least travel time at
+    ``mover.mu`` (method: :mod:`fallway.lattice.robust`).
+
+    Parameters
+    ----------
+    terrain : Terrain
+    start, end : (x, y)
+        Map coordinates; they snap to the nearest cell centre.
+    mover : Mover
+        Nominal physics (gravity-normal model on the lattice); ``mu_lo <= mover.mu <= mu_hi``.
+    mu_lo, mu_hi : float
+        The friction range.
+    limits : Limits, optional
+        Grade window per sub-segment and turn limit between steps (as the ordinary
+        search: the state is then the cell and the heading of the last step).
+    keepout : Keepout or bool array, optional
+    allowed : bool array, optional
+        The search domain, as for :func:`lattice_line`.
+    options : SearchOptions, optional
+        ``neighbours``; ``max_labels`` (the label budget, default 50 million);
+        ``energy_tol`` (default :data:`ROBUST_ENERGY_TOL`); ``label_cap``: keep at most
+        this many settled labels per state (the earliest): faster, no longer exact
+        (``stats["exact"]`` False); ``heuristic``: order the search by the A* bound
+        (:mod:`fallway.lattice.robust`), False: plain Dijkstra order.
+    resolution : float
+        Approximate search: energies closer than this fraction of a reference v² (the
+        speed limit squared, else the largest v² the drop allows) count as equal in the
+        dominance test (``stats["exact"]`` False; the line returned is still checked
+        against the true limits, so it is robust, only maybe not the fastest).  The
+        exact Pareto set can grow without bound: where the speed limit binds at LO
+        (with no drag the three energies of a label are set by its plan length alone,
+        so two labels at a cell compare only when their lengths are equal) and with
+        drag (three independent energies).  A resolution of about 1 % bounds it.
+        Default 0: exact.
+
+    Returns
+    -------
+    LatticeLine
+        ``time_s`` is the nominal time; ``profile`` is the traverse of ``points`` at
+        nominal friction (gravity-normal model); ``stats`` carries
+        ``exit_speed_lo_m_s``, ``exit_speed_m_s``, ``exit_speed_hi_m_s``, label counts,
+        ``label_cap``, ``exact``, ``simple`` (no cell repeats) and ``state_cells``.
+
+    Raises
+    ------
+    NoFeasibleLine
+        When no lattice line works over the whole range; ``reason`` as for
+        :func:`lattice_line` (``"stall"``: every line stalls at HI friction;
+        ``"limits"``: too fast at LO friction, or the grade or turn limits).
+    ParameterError
+        A bad argument, or an unknown keyword.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.params import SearchOptions
+    >>> from fallway.terrain import Terrain
+    >>> z = -0.5 * np.add.outer(np.arange(5.0), np.arange(5.0))
+    >>> t = Terrain.from_array(z, (1.0, 0, 0, 0, -1.0, 5.0))
+    >>> ln = robust_lattice_line(t, (0.5, 4.5), (4.5, 0.5), Mover(mu=0.1), 0.05, 0.2,
+    ...                          options=SearchOptions(neighbours=8))
+    >>> ln.cells[[0, -1]].tolist()
+    [[0, 0], [4, 4]]
+    """
+    _check_mover(mover)
+    opts = _options(options)
+    lo, hi = check_mu_range(mover, mu_lo, mu_hi)
+    try:
+        resolution = float(resolution)
+    except (TypeError, ValueError):
+        raise ParameterError(f"resolution must be a fraction >= 0, got {resolution!r}") from None
+    if not (math.isfinite(resolution) and resolution >= 0.0):
+        raise ParameterError(f"resolution must be a fraction >= 0, got {resolution!r}")
+    limits = Limits() if limits is None else limits
+    keep = _keepout_mask(terrain, keepout)
+    domain = _domain_mask(terrain, allowed)
+    s = _snap(terrain, start, "start")
+    e = _snap(terrain, end, "end")
+    _check_points(terrain, keep, domain, [s, e], ["start", "end"])
+    if s == e:
+        raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
+    nb = opts.neighbours
+    prob = _Problem(terrain, mover, nb, limits, keep, domain)
+    _check_end_window(mover, lo, hi, mover.v0 * mover.v0, float(prob.z[s] - prob.z[e]), prob.v2_max)
+    run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
+                  label_cap=opts.label_cap, resolution=resolution)
+    res = prob.run_robust(s, e, lo, hi, **run_kw)
+    if res["status"] == _c.LABEL_BUDGET:
+        raise _budget_error(terrain, opts.max_labels or _ROBUST_MAX_LABELS, res["closest"])
+    if res["status"] != _c.OK:
+        del prob
+
+        def found(**relax) -> bool:
+            kw = dict(keep=keep, domain=domain) | relax
+            p = _Problem(terrain, mover, nb, limits, kw.pop("keep"), kw.pop("domain"), **kw)
+            return p.run_robust(s, e, lo, hi, **run_kw)["status"] == _c.OK
+
+        raise _diagnose(terrain, res["closest"], res["counters"], found, keep=keep, domain=domain, limits=limits,
+                        mover=mover, robust=True)
+    final = res["final"]
+    nodes = []
+    p = final
+    while p >= 0:
+        nodes.append(int(res["node"][p]))
+        p = int(res["parent"][p])
+    nodes.reverse()
+    cells, points = _line_points(terrain, prob.stencil, nodes)
+    stats = dict(res["stats"])
+    stats["simple"] = len(set(nodes)) == len(nodes)
+    stats["start_cell"] = [int(cells[0, 0]), int(cells[0, 1])]
+    stats["end_cell"] = [int(cells[-1, 0]), int(cells[-1, 1])]
+    en = res["e"][final]
+    stats["exit_speed_lo_m_s"] = float(math.sqrt(en[0]))
+    stats["exit_speed_m_s"] = float(math.sqrt(en[1]))
+    stats["exit_speed_hi_m_s"] = float(math.sqrt(en[2]))
+    profile = traverse(points, replace(mover, normal="gravity"))
+    return LatticeLine(cells=cells, points=points, profile=profile, time_s=float(res["t"][final]), stats=stats)

@@ -140,12 +140,17 @@ class Stencil:
     touch : ndarray of int (T, 2)
         Offsets of the cells an edge touches (start and end included) plus the centres
         its break points use; all must be passable.
+    sub_du : ndarray (B + K,)
+        Length of each sub-segment as a fraction of its edge: edge ``k``'s
+        ``break_start[k + 1] - break_start[k] + 1`` sub-segments are entries
+        ``break_start[k] + k`` onwards (``u`` of a break point minus ``u`` of the one
+        before; they sum to 1 per edge).
 
     Examples
     --------
     >>> s = make_stencil(16)
-    >>> len(s.offsets), int(s.break_start[-1])
-    (16, 8)
+    >>> len(s.offsets), int(s.break_start[-1]), len(s.sub_du)
+    (16, 8, 24)
     >>> print(f"{s.worst_metrication():.4f}")
     1.0275
     """
@@ -161,6 +166,7 @@ class Stencil:
     break_w: np.ndarray
     touch_start: np.ndarray
     touch: np.ndarray
+    sub_du: np.ndarray
 
     def widest_gap_deg(self) -> float:
         """Widest angle between neighbouring stencil directions, degrees."""
@@ -206,13 +212,18 @@ def make_stencil(neighbours: int) -> Stencil:
     offs = _offsets(neighbours)
     bstart, bu, ba, bb, bw = [0], [], [], [], []
     tstart, touch = [0], []
+    du = []
     for dr, dc in offs:
         cr = _crossings(dr, dc)
+        uprev = 0.0
         for u, a, b, w in cr:
             bu.append(u)
             ba.append(a)
             bb.append(b)
             bw.append(w)
+            du.append(u - uprev)
+            uprev = u
+        du.append(1.0 - uprev)
         bstart.append(len(bu))
         cells = set(_touched_cells(dr, dc))
         for _, a, b, _ in cr:
@@ -233,6 +244,7 @@ def make_stencil(neighbours: int) -> Stencil:
         break_w=np.array(bw, dtype=np.float64),
         touch_start=np.array(tstart, dtype=np.int64),
         touch=np.array(touch, dtype=np.int64).reshape(-1, 2),
+        sub_du=np.array(du, dtype=np.float64),
     )
     for a in arrays.values():
         a.setflags(write=False)
