@@ -52,6 +52,7 @@ from numba import njit
 from scipy.optimize import minimize
 
 from ._segment import segment_law
+from ._surface import new_work, surface_point
 from ._traverse import _STRAIGHT_RAD, bend_kdg, full_segment_step
 from .errors import FallwayError, ParameterError, RefinementWarning
 from .params import Limits
@@ -425,212 +426,36 @@ def _full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0,
 
 
 # ---------------------------------------------------------------------------------------
-# the terrain's smooth interpolant, evaluated in compiled code: the same blended tile
-# splines as ``Terrain.sample``/``Terrain.gradient`` (their knots and coefficients taken
-# from the terrain's own tile cache), without the per-call Python overhead
+# a ground line's objective in one compiled pass
 
 
 @njit(cache=True, nogil=True)
-def _bspline_basis(T, s, n, k, x, h, dh, hh, h1):
-    """Knot interval ``l`` of ``x`` (clamped to the base interval, as FITPACK's fpbisp)
-    and the k + 1 non-zero B-splines there (``h``) and their derivatives (``dh``);
-    the knots are row ``s`` of ``T``."""
-    lo = T[s, k]
-    hi = T[s, n - k - 1]
-    if x < lo:
-        x = lo
-    if x > hi:
-        x = hi
-    # largest l in [k, n - k - 2] with t[l] <= x (FITPACK's forward search): the knots of
-    # an interpolating spline on unit spacing sit near the grid points, so start from
-    # that guess and step
-    top = n - k - 2
-    l = min(max(int(x) + k - 1, k), top)
-    while l > k and T[s, l] > x:
-        l -= 1
-    while l < top and T[s, l + 1] <= x:
-        l += 1
-    h[0] = 1.0
-    for j in range(1, k + 1):
-        if j == k:
-            for i in range(j):
-                h1[i] = h[i]
-        for i in range(j):
-            hh[i] = h[i]
-        h[0] = 0.0
-        for i in range(j):
-            li = l + i + 1
-            lj = li - j
-            tli = T[s, li]
-            tlj = T[s, lj]
-            f = hh[i] / (tli - tlj)
-            h[i] = h[i] + f * (tli - x)
-            h[i + 1] = f * (x - tlj)
-    # derivative: k (N_{q,k-1}/(t_{q+k}-t_q) - N_{q+1,k-1}/(t_{q+k+1}-t_{q+1})), q = l-k+i
-    for i in range(k + 1):
-        q = l - k + i
-        d = 0.0
-        if k > 0:
-            if i >= 1:
-                d += h1[i - 1] / (T[s, q + k] - T[s, q])
-            if i + 1 <= k:
-                d -= h1[i] / (T[s, q + k + 1] - T[s, q + 1])
-            d *= k
-        dh[i] = d
-    return l
-
-
-@njit(cache=True, nogil=True)
-def _blend1(u, n, tile, blend):
-    nt = -(-n // tile)
-    m = int(math.floor(u / tile + 0.5))
-    near = (m >= 1) and (m <= nt - 1) and abs(u - m * tile) < blend
-    own = int(math.floor(u / tile))
-    own = min(max(own, 0), nt - 1)
-    if not near:
-        return own, own, 1.0, 0.0, 0.0, False
-    t = (u - m * tile + blend) / (2.0 * blend)
-    t = min(max(t, 0.0), 1.0)
-    wb = t * t * t * (t * (6.0 * t - 15.0) + 10.0)
-    dwb = 30.0 * t * t * (1.0 - t) ** 2 / (2.0 * blend)
-    return m - 1, m, 1.0 - wb, wb, dwb, True
-
-
-@njit(cache=True, nogil=True)
-def _spline_missing(R, C, rows, cols, tile, blend, slot):
-    """Tile ids (kr * ntc + kc) the points need that are not in the table yet."""
-    ntc = slot.shape[1]
-    mark = np.zeros(slot.shape[0] * ntc, np.bool_)
-    out = []
-    for p in range(R.shape[0]):
-        r = R[p]
-        c = C[p]
-        if not (math.isfinite(r) and math.isfinite(c)):
-            continue
-        ra, rb, _, _, _, nr = _blend1(r, rows, tile, blend)
-        ca, cb, _, _, _, nc = _blend1(c, cols, tile, blend)
-        for kr in (ra, rb):
-            for kc in (ca, cb):
-                tid = kr * ntc + kc
-                if slot[kr, kc] == -2 and not mark[tid]:
-                    mark[tid] = True
-                    out.append(tid)
-    return out
-
-
-@njit(cache=True, nogil=True)
-def _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, KY, CF, R0, C0, want_grad):
-    """Heights and (d/drow, d/dcol) of the blended tile splines at fractional (R, C);
-    NaN where ``Terrain.valid`` is False."""
-    npt = R.shape[0]
-    Z = np.full(npt, np.nan)
-    DR = np.full(npt, np.nan)
-    DC = np.full(npt, np.nan)
-    hx = np.empty(5)
-    dhx = np.empty(5)
-    hy = np.empty(5)
-    dhy = np.empty(5)
-    hh = np.empty(5)
-    h1 = np.zeros(5)
-    missing = False
-    eps = 1e-9
-    any_near = near.shape[0] > 0
-    for p in range(npt):
-        r = R[p]
-        c = C[p]
-        if not (math.isfinite(r) and math.isfinite(c)):
-            continue
-        if r < -eps or r > rows - 1 + eps or c < -eps or c > cols - 1 + eps:
-            continue
-        if any_near:
-            rr = min(max(r, 0.0), rows - 1.0)
-            cc = min(max(c, 0.0), cols - 1.0)
-            i0 = min(int(math.floor(rr)), rows - 2)
-            j0 = min(int(math.floor(cc)), cols - 2)
-            if near[i0, j0] or near[i0 + 1, j0] or near[i0, j0 + 1] or near[i0 + 1, j0 + 1]:
-                continue
-        ra, rb, wra, wrb, dwr, nr = _blend1(r, rows, tile, blend)
-        ca, cb, wca, wcb, dwc, nc = _blend1(c, cols, tile, blend)
-        z = 0.0
-        dzr = 0.0
-        dzc = 0.0
-        bad = False
-        for ia in range(2):
-            if ia == 1 and not ((wrb > 0.0) or (dwr != 0.0)):
-                continue
-            kr = ra if ia == 0 else rb
-            wr = wra if ia == 0 else wrb
-            sr = -1.0 if ia == 0 else 1.0
-            for ib in range(2):
-                if ib == 1 and not ((wcb > 0.0) or (dwc != 0.0)):
-                    continue
-                kc = ca if ib == 0 else cb
-                wc = wca if ib == 0 else wcb
-                sc = -1.0 if ib == 0 else 1.0
-                s = slot[kr, kc]
-                if s < 0:
-                    if s == -2:
-                        missing = True
-                    bad = True
-                    continue
-                x = r - R0[s]
-                y = c - C0[s]
-                kx = KX[s]
-                ky = KY[s]
-                nyc = NY[s] - ky - 1
-                lx = _bspline_basis(TX, s, NX[s], kx, x, hx, dhx, hh, h1)
-                ly = _bspline_basis(TY, s, NY[s], ky, y, hy, dhy, hh, h1)
-                v = 0.0
-                vr = 0.0
-                vc = 0.0
-                for i in range(kx + 1):
-                    base = (lx - kx + i) * nyc + ly - ky
-                    for j in range(ky + 1):
-                        cf = CF[s, base + j]
-                        v += hx[i] * hy[j] * cf
-                        if want_grad:
-                            vr += dhx[i] * hy[j] * cf
-                            vc += hx[i] * dhy[j] * cf
-                z += wr * wc * v
-                if want_grad:
-                    dzr += wr * wc * vr + sr * dwr * wc * v
-                    dzc += wr * wc * vc + sc * dwc * wr * v
-        if bad:
-            continue
-        Z[p] = z
-        DR[p] = dzr
-        DC[p] = dzc
-    return Z, DR, DC, missing
-
-
-@njit(cache=True, nogil=True)
-def _ground_fg(X, e0, e1, a, c0, e, f0, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, KY, CF,
-               R0, C0, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
+def _ground_fg(X, e0, e1, tab, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
     """``_Problem.fg`` of a ground line without geometric limits, in one compiled pass:
-    vertices on the interpolant, the segment chain and the gradient in (x, y).
-    Returns ``(f, grad, missing)``; ``missing``: a tile is not in the table yet."""
+    vertices on the smooth surface (``tab``: :class:`fallway._surface.SurfaceTables`),
+    the segment chain and the gradient in (x, y).  Returns ``(f, grad, missing)``;
+    ``missing``: a tile of the surface is not built yet."""
     m = X.shape[0] // 2
     n = m + 2
-    xs = np.empty(m)
-    ys = np.empty(m)
-    for i in range(m):
-        xs[i] = X[2 * i]
-        ys[i] = X[2 * i + 1]
-    R = (ys - f0) / e - 0.5
-    C = (xs - c0) / a - 0.5
-    Z, DR, DC, missing = _spline_eval(R, C, rows, cols, tile, blend, near, slot, TX, TY, NX, NY, KX, KY,
-                                      CF, R0, C0, True)
     out = np.zeros(X.shape[0])
-    if missing:
-        return 1e30, out, True
     P = np.empty((n, 3))
+    GX = np.empty(m)
+    GY = np.empty(m)
+    work = new_work()
     for c in range(3):
         P[0, c] = e0[c]
         P[n - 1, c] = e1[c]
     for i in range(m):
-        P[i + 1, 0] = xs[i]
-        P[i + 1, 1] = ys[i]
-        P[i + 1, 2] = Z[i]
+        x = X[2 * i]
+        y = X[2 * i + 1]
+        z, dzr, dzc, st = surface_point(tab, (y - tab.f0) / tab.e - 0.5, (x - tab.c0) / tab.a - 0.5, True, work)
+        if st == 2:
+            return 1e30, out, True
+        P[i + 1, 0] = x
+        P[i + 1, 1] = y
+        P[i + 1, 2] = z
+        GX[i] = dzc / tab.a
+        GY[i] = dzr / tab.e
     for i in range(n):
         for c in range(3):
             if not math.isfinite(P[i, c]):
@@ -640,107 +465,9 @@ def _ground_fg(X, e0, e1, a, c0, e, f0, rows, cols, tile, blend, near, slot, TX,
     if not math.isfinite(f):
         return 1e30, out, False
     for i in range(m):
-        gx = DC[i] / a
-        gy = DR[i] / e
-        out[2 * i] = G[i + 1, 0] + G[i + 1, 2] * gx
-        out[2 * i + 1] = G[i + 1, 1] + G[i + 1, 2] * gy
+        out[2 * i] = G[i + 1, 0] + G[i + 1, 2] * GX[i]
+        out[2 * i + 1] = G[i + 1, 1] + G[i + 1, 2] * GY[i]
     return f, out, False
-
-
-class _SplineTable:
-    """Compiled evaluation of ``Terrain.sample``/``gradient`` from the terrain's tile splines.
-
-    Tiles are fetched from the terrain (``Terrain._tile_spline``, built there on first use)
-    when a point first needs them and packed into flat arrays for the compiled kernel.
-    ``None`` when the terrain does not expose that interpolant (the caller then uses the
-    public methods).
-    """
-
-    @classmethod
-    def build(cls, terrain):
-        from . import terrain as tmod
-
-        need = ("_TILE", "_TILE_PAD", "_BLEND")
-        if not all(hasattr(tmod, nm) for nm in need):
-            return None
-        if not (hasattr(terrain, "_tile_spline") and hasattr(terrain, "_near_nodata")
-                and hasattr(terrain, "transform")):
-            return None
-        rows, cols = terrain.shape
-        if rows < 4 or cols < 4:
-            return None
-        tr = terrain.transform
-        if tr.b != 0 or tr.d != 0:
-            return None
-        return cls(terrain, int(tmod._TILE), float(tmod._BLEND))
-
-    def __init__(self, terrain, tile, blend):
-        self.terrain = terrain
-        self.tile = tile
-        self.blend = blend
-        self.rows, self.cols = terrain.shape
-        ntr, ntc = -(-self.rows // tile), -(-self.cols // tile)
-        self.slot = np.full((ntr, ntc), -2, np.int64)  # -2 not fetched, -1 no spline
-        near = np.asarray(terrain._near_nodata(), bool)
-        self.near = near if near.any() else np.zeros((0, 0), np.bool_)
-        tr = terrain.transform
-        self.a, self.c0, self.e, self.f0 = float(tr.a), float(tr.c), float(tr.e), float(tr.f)
-        self._parts = []
-        self._pack()
-
-    def _pack(self):
-        parts = self._parts
-        ns = max(len(parts), 1)
-        mt = max([len(p[0]) for p in parts] + [len(p[1]) for p in parts] + [1])
-        mc = max([len(p[2]) for p in parts] + [1])
-        self.TX = np.zeros((ns, mt))
-        self.TY = np.zeros((ns, mt))
-        self.CF = np.zeros((ns, mc))
-        self.NX = np.zeros(ns, np.int64)
-        self.NY = np.zeros(ns, np.int64)
-        self.KX = np.zeros(ns, np.int64)
-        self.KY = np.zeros(ns, np.int64)
-        self.R0 = np.zeros(ns)
-        self.C0 = np.zeros(ns)
-        for s, (tx, ty, cf, kx, ky, r0, c0) in enumerate(parts):
-            self.TX[s, :len(tx)] = tx
-            self.TY[s, :len(ty)] = ty
-            self.CF[s, :len(cf)] = cf
-            self.NX[s], self.NY[s], self.KX[s], self.KY[s] = len(tx), len(ty), kx, ky
-            self.R0[s], self.C0[s] = r0, c0
-
-    def _fetch(self, tids):
-        ntc = self.slot.shape[1]
-        for tid in tids:
-            kr, kc = divmod(int(tid), ntc)
-            part = self.terrain._tile_spline(kr, kc)
-            if part is None:
-                self.slot[kr, kc] = -1
-                continue
-            sp, r0, c0 = part
-            tx, ty, cf = sp.tck
-            kx, ky = sp.degrees
-            self.slot[kr, kc] = len(self._parts)
-            self._parts.append((np.asarray(tx, float), np.asarray(ty, float), np.asarray(cf, float).ravel(),
-                                int(kx), int(ky), float(r0), float(c0)))
-        self._pack()
-
-    def eval(self, x, y, want_grad):
-        x, y = np.broadcast_arrays(np.asarray(x, float), np.asarray(y, float))
-        shape = x.shape
-        x = x.ravel()
-        y = y.ravel()
-        C = np.ascontiguousarray((x - self.c0) / self.a - 0.5)
-        R = np.ascontiguousarray((y - self.f0) / self.e - 0.5)
-        miss = _spline_missing(R, C, self.rows, self.cols, self.tile, self.blend, self.slot)
-        if len(miss):
-            self._fetch(miss)
-        Z, DR, DC, _ = _spline_eval(R, C, self.rows, self.cols, self.tile, self.blend, self.near, self.slot,
-                                 self.TX, self.TY, self.NX, self.NY, self.KX, self.KY, self.CF, self.R0,
-                                 self.C0, want_grad)
-        if want_grad:
-            return Z.reshape(shape), (DC / self.a).reshape(shape), (DR / self.e).reshape(shape)
-        return Z.reshape(shape), None, None
 
 
 # ---------------------------------------------------------------------------------------
@@ -748,17 +475,11 @@ class _SplineTable:
 
 
 class _Ground:
-    """Heights and slopes of the terrain's smooth interpolant (bilinear + differences as fallback)."""
+    """Heights and slopes of the terrain's smooth surface (:meth:`Terrain.surface`)."""
 
     def __init__(self, terrain):
         self.terrain = terrain
-        self.smooth = hasattr(terrain, "sample") and hasattr(terrain, "gradient")
-        self.table = None
-        if self.smooth:
-            try:
-                self.table = _SplineTable.build(terrain)
-            except Exception:  # pragma: no cover - the public methods remain
-                self.table = None
+        self.surface = terrain.surface()
         rows, cols = terrain.shape
         x0, y0 = terrain.cell_center(0, 0)
         x1, y1 = terrain.cell_center(rows - 1, cols - 1)
@@ -767,33 +488,19 @@ class _Ground:
         self.ylim = (min(y0, y1) + tiny, max(y0, y1) - tiny)
 
     def z(self, x, y):
-        if self.table is not None:
-            return self.table.eval(x, y, False)[0]
-        if self.smooth:
-            return np.asarray(self.terrain.sample(np.asarray(x, float), np.asarray(y, float)), float)
-        return np.asarray(self.terrain.sample_linear(np.asarray(x, float), np.asarray(y, float)), float)
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        return self.surface.evaluate(x, y).reshape(shape)
 
     def grad(self, x, y):
-        if self.table is not None:
-            return self.table.eval(x, y, True)[1:]
-        if self.smooth:
-            gx, gy = self.terrain.gradient(np.asarray(x, float), np.asarray(y, float))
-            return np.asarray(gx, float), np.asarray(gy, float)
-        h = 1e-4 * self.terrain.cell_size
-        zx = (self.z(x + h, y) - self.z(x - h, y)) / (2 * h)
-        zy = (self.z(x, y + h) - self.z(x, y - h)) / (2 * h)
-        return zx, zy
+        return self.z_grad(x, y)[1:]
 
     def z_grad(self, x, y):
-        """Heights and slopes together (one pass of the compiled interpolant)."""
-        if self.table is not None:
-            return self.table.eval(x, y, True)
-        return (self.z(x, y),) + tuple(self.grad(x, y))
+        """Heights and slopes together (one pass of the compiled surface)."""
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        return tuple(v.reshape(shape) for v in self.surface.evaluate(x, y, grad=True))
 
     def valid(self, x, y):
-        if hasattr(self.terrain, "valid"):
-            return np.asarray(self.terrain.valid(np.asarray(x, float), np.asarray(y, float)), bool)
-        return np.isfinite(self.z(x, y))
+        return np.asarray(self.terrain.valid(np.asarray(x, float), np.asarray(y, float)), bool)
 
 
 def _traverse(points: np.ndarray, mover: Mover) -> Profile:
@@ -1799,8 +1506,8 @@ class _Problem:
     def _fast(self):
         """The compiled table when the objective is the bare chain on the ground interpolant."""
         lim = self.limits
-        tab = self.gr.table
-        if (self.full or self.line != "ground" or tab is None or self.keep is not None or self.nodata is not None
+        tab = self.gr.surface
+        if (self.full or self.line != "ground" or self.keep is not None or self.nodata is not None
                 or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None):
             return None
         return tab
@@ -1810,14 +1517,12 @@ class _Problem:
         if tab is not None:
             mv = self.mover
             for _ in range(2):
-                f, g, missing = _ground_fg(np.ascontiguousarray(X, float), ends[0], ends[1], tab.a, tab.c0, tab.e,
-                                           tab.f0, tab.rows, tab.cols, tab.tile, tab.blend, tab.near, tab.slot,
-                                           tab.TX, tab.TY, tab.NX, tab.NY, tab.KX, tab.KY, tab.CF, tab.R0, tab.C0,
+                f, g, missing = _ground_fg(np.ascontiguousarray(X, float), ends[0], ends[1], tab.tables,
                                            mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
                                            self.w_pen * 1e-6, self.u_max, self.u_stall)
                 if not missing:
                     return f, g
-                tab.eval(X[0::2], X[1::2], False)  # fetches the tiles, then once more
+                tab.ensure(X[0::2], X[1::2])  # builds the tiles, then once more
         P, gx, gy = self.to_points(X, ends, slopes=True)
         if not np.all(np.isfinite(P)):
             return 1e30, np.zeros_like(X)
