@@ -53,7 +53,7 @@ from scipy.optimize import minimize
 
 from ._segment import segment_law
 from ._surface import new_work, surface_point
-from ._traverse import _STRAIGHT_RAD, bend_kdg, full_segment_step
+from ._traverse import window_step
 from .errors import FallwayError, ParameterError, RefinementWarning
 from .params import Limits
 from .physics import Mover, Profile
@@ -273,60 +273,17 @@ def _chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
 
 @njit(cache=True, nogil=True)
 def _full_seg(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
-    """One segment of ``traverse_kernel``'s full model from the local vertices ``Q`` (4, 3):
-    rows P[j-1], P[j], P[j+1], P[j+2] relative to P[j] (rows 0 / 3 used when ``has_a`` /
-    ``has_b``: the segment's start / end vertex is interior and carries curvature).
-    Same geometry as ``vertex_geometry`` + ``bend_kdg``; returns ``(v2_out, time_s, stall_at_m)``."""
-    dx = Q[2, 0] - Q[1, 0]
-    dy = Q[2, 1] - Q[1, 1]
-    dz = Q[2, 2] - Q[1, 2]
-    s = math.sqrt(dx * dx + dy * dy + dz * dz)
-    if s <= 1e-12:
-        return u, 0.0, -1.0  # a repeated vertex: no segment (traverse skips it too)
-    tx, ty, tz = dx / s, dy / s, dz / s
-    drop = -dz
-    plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
-    ka = 0.0
-    kdg_a = 0.0
-    kb = 0.0
-    kdg_b = 0.0
-    for side in range(2):
-        if side == 0 and not has_a:
-            continue
-        if side == 1 and not has_b:
-            continue
-        if side == 0:
-            ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
-        else:
-            ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
-        so = math.sqrt(ex * ex + ey * ey + ez * ez)
-        if so <= 1e-12:
-            continue
-        ox, oy, oz = ex / so, ey / so, ez / so
-        # a: turn from the previous direction o to t; b: from t to the next direction o
-        if side == 0:
-            ax, ay, az, bx, by, bz = ox, oy, oz, tx, ty, tz
-        else:
-            ax, ay, az, bx, by, bz = tx, ty, tz, ox, oy, oz
-        cx = ay * bz - az * by
-        cy = az * bx - ax * bz
-        cz = ax * by - ay * bx
-        phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
-        nx, ny, nz = bx - ax, by - ay, bz - az
-        nn = math.sqrt(nx * nx + ny * ny + nz * nz)
-        if phi <= _STRAIGHT_RAD or nn <= 0.0:
-            continue
-        kap = phi / (0.5 * (so + s))
-        kdg = bend_kdg(kap, nx / nn, ny / nn, nz / nn, tx, ty, tz, g)
-        if side == 0:
-            ka, kdg_a = kap, kdg
-        else:
-            kb, kdg_b = kap, kdg
-    un, t, at, _ = full_segment_step(u, drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k, 0.0)
+    """One segment of the full model from its four-vertex window
+    (:func:`fallway._traverse.window_step`), with a continuous extension past a stall
+    for the optimiser: the exit speed clamped to ``u_floor``, the time of a constant
+    deceleration, and a penalty on the part of the segment not reached, so a line search
+    can step back from it.  Returns ``(v2_out, time_s, stall_at_m)``."""
+    un, t, at = window_step(u, Q, has_a, has_b, g, mu, k, eps_plan, 0.0)
     if at >= 0.0 and u_floor > 0.0:
-        # stalled: a continuous extension for the optimiser (the exit speed clamped to
-        # the floor, the time of a constant deceleration, and a penalty on the part of
-        # the segment not reached), so a line search can step back from it
+        dx = Q[2, 0] - Q[1, 0]
+        dy = Q[2, 1] - Q[1, 1]
+        dz = Q[2, 2] - Q[1, 2]
+        s = math.sqrt(dx * dx + dy * dy + dz * dz)
         va = math.sqrt(u) if u > 0.0 else 0.0
         miss = (s - min(at, s)) / s
         return u_floor, 2.0 * s / (va + math.sqrt(u_floor)) + w_stall * miss * miss, at
