@@ -12,7 +12,7 @@ import numpy as np
 from .errors import ParameterError
 from .results import LatticeLine, ReachMap
 from .physics import Mover, Profile, traverse
-from .params import Limits
+from .params import Limits, LineSpec
 
 __all__ = ["LatticeLine", "Route", "ReachMap", "find_route", "route_from_lattice"]
 
@@ -226,7 +226,9 @@ def route_from_lattice(terrain, lat: LatticeLine, mover: Mover, *, limits: Limit
         if refine_line is not None:
             # refinement works on polygons (a distance field); a bare lattice mask has none
             ko = None if isinstance(keepout, np.ndarray) else keepout
-            rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=ko, line=line, **refine_options)
+            spec = LineSpec(line, refine_options.pop("clearance", (0.0, 0.0)), refine_options.pop("start_height", 0.0),
+                            refine_options.pop("end_height", 0.0))
+            rr = refine_line(terrain, lat.points, mover, limits=limits, keepout=ko, line=spec, **refine_options)
             final = _merge_close(np.asarray(rr.line, dtype=float), _MERGE_FRACTION * terrain.cell_size)
             refined = True
             extra = {"refine_iterations": int(rr.iterations), "refine_residual": _num(rr.residual),
