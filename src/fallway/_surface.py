@@ -2,7 +2,7 @@
 
 One implementation serves :meth:`fallway.terrain.Terrain.sample`, ``gradient``,
 ``normal`` and ``valid`` and the refinement's compiled objective, which calls
-:func:`surface_point` from inside its own kernel.
+:func:`surface_eval` from inside its own kernel.
 
 Construction
     The grid is cut into tiles of :data:`TILE` x :data:`TILE` cells.  A tile's spline
@@ -44,8 +44,7 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 
-__all__ = ["TILE", "TILE_PAD", "BLEND", "SurfaceTables", "SmoothSurface", "surface_point", "new_work",
-           "fill_nodata"]
+__all__ = ["TILE", "TILE_PAD", "BLEND", "SurfaceTables", "SmoothSurface", "surface_eval", "fill_nodata"]
 
 #: Tile edge, cells.
 TILE = 128
@@ -55,8 +54,6 @@ TILE_PAD = 12
 BLEND = 6.0
 #: Extrapolated nodata fill reaches at most this many cells before it is held constant.
 FILL_REACH_CELLS = 8.0
-#: Statuses of :func:`surface_point`.
-OK, INVALID, MISSING = 0, 1, 2
 
 
 class SurfaceTables(NamedTuple):
@@ -160,21 +157,14 @@ def _blend1(u, n):
 
 
 @njit(cache=True, nogil=True)
-def new_work():
-    """Scratch space of :func:`surface_point` (allocate once per batch of points)."""
-    return np.zeros((6, 5))
-
-
-@njit(cache=True, nogil=True)
-def _valid(tab, r, c):
+def _valid_at(rows, cols, near, r, c):
+    """Inside the hull of cell centres and no cell of the 2 x 2 block around (r, c) next
+    to nodata (``near`` empty: no nodata at all)."""
     if not (math.isfinite(r) and math.isfinite(c)):
         return False
     eps = 1e-9
-    rows = tab.rows
-    cols = tab.cols
     if r < -eps or r > rows - 1 + eps or c < -eps or c > cols - 1 + eps:
         return False
-    near = tab.near
     if near.shape[0] > 0:
         rr = min(max(r, 0.0), rows - 1.0)
         cc = min(max(c, 0.0), cols - 1.0)
@@ -186,89 +176,81 @@ def _valid(tab, r, c):
 
 
 @njit(cache=True, nogil=True)
-def _tile_value(tab, s, r, c, want_grad, work):
-    """Spline of tile slot ``s`` at (r, c): value, d/drow, d/dcol."""
-    hx, dhx, hy, dhy, hh, h1 = work[0], work[1], work[2], work[3], work[4], work[5]
-    kx = tab.KX[s]
-    ky = tab.KY[s]
-    nyc = tab.NY[s] - ky - 1
-    lx = _basis(tab.TX, s, tab.NX[s], kx, r - tab.R0[s], hx, dhx, hh, h1)
-    ly = _basis(tab.TY, s, tab.NY[s], ky, c - tab.C0[s], hy, dhy, hh, h1)
-    v = 0.0
-    vr = 0.0
-    vc = 0.0
-    for i in range(kx + 1):
-        base = (lx - kx + i) * nyc + ly - ky
-        for j in range(ky + 1):
-            cf = tab.CF[s, base + j]
-            v += hx[i] * hy[j] * cf
-            if want_grad:
-                vr += dhx[i] * hy[j] * cf
-                vc += hx[i] * dhy[j] * cf
-    return v, vr, vc
+def surface_eval(tab, R, C, want_grad):
+    """Heights and (d/drow, d/dcol) of the surface at fractional cell coordinates (R, C).
 
-
-@njit(cache=True, nogil=True)
-def surface_point(tab, r, c, want_grad, work):
-    """Height and (d/drow, d/dcol) of the surface at fractional cell coordinates (r, c).
-
-    Returns ``(z, dz_drow, dz_dcol, status)``: status :data:`OK`, :data:`INVALID` (the
-    point is not valid: NaN) or :data:`MISSING` (a tile it needs is not built yet).
-    ``work`` is :func:`new_work`'s scratch space.
+    Returns ``(Z, DR, DC, missing)``: NaN where a point is not valid (or needs a tile
+    that holds no data); ``missing`` True when a tile a valid point needs is not built
+    yet (build it, :meth:`SmoothSurface.ensure`, and evaluate again).
     """
-    nan = math.nan
-    if not _valid(tab, r, c):
-        return nan, nan, nan, INVALID
-    ra, rb, wra, wrb, dwr, _ = _blend1(r, tab.rows)
-    ca, cb, wca, wcb, dwc, _ = _blend1(c, tab.cols)
-    z = 0.0
-    dzr = 0.0
-    dzc = 0.0
-    status = OK
-    for ia in range(2):
-        if ia == 1 and not ((wrb > 0.0) or (dwr != 0.0)):
-            continue
-        kr = ra if ia == 0 else rb
-        wr = wra if ia == 0 else wrb
-        sr = -1.0 if ia == 0 else 1.0
-        for ib in range(2):
-            if ib == 1 and not ((wcb > 0.0) or (dwc != 0.0)):
-                continue
-            kc = ca if ib == 0 else cb
-            wc = wca if ib == 0 else wcb
-            sc = -1.0 if ib == 0 else 1.0
-            s = tab.slot[kr, kc]
-            if s < 0:
-                if s == -2:
-                    status = MISSING
-                elif status == OK:
-                    status = INVALID
-                continue
-            v, vr, vc = _tile_value(tab, s, r, c, want_grad, work)
-            z += wr * wc * v
-            if want_grad:
-                dzr += wr * wc * vr + sr * dwr * wc * v
-                dzc += wr * wc * vc + sc * dwc * wr * v
-    if status != OK:
-        return nan, nan, nan, status
-    return z, dzr, dzc, OK
-
-
-@njit(cache=True, nogil=True)
-def _evaluate(tab, R, C, want_grad):
-    n = R.shape[0]
-    Z = np.empty(n)
-    DR = np.empty(n)
-    DC = np.empty(n)
-    work = new_work()
+    npt = R.shape[0]
+    Z = np.full(npt, np.nan)
+    DR = np.full(npt, np.nan)
+    DC = np.full(npt, np.nan)
+    hx = np.empty(5)
+    dhx = np.empty(5)
+    hy = np.empty(5)
+    dhy = np.empty(5)
+    hh = np.empty(5)
+    h1 = np.zeros(5)
+    slot, TX, TY, NX, NY, KX, KY, CF, R0, C0 = (tab.slot, tab.TX, tab.TY, tab.NX, tab.NY, tab.KX, tab.KY, tab.CF,
+                                                tab.R0, tab.C0)
+    rows, cols, near = tab.rows, tab.cols, tab.near
     missing = False
-    for p in range(n):
-        z, dr, dc, st = surface_point(tab, R[p], C[p], want_grad, work)
+    for p in range(npt):
+        r = R[p]
+        c = C[p]
+        if not _valid_at(rows, cols, near, r, c):
+            continue
+        ra, rb, wra, wrb, dwr, _ = _blend1(r, rows)
+        ca, cb, wca, wcb, dwc, _ = _blend1(c, cols)
+        z = 0.0
+        dzr = 0.0
+        dzc = 0.0
+        bad = False
+        for ia in range(2):
+            if ia == 1 and not ((wrb > 0.0) or (dwr != 0.0)):
+                continue
+            kr = ra if ia == 0 else rb
+            wr = wra if ia == 0 else wrb
+            sr = -1.0 if ia == 0 else 1.0
+            for ib in range(2):
+                if ib == 1 and not ((wcb > 0.0) or (dwc != 0.0)):
+                    continue
+                kc = ca if ib == 0 else cb
+                wc = wca if ib == 0 else wcb
+                sc = -1.0 if ib == 0 else 1.0
+                s = slot[kr, kc]
+                if s < 0:
+                    if s == -2:
+                        missing = True
+                    bad = True
+                    continue
+                kx = KX[s]
+                ky = KY[s]
+                nyc = NY[s] - ky - 1
+                lx = _basis(TX, s, NX[s], kx, r - R0[s], hx, dhx, hh, h1)
+                ly = _basis(TY, s, NY[s], ky, c - C0[s], hy, dhy, hh, h1)
+                v = 0.0
+                vr = 0.0
+                vc = 0.0
+                for i in range(kx + 1):
+                    base = (lx - kx + i) * nyc + ly - ky
+                    for j in range(ky + 1):
+                        cf = CF[s, base + j]
+                        v += hx[i] * hy[j] * cf
+                        if want_grad:
+                            vr += dhx[i] * hy[j] * cf
+                            vc += hx[i] * dhy[j] * cf
+                z += wr * wc * v
+                if want_grad:
+                    dzr += wr * wc * vr + sr * dwr * wc * v
+                    dzc += wr * wc * vc + sc * dwc * wr * v
+        if bad:
+            continue
         Z[p] = z
-        DR[p] = dr
-        DC[p] = dc
-        if st == MISSING:
-            missing = True
+        DR[p] = dzr
+        DC[p] = dzc
     return Z, DR, DC, missing
 
 
@@ -276,7 +258,7 @@ def _evaluate(tab, R, C, want_grad):
 def _valid_many(tab, R, C):
     out = np.empty(R.shape[0], np.bool_)
     for p in range(R.shape[0]):
-        out[p] = _valid(tab, R[p], C[p])
+        out[p] = _valid_at(tab.rows, tab.cols, tab.near, R[p], C[p])
     return out
 
 
@@ -289,7 +271,7 @@ def _missing_tiles(tab, R, C):
     for p in range(R.shape[0]):
         r = R[p]
         c = C[p]
-        if not _valid(tab, r, c):
+        if not _valid_at(tab.rows, tab.cols, tab.near, r, c):
             continue
         ra, rb, _, _, _, _ = _blend1(r, tab.rows)
         ca, cb, _, _, _, _ = _blend1(c, tab.cols)
@@ -450,10 +432,10 @@ class SmoothSurface:
         NaN where :meth:`valid` is False.
         """
         R, C = self.rowcol(x, y)
-        Z, DR, DC, missing = _evaluate(self.tables, R, C, grad)
+        Z, DR, DC, missing = surface_eval(self.tables, R, C, grad)
         if missing:
             self.ensure(x, y)
-            Z, DR, DC, _ = _evaluate(self.tables, R, C, grad)
+            Z, DR, DC, _ = surface_eval(self.tables, R, C, grad)
         if not grad:
             return Z
         # col = (x - c0)/a - 1/2 and row = (y - f0)/e - 1/2: d/dx = (1/a) d/dcol and

@@ -186,7 +186,7 @@ def vertex_geometry(pts, tang, seg_len, kappa, normal):
             0.5 * (seg_len[i - 1] + seg_len[i]))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def vertex_turn(ax, ay, az, bx, by, bz, mean_len):
     """Discrete curvature at a vertex where the unit direction turns from ``a`` to ``b``.
 

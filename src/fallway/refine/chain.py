@@ -32,7 +32,7 @@ import numpy as np
 from numba import njit
 
 from .._segment import segment_law
-from .._surface import MISSING, new_work, surface_point
+from .._surface import surface_eval
 from .._traverse import window_step
 
 __all__ = ["gravity_chain", "full_step", "full_chain", "ground_fg"]
@@ -300,25 +300,25 @@ def ground_fg(X, e0, e1, tab, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_s
     ``missing``: a tile of the surface is not built yet."""
     m = X.shape[0] // 2
     n = m + 2
+    xs = np.empty(m)
+    ys = np.empty(m)
+    for i in range(m):
+        xs[i] = X[2 * i]
+        ys[i] = X[2 * i + 1]
+    R = (ys - tab.f0) / tab.e - 0.5
+    C = (xs - tab.c0) / tab.a - 0.5
+    Z, DR, DC, missing = surface_eval(tab, R, C, True)
     out = np.zeros(X.shape[0])
+    if missing:
+        return 1e30, out, True
     P = np.empty((n, 3))
-    GX = np.empty(m)
-    GY = np.empty(m)
-    work = new_work()
     for c in range(3):
         P[0, c] = e0[c]
         P[n - 1, c] = e1[c]
     for i in range(m):
-        x = X[2 * i]
-        y = X[2 * i + 1]
-        z, dzr, dzc, st = surface_point(tab, (y - tab.f0) / tab.e - 0.5, (x - tab.c0) / tab.a - 0.5, True, work)
-        if st == MISSING:
-            return 1e30, out, True
-        P[i + 1, 0] = x
-        P[i + 1, 1] = y
-        P[i + 1, 2] = z
-        GX[i] = dzc / tab.a
-        GY[i] = dzr / tab.e
+        P[i + 1, 0] = xs[i]
+        P[i + 1, 1] = ys[i]
+        P[i + 1, 2] = Z[i]
     for i in range(n):
         for c in range(3):
             if not math.isfinite(P[i, c]):
@@ -328,6 +328,8 @@ def ground_fg(X, e0, e1, tab, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_s
     if not math.isfinite(f):
         return 1e30, out, False
     for i in range(m):
-        out[2 * i] = G[i + 1, 0] + G[i + 1, 2] * GX[i]
-        out[2 * i + 1] = G[i + 1, 1] + G[i + 1, 2] * GY[i]
+        gx = DC[i] / tab.a
+        gy = DR[i] / tab.e
+        out[2 * i] = G[i + 1, 0] + G[i + 1, 2] * gx
+        out[2 * i + 1] = G[i + 1, 1] + G[i + 1, 2] * gy
     return f, out, False
