@@ -30,7 +30,7 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import minimize
 
 from fallway.physics import Mover, traverse
-from fallway.params import LineSpec
+from fallway.params import Limits, LineSpec
 from fallway.refine import refine_line
 from fallway.refine.chain import full_chain
 
@@ -178,20 +178,35 @@ def test_polished_raised_line_matches_the_optimal_control_reference(reference_mu
 # the gravity-normal optimum as a candidate of a full-model run
 
 
-def test_the_full_runs_gravity_candidate_is_the_gravity_runs_line():
-    # reference: a refinement with Mover(normal="gravity") of the same line (what the old
-    # second run of refine_line computed).  The gravity stage depends on the gravity-normal
-    # model alone - the first level's vertex distribution comes from gravity-normal speeds
-    # and its limits are judged with them - so the full run's candidate is that very line,
-    # timed with the full model, and the full run returns nothing slower
+def test_the_fallback_candidate_is_the_gravity_runs_line():
+    # reference: a refinement with Mover(normal="gravity") of the same line (what refine_line
+    # once ran a second time).  The gravity stage run with gravity-normal speeds (its first
+    # level's vertex distribution, its limit checks) is that run's very line; the full run
+    # seeds its own gravity stage with full-model speeds (the polish starts better from it)
+    from fallway.refine.problem import Ground, Problem
+    from fallway.refine.stages import Plan, gravity_stage
+
     t = plane_terrain(30.0)
     pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
-    full = Mover(mu=0.1, normal="full", max_speed=7.0)
-    rf = refine_line(t, pts, full, n_vertices=41)
-    rg = refine_line(t, pts, Mover(mu=0.1, normal="gravity", max_speed=7.0), n_vertices=41)
+    grav = Mover(mu=0.1, normal="gravity", max_speed=7.0)
+    rg = refine_line(t, pts, grav, n_vertices=41)
     assert rg.chosen == "gravity optimum"
-    cand = {c.name: c for c in rf.candidates}
-    grav = cand["gravity optimum, full-model timed"]
-    assert grav.time_s == pytest.approx(traverse(rg.line, full).travel_time_s, rel=1e-12)
-    assert rf.time_after_s <= grav.time_s
-    assert "full polish" in cand and list(cand)[0] == "start"
+    prob = Problem(Ground(t), Mover(mu=0.1, normal="full", max_speed=7.0), Limits(), LineSpec(), None, None, 0.1, 1e4)
+    run = gravity_stage(prob, pts, pts, Plan((11, 21, 41), 0.5, 4000, 1e-9), "gravity")
+    np.testing.assert_array_equal(run.line, rg.line)
+
+
+def test_when_the_full_model_stages_gain_nothing_the_gravity_runs_line_is_a_candidate():
+    # a line straight down the fall line of a plane from rest is already the fastest (the
+    # brachistochrone to a point straight below is the straight line; Bernoulli): the
+    # full-model stages gain nothing, so the gravity-normal run's optimum joins the
+    # candidates, timed with the full model, and the start line is kept (never slower)
+    t = plane_terrain(30.0)
+    pts = on_ground(t, np.array([(5.5, 25.5), (35.5, 25.5)]))
+    full = Mover(mu=0.1, normal="full")
+    res = refine_line(t, pts, full)
+    cand = {c.name: c for c in res.candidates}
+    assert list(cand) == ["start", "gravity optimum", "full polish", "gravity optimum, full-model timed"]
+    assert res.chosen == "start" and res.time_after_s == res.time_before_s
+    fb = cand["gravity optimum, full-model timed"]
+    assert fb.meets_limits and fb.time_s == pytest.approx(res.time_before_s, rel=1e-12)

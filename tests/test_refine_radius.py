@@ -127,14 +127,7 @@ def test_a_lattice_start_that_breaks_the_radius_gives_a_line_that_meets_it():
     pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
     assert circumradii(pts).min() < 12.0
     mover = Mover(mu=0.05, normal="full")
-    with warnings.catch_warnings(record=True) as rec:
-        warnings.simplefilter("always")
-        res = refine_line(t, pts, mover, limits=Limits(min_radius_m=12.0), n_vertices=41)
-    # the gravity-normal levels may end on a line-search failure at the radius limit (a
-    # gravity-normal run of this line does too): then, and only then, the warning says so
-    for w in rec:
-        assert issubclass(w.category, RefinementWarning) and "did not converge" in str(w.message)
-        assert not res.converged
+    res = refine_line(t, pts, mover, limits=Limits(min_radius_m=12.0), n_vertices=41)
     assert circumradii(res.line).min() >= 12.0 * (1 - RTOL)
     assert res.limits["min_radius"] in ("inactive", "active")
     assert res.time_after_s == pytest.approx(traverse(res.line, mover).travel_time_s, rel=1e-12)

@@ -11,10 +11,10 @@ from ..errors import ParameterError
 from ..params import Limits, LineSpec, checked_options
 from ..physics import Mover
 from ..results import RefineResult
-from .choose import Candidate, choose
+from .choose import Candidate, choose, improves, judge
 from .fields import DistanceField
 from .problem import Ground, Problem
-from .stages import Plan, gravity_stage, polish_stage, raised_heights, rounded_start
+from .stages import Plan, gravity_stage, polish_stage, raised_heights, repair_radius, rounded_start
 
 __all__ = ["refine_line"]
 
@@ -74,9 +74,11 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     RefineResult
         The fastest candidate line that meets the limits (:mod:`fallway.refine.choose`):
         the start line, its rounded version (``min_radius_m``), the gravity-normal optimum
-        (named ``"gravity optimum, full-model timed"`` with the full model) and the
-        full-model polish's lines; ``candidates`` lists them all with their times, limit
-        status and any failure, ``chosen`` names the one returned.  Never slower than the
+        and, with the full model, the polish's lines and - when none of those beats the
+        start line - the optimum of a gravity-normal run (``"gravity optimum, full-model
+        timed"``); every candidate is timed with the mover's own model.  ``candidates``
+        lists them all with their times, limit status and any failure, ``chosen`` names
+        the one returned.  Never slower than the
         start line among lines that meet the limits: when the start line itself breaks one
         (typically the bend radius at its lattice corners) the fastest line that meets them
         is returned even if slower, and ``message`` says so.
@@ -114,13 +116,17 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         raise ParameterError(f"limits must be a fallway.Limits, got {type(limits).__name__}")
     P_in = _points(points)
     margin = _number("margin_m", 0.1 * terrain.cell_size if margin_m is None else margin_m, low=0.0)
+    w_pen = _number("penalty", penalty, low=0.0, strict=True)
     plan = _plan(terrain, P_in, n_vertices, levels, blend, max_iter, gtol)
     ground = Ground(terrain)
     keep = DistanceField(keepout, terrain.crs) if keepout is not None else None
     nodata = DistanceField(nodata_terrain=terrain) if not np.all(np.isfinite(terrain.z)) else None
-    prob = Problem(ground, mover, limits, spec, keep, nodata, margin, _number("penalty", penalty, low=0.0, strict=True))
-    P_start = _start_line(prob, P_in, spec)
 
+    def problem() -> Problem:
+        return Problem(ground, mover, limits, spec, keep, nodata, margin, w_pen)
+
+    prob = problem()
+    P_start = _start_line(prob, P_in, spec)
     cands = [Candidate("start", P_start)]
     seed = P_start
     if limits.min_radius_m is not None:
@@ -129,17 +135,22 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         cands.append(Candidate("rounded", P_round, None if P_round is not None else
                                "the rounded start leaves the smooth ground surface"))
         seed = P_start if P_round is None else P_round
-    grav = gravity_stage(prob, seed, P_start, plan)
-    name = "gravity optimum" if mover.normal == "gravity" else "gravity optimum, full-model timed"
-    cands.append(Candidate(name, grav.line, grav.error, refined=True))
+    grav = gravity_stage(prob, seed, P_start, plan, mover.normal)
     pol = None
-    if mover.normal == "full":
-        if grav.line is None:
-            cands.append(Candidate("full polish", None, "not run: no gravity-normal optimum to polish", refined=True))
-        elif len(grav.line) >= 3:
-            pol = polish_stage(prob, grav.line, P_start, plan)
-            cands += [Candidate(nm, L, refined=True) for nm, L in pol.lines]
-    return choose(prob, cands, mover, grav, pol)
+    if mover.normal == "full" and grav.line is not None and len(grav.line) >= 3:
+        pol = polish_stage(prob, grav.line, P_start, plan)
+    cands.append(Candidate("gravity optimum", repair_radius(prob, grav.line, P_start), grav.error, True, grav))
+    if pol is not None:
+        cands += [Candidate(nm, repair_radius(prob, L, P_start), refined=True, run=grav) for nm, L in pol.lines]
+    if mover.normal == "full" and grav.line is not None:
+        judge(prob, cands, mover)
+        if not improves(cands):
+            # the full-model stages gained nothing: the optimum of a gravity-normal run
+            # (first level distributed and limits checked with gravity-normal speeds)
+            alt = gravity_stage(problem(), seed, P_start, plan, "gravity")
+            cands.append(Candidate("gravity optimum, full-model timed", repair_radius(prob, alt.line, P_start),
+                                   alt.error, True, alt))
+    return choose(prob, cands, mover, pol)
 
 
 def _line_spec(line) -> LineSpec:

@@ -2,12 +2,12 @@
 
 * :func:`rounded_start` - the start line with its corners rounded to the bend radius.
 * :func:`gravity_stage` - coarse-to-fine levels on the gravity-normal time, then stronger
-  penalties while a limit is still broken, then :func:`repair_radius`: the gravity-normal
-  optimum.  It depends on the gravity-normal model alone (vertex distribution, limit
-  checks), so with ``Mover(normal="full")`` it is the very line a gravity-normal run
+  penalties while a limit is still broken: the gravity-normal optimum.  Its first level's vertex distribution and its limit checks use the speeds of
+  a given model: with the gravity-normal model it is the very line a gravity-normal run
   returns.
 * :func:`polish_stage` - the full-model polish, coarse to fine again from the gravity
   optimum: one polished line per level.
+* :func:`repair_radius` - a refined line left with a few too tight bends, smoothed locally.
 
 A stage that cannot run says why (``error``); it never raises on numbers.
 """
@@ -19,8 +19,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..geometry import circumradii, min_radius_m
+from ..geometry import circumradii
 from .chain import full_chain
+from .fields import curvature
 from .problem import Problem
 from .shape import fillet_plan, monitor, refine_density, resample, resample_smooth
 from .solve import STAT_TOL_COARSE, polish, solve
@@ -97,7 +98,10 @@ def rounded_start(prob: Problem, P_start: np.ndarray, r_min: float, h0: float, h
         z = zg if prob.line == "ground" else raised_heights(xy, zg, prob, h0, h1)
         P = np.column_stack([xy, z])
         P[0], P[-1] = P_start[0], P_start[-1]
-        r3 = min_radius_m(P, dims=3)
+        # the penalty's own measure of the 3D radius (equal to geometry.circumradii to
+        # rounding): the radius-limited optimisation is chaotic, and this keeps the
+        # rounded start, and so every result after it, to the bit
+        r3 = 1.0 / max(float(np.max(curvature(P[:-2], P[1:-1], P[2:]))), 1e-300)
         best = P
         if r3 >= r_min * (1 + 2e-3) or rad < r_min * f * (1 - 1e-6):
             break  # met, or the room between corners is what limits it
@@ -105,12 +109,17 @@ def rounded_start(prob: Problem, P_start: np.ndarray, r_min: float, h0: float, h
     return best
 
 
-def repair_radius(prob: Problem, P: np.ndarray, P_start: np.ndarray, r_min: float, sweeps: int = 400) -> np.ndarray:
-    """Local Laplacian smoothing of the vertices whose circumradius (with their two
-    neighbours, :func:`fallway.geometry.circumradii` in 3D) is below ``r_min`` (plus a
-    0.2 % margin) and of their neighbours: each such vertex moves halfway to the midpoint
-    of its neighbours, which spreads the bend over more vertices; ends stay fixed, heights
-    follow the ground (or the clearance band).  Stops when no triple is too tight."""
+def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, sweeps: int = 400) -> np.ndarray | None:
+    """A refined line whose bend radius is broken, repaired: the penalty leaves a few tight
+    triples, smoothed out locally.  The vertices whose circumradius (with their two
+    neighbours, :func:`fallway.geometry.circumradii` in 3D) is below the limit (plus a
+    0.2 % margin) and their neighbours move halfway to the midpoint of their neighbours,
+    which spreads the bend over more vertices; ends stay fixed, heights follow the ground
+    (or the clearance band).  Stops when no triple is too tight.  Any other line (or None)
+    is returned as it is."""
+    r_min = prob.limits.min_radius_m
+    if P is None or r_min is None or prob.violations(P, "gravity").get("min_radius") != "violated":
+        return P
     P = P.copy()
     for _ in range(sweeps):
         bad = np.nonzero(circumradii(P, dims=3) < r_min * (1 + 2e-3))[0] + 1
@@ -125,9 +134,9 @@ def repair_radius(prob: Problem, P: np.ndarray, P_start: np.ndarray, r_min: floa
     return P
 
 
-def _first_level(prob: Problem, P_seed, P_start, plan: Plan):
+def _first_level(prob: Problem, P_seed, P_start, plan: Plan, model: str):
     """The first level's line: the seed resampled finely, its vertices then re-distributed
-    by the time/length monitor of the gravity-normal speeds; None off the surface."""
+    by the time/length monitor of the speeds with ``model``; None off the surface."""
     smooth = prob.limits.min_radius_m is not None
     n0 = plan.sizes[0]
     if smooth:
@@ -137,15 +146,21 @@ def _first_level(prob: Problem, P_seed, P_start, plan: Plan):
     P = prob.project(P, P_start)
     if not np.all(np.isfinite(P)):
         return None
-    u = prob.speeds(P, "gravity")
+    u = prob.speeds(P, model)
     P = prob.project((resample_smooth if smooth else resample)(P, n0, monitor(P, u, plan.blend)), P_start)
     return P if np.all(np.isfinite(P)) else None
 
 
-def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: Plan) -> GravityRun:
+def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: Plan, model: str) -> GravityRun:
     """Coarse-to-fine L-BFGS-B on the gravity-normal time, penalties strengthened while a
-    limit is broken, tight bends repaired: the gravity-normal optimum."""
-    P = _first_level(prob, P_seed, P_start, plan)
+    limit is broken, tight bends repaired.
+
+    ``model`` (``"gravity"`` or ``"full"``) gives the speeds of the first level's vertex
+    distribution and of the limit checks between rounds: with ``"gravity"`` the line is
+    the gravity-normal optimum of a gravity-normal run; ``"full"`` seeds it with the full
+    model's speeds (often the better start for the polish, sometimes a worse local optimum).
+    """
+    P = _first_level(prob, P_seed, P_start, plan, model)
     if P is None:
         return GravityRun(None, OFF_SURFACE)
     run = GravityRun(P)
@@ -167,18 +182,14 @@ def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: 
         run.converged, run.residual = ok, res
         if not ok and last:
             run.notes.append(f"level {li + 1} ({n} vertices): {msg}")
-    P = _strengthen(prob, P, plan, run)
-    if prob.violations(P, "gravity").get("min_radius") == "violated":
-        # the penalty leaves a few tight triples: smooth them out locally
-        P = repair_radius(prob, P, P_start, prob.limits.min_radius_m)
-    run.line = P
+    run.line = _strengthen(prob, P, plan, run, model)
     return run
 
 
-def _strengthen(prob: Problem, P: np.ndarray, plan: Plan, run: GravityRun) -> np.ndarray:
+def _strengthen(prob: Problem, P: np.ndarray, plan: Plan, run: GravityRun, model: str) -> np.ndarray:
     """Stronger penalties while a limit is still violated (at most four rounds)."""
     for _ in range(4):
-        viol = prob.violations(P, "gravity")
+        viol = prob.violations(P, model)
         if not any(v == "violated" for v in viol.values()):
             break
         if viol.get("keepout") == "violated":
