@@ -1,15 +1,15 @@
 """The one place that picks the refinement's line among its candidates.
 
 Rule: **the fastest line that meets the limits** - the mover gets through (with the
-route's own normal-force model) and no limit's status is ``"violated"``.  :func:`improves`
-tells the caller whether any candidate so far beats the start line (with the full model,
-when none does, the gravity-normal run's own optimum is made and added as a candidate).  Every candidate
+route's own normal-force model) and no limit's status is ``"violated"``.  Every candidate
 is timed with :func:`fallway.physics.traverse` and judged by
 :meth:`fallway.refine.problem.Problem.violations` with that model.  At equal times a
 refined line goes before the rounded start, and that before the start line.  When no
 candidate meets the limits, the one breaking the fewest limits (then the fastest) is
 returned with a :class:`~fallway.errors.RefinementWarning` and its broken limits'
 status ``"violated"``.  Candidates whose stage failed are reported with the cause.
+:func:`improves` tells the caller whether any candidate so far beats the start line (with
+the full model, when none does, a gravity-normal run's optimum is made and added).
 """
 
 from __future__ import annotations
@@ -112,9 +112,9 @@ def choose(prob: Problem, cands: list, mover: Mover, pol: PolishRun | None) -> R
                f"{', '.join(bad)} ({start.time:.6f} s -> {best.time:.6f} s)")
         warnings.warn(msg, RefinementWarning, stacklevel=3)
     polish_note = next((n for n in notes if n.startswith("full-model polish")), "")
-    return RefineResult(best.line.copy(), best.profile, iters, run.residual, bool(best.refined and good and run.converged),
-                        start.time, best.time, msg, best.status, polish_note, best.name,
-                        tuple(c.record() for c in cands))
+    converged = bool(best.refined and good and run.converged)
+    return RefineResult(best.line.copy(), best.profile, iters, run.residual, converged, start.time, best.time, msg,
+                        best.status, polish_note, best.name, tuple(c.record() for c in cands))
 
 
 def _message(best: Candidate, start: Candidate, cands: list, iters: int, notes: list) -> str:
@@ -130,7 +130,8 @@ def _message(best: Candidate, start: Candidate, cands: list, iters: int, notes: 
         return f"kept the start line: {why}"
     active = [k for k, v in best.status.items() if v == "active"]
     if best.name == "gravity optimum, full-model timed":
-        what = "refined on the gravity-normal model and timed with the full model (the full-model stages gained nothing):"
+        what = ("refined on the gravity-normal model and timed with the full model (the full-model stages "
+                "gained nothing):")
     elif best.refined:
         what = "refined"
     else:

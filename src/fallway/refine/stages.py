@@ -2,9 +2,9 @@
 
 * :func:`rounded_start` - the start line with its corners rounded to the bend radius.
 * :func:`gravity_stage` - coarse-to-fine levels on the gravity-normal time, then stronger
-  penalties while a limit is still broken: the gravity-normal optimum.  Its first level's vertex distribution and its limit checks use the speeds of
-  a given model: with the gravity-normal model it is the very line a gravity-normal run
-  returns.
+  penalties while a limit is still broken: the gravity-normal optimum.  Its first level's
+  vertex distribution and its limit checks use the speeds of a given model: with the
+  gravity-normal model it is the very line a gravity-normal run returns.
 * :func:`polish_stage` - the full-model polish, coarse to fine again from the gravity
   optimum: one polished line per level.
 * :func:`repair_radius` - a refined line left with a few too tight bends, smoothed locally.
