@@ -33,6 +33,7 @@ from affine import Affine
 
 from fallway.errors import RefinementWarning
 from fallway.physics import Mover
+from fallway.params import LineSpec
 from fallway.refine import refine_line
 from fallway.terrain import Terrain
 
@@ -81,8 +82,8 @@ def main():
     for normal in ("gravity", "full"):
         mv = Mover(mu=0.2, normal=normal)
         run(f"raised friction brachistochrone, 500 vertices, {normal} model",
-            lambda: refine_line(valley, start, mv, line="raised", clearance=(0.0, H + D),
-                                start_height=H + D, end_height=D, n_vertices=500))
+            lambda: refine_line(valley, start, mv, line=LineSpec("raised", (0.0, H + D), H + D, D),
+                                n_vertices=500))
 
 
 if __name__ == "__main__":

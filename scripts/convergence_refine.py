@@ -28,7 +28,9 @@ from references import friction_brachistochrone  # noqa: E402
 
 from fallway.errors import RefinementWarning  # noqa: E402
 from fallway.physics import Mover, traverse  # noqa: E402
-from fallway.refine import _chain, refine_line  # noqa: E402
+from fallway.params import LineSpec  # noqa: E402
+from fallway.refine import refine_line  # noqa: E402
+from fallway.refine.chain import gravity_chain  # noqa: E402
 from fallway.terrain import Terrain  # noqa: E402
 
 G = 9.80665
@@ -41,7 +43,7 @@ def fixed_plan_spacing(L, H, D, mu, n):
 
     def fg(zi):
         P = np.column_stack([x, np.zeros(n), np.concatenate([[H + D], zi, [D]])])
-        T, pen, g, _ = _chain(P, 0.0, G, mu, 0.0, 1e-9, 1e-8, 1e3, -1.0, -1.0)
+        T, pen, g, _ = gravity_chain(P, 0.0, G, mu, 0.0, 1e-9, 1e-8, 1e3, -1.0, -1.0)
         return T + pen, g[1:-1, 2]
 
     r = minimize(fg, z0[1:-1], jac=True, method="L-BFGS-B",
@@ -61,8 +63,8 @@ def main():
         print(f"mu = {mu}: reference T = {ref.time_s:.7f} s (free fall {ref.free_fall_m:.4f} m)")
         print(f"{'vertices':>9} {'free/adaptive':>14} {'fixed plan':>11}")
         for n in (16, 31, 61, 121, 241, 481):
-            res = refine_line(valley, start, Mover(mu=mu, normal="gravity"), line="raised",
-                              clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=n)
+            res = refine_line(valley, start, Mover(mu=mu, normal="gravity"),
+                              line=LineSpec("raised", (0.0, H + D), H + D, D), n_vertices=n)
             e_free = res.time_after_s / ref.time_s - 1
             e_fixed = fixed_plan_spacing(L, H, D, mu, n) / ref.time_s - 1
             print(f"{n:>9} {100 * e_free:>13.5f}% {100 * e_fixed:>10.4f}%")

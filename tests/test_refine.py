@@ -14,9 +14,12 @@ from hypothesis import strategies as st
 
 from fallway.errors import ParameterError, RefinementWarning
 from fallway.keepout import Keepout
-from fallway.params import Limits
+from fallway.params import Limits, LineSpec
 from fallway.physics import Mover, traverse
-from fallway.refine import RefineResult, _chain, _DistanceField, _Ground, _Problem, refine_line
+from fallway.refine import RefineResult, refine_line
+from fallway.refine.chain import gravity_chain
+from fallway.refine.fields import DistanceField
+from fallway.refine.problem import Ground, Problem
 from fallway.terrain import Terrain
 
 from references import (cycloid, cycloid_time_by_quadrature, euler_lagrange_residual,
@@ -111,7 +114,7 @@ def test_adjoint_gradient_matches_central_differences(u0, mu, k):
     x = np.linspace(0.0, 50.0, n)
     P = np.column_stack([x, rng.normal(0.0, 1.0, n), 30.0 - 0.6 * x + rng.normal(0.0, 0.5, n)])
     args = (u0, G, mu, k, 1e-9, 1e-10, 0.0, -1.0, -1.0)
-    T, pen, grad, u = _chain(P, *args)
+    T, pen, grad, u = gravity_chain(P, *args)
     # the forward pass is the traverse of the same line (gravity-normal model)
     prof = traverse(P, Mover(mu=mu, drag=k, v0=math.sqrt(u0), normal="gravity"))
     assert T == pytest.approx(prof.travel_time_s, rel=1e-12)
@@ -122,50 +125,29 @@ def test_adjoint_gradient_matches_central_differences(u0, mu, k):
             Pp, Pm = P.copy(), P.copy()
             Pp[i, c] += h
             Pm[i, c] -= h
-            num[i, c] = (_chain(Pp, *args)[0] - _chain(Pm, *args)[0]) / (2 * h)
+            num[i, c] = (gravity_chain(Pp, *args)[0] - gravity_chain(Pm, *args)[0]) / (2 * h)
     assert np.max(np.abs(grad - num)) < 1e-6 * np.max(np.abs(num))
 
 
-def test_compiled_ground_interpolant_matches_scipy_splines():
-    # the compiled heights and slopes used by the optimiser against scipy's own
-    # evaluation: a global interpolating RectBivariateSpline (s=0) of the same grid away
-    # from nodata, and Terrain.sample/gradient (the tile splines) everywhere, NaN included
-    from scipy.interpolate import RectBivariateSpline
-
+def test_ground_heights_are_the_terrains_smooth_surface():
+    # the refinement reads heights and slopes from Terrain.surface(), the one compiled
+    # surface behind Terrain.sample/gradient (checked against scipy in test_terrain.py):
+    # identical values, NaN included, across a tile seam (column 128) and a nodata hole
     rng = np.random.default_rng(7)
     rows, cols, cell = 150, 300, 2.0
     r, c = np.mgrid[0:rows, 0:cols].astype(float)
     z = 50.0 + 0.3 * c + 4.0 * np.sin(c / 9.0) * np.cos(r / 13.0) + 0.01 * (r - 60.0) ** 2
-    t_full = Terrain.from_array(z, Affine(cell, 0.0, 10.0, 0.0, -cell, 500.0))
-    zh = z.copy()
-    zh[60:70, 200:215] = np.nan
-    t_hole = Terrain.from_array(zh, Affine(cell, 0.0, 10.0, 0.0, -cell, 500.0))
+    z[60:70, 200:215] = np.nan
+    t = Terrain.from_array(z, Affine(cell, 0.0, 10.0, 0.0, -cell, 500.0))
     x = rng.uniform(10.0 - 5.0, 10.0 + cols * cell + 5.0, 4000)
     y = rng.uniform(500.0 - rows * cell - 5.0, 500.0 + 5.0, 4000)
-    # across the tile seams at columns 128 and 256
     x[:200] = 10.0 + (np.linspace(120.0, 136.0, 200) + 0.5) * cell
-    gr = _Ground(t_full)
-    zc, gxc, gyc = gr.z_grad(x, y)
-    sp = RectBivariateSpline(np.arange(rows, dtype=float), np.arange(cols, dtype=float), z, s=0)
-    rr, cc = t_full.rowcol(x, y)
-    ok = np.isfinite(zc)
-    assert ok.sum() > 3000
-    assert np.allclose(zc[ok], sp.ev(rr[ok], cc[ok]), rtol=0.0, atol=1e-6)
-    assert np.allclose(gxc[ok], sp.ev(rr[ok], cc[ok], dy=1) / cell, rtol=0.0, atol=1e-6)
-    assert np.allclose(gyc[ok], -sp.ev(rr[ok], cc[ok], dx=1) / cell, rtol=0.0, atol=1e-6)
-    for t in (t_full, t_hole):
-        gr = _Ground(t)
-        zc, gxc, gyc = gr.z_grad(x, y)
-        zs = t.sample(x, y)
-        gxs, gys = t.gradient(x, y)
-        assert np.array_equal(np.isnan(zc), np.isnan(zs))
-        assert np.array_equal(np.isnan(gxc), np.isnan(gxs))
-        fin = np.isfinite(zs)
-        assert np.max(np.abs(zc[fin] - zs[fin])) < 1e-10
-        assert np.max(np.abs(gxc[fin] - gxs[fin])) < 1e-10
-        assert np.max(np.abs(gyc[fin] - gys[fin])) < 1e-10
-        assert np.max(np.abs(gr.z(x, y)[fin] - zs[fin])) < 1e-10
-    assert np.isnan(_Ground(t_hole).z(10.0 + 207.0 * cell, 500.0 - 65.0 * cell))
+    zc, gxc, gyc = Ground(t).z_grad(x, y)
+    gxs, gys = t.gradient(x, y)
+    np.testing.assert_array_equal(zc, t.sample(x, y))
+    np.testing.assert_array_equal(gxc, gxs)
+    np.testing.assert_array_equal(gyc, gys)
+    assert np.isnan(Ground(t).z(10.0 + 207.0 * cell, 500.0 - 65.0 * cell))
 
 
 def test_objective_gradient_with_active_limits_matches_differences():
@@ -173,8 +155,8 @@ def test_objective_gradient_with_active_limits_matches_differences():
     t = plane_terrain()
     mover = Mover(mu=0.1, normal="gravity", max_speed=6.0)
     lim = Limits(max_grade=0.5, min_radius_m=30.0)
-    fld = _DistanceField(shapely.box(12.0, 20.0, 16.0, 30.0))
-    prob = _Problem(_Ground(t), mover, lim, "raised", 0.0, 20.0, fld, None, 0.5, 10.0, 1.0)
+    fld = DistanceField(shapely.box(12.0, 20.0, 16.0, 30.0))
+    prob = Problem(Ground(t), mover, lim, LineSpec("raised", (0.0, 20.0)), fld, None, 0.5, 10.0)
     rng = np.random.default_rng(3)
     n = 12
     P = np.column_stack([np.linspace(5.5, 25.5, n), np.linspace(45.5, 5.5, n), np.zeros(n)])
@@ -202,8 +184,8 @@ def test_compiled_ground_objective_matches_the_general_path_and_differences():
     z = 120.0 - 0.5 * c + 3.0 * np.sin(c / 11.0) * np.cos(r / 17.0)
     t = Terrain.from_array(z, Affine(1.0, 0.0, 0.0, 0.0, -1.0, 150.0))
     mover = Mover(mu=0.12, drag=0.002, normal="gravity", max_speed=40.0)
-    prob = _Problem(_Ground(t), mover, Limits(), "ground", 0.0, 0.0, None, None, 0.1, 1e4, 1.0)
-    assert prob._fast() is not None
+    prob = Problem(Ground(t), mover, Limits(), LineSpec(), None, None, 0.1, 1e4)
+    assert prob.compiled()
     rng = np.random.default_rng(5)
     n = 20
     P = np.column_stack([np.linspace(100.5, 160.5, n), np.linspace(120.5, 30.5, n), np.zeros(n)])
@@ -212,12 +194,12 @@ def test_compiled_ground_objective_matches_the_general_path_and_differences():
     ends = (P[0].copy(), P[-1].copy())
     X = prob.to_vars(P)
     f, g = prob.fg(X, ends)
-    prob._fast = lambda: None  # the general path
+    prob.compiled = lambda: False  # the general path
     f2, g2 = prob.fg(X, ends)
     assert f == pytest.approx(f2, rel=1e-13)
     assert np.max(np.abs(g - g2)) < 1e-12 * np.max(np.abs(g2))
     assert f == pytest.approx(traverse(P, mover).travel_time_s, rel=1e-9)  # no penalty active here
-    del prob._fast
+    del prob.compiled
     num = np.zeros_like(X)
     h = 1e-6
     for i in range(X.size):
@@ -264,8 +246,8 @@ def test_raised_line_in_a_flat_valley_is_the_vertical_plane_cycloid():
     L, H, D = 100.0, 40.0, 10.0
     ref = cycloid(L, H)
     t = valley_terrain(L)
-    res = refine_line(t, vertical_plane_start(L, H, D), Mover(normal="gravity"), line="raised",
-                      clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=81)
+    res = refine_line(t, vertical_plane_start(L, H, D), Mover(normal="gravity"),
+                      line=LineSpec("raised", (0.0, H + D), H + D, D), n_vertices=81)
     assert res.converged
     assert ref.time_s <= res.time_after_s <= ref.time_s * 1.002
     assert res.limits["clearance"] in ("inactive", "active")
@@ -280,8 +262,8 @@ def test_raised_line_with_coulomb_friction_is_the_friction_brachistochrone():
     ref = friction_brachistochrone(L, H, mu)
     t = valley_terrain(L)
     mover = Mover(mu=mu, normal="gravity")
-    res = refine_line(t, vertical_plane_start(L, H, D), mover, line="raised",
-                      clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=121)
+    res = refine_line(t, vertical_plane_start(L, H, D), mover, line=LineSpec("raised", (0.0, H + D), H + D, D),
+                      n_vertices=121)
     assert ref.time_s <= res.time_after_s <= ref.time_s * 1.002
     # the line starts with a (nearly) vertical free fall: depth at which the line has
     # moved 1 cm in plan, compared with C sin^2(beta) = 1.718 m; the discrete line
@@ -292,8 +274,8 @@ def test_raised_line_with_coulomb_friction_is_the_friction_brachistochrone():
     depth = np.interp(0.01, plan, drop)
     assert ref.free_fall_m - 0.3 < depth < ref.free_fall_m + 0.8
     # without friction the start is a cusp of the cycloid: no finite free fall
-    r0 = refine_line(t, vertical_plane_start(L, H, D), Mover(normal="gravity"), line="raised",
-                     clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=121)
+    r0 = refine_line(t, vertical_plane_start(L, H, D), Mover(normal="gravity"),
+                     line=LineSpec("raised", (0.0, H + D), H + D, D), n_vertices=121)
     P0 = r0.line
     depth0 = np.interp(0.01, np.hypot(P0[:, 0], P0[:, 1]), P0[0, 2] - P0[:, 2])
     assert depth0 < 0.6 * ref.free_fall_m
@@ -373,8 +355,7 @@ def test_max_speed_is_respected():
     # would reach sqrt(2 g 45) = 29.7 m/s
     mover = Mover(normal="gravity", max_speed=29.0)
     pts = vertical_plane_start(L, H, D)
-    res = refine_line(t, pts, mover, line="raised", clearance=(0.0, H + D), start_height=H + D,
-                      end_height=D, n_vertices=41)
+    res = refine_line(t, pts, mover, line=LineSpec("raised", (0.0, H + D), H + D, D), n_vertices=41)
     assert res.line.shape[0] == 41  # refined, not the start line
     assert np.nanmax(res.profile.speed_m_s) <= 29.0 * (1 + 1e-9)
     assert res.limits["max_speed"] == "active"
@@ -391,6 +372,24 @@ def test_full_model_is_timed_with_the_full_model_and_never_slower():
     assert res.time_after_s <= res.time_before_s
 
 
+def test_every_candidate_is_reported_and_the_fastest_meeting_the_limits_is_chosen():
+    # scipy's OptimizeResult idea with fixed fields: every line considered is reported with
+    # its time (None when its stage failed or the mover stalls) and limit status; the chosen
+    # one is the fastest that meets the limits, re-timed by traverse
+    t = plane_terrain(30.0)
+    pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
+    mover = Mover(mu=0.1, normal="full")
+    res = refine_line(t, pts, mover, n_vertices=41)
+    names = [c.name for c in res.candidates]
+    assert names[:2] == ["start", "gravity optimum"] and "full polish" in names
+    assert all(c.error is None for c in res.candidates)
+    assert res.candidates[0].time_s == pytest.approx(res.time_before_s, rel=1e-12)
+    meeting = [c for c in res.candidates if c.meets_limits]
+    assert res.chosen in names and res.time_after_s == min(c.time_s for c in meeting)
+    assert res.time_after_s == pytest.approx(traverse(res.line, mover).travel_time_s, rel=1e-12)
+    assert all(c.violated == () for c in meeting)
+
+
 def test_not_converging_warns_and_returns_the_best_line():
     t = plane_terrain()
     pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
@@ -403,11 +402,17 @@ def test_not_converging_warns_and_returns_the_best_line():
 def test_bad_parameters_raise_parameter_errors():
     t = plane_terrain()
     pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
-    with pytest.raises(ParameterError, match="line must be one of"):
-        refine_line(t, pts, Mover(), line="floating")
-    with pytest.raises(ParameterError, match="unknown refinement option"):
+    with pytest.raises(ParameterError, match="line must be a fallway.LineSpec"):
+        refine_line(t, pts, Mover(), line="raised")
+    with pytest.raises(ParameterError, match="line kind must be one of"):
+        refine_line(t, pts, Mover(), line=LineSpec("floating"))
+    with pytest.raises(ParameterError, match="unknown option vertices; allowed: limits, keepout, line, n_vertices"):
         refine_line(t, pts, Mover(), vertices=10)
     with pytest.raises(ParameterError, match="clearance band"):
-        refine_line(t, pts, Mover(), line="raised", clearance=(0.0, 5.0), start_height=8.0)
+        refine_line(t, pts, Mover(), line=LineSpec("raised", (0.0, 5.0), 8.0))
     with pytest.raises(ParameterError, match="points must be"):
         refine_line(t, pts[:1], Mover())
+    for option, value in (("levels", 0), ("n_vertices", 2), ("blend", 1.5), ("max_iter", 2.5), ("gtol", 0.0),
+                          ("margin_m", -1.0), ("penalty", float("nan"))):
+        with pytest.raises(ParameterError, match=option):
+            refine_line(t, pts, Mover(), **{option: value})

@@ -30,11 +30,13 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import minimize
 
 from fallway.physics import Mover, traverse
-from fallway.refine import _full_chain, refine_line
+from fallway.params import Limits, LineSpec
+from fallway.refine import refine_line
+from fallway.refine.chain import full_chain
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from references import cycloid  # noqa: E402
-from test_refine import valley_terrain, vertical_plane_start  # noqa: E402
+from test_refine import on_ground, plane_terrain, valley_terrain, vertical_plane_start, zigzag  # noqa: E402
 
 G = 9.80665
 
@@ -134,7 +136,7 @@ def test_full_model_adjoint_matches_differences_of_traverse(u0, mu, k):
     x = np.linspace(0.0, 50.0, n)
     P = np.column_stack([x, rng.normal(0.0, 1.0, n), 30.0 - 0.6 * x + rng.normal(0.0, 0.5, n)])
     mover = Mover(mu=mu, drag=k, v0=math.sqrt(u0), normal="full")
-    T, pen, grad, u, ok = _full_chain(P, u0, G, mu, k, 0.0, -1.0, -1.0, True)
+    T, pen, grad, u, ok = full_chain(P, u0, G, mu, k, 0.0, -1.0, -1.0, True)
     assert ok
     # the forward pass is physics.traverse's own full model
     assert T == pytest.approx(traverse(P, mover).travel_time_s, rel=1e-12)
@@ -160,7 +162,7 @@ def test_polished_raised_line_matches_the_optimal_control_reference(reference_mu
     L, H, D, mu = 120.0, 45.0, 15.0, 0.2
     t = valley_terrain(L)
     full = Mover(mu=mu, normal="full")
-    kw = dict(line="raised", clearance=(0.0, H + D), start_height=H + D, end_height=D, n_vertices=121)
+    kw = dict(line=LineSpec("raised", (0.0, H + D), H + D, D), n_vertices=121)
     res = refine_line(t, vertical_plane_start(L, H, D), full, **kw)
     assert res.time_after_s == pytest.approx(traverse(res.line, full).travel_time_s, rel=1e-12)
     # within 0.2 % of the continuous optimum and not below it
@@ -170,3 +172,41 @@ def test_polished_raised_line_matches_the_optimal_control_reference(reference_mu
     grav = refine_line(t, vertical_plane_start(L, H, D), Mover(mu=mu, normal="gravity"), **kw)
     assert res.time_after_s <= traverse(grav.line, full).travel_time_s
     assert np.max(np.abs(res.line[:, 1])) < 1e-6  # stays in the vertical plane
+
+
+# --------------------------------------------------------------------------------------
+# the gravity-normal optimum as a candidate of a full-model run
+
+
+def test_the_fallback_candidate_is_the_gravity_runs_line():
+    # reference: a refinement with Mover(normal="gravity") of the same line (what refine_line
+    # once ran a second time).  The gravity stage run with gravity-normal speeds (its first
+    # level's vertex distribution, its limit checks) is that run's very line; the full run
+    # seeds its own gravity stage with full-model speeds (the polish starts better from it)
+    from fallway.refine.problem import Ground, Problem
+    from fallway.refine.stages import Plan, gravity_stage
+
+    t = plane_terrain(30.0)
+    pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
+    grav = Mover(mu=0.1, normal="gravity", max_speed=7.0)
+    rg = refine_line(t, pts, grav, n_vertices=41)
+    assert rg.chosen == "gravity optimum"
+    prob = Problem(Ground(t), Mover(mu=0.1, normal="full", max_speed=7.0), Limits(), LineSpec(), None, None, 0.1, 1e4)
+    run = gravity_stage(prob, pts, pts, Plan((11, 21, 41), 0.5, 4000, 1e-9), "gravity")
+    np.testing.assert_array_equal(run.line, rg.line)
+
+
+def test_when_the_full_model_stages_gain_nothing_the_gravity_runs_line_is_a_candidate():
+    # a line straight down the fall line of a plane from rest is already the fastest (the
+    # brachistochrone to a point straight below is the straight line; Bernoulli): the
+    # full-model stages gain nothing, so the gravity-normal run's optimum joins the
+    # candidates, timed with the full model, and the start line is kept (never slower)
+    t = plane_terrain(30.0)
+    pts = on_ground(t, np.array([(5.5, 25.5), (35.5, 25.5)]))
+    full = Mover(mu=0.1, normal="full")
+    res = refine_line(t, pts, full)
+    cand = {c.name: c for c in res.candidates}
+    assert list(cand) == ["start", "gravity optimum", "full polish", "gravity optimum, full-model timed"]
+    assert res.chosen == "start" and res.time_after_s == res.time_before_s
+    fb = cand["gravity optimum, full-model timed"]
+    assert fb.meets_limits and fb.time_s == pytest.approx(res.time_before_s, rel=1e-12)

@@ -19,9 +19,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from fallway.errors import RefinementWarning
-from fallway.params import Limits
+from fallway.params import Limits, LineSpec
 from fallway.physics import Mover, traverse
-from fallway.refine import _fillet_plan, refine_line
+from fallway.refine import refine_line
+from fallway.refine.shape import fillet_plan
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from references import friction_brachistochrone  # noqa: E402
@@ -54,7 +55,7 @@ def test_fillet_rounds_a_right_angle_with_the_requested_radius():
     # a right-angle corner with 30 m legs rounded at 10 m: tangent length R tan(45°) = 10 m,
     # arc length R pi/2 (standard fillet geometry)
     xy = np.array([[0.0, 0.0], [30.0, 0.0], [30.0, 30.0]])
-    out, rad = _fillet_plan(xy, 10.0, 1.0)
+    out, rad = fillet_plan(xy, 10.0, 1.0)
     assert rad == pytest.approx(10.0, rel=1e-12)
     r = circumradii(np.column_stack([out, np.zeros(len(out))]))
     assert r.min() == pytest.approx(10.0, rel=1e-6)
@@ -92,9 +93,9 @@ def test_raised_line_holds_the_bend_radius_below_its_free_fall():
     L, H, D, mu = 120.0, 45.0, 15.0, 0.2
     ref = friction_brachistochrone(L, H, mu)
     t = valley_terrain(L)
-    res = refine_line(t, vertical_plane_start(L, H, D), Mover(mu=mu, normal="gravity"), line="raised",
-                      limits=Limits(min_radius_m=30.0), clearance=(0.0, H + D), start_height=H + D,
-                      end_height=D, n_vertices=61)
+    res = refine_line(t, vertical_plane_start(L, H, D), Mover(mu=mu, normal="gravity"),
+                      line=LineSpec("raised", (0.0, H + D), H + D, D), limits=Limits(min_radius_m=30.0),
+                      n_vertices=61)
     assert circumradii(res.line).min() >= 30.0 * (1 - RTOL)
     assert res.limits["min_radius"] == "active"
     assert res.time_after_s > ref.time_s
@@ -154,3 +155,18 @@ def test_the_radius_is_met_or_its_breach_is_said(seed, radius, n):
     else:
         assert res.limits["min_radius"] == "violated"
         assert any(issubclass(w.category, RefinementWarning) for w in rec)
+
+
+def test_the_penalty_measures_the_radius_as_the_limit_check_does():
+    # the differentiable radius penalty keeps its own measure (refine.fields.curvature); it
+    # must be 1 / the circumradius of fallway.geometry.circumradii (dims=3), which judges
+    # the limit's status, and of Heron's formula above, on random triples in space
+    from fallway import geometry
+    from fallway.refine.fields import curvature
+
+    rng = np.random.default_rng(4)
+    for scale in (0.01, 1.0, 300.0):
+        P = scale * rng.normal(size=(400, 3))
+        r_pen = 1.0 / curvature(P[:-2], P[1:-1], P[2:])
+        np.testing.assert_allclose(r_pen, geometry.circumradii(P, dims=3), rtol=1e-9)
+        np.testing.assert_allclose(r_pen, circumradii(P), rtol=1e-6)

@@ -26,6 +26,7 @@ from pyproj import Geod, Transformer
 
 from conftest import plane, write_geotiff
 from fallway.errors import FallwayIOError, ParameterError, TerrainError
+from fallway._surface import TILE, TILE_PAD
 from fallway.terrain import Terrain, load_terrain
 
 
@@ -694,14 +695,12 @@ def test_tiled_interpolant_matches_global_spline():
     from scipy.interpolate import RectBivariateSpline
     from scipy.ndimage import gaussian_filter
 
-    from fallway import terrain as terrain_mod
-
-    n = 2 * terrain_mod._TILE + 40
+    n = 2 * TILE + 40
     rng = np.random.default_rng(5)
     z = 50 * gaussian_filter(rng.standard_normal((n, n + 17)), 6, mode="reflect")
     t = Terrain.from_array(z, Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
     ref = RectBivariateSpline(np.arange(n, dtype=float), np.arange(n + 17, dtype=float), z, s=0)
-    seam = float(terrain_mod._TILE)
+    seam = float(TILE)
     rr = np.concatenate([np.linspace(seam - 8, seam + 8, 161), rng.uniform(2, n - 3, 300)])
     cc = np.concatenate([rng.uniform(2, n + 14, 161), np.full(300, seam + 0.37)])
     x, y = cc + 0.5, n - (rr + 0.5)
@@ -714,14 +713,12 @@ def test_tiled_interpolant_matches_global_spline():
 
 
 def test_tiled_interpolant_smooth_and_exact_across_seams():
-    from fallway import terrain as terrain_mod
-
-    n = terrain_mod._TILE + 30
+    n = TILE + 30
     rows, cols = np.mgrid[0:n, 0:n].astype(float)
     x, y = cols + 0.5, n - (rows + 0.5)
     f = lambda x, y: 1e-5 * x**3 - 2e-5 * x * y**2 + 0.3 * y - x + 4  # noqa: E731
     t = Terrain.from_array(f(x, y), Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
-    seam_x = terrain_mod._TILE + 0.5          # the column boundary, in map x
+    seam_x = TILE + 0.5          # the column boundary, in map x
     px = np.linspace(seam_x - 9, seam_x + 9, 73)
     py = np.full_like(px, 70.3)
     # polynomial of degree <= 3: exact in every tile, so exact through the blend too
@@ -764,3 +761,66 @@ def test_truncated_raster(plane_tif, tmp_path):
     with pytest.raises(FallwayIOError, match=r"cut.tif.*(as a raster|failed).*") as info:
         load_terrain(bad)
     assert isinstance(info.value.__cause__, rasterio.errors.RasterioError)
+
+
+# --------------------------------------------------------------------------------------
+# the compiled surface against scipy's FITPACK splines (an independent implementation)
+# --------------------------------------------------------------------------------------
+
+def test_one_tile_surface_equals_scipy_interpolating_spline():
+    # reference: scipy.interpolate.RectBivariateSpline(s=0) on the whole grid, evaluated by
+    # FITPACK's fpbisp/pardeu (the surface's own evaluation is compiled code); a grid within
+    # one tile is one spline, so they agree to rounding.  Independently of FITPACK: the
+    # surface interpolates every cell height (de Boor, the defining property)
+    from scipy.interpolate import RectBivariateSpline
+
+    rng = np.random.default_rng(11)
+    for rows, cols in ((60, 90), (3, 7), (2, 5), (4, 5)):
+        z = 300.0 + 40.0 * rng.standard_normal((rows, cols))
+        t = Terrain.from_array(z, Affine(2.0, 0, 500.0, 0, -2.0, 900.0))
+        ref = RectBivariateSpline(np.arange(rows, dtype=float), np.arange(cols, dtype=float), z,
+                                  kx=min(3, rows - 1), ky=min(3, cols - 1), s=0)
+        rr = rng.uniform(0.0, rows - 1.0, 400)
+        cc = rng.uniform(0.0, cols - 1.0, 400)
+        x, y = 500.0 + 2.0 * (cc + 0.5), 900.0 - 2.0 * (rr + 0.5)
+        scale = 1e-12 * np.max(np.abs(z))
+        np.testing.assert_allclose(t.sample(x, y), ref.ev(rr, cc), rtol=0, atol=scale)
+        np.testing.assert_allclose(t.sample(*t.cell_center(*np.mgrid[0:rows, 0:cols])), z, rtol=0, atol=scale)
+        if min(rows, cols) < 3:
+            continue  # FITPACK's pardeu gives no derivative of a linear spline
+        gx, gy = t.gradient(x, y)
+        np.testing.assert_allclose(gx, ref.ev(rr, cc, dy=1) / 2.0, rtol=0, atol=scale)
+        np.testing.assert_allclose(gy, -ref.ev(rr, cc, dx=1) / 2.0, rtol=0, atol=scale)
+
+
+def test_tile_away_from_seams_equals_scipy_spline_of_its_block():
+    # a tile's spline interpolates its block (the tile plus TILE_PAD cells of context);
+    # away from the blend zones the surface is that spline alone: RectBivariateSpline(s=0)
+    # of the same block is the reference (scipy/FITPACK)
+    from scipy.interpolate import RectBivariateSpline
+    from scipy.ndimage import gaussian_filter
+
+    n = TILE + 60
+    rng = np.random.default_rng(12)
+    z = 100.0 + 30.0 * gaussian_filter(rng.standard_normal((n, n)), 3.0)
+    t = Terrain.from_array(z, Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
+    r0 = TILE - TILE_PAD  # the block of tile (1, 1) starts here
+    block = z[r0:, r0:]
+    ref = RectBivariateSpline(np.arange(block.shape[0], dtype=float), np.arange(block.shape[1], dtype=float),
+                              block, s=0)
+    rr = rng.uniform(TILE + 7.0, n - 1.0, 300)
+    cc = rng.uniform(TILE + 7.0, n - 1.0, 300)
+    s = t.sample(cc + 0.5, n - (rr + 0.5))
+    np.testing.assert_allclose(s, ref.ev(rr - r0, cc - r0), rtol=0, atol=1e-12 * np.max(np.abs(z)))
+
+
+def test_surface_is_built_lazily():
+    # only the tiles a query touches are built (DEVELOPERS.md: a long line builds only the
+    # tiles it touches)
+    n = 3 * TILE
+    t = Terrain.from_array(np.zeros((n, n)), Affine(1.0, 0, 0.0, 0, -1.0, float(n)))
+    assert t.sample(10.0, n - 10.0) == 0.0
+    slot = t.surface().tables.slot
+    assert (slot >= 0).sum() == 1 and slot[0, 0] >= 0
+    t.sample(np.array([10.0, 2.5 * TILE]), np.array([n - 10.0, 0.5 * TILE]))
+    assert (slot >= 0).sum() == 2

@@ -34,8 +34,10 @@ the speed, first order in the spacing but confined to the ends; the interior is 
 order.
 
 Building blocks (all ``@njit(cache=True, nogil=True)``, scalars and flat arrays):
-:func:`vertex_geometry` (directions, lengths, curvature per vertex), :func:`bend_kdg`,
-:func:`half_step`, :func:`full_segment_step` (one segment of the full model),
+:func:`vertex_turn` (the discrete curvature at one vertex), :func:`vertex_geometry`
+(directions, lengths, curvature per vertex), :func:`bend_kdg`, :func:`half_step`,
+:func:`full_segment_step` (one segment of the full model), :func:`window_step` (one
+segment from its four-vertex window, for the refinement's adjoint),
 :func:`curved_step` and :func:`normal_rate` (the ODE), and :func:`traverse_kernel` (a
 whole line).  Functions return status codes, never raise: callers translate them.
 """
@@ -179,24 +181,30 @@ def vertex_geometry(pts, tang, seg_len, kappa, normal):
         normal[0, c] = 0.0
         normal[m - 1, c] = 0.0
     for i in range(1, m - 1):
-        ax, ay, az = tang[i - 1, 0], tang[i - 1, 1], tang[i - 1, 2]
-        bx, by, bz = tang[i, 0], tang[i, 1], tang[i, 2]
-        cx = ay * bz - az * by
-        cy = az * bx - ax * bz
-        cz = ax * by - ay * bx
-        phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
-        nx, ny, nz = bx - ax, by - ay, bz - az
-        nn = math.sqrt(nx * nx + ny * ny + nz * nz)
-        if phi <= _STRAIGHT_RAD or nn <= 0.0:
-            kappa[i] = 0.0
-            normal[i, 0] = 0.0
-            normal[i, 1] = 0.0
-            normal[i, 2] = 0.0
-        else:
-            kappa[i] = phi / (0.5 * (seg_len[i - 1] + seg_len[i]))
-            normal[i, 0] = nx / nn
-            normal[i, 1] = ny / nn
-            normal[i, 2] = nz / nn
+        kappa[i], normal[i, 0], normal[i, 1], normal[i, 2] = vertex_turn(
+            tang[i - 1, 0], tang[i - 1, 1], tang[i - 1, 2], tang[i, 0], tang[i, 1], tang[i, 2],
+            0.5 * (seg_len[i - 1] + seg_len[i]))
+
+
+@njit(cache=True, nogil=True, inline="always")
+def vertex_turn(ax, ay, az, bx, by, bz, mean_len):
+    """Discrete curvature at a vertex where the unit direction turns from ``a`` to ``b``.
+
+    The turning angle ``phi = atan2(|a x b|, a . b)`` spread over ``mean_len`` (the mean
+    of the two adjoining segment lengths).  Returns ``(kappa, nx, ny, nz)``: ``kappa =
+    phi / mean_len`` and ``n`` the unit vector along ``b - a``; all zero where straight
+    (``phi`` up to :data:`_STRAIGHT_RAD`).  The one measure of the full model's bends,
+    used by :func:`vertex_geometry` and :func:`window_step`.
+    """
+    cx = ay * bz - az * by
+    cy = az * bx - ax * bz
+    cz = ax * by - ay * bx
+    phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
+    nx, ny, nz = bx - ax, by - ay, bz - az
+    nn = math.sqrt(nx * nx + ny * ny + nz * nz)
+    if phi <= _STRAIGHT_RAD or nn <= 0.0:
+        return 0.0, 0.0, 0.0, 0.0
+    return phi / mean_len, nx / nn, ny / nn, nz / nn
 
 
 @njit(cache=True, nogil=True)
@@ -237,6 +245,48 @@ def full_segment_step(v2_in, drop_m, plan_m, length_m, kappa_a, kdg_a, kappa_b, 
     if at >= 0.0:
         return 0.0, math.inf, h + at, um
     return u, t1 + t2, -1.0, um
+
+
+@njit(cache=True, nogil=True)
+def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
+    """One segment of the full model from its window of four vertices.
+
+    ``Q`` (4, 3): vertices j-1, j, j+1, j+2 relative to vertex j; the segment runs from
+    row 1 to row 2, and rows 0 / 3 give the curvature at its start / end vertex when
+    ``has_a`` / ``has_b`` (the vertex is interior).  The same geometry as
+    :func:`traverse_kernel` (:func:`vertex_turn`, :func:`bend_kdg`) for a per-segment
+    caller (the refinement's adjoint perturbs one window at a time).  ``eps_plan`` > 0
+    smooths the plan length, ``sqrt(plan² + eps²)``.  Returns ``(v2_out, time_s,
+    stall_at_m)`` as :func:`full_segment_step`; a repeated vertex (no segment) returns
+    ``(v2_in, 0, -1)``.
+    """
+    dx = Q[2, 0] - Q[1, 0]
+    dy = Q[2, 1] - Q[1, 1]
+    dz = Q[2, 2] - Q[1, 2]
+    s = math.sqrt(dx * dx + dy * dy + dz * dz)
+    if s <= 1e-12:
+        return v2_in, 0.0, -1.0
+    tx, ty, tz = dx / s, dy / s, dz / s
+    drop = -dz
+    plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
+    ka = 0.0
+    kdg_a = 0.0
+    kb = 0.0
+    kdg_b = 0.0
+    if has_a:
+        ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
+        so = math.sqrt(ex * ex + ey * ey + ez * ez)
+        if so > 1e-12:
+            ka, nx, ny, nz = vertex_turn(ex / so, ey / so, ez / so, tx, ty, tz, 0.5 * (so + s))
+            kdg_a = bend_kdg(ka, nx, ny, nz, tx, ty, tz, g)
+    if has_b:
+        ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
+        so = math.sqrt(ex * ex + ey * ey + ez * ez)
+        if so > 1e-12:
+            kb, nx, ny, nz = vertex_turn(tx, ty, tz, ex / so, ey / so, ez / so, 0.5 * (so + s))
+            kdg_b = bend_kdg(kb, nx, ny, nz, tx, ty, tz, g)
+    un, t, at, _ = full_segment_step(v2_in, drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k, v2_stall)
+    return un, t, at
 
 
 @njit(cache=True, nogil=True)

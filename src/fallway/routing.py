@@ -60,11 +60,6 @@ FULL_GRID_MAX_CELLS = 4_000_000
 #: The largest search area (cells of the DEM) a route takes; beyond it, coarsen the DEM.
 MAX_AREA_CELLS = 200_000_000
 
-#: Refined vertices closer than this fraction of a cell to the previous one are merged:
-#: they carry no geometry, only a spurious kink (and a millimetre bend radius).
-_MERGE_FRACTION = 0.01
-
-
 # --------------------------------------------------------------------------- the entry
 
 @checked_options
@@ -334,11 +329,6 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
 
 # --------------------------------------------------------------------------- finishing
 
-def _merge_close(points: np.ndarray, tol_m: float) -> np.ndarray:
-    """Drop interior vertices within ``tol_m`` (3D) of the last kept one; keep both ends."""
-    return drop_repeats(points, tol_m)
-
-
 def _timed(terrain, points: np.ndarray, mover: Mover, kind: str):
     """``traverse`` of a route's line; a ground line's lift-off is judged against the ground normal."""
     normals = None
@@ -376,7 +366,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         t0 = time.perf_counter()
         rr = _refine(found, job, mover)
         compute["refine"] = time.perf_counter() - t0
-        final = _merge_close(np.asarray(rr.line, dtype=float), _MERGE_FRACTION * terrain.cell_size)
+        final = np.asarray(rr.line, dtype=float)  # the chosen line as it is: its time is the reported one
     profile = _timed(terrain, final, mover, job.line.kind)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
     violated = _violated(terrain, final, profile, job.limits, found.keepout)
@@ -772,7 +762,7 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
             except NoFeasibleLine as err:
                 rows.append(_failed_row(name, str(err)))
         if route is not None:
-            pts = drop_repeats(np.asarray(route.line, dtype=float), _MERGE_FRACTION * float(terrain.cell_size))
+            pts = drop_repeats(np.asarray(route.line, dtype=float))
             rows.append(row_for_line(terrain, name, pts, mover, limits, mu_range, computed=True, keepout=keepout))
     return Comparison.ranked(rows, mover, limits, mu_range, route)
 

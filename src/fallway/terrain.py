@@ -10,16 +10,17 @@ Two interpolants live on a terrain:
 
 * :meth:`Terrain.sample_linear` -- bilinear between cell centres, the lattice search's
   own interpolation;
-* :meth:`Terrain.sample` / :meth:`Terrain.gradient` -- interpolating bicubic splines
-  (:class:`scipy.interpolate.RectBivariateSpline`, ``s=0``) for the continuous
-  refinement.  They are exact on planes (a cubic spline reproduces every polynomial of
-  degree <= 3).  Splines are built lazily per tile of 128 x 128 cells with 12 cells of
-  context, and blended with a C2 weight over 6 cells either side of tile seams, so a
-  large grid costs only the tiles a line touches and the result matches one global
-  spline to ~1e-9 of the relief.  Nodata cells are filled for the splines only, by
-  linear extrapolation from the nearest valid cell, so a plane stays exact right up to
-  a hole; points whose 4 x 4 cell neighbourhood touches nodata, or that lie outside the
-  hull of cell centres, give NaN (see :meth:`Terrain.valid`).
+* :meth:`Terrain.sample` / :meth:`Terrain.gradient` / :meth:`Terrain.normal` /
+  :meth:`Terrain.valid` -- the smooth surface (:meth:`Terrain.surface`): interpolating
+  bicubic splines for the continuous refinement and for draping, exact on planes (a
+  cubic spline reproduces every polynomial of degree <= 3).  Splines are built lazily
+  per tile of 128 x 128 cells with 12 cells of context and blended smoothly at tile
+  seams, so a large grid costs only the tiles a line touches and the result matches one
+  global spline to ~1e-9 of the relief.  Nodata cells are filled for the splines only,
+  by linear extrapolation from the nearest valid cell, so a plane stays exact right up
+  to a hole; points whose 4 x 4 cell neighbourhood touches nodata, or that lie outside
+  the hull of cell centres, give NaN (see :meth:`Terrain.valid`).  One compiled
+  implementation (:mod:`fallway._surface`) serves these methods and the refinement.
 """
 
 from __future__ import annotations
@@ -33,6 +34,7 @@ from pathlib import Path
 import numpy as np
 from affine import Affine
 
+from ._surface import SmoothSurface
 from .errors import FallwayIOError, ParameterError, TerrainError
 
 __all__ = ["Terrain", "load_terrain", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS"]
@@ -47,19 +49,9 @@ DEFAULT_MAX_CELLS = 200_000_000
 # copy for the spline, spline coefficients, masks) -- a deliberate overestimate.
 _READ_BYTES_PER_CELL = 16
 _OUT_BYTES_PER_CELL = 40
-# extrapolated nodata fill reaches at most this many cells before it is held constant
-_FILL_REACH_CELLS = 8.0
-# the smooth interpolant: bicubic splines on tiles of _TILE cells (plus _TILE_PAD cells of
-# context each side), blended over _BLEND cells either side of a tile boundary.  A cubic
-# spline's response to a change decays by about 2 - sqrt(3) = 0.27 per cell, so with
-# 12 - 6 = 6 cells of context beyond the blend zone neighbouring tiles agree to ~4e-4 of
-# the local third differences there, and the blend hides even that.
-_TILE = 128
 # widest geographic window reprojected to one UTM zone (two zones' width; the scale error
 # at 6 degrees from the central meridian is about 0.6 %)
 _MAX_LON_SPAN_DEG = 12.0
-_TILE_PAD = 12
-_BLEND = 6.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -173,98 +165,28 @@ class Terrain:
             return float(out[0])
         return out
 
-    # -- smooth interpolant -------------------------------------------------------------
+    # -- smooth surface ---------------------------------------------------------------
 
-    def _near_nodata(self) -> np.ndarray:
-        """Cells with nodata in their 3 x 3 block (kept in ``_cache``)."""
-        near = self._cache.get("near_nodata")
-        if near is None:
-            from scipy.ndimage import binary_dilation
+    def surface(self) -> SmoothSurface:
+        """The smooth surface of this grid (:class:`fallway._surface.SmoothSurface`).
 
-            nodata = ~np.isfinite(self.z)
-            near = binary_dilation(nodata, structure=np.ones((3, 3), bool)) if nodata.any() else nodata
-            self._cache["near_nodata"] = near
-        return near
-
-    def _tile_spline(self, kr: int, kc: int):
-        """The bicubic spline of tile (kr, kc), built on first use and kept in ``_cache``.
-
-        A tile covers ``_TILE`` x ``_TILE`` cells plus ``_TILE_PAD`` cells of context on
-        every side (clipped to the grid); nodata is filled inside that block only.
+        Built on first use and kept with the terrain; its tiles are built as points need
+        them.  The compiled refinement evaluates it through its ``tables``.
         """
-        tiles = self._cache.setdefault("tiles", {})
-        key = (kr, kc)
-        if key not in tiles:
-            from scipy.interpolate import RectBivariateSpline
+        surf = self._cache.get("surface")
+        if surf is None:
+            t = self.transform
+            surf = self._cache["surface"] = SmoothSurface(self.z, t.a, t.c, t.e, t.f)
+        return surf
 
-            rows, cols = self.shape
-            r0, r1 = max(0, kr * _TILE - _TILE_PAD), min(rows, (kr + 1) * _TILE + _TILE_PAD)
-            c0, c1 = max(0, kc * _TILE - _TILE_PAD), min(cols, (kc + 1) * _TILE + _TILE_PAD)
-            block = self.z[r0:r1, c0:c1]
-            nodata = ~np.isfinite(block)
-            if nodata.all():
-                tiles[key] = None
-            else:
-                zf = _fill_nodata(block, nodata) if nodata.any() else block
-                sp = RectBivariateSpline(np.arange(r1 - r0, dtype=float), np.arange(c1 - c0, dtype=float), zf,
-                                         kx=min(3, r1 - r0 - 1), ky=min(3, c1 - c0 - 1), s=0)
-                tiles[key] = (sp, r0, c0)
-        return tiles[key]
-
-    def _smooth_eval(self, r, c, grad: bool):
-        """Height (and d/drow, d/dcol) of the blended tile splines at fractional (r, c)."""
-        rows, cols = self.shape
-        ra, rb, wra, wrb, dwr = _blend_axis(r, rows)
-        ca, cb, wca, wcb, dwc = _blend_axis(c, cols)
-        ntc = -(-cols // _TILE)
-        z = np.zeros(r.shape)
-        dzr = np.zeros(r.shape) if grad else None
-        dzc = np.zeros(r.shape) if grad else None
-        for kr, wr, sr in ((ra, wra, -1.0), (rb, wrb, 1.0)):
-            for kc, wc, sc in ((ca, wca, -1.0), (cb, wcb, 1.0)):
-                active = np.nonzero((wr > 0) | (dwr != 0) if sr > 0 else np.ones(r.shape, bool))[0]
-                if sc > 0:
-                    active = active[(wc[active] > 0) | (dwc[active] != 0)]
-                if active.size == 0:
-                    continue
-                tid = kr[active] * ntc + kc[active]
-                order = np.argsort(tid, kind="stable")
-                active, tid = active[order], tid[order]
-                cuts = np.flatnonzero(np.diff(tid)) + 1
-                for grp in np.split(active, cuts):
-                    part = self._tile_spline(int(kr[grp[0]]), int(kc[grp[0]]))
-                    if part is None:
-                        z[grp] = np.nan
-                        continue
-                    sp, r0, c0 = part
-                    rr, cc = r[grp] - r0, c[grp] - c0
-                    v = sp.ev(rr, cc)
-                    z[grp] += wr[grp] * wc[grp] * v
-                    if grad:
-                        dzr[grp] += wr[grp] * wc[grp] * sp.ev(rr, cc, dx=1) + sr * dwr[grp] * wc[grp] * v
-                        dzc[grp] += wr[grp] * wc[grp] * sp.ev(rr, cc, dy=1) + sc * dwc[grp] * wr[grp] * v
-        return z, dzr, dzc
-
-    def _prepare(self, x, y):
-        r, c = self.rowcol(x, y)
-        r, c = np.broadcast_arrays(np.atleast_1d(r).astype(float), np.atleast_1d(c).astype(float))
-        return r, c, np.ndim(x) == 0 and np.ndim(y) == 0
-
-    def _valid_rc(self, r, c, near):
-        rows, cols = self.shape
-        eps = 1e-9
-        ok = (r >= -eps) & (r <= rows - 1 + eps) & (c >= -eps) & (c <= cols - 1 + eps)
-        ok &= np.isfinite(r) & np.isfinite(c)
-        if near.any() and ok.any():
-            rr = np.clip(r[ok], 0, rows - 1)
-            cc = np.clip(c[ok], 0, cols - 1)
-            r0 = np.minimum(np.floor(rr).astype(int), rows - 2)
-            c0 = np.minimum(np.floor(cc).astype(int), cols - 2)
-            bad = near[r0, c0] | near[r0 + 1, c0] | near[r0, c0 + 1] | near[r0 + 1, c0 + 1]
-            sub = ok[ok]
-            sub[bad] = False
-            ok[ok] = sub
-        return ok
+    def _smooth(self, x, y, grad: bool):
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        out = self.surface().evaluate(x, y, grad)
+        if not grad:
+            return float(out[0]) if shape == () else out.reshape(shape)
+        if shape == ():
+            return float(out[1][0]), float(out[2][0])
+        return out[1].reshape(shape), out[2].reshape(shape)
 
     def valid(self, x, y):
         """True where :meth:`sample` and :meth:`gradient` are defined (vectorised).
@@ -281,9 +203,9 @@ class Terrain:
         >>> t.valid([0.6, 6.5, 9.0], [7.4, 1.5, 1.5]).tolist()
         [False, True, False]
         """
-        r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, self._near_nodata())
-        return bool(ok.ravel()[0]) if scalar else ok
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        ok = self.surface().valid(x, y)
+        return bool(ok[0]) if shape == () else ok.reshape(shape)
 
     def sample(self, x, y):
         """Heights (m) at map points on the smooth (bicubic spline) interpolant.
@@ -300,12 +222,7 @@ class Terrain:
         >>> print(f"{t.sample(6.0, 6.0):.6f}")
         8.750000
         """
-        r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, self._near_nodata())
-        out = np.full(r.shape, np.nan)
-        if ok.any():
-            out[ok] = self._smooth_eval(r[ok], c[ok], grad=False)[0]
-        return float(out.ravel()[0]) if scalar else out
+        return self._smooth(x, y, grad=False)
 
     def gradient(self, x, y):
         """Slope components ``(dz/dx, dz/dy)`` of the smooth interpolant (vectorised).
@@ -323,20 +240,7 @@ class Terrain:
         >>> print(f"{gx:.4f} {gy:.4f}")
         0.1250 0.2500
         """
-        r, c, scalar = self._prepare(x, y)
-        ok = self._valid_rc(r, c, self._near_nodata())
-        gx = np.full(r.shape, np.nan)
-        gy = np.full(r.shape, np.nan)
-        if ok.any():
-            t = self.transform
-            _, dzr, dzc = self._smooth_eval(r[ok], c[ok], grad=True)
-            # col = (x - c0)/a - 1/2 and row = (y - f)/e - 1/2, so d/dx = (1/a) d/dcol and
-            # d/dy = (1/e) d/drow (e < 0: row 0 is north)
-            gx[ok] = dzc / t.a
-            gy[ok] = dzr / t.e
-        if scalar:
-            return float(gx.ravel()[0]), float(gy.ravel()[0])
-        return gx, gy
+        return self._smooth(x, y, grad=True)
 
     def normal(self, x, y) -> np.ndarray:
         """Upward unit normals of the smooth surface at (x, y): an (N, 3) array.
@@ -352,68 +256,9 @@ class Terrain:
         >>> np.round(t.normal([3.0], [4.0]), 6)
         array([[0.447214, 0.      , 0.894427]])
         """
-        gx, gy = self.gradient(np.atleast_1d(np.asarray(x, dtype=float)), np.atleast_1d(np.asarray(y, dtype=float)))
-        n = np.column_stack([-np.ravel(gx), -np.ravel(gy), np.ones(np.size(gx))])
+        _, gx, gy = self.surface().evaluate(x, y, grad=True)
+        n = np.column_stack([-gx, -gy, np.ones(gx.size)])
         return n / np.sqrt((n ** 2).sum(axis=1))[:, None]
-
-
-def _blend_axis(u: np.ndarray, n: int):
-    """Tiles and weights along one axis for fractional cell coordinates ``u``.
-
-    Away from tile boundaries a point belongs to one tile (weight 1).  Within
-    ``_BLEND`` cells of an interior boundary it takes both neighbouring tiles, weighted by
-    the C2 "smootherstep" S(t) = 6t^5 - 15t^4 + 10t^3, so the blend is twice
-    continuously differentiable and exact wherever both splines are (planes, cubics).
-    Returns (tile_a, tile_b, w_a, w_b, dw_b/du); dw_a/du = -dw_b/du.
-    """
-    nt = -(-n // _TILE)
-    m = np.rint(u / _TILE).astype(np.int64)
-    near = (m >= 1) & (m <= nt - 1) & (np.abs(u - m * _TILE) < _BLEND)
-    own = np.clip(np.floor(u / _TILE).astype(np.int64), 0, nt - 1)
-    ka = np.where(near, m - 1, own)
-    kb = np.where(near, m, own)
-    t = np.clip((u - m * _TILE + _BLEND) / (2 * _BLEND), 0.0, 1.0)
-    wb = np.where(near, t * t * t * (t * (6 * t - 15) + 10), 0.0)
-    dwb = np.where(near, 30 * t * t * (1 - t) ** 2 / (2 * _BLEND), 0.0)
-    return ka, kb, 1.0 - wb, wb, dwb
-
-
-def _fill_nodata(z: np.ndarray, nodata: np.ndarray) -> np.ndarray:
-    """Fill nodata cells for the spline: linear extrapolation from the nearest valid cell.
-
-    The slope at the valid cell is taken from valid neighbours only (central difference,
-    else one-sided), so on a plane the fill is the plane itself and the spline stays exact
-    next to holes.  The extrapolation reaches at most ``_FILL_REACH_CELLS`` cells and is
-    held constant beyond, so large holes do not fill with runaway values.
-    """
-    from scipy.ndimage import distance_transform_edt
-
-    if nodata.all():
-        raise TerrainError("the elevation grid holds no valid heights; check the nodata value or the bounds")
-    gr = _valid_difference(z, axis=0)
-    gc = _valid_difference(z, axis=1)
-    _, (ir, ic) = distance_transform_edt(nodata, return_indices=True)
-    rows, cols = np.nonzero(nodata)
-    qr, qc = ir[rows, cols], ic[rows, cols]
-    dr = (rows - qr).astype(float)
-    dc = (cols - qc).astype(float)
-    dist = np.hypot(dr, dc)
-    shrink = np.minimum(1.0, _FILL_REACH_CELLS / np.maximum(dist, 1e-300))
-    out = z.copy()
-    out[rows, cols] = z[qr, qc] + shrink * (gr[qr, qc] * dr + gc[qr, qc] * dc)
-    return out
-
-
-def _valid_difference(z: np.ndarray, axis: int) -> np.ndarray:
-    """Per-cell derivative along ``axis`` from valid neighbours only (0 if none)."""
-    zz = np.moveaxis(z, axis, 0)
-    fwd = np.full(zz.shape, np.nan)
-    bwd = np.full(zz.shape, np.nan)
-    fwd[:-1] = zz[1:] - zz[:-1]
-    bwd[1:] = zz[1:] - zz[:-1]
-    d = np.where(np.isfinite(fwd) & np.isfinite(bwd), 0.5 * (fwd + bwd),
-                 np.where(np.isfinite(fwd), fwd, np.where(np.isfinite(bwd), bwd, 0.0)))
-    return np.moveaxis(d, 0, axis)
 
 
 # -- loading ----------------------------------------------------------------------------

@@ -1,0 +1,286 @@
+"""The refinement's optimisation problem: variables, bounds, objective and limit checks.
+
+Variables are the interior vertices: plan positions (x, y) of a ground line, whose heights
+follow the terrain's smooth surface (:meth:`fallway.terrain.Terrain.surface`), or plan
+positions and heights above the ground (x, y, h) of a raised line, h within the clearance
+band.  The ends stay fixed.  Bounds keep vertices inside the hull of cell centres.  The
+objective is the travel time (gravity-normal chain, or the full model's during the
+polish) plus exterior penalties (:mod:`fallway.refine.fields`); :meth:`Problem.violations`
+judges every limit on a line.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..geometry import min_radius_m
+from ..params import Limits, LineSpec
+from ..physics import Mover
+from .chain import full_chain, gravity_chain, ground_fg
+from .fields import DistanceField, field_penalty, grade_penalty, keepout_status, radius_penalty
+
+__all__ = ["Ground", "Problem", "on_data"]
+
+
+class Ground:
+    """Heights and slopes of the terrain's smooth surface, and the box the vertices may use."""
+
+    def __init__(self, terrain) -> None:
+        self.terrain = terrain
+        self.surface = terrain.surface()
+        rows, cols = terrain.shape
+        x0, y0 = terrain.cell_center(0, 0)
+        x1, y1 = terrain.cell_center(rows - 1, cols - 1)
+        tiny = 1e-7 * terrain.cell_size
+        self.xlim = (min(x0, x1) + tiny, max(x0, x1) - tiny)
+        self.ylim = (min(y0, y1) + tiny, max(y0, y1) - tiny)
+
+    def z(self, x, y) -> np.ndarray:
+        """Heights (NaN where the surface is undefined), shaped like ``x``/``y``."""
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        return self.surface.evaluate(x, y).reshape(shape)
+
+    def z_grad(self, x, y):
+        """Heights and slopes (dz/dx, dz/dy) together, in one pass."""
+        shape = np.broadcast(np.asarray(x), np.asarray(y)).shape
+        return tuple(v.reshape(shape) for v in self.surface.evaluate(x, y, grad=True))
+
+
+def on_data(terrain, x, y) -> np.ndarray:
+    """True where a plan point lies over data: inside the hull of cell centres, and every
+    cell whose closed square holds it has a height (the lattice's own rule for its edges,
+    so a lattice line is on data wherever the search let it run)."""
+    rows, cols = terrain.shape
+    r, c = terrain.rowcol(np.asarray(x, float), np.asarray(y, float))
+    eps = 1e-9
+    ok = np.isfinite(r) & np.isfinite(c) & (r >= -eps) & (r <= rows - 1 + eps) & (c >= -eps) & (c <= cols - 1 + eps)
+    r = np.clip(np.where(ok, r, 0.0), 0.0, rows - 1.0)
+    c = np.clip(np.where(ok, c, 0.0), 0.0, cols - 1.0)
+    rl, rh = np.ceil(r - 0.5 - eps).astype(int), np.floor(r + 0.5 + eps).astype(int)
+    cl, ch = np.ceil(c - 0.5 - eps).astype(int), np.floor(c + 0.5 + eps).astype(int)
+    rl, rh = np.clip(rl, 0, rows - 1), np.clip(rh, 0, rows - 1)
+    cl, ch = np.clip(cl, 0, cols - 1), np.clip(ch, 0, cols - 1)
+    z = terrain.z
+    data = np.isfinite(z[rl, cl]) & np.isfinite(z[rl, ch]) & np.isfinite(z[rh, cl]) & np.isfinite(z[rh, ch])
+    return ok & data
+
+
+class Problem:
+    """The optimisation problem: variables <-> vertices, objective, bounds, checks.
+
+    Parameters
+    ----------
+    ground : Ground
+    mover : Mover
+    limits : Limits
+    spec : LineSpec
+    keepout : DistanceField or None
+    nodata : DistanceField or None
+        Distance to nodata (the line keeps 1.5 cells away).
+    margin_m : float
+        Keep-out safety distance.
+    penalty : float
+        Weight of the exterior penalties.
+    """
+
+    def __init__(self, ground: Ground, mover: Mover, limits: Limits, spec: LineSpec, keepout: DistanceField | None,
+                 nodata: DistanceField | None, margin_m: float, penalty: float) -> None:
+        self.gr = ground
+        self.mover = mover
+        self.limits = limits
+        self.line = spec.kind
+        self.c_min, self.c_max = spec.clearance_m
+        self.keep = keepout
+        self.nodata = nodata
+        self.margin = margin_m
+        self.w_pen = penalty
+        self.cell = cell = ground.terrain.cell_size
+        self.eps_plan = 1e-4 * cell
+        self.u_floor = 1e-8 * mover.g * cell
+        self.u_max = (mover.max_speed * (1 - 1e-4)) ** 2 if mover.max_speed is not None else -1.0
+        self.u_stall = (mover.stall_speed * (1 + 1e-4)) ** 2 if mover.stall_speed > 0 else -1.0
+        #: optimise the full normal-force model's time (the polish) instead of the gravity one,
+        #: with the plan length smoothed by ``eps_full`` (m)
+        self.full = False
+        self.eps_full = 0.0
+
+    # -- variables: interior vertices; ground (x, y), raised (x, y, h above ground) ------
+
+    def nvar(self) -> int:
+        return 2 if self.line == "ground" else 3
+
+    def to_vars(self, P):
+        inner = P[1:-1]
+        if self.line == "ground":
+            return inner[:, :2].ravel().copy()
+        h = inner[:, 2] - self.gr.z(inner[:, 0], inner[:, 1])
+        return np.column_stack([inner[:, :2], h]).ravel()
+
+    def to_points(self, X, ends, slopes=False):
+        """Vertices (N, 3) of the variables; with ``slopes`` also the ground slopes
+        (dz/dx, dz/dy) at the interior vertices."""
+        k = self.nvar()
+        V = X.reshape(-1, k)
+        n = len(V) + 2
+        P = np.empty((n, 3))
+        P[0] = ends[0]
+        P[-1] = ends[1]
+        P[1:-1, :2] = V[:, :2]
+        if slopes:
+            zg, gx, gy = self.gr.z_grad(V[:, 0], V[:, 1])
+        else:
+            zg = self.gr.z(V[:, 0], V[:, 1])
+        P[1:-1, 2] = zg if k == 2 else zg + V[:, 2]
+        return (P, gx, gy) if slopes else P
+
+    def bounds(self, m: int) -> tuple[np.ndarray, np.ndarray]:
+        """Lower and upper bounds of the variables of ``m`` interior vertices."""
+        (x0, x1), (y0, y1) = self.gr.xlim, self.gr.ylim
+        if self.line == "ground":
+            lo, hi = [x0, y0], [x1, y1]
+        else:
+            lo, hi = [x0, y0, self.c_min], [x1, y1, self.c_max]
+        return np.tile(lo, m).astype(float), np.tile(hi, m).astype(float)
+
+    def project(self, P, P_start):
+        """Clip vertices into the bounds, heights onto the ground (or the clearance band);
+        ends fixed at the start line's ends."""
+        P = P.copy()
+        P[0] = P_start[0]
+        P[-1] = P_start[-1]
+        P[1:-1, 0] = np.clip(P[1:-1, 0], *self.gr.xlim)
+        P[1:-1, 1] = np.clip(P[1:-1, 1], *self.gr.ylim)
+        zg = self.gr.z(P[1:-1, 0], P[1:-1, 1])
+        if self.line == "ground":
+            P[1:-1, 2] = zg
+            for end in (0, -1):
+                z_end = self.gr.z(P[end, 0], P[end, 1])
+                if np.isfinite(z_end):
+                    P[end, 2] = z_end
+        else:
+            P[1:-1, 2] = zg + np.clip(P[1:-1, 2] - zg, self.c_min, self.c_max)
+        return P
+
+    # -- objective ---------------------------------------------------------------------
+
+    def speeds(self, P, model: str) -> np.ndarray:
+        """Squared speeds at the vertices with the ``"gravity"`` or ``"full"`` model."""
+        mv = self.mover
+        if model == "full":
+            return full_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, 0.0, -1.0, -1.0, False)[3]
+        return gravity_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor, 0.0, -1.0, -1.0)[3]
+
+    def objective(self, P):
+        """time + penalties and its gradient with respect to the vertices (N, 3)."""
+        mv = self.mover
+        # speed penalties act on v² (m²/s²): scaled so that 1 m²/s² costs ~1e-2 s at w = 1e4
+        if self.full:
+            T, pen, G, _, ok = full_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.w_pen * 1e-6, self.u_max,
+                                          self.u_stall, True, self.eps_full, self.u_floor, 1e3)
+            if not math.isfinite(T):
+                return math.inf, G
+        else:
+            T, pen, G, _ = gravity_chain(P, mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
+                                         self.w_pen * 1e-6, self.u_max, self.u_stall)
+        f = T + pen
+        lim = self.limits
+        if math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade):
+            v, gg = grade_penalty(P, lim.min_grade, lim.max_grade, self.w_pen, 1e-3, self.eps_plan)
+            f += v
+            G += gg
+        if lim.min_radius_m is not None:
+            v, gg = radius_penalty(P, lim.min_radius_m, self.w_pen, 2e-3)
+            f += v
+            G += gg
+        for fld, marg in ((self.keep, self.margin), (self.nodata, 1.5 * self.cell)):
+            if fld is not None:
+                v, gg, _ = field_penalty(P, fld, self.w_pen, marg, 1e-4 * self.cell)
+                f += v
+                G += gg
+        return f, G
+
+    def compiled(self) -> bool:
+        """True when the objective is the bare chain on the ground surface (one compiled pass)."""
+        lim = self.limits
+        return not (self.full or self.line != "ground" or self.keep is not None or self.nodata is not None
+                    or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None)
+
+    def fg(self, X, ends):
+        """Objective and gradient in the variables; 1e30 (zero gradient) off the surface."""
+        if self.compiled():
+            mv = self.mover
+            surf = self.gr.surface
+            for _ in range(2):
+                f, g, missing = ground_fg(np.ascontiguousarray(X, float), ends[0], ends[1], surf.tables,
+                                          mv.v0 ** 2, mv.g, mv.mu, mv.drag, self.eps_plan, self.u_floor,
+                                          self.w_pen * 1e-6, self.u_max, self.u_stall)
+                if not missing:
+                    return f, g
+                surf.ensure(X[0::2], X[1::2])  # builds the tiles, then once more
+        P, gx, gy = self.to_points(X, ends, slopes=True)
+        if not np.all(np.isfinite(P)):
+            return 1e30, np.zeros_like(X)
+        f, G = self.objective(P)
+        Gi = G[1:-1]
+        out = np.empty((len(Gi), self.nvar()))
+        out[:, 0] = Gi[:, 0] + Gi[:, 2] * gx
+        out[:, 1] = Gi[:, 1] + Gi[:, 2] * gy
+        if self.nvar() == 3:
+            out[:, 2] = Gi[:, 2]
+        if not math.isfinite(f):
+            return 1e30, np.zeros_like(X)
+        return f, out.ravel()
+
+    # -- limits --------------------------------------------------------------------------
+
+    def violations(self, P, model: str) -> dict:
+        """Status of every limit on the line P: ``"inactive"``, ``"active"`` or ``"violated"``;
+        speeds with the ``"gravity"`` or ``"full"`` model."""
+        out = {}
+        lim = self.limits
+        d = np.diff(P, axis=0)
+        plan = np.hypot(d[:, 0], d[:, 1])
+        drop = -d[:, 2]
+        if math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade):
+            hi = drop - lim.max_grade * plan if math.isfinite(lim.max_grade) else np.full(len(d), -np.inf)
+            lo = lim.min_grade * plan - drop if math.isfinite(lim.min_grade) else np.full(len(d), -np.inf)
+            # grade honoured to 1e-4 (drop per plan metre)
+            worst = float(np.max(np.maximum(hi, lo) / np.maximum(plan, 1e-9)))
+            out["grade"] = "violated" if worst > 1e-4 else ("active" if worst > -2e-3 else "inactive")
+        out.update(self._speed_status(P, model))
+        if lim.min_radius_m is not None and len(P) >= 3:
+            rmin = min_radius_m(P, dims=3)
+            out["min_radius"] = ("violated" if rmin < lim.min_radius_m * (1 - 1e-4)
+                                 else "active" if rmin < lim.min_radius_m * (1 + 1e-2) else "inactive")
+        if self.keep is not None:
+            out["keepout"] = keepout_status(P, self.keep, self.margin)
+        # DEM extent and nodata: every vertex and segment point over cells with data
+        fr = np.linspace(0.0, 1.0, 5)
+        X = (P[:-1, None, :2] * (1 - fr)[None, :, None] + P[1:, None, :2] * fr[None, :, None]).reshape(-1, 2)
+        out["extent"] = "inactive" if bool(np.all(on_data(self.gr.terrain, X[:, 0], X[:, 1]))) else "violated"
+        if self.line == "raised":
+            h = P[:, 2] - self.gr.z(P[:, 0], P[:, 1])
+            bad = (h < self.c_min - 1e-6) | (h > self.c_max + 1e-6)
+            near = (h < self.c_min + 1e-6) | (h > self.c_max - 1e-6)
+            out["clearance"] = "violated" if bad[1:-1].any() else ("active" if near[1:-1].any() else "inactive")
+        return out
+
+    def _speed_status(self, P, model: str) -> dict:
+        mv = self.mover
+        out = {}
+        if mv.max_speed is None and mv.stall_speed <= 0:
+            return out
+        u = self.speeds(P, model)
+        if mv.max_speed is not None:
+            vmax = float(np.sqrt(np.max(u)))
+            out["max_speed"] = ("violated" if vmax > mv.max_speed * (1 + 1e-9)
+                                else "active" if vmax > mv.max_speed * (1 - 1e-3) else "inactive")
+        if mv.stall_speed > 0:
+            v = np.sqrt(u[1:])
+            dec = u[1:] < u[:-1]
+            vmin = float(np.min(v[dec])) if dec.any() else math.inf
+            out["stall"] = ("violated" if vmin < mv.stall_speed * (1 - 1e-9)
+                            else "active" if vmin < mv.stall_speed * (1 + 1e-3) else "inactive")
+        return out
