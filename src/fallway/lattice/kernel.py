@@ -113,7 +113,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol_abs, tol_rel, max_labels, init_cap, max_per_cell, t_max):
+           tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max):
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
@@ -128,7 +128,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     (valid because every referenced cell lies inside the edge's bounding box, which is
     inside the grid when both ends are); ``sub_plan`` the plan length of every
     sub-segment (:func:`fallway.lattice.core.sub_segment`).  The dominance tolerance on v²
-    is ``tol_abs + tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most that many settled
+    is ``tol_abs + tol_rel * v²``.  ``label_cap`` > 0 keeps at most that many settled
     labels per (leg, node[, heading]) - the earliest ones - and drops later arrivals (an
     approximation, counted in ``C_CAPPED``); 0 keeps the exact Pareto set.  Labels
     later than ``t_max`` are neither queued nor settled (``C_CUTOFF``; ``inf``: none).
@@ -168,7 +168,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     # faster is dominated by it (Dijkstra's decrease-key, generalised to two criteria)
     open_t = np.full(nstate * nh, np.inf)
     open_v2 = np.full(nstate * nh, -np.inf)
-    capped = max_per_cell > 0
+    capped = label_cap > 0
     nset = np.zeros(nstate * nh if capped else 1, dtype=np.int32)
     if reach_mode:
         best_t = np.full(nact, np.nan)
@@ -205,7 +205,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             counters[C_DOMINATED] += 1
             continue
         if capped:
-            if nset[slot] >= max_per_cell:
+            if nset[slot] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             nset[slot] += 1
@@ -302,7 +302,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
                 continue
-            if capped and nset[sm] >= max_per_cell:
+            if capped and nset[sm] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             if tn >= open_t[sm] and v2 <= open_v2[sm] + (tol_abs + tol_rel * v2):

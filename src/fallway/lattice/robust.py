@@ -234,7 +234,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
                   tch_start, tch_flat, turn_ok, use_heading,
                   g, mu_lo, mu_nom, mu_hi, kdrag, v2_stall, v2_max, min_grade, max_grade,
                   start, v2_start, target, lo_safe, inv_v, tol_abs, tol_rel, max_labels, init_cap,
-                  max_per_cell, slack):
+                  label_cap, slack):
     """Label-setting search with labels (t_nom, v2_lo, v2_nom, v2_hi) (module notes).
 
     ``cidx``/``nact``: the compact index of the searchable cells, as in
@@ -243,7 +243,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     there on (``inf`` without a limit).  ``inv_v``: 1 / (an upper bound of the nominal
     speed) for the A* bound (0 turns it off).  ``use_heading``: states are (cell, heading
     of the last step) and ``turn_ok[i, j]`` says whether step j may follow step i.
-    ``max_per_cell`` > 0 keeps at most that many settled labels per state (the earliest;
+    ``label_cap`` > 0 keeps at most that many settled labels per state (the earliest;
     an approximation, counted in ``C_CAPPED``).  ``slack`` > 0: energies within that
     much (m²/s²) count as equal in dominance (approximate).
 
@@ -260,7 +260,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
     Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx = new_pool(init_cap, 3, np.empty(0, dtype=np.int32))
     head = np.full(nact * nh, -1, dtype=np.int32)
-    capped = max_per_cell > 0
+    capped = label_cap > 0
     nset = np.zeros(nact * nh if capped else 1, dtype=np.int32)
     hsize = 0
     tgt_r = np.full(1, target // cols, dtype=np.int64)
@@ -293,7 +293,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
             counters[C_DOMINATED] += 1
             continue
         if capped:
-            if nset[slot] >= max_per_cell:
+            if nset[slot] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             nset[slot] += 1
