@@ -69,9 +69,10 @@ nothing blocked the compact index is the flat index: the kernel then skips the l
 (``nact == rows * cols``) and the front passes a one-element dummy map.
 
 Pushing a label is one helper, :func:`fallway.lattice.core.push_label` (write the pool
-entry, queue it), preceded by :func:`fallway.lattice.core.make_room` only when the pool
-or the heap is full; the arrays are returned only from that rare branch, so the hot path
-does no reference counting.
+entry, queue it), with no capacity test: after each pop the kernel makes room for that
+label's whole expansion (at most ``nk`` pushes, or one at a via point), growing the pool
+and the heap array by array (:func:`fallway.lattice.core.grow`), so only one old array is
+alive during a doubling and no array is returned on the hot path.
 
 Float precision: all times, squared speeds and heap keys stay float64.  ``emax`` and
 ``open_v2`` are compared with a tolerance of ``1e-10`` relative (default), far below
@@ -99,7 +100,7 @@ from numba import njit
 
 from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL,
                    C_TURN, C_UPHILL, LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_STALL, N_COUNTERS, NOT_REACHED, OK,
-                   astar_bound, count_blocked, heap_pop, law_step, make_room, new_pool, passable, push_label,
+                   astar_bound, count_blocked, grow, grow_rows, heap_pop, law_step, new_pool, passable, push_label,
                    state_of, sub_count, sub_segment)
 
 __all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
@@ -192,6 +193,18 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
+        if n_lab + nk + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
+            cap = 2 * Lt.shape[0]         # array by array, so only one old array is alive at a time
+            Lt = grow(Lt, cap)
+            Le = grow_rows(Le, cap)
+            Lnode = grow(Lnode, cap)
+            Lpar = grow(Lpar, cap)
+            Lhd = grow(Lhd, cap)
+            Lleg = grow(Lleg, cap)
+        if hsize + nk + 1 > hkey.shape[0]:
+            hcap = 2 * hkey.shape[0]
+            hkey = grow(hkey, hcap)
+            hidx = grow(hidx, hcap)
         li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
         leg = Lleg[li]
@@ -239,9 +252,6 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                     counters[C_DOMINATED] += 1
                     continue
                 key = t0 + astar_bound(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-                if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                    Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
-                                                                       n_lab, hsize)
                 Le[n_lab, 0] = v20
                 hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, t0, n, li, hd, nleg, key)
                 n_lab += 1
@@ -314,9 +324,6 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             key = tn
             if not reach_mode:
                 key += astar_bound(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-            if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
-                                                                   n_lab, hsize)
             Le[n_lab, 0] = v2
             hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, tn, m, li, kk, leg, key)
             n_lab += 1

@@ -101,7 +101,7 @@ from numba import njit
 
 from .core import (C_CAPPED, C_CREATED, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL, C_TURN,
                    LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_SPEED, LAW_STALL, N_COUNTERS, NOT_REACHED, OK, astar_bound,
-                   count_blocked, grow, heap_pop, heap_push, law_step, make_room, new_pool, passable, push_label,
+                   count_blocked, grow, grow_rows, heap_pop, heap_push, law_step, new_pool, passable, push_label,
                    state_of, sub_count, sub_segment)
 
 __all__ = ["robust_search", "lo_floor", "ROBUST_ENERGY_TOL", "robust_lattice_line"]
@@ -280,6 +280,18 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
+        if n_lab + nk + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
+            cap = 2 * Lt.shape[0]         # array by array, so only one old array is alive at a time
+            Lt = grow(Lt, cap)
+            Le = grow_rows(Le, cap)
+            Lnode = grow(Lnode, cap)
+            Lpar = grow(Lpar, cap)
+            Lhd = grow(Lhd, cap)
+            Lnext = grow(Lnext, cap)
+        if hsize + nk + 1 > hkey.shape[0]:
+            hcap = 2 * hkey.shape[0]
+            hkey = grow(hkey, hcap)
+            hidx = grow(hidx, hcap)
         li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
         t0 = Lt[li]
@@ -369,9 +381,6 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
                 continue
             tn = t0 + te
             key = tn + astar_bound(m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, rest, inv_v)
-            if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx,
-                                                                    n_lab, hsize)
             Le[n_lab, E_LO] = vlo
             Le[n_lab, E_NOM] = vnom
             Le[n_lab, E_HI] = vhi
