@@ -13,7 +13,9 @@ Cases, each in its own process (peak memory = ``VmHWM`` of that process):
   (the search fills the free-fall disc, then the later arrivals are masked: the
   behaviour before the change).  The maps must be identical.
 
-Run: ``python scripts/bench_state.py [--n 5000] [--reach-n 2000] [--reach-t 40]``.
+Each case first runs a small search to compile (or load) the kernels.  Run:
+``python scripts/bench_state.py [--n 5000] [--reach-n 2000] [--reach-t 40]``; a single case
+with ``--case reach|corridor --path DEM.tif [--flag 0|1]`` (for A/B runs).
 
 Measured 2026-12-02 (2 cores shared with other work - load average 2.4 to 3.8 - so wall
 times are indicative; --cap 4):
@@ -58,19 +60,32 @@ def _force_layout(compact: bool) -> None:
     S._Problem.run = lambda self, *a, **k: run(self, *a, **{**k, "compact": compact})
 
 
+def _warm():
+    """Compile (or load) the kernels on a small grid, so that the timed case does not."""
+    from fallway.physics import Mover
+    from fallway.scale import find_route_large, reach_limited
+    from fallway.terrain import Terrain
+
+    t = Terrain.from_array(100.0 - 0.3 * np.add.outer(np.arange(40.0), np.arange(40.0)), (2.0, 0, 0, 0, -2.0, 80.0))
+    find_route_large(t, (1, 79), (79, 1), Mover(mu=0.2, drag=0.001), coarse_factor=4, neighbours=16, max_per_cell=4,
+                     refine=False)
+    reach_limited(t, (1, 79), Mover(mu=0.2, drag=0.001), max_time_s=5.0, neighbours=16, max_per_cell=4)
+
+
 def case_corridor(path, n, cap, compact):
     from bench_large import points
 
     from fallway.physics import Mover
     from fallway.scale import find_route_large
 
+    _warm()
     _force_layout(compact)
     start, end = points(n, 0.25)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     r = find_route_large(path, start, end, Mover(mu=0.2, drag=0.001), neighbours=16, max_per_cell=cap, refine=False)
-    wall = time.perf_counter() - t0
+    wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     s = r.summary
-    return {"wall_s": wall, "peak_mb": peak_mb(), "lattice_time_s": s["lattice_time_s"],
+    return {"wall_s": wall, "cpu_s": cpu, "peak_mb": peak_mb(), "lattice_time_s": s["lattice_time_s"],
             "cells": [int(v) for v in np.asarray(r.lattice.cells).ravel()],
             "window_cells": s["scale"]["window_cells"], "corridor_steps": s["corridor_steps"],
             "labels_created": s["labels_created"]}
@@ -83,18 +98,19 @@ def case_reach(path, n, t_max, cap, kernel_cutoff):
     from fallway.physics import Mover
     from fallway.scale import reach_limited
 
+    _warm()
     if not kernel_cutoff:  # the area window alone: search everything in it, mask afterwards
         reach = S.reach
         S.reach = lambda *a, **k: reach(*a, **{**k, "max_time_s": None})
     start, _ = points(n, 0.15)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     rm = reach_limited(path, start, Mover(mu=0.2, drag=0.001), max_time_s=t_max, neighbours=16, max_per_cell=cap)
-    wall = time.perf_counter() - t0
+    wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     tt = rm.time_s.copy()
     if not kernel_cutoff:
         tt[~(tt <= t_max)] = np.nan
     np.save(path + f".reach{int(kernel_cutoff)}.npy", tt)
-    return {"wall_s": wall, "search_s": rm.stats["search_s"], "peak_mb": peak_mb(),
+    return {"wall_s": wall, "cpu_s": cpu, "search_s": rm.stats["search_s"], "peak_mb": peak_mb(),
             "window_shape": rm.stats["cutoff"]["window_shape"], "cells_reached_by_t": int(np.isfinite(tt).sum()),
             "labels_created": rm.stats["labels_created"], "labels_settled": rm.stats["labels_settled"]}
 

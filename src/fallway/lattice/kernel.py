@@ -69,9 +69,10 @@ nothing blocked the compact index is the flat index: the kernel then skips the l
 (``nact == rows * cols``) and the front passes a one-element dummy map.
 
 Pushing a label is one helper, :func:`fallway.lattice.core.push_label` (write the pool
-entry, queue it), preceded by :func:`fallway.lattice.core.make_room` only when the pool
-or the heap is full; the arrays are returned only from that rare branch, so the hot path
-does no reference counting.
+entry, queue it), with no capacity test: after each pop the kernel makes room for that
+label's whole expansion (at most ``nk`` pushes, or one at a via point), growing the pool
+and the heap array by array (:func:`fallway.lattice.core.grow`), so only one old array is
+alive during a doubling and no array is returned on the hot path.
 
 Float precision: all times, squared speeds and heap keys stay float64.  ``emax`` and
 ``open_v2`` are compared with a tolerance of ``1e-10`` relative (default), far below
@@ -99,7 +100,7 @@ from numba import njit
 
 from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL,
                    C_TURN, C_UPHILL, LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_STALL, N_COUNTERS, NOT_REACHED, OK,
-                   astar_bound, count_blocked, heap_pop, law_step, make_room, new_pool, passable, push_label,
+                   astar_bound, count_blocked, grow, grow_rows, heap_pop, law_step, new_pool, passable, push_label,
                    state_of, sub_count, sub_segment)
 
 __all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
@@ -113,7 +114,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol_abs, tol_rel, max_labels, init_cap, max_per_cell, t_max):
+           tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max):
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
@@ -128,7 +129,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     (valid because every referenced cell lies inside the edge's bounding box, which is
     inside the grid when both ends are); ``sub_plan`` the plan length of every
     sub-segment (:func:`fallway.lattice.core.sub_segment`).  The dominance tolerance on v²
-    is ``tol_abs + tol_rel * v²``.  ``max_per_cell`` > 0 keeps at most that many settled
+    is ``tol_abs + tol_rel * v²``.  ``label_cap`` > 0 keeps at most that many settled
     labels per (leg, node[, heading]) - the earliest ones - and drops later arrivals (an
     approximation, counted in ``C_CAPPED``); 0 keeps the exact Pareto set.  Labels
     later than ``t_max`` are neither queued nor settled (``C_CUTOFF``; ``inf``: none).
@@ -168,7 +169,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     # faster is dominated by it (Dijkstra's decrease-key, generalised to two criteria)
     open_t = np.full(nstate * nh, np.inf)
     open_v2 = np.full(nstate * nh, -np.inf)
-    capped = max_per_cell > 0
+    capped = label_cap > 0
     nset = np.zeros(nstate * nh if capped else 1, dtype=np.int32)
     if reach_mode:
         best_t = np.full(nact, np.nan)
@@ -192,6 +193,18 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
+        if n_lab + nk + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
+            cap = 2 * Lt.shape[0]         # array by array, so only one old array is alive at a time
+            Lt = grow(Lt, cap)
+            Le = grow_rows(Le, cap)
+            Lnode = grow(Lnode, cap)
+            Lpar = grow(Lpar, cap)
+            Lhd = grow(Lhd, cap)
+            Lleg = grow(Lleg, cap)
+        if hsize + nk + 1 > hkey.shape[0]:
+            hcap = 2 * hkey.shape[0]
+            hkey = grow(hkey, hcap)
+            hidx = grow(hidx, hcap)
         li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
         leg = Lleg[li]
@@ -205,7 +218,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             counters[C_DOMINATED] += 1
             continue
         if capped:
-            if nset[slot] >= max_per_cell:
+            if nset[slot] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             nset[slot] += 1
@@ -239,9 +252,6 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                     counters[C_DOMINATED] += 1
                     continue
                 key = t0 + astar_bound(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-                if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                    Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
-                                                                       n_lab, hsize)
                 Le[n_lab, 0] = v20
                 hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, t0, n, li, hd, nleg, key)
                 n_lab += 1
@@ -302,7 +312,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
                 continue
-            if capped and nset[sm] >= max_per_cell:
+            if capped and nset[sm] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             if tn >= open_t[sm] and v2 <= open_v2[sm] + (tol_abs + tol_rel * v2):
@@ -314,9 +324,6 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             key = tn
             if not reach_mode:
                 key += astar_bound(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-            if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx,
-                                                                   n_lab, hsize)
             Le[n_lab, 0] = v2
             hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, tn, m, li, kk, leg, key)
             n_lab += 1

@@ -101,7 +101,7 @@ from numba import njit
 
 from .core import (C_CAPPED, C_CREATED, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL, C_TURN,
                    LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_SPEED, LAW_STALL, N_COUNTERS, NOT_REACHED, OK, astar_bound,
-                   count_blocked, grow, heap_pop, heap_push, law_step, make_room, new_pool, passable, push_label,
+                   count_blocked, grow, grow_rows, heap_pop, heap_push, law_step, new_pool, passable, push_label,
                    state_of, sub_count, sub_segment)
 
 __all__ = ["robust_search", "lo_floor", "ROBUST_ENERGY_TOL"]
@@ -225,7 +225,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
                   tch_start, tch_flat, turn_ok, use_heading,
                   g, mu_lo, mu_nom, mu_hi, kdrag, v2_stall, v2_max, min_grade, max_grade,
                   start, v2_start, target, lo_safe, inv_v, tol_abs, tol_rel, max_labels, init_cap,
-                  max_per_cell, slack):
+                  label_cap, slack):
     """Label-setting search with labels (t_nom, v2_lo, v2_nom, v2_hi) (module notes).
 
     ``cidx``/``nact``: the compact index of the searchable cells, as in
@@ -234,7 +234,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     there on (``inf`` without a limit).  ``inv_v``: 1 / (an upper bound of the nominal
     speed) for the A* bound (0 turns it off).  ``use_heading``: states are (cell, heading
     of the last step) and ``turn_ok[i, j]`` says whether step j may follow step i.
-    ``max_per_cell`` > 0 keeps at most that many settled labels per state (the earliest;
+    ``label_cap`` > 0 keeps at most that many settled labels per state (the earliest;
     an approximation, counted in ``C_CAPPED``).  ``slack`` > 0: energies within that
     much (m²/s²) count as equal in dominance (approximate).
 
@@ -251,7 +251,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
     Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx = new_pool(init_cap, 3, np.empty(0, dtype=np.int32))
     head = np.full(nact * nh, -1, dtype=np.int32)
-    capped = max_per_cell > 0
+    capped = label_cap > 0
     nset = np.zeros(nact * nh if capped else 1, dtype=np.int32)
     hsize = 0
     tgt_r = np.full(1, target // cols, dtype=np.int64)
@@ -271,6 +271,18 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
+        if n_lab + nk + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
+            cap = 2 * Lt.shape[0]         # array by array, so only one old array is alive at a time
+            Lt = grow(Lt, cap)
+            Le = grow_rows(Le, cap)
+            Lnode = grow(Lnode, cap)
+            Lpar = grow(Lpar, cap)
+            Lhd = grow(Lhd, cap)
+            Lnext = grow(Lnext, cap)
+        if hsize + nk + 1 > hkey.shape[0]:
+            hcap = 2 * hkey.shape[0]
+            hkey = grow(hkey, hcap)
+            hidx = grow(hidx, hcap)
         li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
         t0 = Lt[li]
@@ -284,7 +296,7 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
             counters[C_DOMINATED] += 1
             continue
         if capped:
-            if nset[slot] >= max_per_cell:
+            if nset[slot] >= label_cap:
                 counters[C_CAPPED] += 1
                 continue
             nset[slot] += 1
@@ -360,9 +372,6 @@ def robust_search(z, blocked, cidx, nact, rows, cols, cell,
                 continue
             tn = t0 + te
             key = tn + astar_bound(m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, rest, inv_v)
-            if n_lab >= Lt.shape[0] or hsize >= hkey.shape[0]:
-                Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx = make_room(Lt, Le, Lnode, Lpar, Lhd, Lnext, hkey, hidx,
-                                                                    n_lab, hsize)
             Le[n_lab, E_LO] = vlo
             Le[n_lab, E_NOM] = vnom
             Le[n_lab, E_HI] = vhi
