@@ -150,6 +150,22 @@ def test_ground_heights_are_the_terrains_smooth_surface():
     assert np.isnan(Ground(t).z(10.0 + 207.0 * cell, 500.0 - 65.0 * cell))
 
 
+def test_extent_is_judged_over_cells_with_data_as_the_lattice_does():
+    # reference: the lattice's own rule (lattice/stencil.py): an edge may touch only closed
+    # cell squares with data, corners included.  A point in a data cell next to nodata is
+    # on data, a point on the edge shared with the nodata cell is not, nor one outside the
+    # hull of cell centres
+    from fallway.refine.problem import on_data
+
+    z = np.zeros((5, 5))
+    z[2, 3] = np.nan
+    t = Terrain.from_array(z, Affine(1.0, 0.0, 0.0, 0.0, -1.0, 5.0))
+    x = np.array([2.5, 2.9, 3.0, 3.5, 2.0, 0.2])  # centre (2,2), inside (2,2), edge, centre (2,3), corner, outside
+    y = np.array([2.5, 2.5, 2.5, 2.5, 2.0, 2.5])
+    assert on_data(t, x, y).tolist() == [True, True, False, False, True, False]
+    assert on_data(t, [3.0], [2.0]).tolist() == [False]  # the nodata cell's corner
+
+
 def test_objective_gradient_with_active_limits_matches_differences():
     # keep-out, grade window, bend radius and speed penalties all active at once
     t = plane_terrain()

@@ -247,7 +247,7 @@ def full_segment_step(v2_in, drop_m, plan_m, length_m, kappa_a, kdg_a, kappa_b, 
     return u, t1 + t2, -1.0, um
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
     """One segment of the full model from its window of four vertices.
 
@@ -273,18 +273,29 @@ def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
     kdg_a = 0.0
     kb = 0.0
     kdg_b = 0.0
-    if has_a:
-        ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
+    for side in range(2):
+        if (side == 0 and not has_a) or (side == 1 and not has_b):
+            continue
+        if side == 0:
+            ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
+        else:
+            ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
         so = math.sqrt(ex * ex + ey * ey + ez * ez)
-        if so > 1e-12:
-            ka, nx, ny, nz = vertex_turn(ex / so, ey / so, ez / so, tx, ty, tz, 0.5 * (so + s))
-            kdg_a = bend_kdg(ka, nx, ny, nz, tx, ty, tz, g)
-    if has_b:
-        ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
-        so = math.sqrt(ex * ex + ey * ey + ez * ez)
-        if so > 1e-12:
-            kb, nx, ny, nz = vertex_turn(tx, ty, tz, ex / so, ey / so, ez / so, 0.5 * (so + s))
-            kdg_b = bend_kdg(kb, nx, ny, nz, tx, ty, tz, g)
+        if so <= 1e-12:
+            continue
+        ox, oy, oz = ex / so, ey / so, ez / so
+        # a: turn from the previous direction o to t; b: from t to the next direction o
+        if side == 0:
+            kap, nx, ny, nz = vertex_turn(ox, oy, oz, tx, ty, tz, 0.5 * (so + s))
+        else:
+            kap, nx, ny, nz = vertex_turn(tx, ty, tz, ox, oy, oz, 0.5 * (so + s))
+        if kap <= 0.0:
+            continue
+        kdg = bend_kdg(kap, nx, ny, nz, tx, ty, tz, g)
+        if side == 0:
+            ka, kdg_a = kap, kdg
+        else:
+            kb, kdg_b = kap, kdg
     un, t, at, _ = full_segment_step(v2_in, drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k, v2_stall)
     return un, t, at
 

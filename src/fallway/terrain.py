@@ -171,7 +171,16 @@ class Terrain:
         """The smooth surface of this grid (:class:`fallway._surface.SmoothSurface`).
 
         Built on first use and kept with the terrain; its tiles are built as points need
-        them.  The compiled refinement evaluates it through its ``tables``.
+        them.  :meth:`sample`, :meth:`gradient`, :meth:`normal` and :meth:`valid` evaluate
+        it; the compiled refinement passes its ``tables`` to its own kernels.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from affine import Affine
+        >>> t = Terrain.from_array(np.zeros((4, 300)), Affine(1.0, 0, 0.0, 0, -1.0, 4.0))
+        >>> t.sample(10.5, 2.0), int((t.surface().tables.slot >= 0).sum())   # one of three tiles built
+        (0.0, 1)
         """
         surf = self._cache.get("surface")
         if surf is None:
