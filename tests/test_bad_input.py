@@ -502,3 +502,53 @@ def test_reach_writer_failing_leaves_nothing(tmp_path, monkeypatch):
     res = _invoke(["reach", dem, "--start", *START, "--out", out_dir / "reach.tif"])
     assert res.exit_code == 1, res.output
     assert list(out_dir.iterdir()) == []
+
+
+
+# --------------------------------------------------------------------------- candidate names and CSV cells (issue 19)
+
+def test_duplicate_candidate_names_never_take_another_lines_name(tmp_path):
+    # issue 19.12: A, A, A-2 became A, A-2, A-2-2: the second A took the third line's name
+    import csv as _csv
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    mid = (X0 + 30.0, Y0 - 30.0)
+    feats = [("A", [START, END]), ("A", [START, (mid[0], mid[1] - 10.0), END]),
+             ("A-2", [START, (mid[0], mid[1] + 10.0), END])]
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": n},
+                                               "geometry": {"type": "LineString", "coordinates": [list(q) for q in c]}}
+                                              for n, c in feats]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "out")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "out" / "comparison.csv", newline="") as fh:
+        rows = {r["name"]: r for r in _csv.DictReader(fh)}
+    assert sorted(rows) == ["A", "A-2", "A-3"]
+    # the line drawn as "A-2" (north of the straight line, bulging +10 m) keeps its name;
+    # both detours have the same length, the straight "A" is shorter
+    assert float(rows["A"]["length_m"]) < float(rows["A-2"]["length_m"])
+    assert rows["A-2"]["length_m"] == rows["A-3"]["length_m"]
+
+
+def test_csv_cells_that_a_spreadsheet_would_run_are_neutralised(tmp_path):
+    # OWASP "CSV Injection": cells starting with = + - @ get a leading single quote
+    import csv as _csv
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    names = ["=HYPERLINK(\"http://example.invalid\")", "+1+cmd|' /C calc'!A0", "-2+3", "@SUM(A1:A2)", "plain"]
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": n},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [list(START), [X0 + 30.0, Y0 - 30 - k],
+                                                                            list(END)]}}
+                                              for k, n in enumerate(names)]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "out")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "out" / "comparison.csv", newline="") as fh:
+        got = sorted(r["name"] for r in _csv.DictReader(fh))
+    assert got == sorted(["'" + n for n in names[:4]] + ["plain"])
+

@@ -34,18 +34,29 @@ def _crs_object(crs):
 
 
 def _unique_names(names: Sequence[str | None]) -> list[str]:
-    """Fill missing names with ``line-<k>`` (k = 1-based file order); suffix duplicates."""
+    """Fill missing names with ``line-<k>`` (k = 1-based file order); suffix duplicates.
+
+    Every name given in the file keeps its name where it first appears; a later
+    duplicate gets the first suffix ``-2``, ``-3``... that no line in the file is called,
+    so no row ever takes another line's name.
+
+    Examples
+    --------
+    >>> _unique_names(["A", "A", "A-2", None, "line-4"])
+    ['A', 'A-3', 'A-2', 'line-4-2', 'line-4']
+    """
+    given = [str(n).strip() if n is not None else "" for n in names]
+    given = ["" if g.lower() == "nan" else g for g in given]
+    taken = {g for g in given if g}  # reserved: nobody else may become one of these
     out: list[str] = []
-    seen: set[str] = set()
-    for k, n in enumerate(names, start=1):
-        base = str(n).strip() if n is not None else ""
-        if not base or base.lower() == "nan":
-            base = f"line-{k}"
+    used: set[str] = set()
+    for k, g in enumerate(given, start=1):
+        base = g or f"line-{k}"
         name, j = base, 2
-        while name in seen:
+        while name in used or (name != g and name in taken):
             name = f"{base}-{j}"
             j += 1
-        seen.add(name)
+        used.add(name)
         out.append(name)
     return out
 
