@@ -504,6 +504,101 @@ def test_reach_writer_failing_leaves_nothing(tmp_path, monkeypatch):
     assert list(out_dir.iterdir()) == []
 
 
+# --------------------------------------------------------------------------- result sets (issue 19)
+# A result set changes all at once or not at all; --overwrite replaces only the command's
+# own files.  These drive the command line as a user would and look at the folder.
+
+def _snapshot(folder: Path) -> dict:
+    """Every entry below ``folder``: file bytes, or None for a folder."""
+    return {str(p.relative_to(folder)): (None if p.is_dir() else p.read_bytes())
+            for p in sorted(folder.rglob("*"))}
+
+
+def test_overwrite_onto_a_folder_named_like_a_result_changes_nothing(tmp_path):
+    # issue 19.1: report.html exists as a folder; the old run replaced four files before failing
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert run_cli("route", dem, *_pts(), "--no-refine", "--out", out).returncode == 0
+    (out / "report.html").unlink()
+    (out / "report.html").mkdir()
+    before = _snapshot(out)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--mu", "0.05", "--out", out, "--overwrite")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "report.html" in p.stderr and "folder" in p.stderr, p.stderr
+    assert _snapshot(out) == before
+
+
+@pytest.mark.parametrize("fail_at", [1, 5, 10], ids=["first", "fifth", "last"])
+def test_overwrite_failing_at_any_move_restores_the_old_set(tmp_path, monkeypatch, fail_at):
+    # issue 19.1: a move into place fails part way (here the fail_at-th new file of ten);
+    # every old file must be back, byte for byte, and no working folder left
+    import fallway.export
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert _invoke(["route", dem, *_pts(), "--no-refine", "--out", out]).exit_code == 0
+    (out / "notes.txt").write_bytes(b"mine\n")
+    before = _snapshot(out)
+    real = os.replace
+    placed = []
+
+    def flaky(src, dst):
+        # a finished result moving from the working folder into place (not a writer's own
+        # rename of its temporary file, which starts with a dot)
+        src = Path(src)
+        if (src.parent.name.startswith(".fallway-") and not src.parent.name.startswith(".fallway-old")
+                and not src.name.startswith(".")):
+            placed.append(Path(dst).name)
+            if len(placed) == fail_at:
+                raise OSError(28, "No space left on device")
+        return real(src, dst)
+
+    monkeypatch.setattr(fallway.export.os, "replace", flaky)
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--mu", "0.05", "--out", out, "--overwrite"])
+    assert res.exit_code == 1, res.output
+    assert "No space left on device" in res.output and placed[-1] in res.output, res.output
+    assert _snapshot(out) == before
+
+
+def test_compare_overwrite_keeps_the_route_files(tmp_path):
+    # issue 19.3: compare --overwrite in a route folder removed nine route files it never writes
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert run_cli("route", dem, *_pts(), "--no-refine", "--out", out).returncode == 0
+    route_files = {n: (out / n).read_bytes() for n in os.listdir(out) if n != "report.html"}
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": "straight"},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [list(START), list(END)]}}]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", out)
+    assert p.returncode == 1 and "report.html" in p.stderr and "--overwrite" in p.stderr, p.stderr
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", out, "--overwrite")
+    assert p.returncode == 0, p.stderr
+    for n, b in route_files.items():
+        assert (out / n).read_bytes() == b, n
+    assert {"comparison.csv", "comparison.png", "comparison.svg", "report.html"} <= set(os.listdir(out))
+    assert not [n for n in os.listdir(out) if n.startswith(".")]
+
+
+def test_failed_run_into_a_new_nested_folder_removes_every_folder_it_made(tmp_path):
+    # issue 19.12: a failed run into a new a/b/c removed c but left a/b
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("route", dem, *_pts(end=(X0 + 57.5, Y0 + 9000.0)), "--no-refine", "--out", tmp_path / "a" / "b" / "c")
+    assert p.returncode == 1, p.stderr
+    assert not (tmp_path / "a").exists()
+
+
+def test_reach_out_must_be_a_tif_name(tmp_path):
+    # issue 19.12: reach --out x.txt wrote a GeoTIFF under a text name
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("reach", dem, "--start", *START, "--out", tmp_path / "x.txt")
+    assert p.returncode == 2 and "--out" in p.stderr and ".tif" in p.stderr and "Traceback" not in p.stderr, p.stderr
+    assert not (tmp_path / "x.txt").exists()
+
+
 
 # --------------------------------------------------------------------------- candidate names and CSV cells (issue 19)
 

@@ -20,14 +20,21 @@ from pathlib import Path
 from .errors import ParameterError, TerrainError
 from .params import checked_options
 
-__all__ = ["Site", "resolve_site", "run_scenario", "run_compare", "run_reach", "run_demo", "ROUTE_FILES",
-           "CORE_FILES"]
+__all__ = ["Site", "resolve_site", "run_scenario", "write_scenario", "run_compare", "run_reach", "run_demo",
+           "ROUTE_FILES", "CORE_FILES", "COMPARE_FILES", "DEMO_FILES"]
 
 #: The files a route run writes (``outputs="full"``).
 ROUTE_FILES = ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "map.png", "map.svg",
                "profile.png", "profile.svg", "report.html")
 #: The files of a batch run (``outputs="core"``).
 CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
+#: The files ``compare`` writes.
+COMPARE_FILES = ("comparison.csv", "comparison.png", "comparison.svg", "report.html")
+#: The files the demo writes.
+DEMO_FILES = ROUTE_FILES + ("reach.tif", "comparison.csv", "comparison.png", "comparison.svg")
+# the result names of a route run: every file it can write (run.json only with timings),
+# so an overwrite also removes a stale run.json of an earlier run
+_ROUTE_RESULTS = ROUTE_FILES + ("run.json",)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -163,10 +170,15 @@ def run_scenario(sc, out_dir, *, overwrite: bool = False, robust: bool = False, 
 
     if outputs not in ("full", "core"):
         raise ParameterError(f"outputs must be 'full' or 'core', got {outputs!r}")
-    with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
-        route = _route_of(sc, resolve_site(sc), robust=robust)
-        written = write_route(outs, sc, route, timings=timings, core_only=outputs == "core")
-    return route, written
+    names = _ROUTE_RESULTS if outputs == "full" else CORE_FILES
+    with OutputSet(out_dir, overwrite=overwrite, result_names=names) as outs:  # refuses early, before the work
+        return write_scenario(outs, sc, robust=robust, timings=timings, outputs=outputs)
+
+
+def write_scenario(outs, sc, *, robust: bool = False, timings: bool = False, outputs: str = "full"):
+    """Find the scenario's route and write it into an open output set; returns ``(route, names)``."""
+    route = _route_of(sc, resolve_site(sc), robust=robust)
+    return route, write_route(outs, sc, route, timings=timings, core_only=outputs == "core")
 
 
 def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool = False, core_only: bool = False):
@@ -222,7 +234,7 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
     src = dem_crs(sc.dem)
-    with OutputSet(out_dir, overwrite=overwrite) as outs:
+    with OutputSet(out_dir, overwrite=overwrite, result_names=COMPARE_FILES) as outs:
         lines = read_lines(lines_path, crs=src)
         site = resolve_site(sc, need_start=False, cover=[tuple(p[:2]) for _, line in lines for p in line])
         terrain = site.terrain
@@ -242,16 +254,15 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
 def run_reach(sc, out_path, *, overwrite: bool = False, max_time_s: float | None = None,
               max_distance_m: float | None = None):
     """Map arrival time and speed from the scenario's start; writes one GeoTIFF and returns the ReachMap."""
-    from .errors import OutputExistsError
     from .export import OutputSet, write_reach_geotiff
     from .routing import reach
 
     out = Path(out_path)
-    if out.exists() and not overwrite:
-        raise OutputExistsError(f"{out} exists; pass --overwrite to replace it")
-    site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
+    if out.suffix.lower() not in (".tif", ".tiff"):
+        raise ParameterError(f"the reach map is a GeoTIFF: give --out a .tif name, not {out.name!r}")
     # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
-    with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
+    with OutputSet(out.parent, overwrite=overwrite, result_names=(out.name,)) as outs:
+        site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
         rm = reach(site.terrain, site.start, sc.mover, limits=sc.limits, keepout=site.keepout, search=sc.search,
                    max_time_s=max_time_s, max_distance_m=max_distance_m)
         write_reach_geotiff(rm, outs.path(out.name))
@@ -273,7 +284,7 @@ def run_demo(out_dir, *, overwrite: bool = False):
         sc = load_scenario(Path(site_dir) / "scenario.toml")
         lines_path = Path(site_dir) / "lines.geojson"
         cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
-        with OutputSet(out_dir, overwrite=overwrite) as outs:
+        with OutputSet(out_dir, overwrite=overwrite, result_names=DEMO_FILES) as outs:
             site = resolve_site(sc, cover=cover)
             route = _route_of(sc, site, robust=False)
             terrain = route.terrain

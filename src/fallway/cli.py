@@ -144,8 +144,10 @@ def _setup_logging(quiet: bool, verbose: int) -> None:
     logging.getLogger("rasterio").setLevel(logging.NOTSET if verbose else logging.ERROR)
 
 
-class _FloatPair(click.ParamType):
-    name = "X Y"
+def _tif_name(ctx, param, value):
+    if value is not None and Path(value).suffix.lower() not in (".tif", ".tiff"):
+        raise click.BadParameter(f"the reach map is a GeoTIFF: give a .tif name, not {Path(value).name!r}")
+    return value
 
 
 def _common_options(fn):
@@ -322,7 +324,8 @@ def _print_route(r, out_dir, written) -> None:
                    "only the area it can reach).")
 @click.option("--max-distance", "max_distance_m", type=click.FloatRange(min=0.0, min_open=True),
               help="Map only within this plan distance of the start, m (lines confined to that disc).")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Output GeoTIFF (2 bands: time s, speed m/s).")
+@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), callback=_tif_name,
+              help="Output GeoTIFF, a .tif name (2 bands: time s, speed m/s).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
 @_guard
 def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, **opts):
