@@ -36,20 +36,63 @@ def _fail(message: str, code: int) -> None:
 
 _INTERRUPTED = "interrupted; no partial outputs were left"
 
+#: Signals that end a run cleanly, with their exit codes: 128 + the signal number, as
+#: shells report a process ended by a signal (POSIX `wait` status; common practice for
+#: programs that catch the signal and exit themselves).
+_EXIT_SIGNALS = {"SIGINT": 130, "SIGTERM": 143, "SIGHUP": 129}
+# set once a signal handler has begun to end the process: the main thread then waits
+# for it instead of reporting the failures the clean-up causes (e.g. killed workers)
+_ENDING = threading.Event()
+
+
+def _end_on_signal(signum: int) -> None:
+    """Stop worker processes, remove the working folders of the open output sets, exit 128 + N."""
+    from .export import _ACTIVE_LOCK, abort_active_outputs
+
+    _ENDING.set()
+    with _ACTIVE_LOCK:  # also keeps the main thread out of its own clean-up meanwhile
+        mp = sys.modules.get("multiprocessing")
+        if mp is not None:  # batch workers: stopped before their folders are removed
+            children = mp.active_children()
+            for child in children:
+                with contextlib.suppress(Exception):
+                    child.kill()
+            for child in children:
+                with contextlib.suppress(Exception):
+                    child.join(timeout=5.0)
+        abort_active_outputs()
+        name = signal.Signals(signum).name
+        what = _INTERRUPTED if signum == signal.SIGINT else f"stopped by {name}; no partial outputs were left"
+        with contextlib.suppress(Exception):
+            sys.stderr.write(f"fallway: error: {what}\n")
+            sys.stderr.flush()
+        os._exit(_EXIT_SIGNALS[name])
+
 
 @contextlib.contextmanager
-def _sigint_exits():
-    """Ctrl-C (SIGINT) removes the temporary outputs and exits 130 at once.
+def _signals_exit():
+    """Ctrl-C (SIGINT), SIGTERM and SIGHUP remove the temporary outputs and exit 130, 143, 129.
 
     The search runs in compiled code that a KeyboardInterrupt must not unwind (numba
-    turns it into a crash), so SIGINT is not raised in the main thread: Python's C
-    handler wakes a watcher thread through :func:`signal.set_wakeup_fd`, which removes
-    the temporary folders of the output sets being written (waiting for a commit in
-    progress) and ends the process.  Only in the main thread, and only while SIGINT has
-    Python's default handler.
+    turns it into a crash), so no exception is raised in the main thread: a no-op Python
+    handler lets the C handler wake a watcher thread through :func:`signal.set_wakeup_fd`,
+    which stops worker processes, removes the working folders of the output sets being
+    written (waiting for a commit in progress) and folders they created, and ends the
+    process.  Only in the main thread, and only for signals still at their default
+    disposition (SIGINT: Python's KeyboardInterrupt handler).
     """
-    if (threading.current_thread() is not threading.main_thread()
-            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    ours = []
+    for name in _EXIT_SIGNALS:
+        sig = getattr(signal, name, None)
+        if sig is None:
+            continue
+        default = signal.default_int_handler if sig == signal.SIGINT else signal.SIG_DFL
+        if signal.getsignal(sig) is default:
+            ours.append(sig)
+    if not ours:
         yield
         return
     rsock, wsock = socket.socketpair()
@@ -70,22 +113,18 @@ def _sigint_exits():
                 return
             if not data or 0 in data:  # closed, or the stop byte
                 return
-            if signal.SIGINT in data:
-                from .export import abort_active_outputs
+            for b in data:
+                if b in ours:
+                    _end_on_signal(b)
 
-                abort_active_outputs()
-                with contextlib.suppress(Exception):
-                    sys.stderr.write(f"fallway: error: {_INTERRUPTED}\n")
-                    sys.stderr.flush()
-                os._exit(130)
-
-    old_handler = signal.signal(signal.SIGINT, lambda signum, frame: None)
-    watcher = threading.Thread(target=watch, name="fallway-sigint", daemon=True)
+    old = {sig: signal.signal(sig, lambda signum, frame: None) for sig in ours}
+    watcher = threading.Thread(target=watch, name="fallway-signals", daemon=True)
     watcher.start()
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, old_handler)
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
         signal.set_wakeup_fd(old_fd)
         with contextlib.suppress(OSError):
             wsock.send(b"\0")
@@ -100,10 +139,14 @@ def _guard(fn):
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         try:
-            with _sigint_exits(), warnings.catch_warnings(record=True) as caught:
+            with _signals_exit(), warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", RefinementWarning)
                 try:
                     return fn(*args, **kwargs)
+                except BaseException:
+                    if _ENDING.is_set():  # a signal handler is ending the process: leave it the last word
+                        threading.Event().wait()
+                    raise
                 finally:
                     for w in caught:  # library warnings become one log line each
                         log.warning("%s", str(w.message).splitlines()[0])
@@ -241,7 +284,15 @@ def _resolve(scenario_path, overrides: dict):
 
 
 # --------------------------------------------------------------------------- commands
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class _Main(click.Group):
+    """The command group; signals end a run cleanly from the moment the command line parses."""
+
+    def main(self, *args, **kwargs):
+        with _signals_exit():
+            return super().main(*args, **kwargs)
+
+
+@click.group(cls=_Main, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="fallway", prog_name="fallway")
 def main() -> None:
     """Minimum-time gravity descent lines across terrain (GeoTIFF DEMs).

@@ -382,7 +382,14 @@ class OutputSet:
     def _abort(self) -> None:
         _ACTIVE.pop(id(self), None)
         if self.tmp_dir is not None:
-            _remove_quietly(self.tmp_dir)
+            # renamed first: a writer still running in another thread (the abort may come
+            # from a signal handler) can then add nothing more to it, so it goes completely
+            doomed = self.tmp_dir.with_name(self.tmp_dir.name + "-aborted")
+            try:
+                os.rename(self.tmp_dir, doomed)
+            except OSError:
+                doomed = self.tmp_dir
+            _remove_quietly(doomed)
             self.tmp_dir = None
         for d in self._created:  # deepest first; a folder someone else filled meanwhile stays
             with contextlib.suppress(OSError):
