@@ -225,6 +225,55 @@ def c_no_start(tmp):
     return ["route", _plane_tif(tmp / "dem.tif"), "--end", *END, "--no-refine"]
 
 
+# -- issue 19: no-go areas that must not be ignored, messages that name the right cause
+
+def _gpkg_layers(path, layers):
+    """A GeoPackage in the DEM's CRS with one feature per layer: [(name, shapely geometry, type)]."""
+    import pyogrio.raw
+    import shapely
+
+    for i, (name, geom, kind) in enumerate(layers):
+        pyogrio.raw.write(path, np.array([shapely.to_wkb(geom)], dtype=object), [np.array([name], dtype=object)],
+                          ["name"], layer=name, driver="GPKG", geometry_type=kind, crs=CRS, append=i > 0)
+    return path
+
+
+def c_keepout_second_layer_covers_start(tmp):
+    # issue 19.4: the polygon in layer 2 covers the start; the first layer alone was read
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon"),
+                                        ("quarry", shapely.box(X0, Y0 - 40, X0 + 15, Y0 - 20), "Polygon")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_keepout_with_a_line_layer(tmp):
+    # a layer of lines beside the polygons: not silently skipped, the user names the layers
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon"),
+                                        ("fence", shapely.LineString([(X0, Y0 - 50), (X0 + 50, Y0 - 50)]),
+                                         "LineString")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_keepout_layer_missing(tmp):
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k,
+            "--keepout-layer", "quarry"]
+
+
+def c_keepout_geojson_in_utm(tmp):
+    # issue 19.11: reported as "must be polygons, got GeometryCollection"
+    ring = [[X0, Y0 - 20], [X0 + 15, Y0 - 20], [X0 + 15, Y0 - 40], [X0, Y0 - 40], [X0, Y0 - 20]]
+    k = tmp / "keepout.geojson"
+    k.write_text(json.dumps({"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {}, "geometry": {"type": "Polygon", "coordinates": [ring]}}]}))
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
 # case id -> (builder, exit code, key words in stderr (lower case, all must appear))
 CASES = {
     "missing file": (c_missing_file, 1, ["not found", "nothing_here.tif"]),
@@ -256,6 +305,11 @@ CASES = {
     "unknown scenario key": (c_scenario_unknown_key, 1, ["friction"]),
     "no start point": (c_no_start, 1, ["start"]),
     "reach start outside": (c_reach_start_outside, 1, ["start", "outside"]),
+    "keep-out in a second layer covers start": (c_keepout_second_layer_covers_start, 3, ["start", "keep-out"]),
+    "keep-out file with a line layer": (c_keepout_with_a_line_layer, 1, ["fence (linestring)", "--keepout-layer",
+                                                                         "polygon layers: sheds"]),
+    "keep-out layer missing": (c_keepout_layer_missing, 1, ["no layer 'quarry'", "sheds"]),
+    "keep-out geojson in utm": (c_keepout_geojson_in_utm, 1, ["longitude/latitude", "500000.000", "rfc 7946"]),
 }
 
 
@@ -647,3 +701,33 @@ def test_csv_cells_that_a_spreadsheet_would_run_are_neutralised(tmp_path):
         got = sorted(r["name"] for r in _csv.DictReader(fh))
     assert got == sorted(["'" + n for n in names[:4]] + ["plain"])
 
+
+
+def test_named_keepout_and_line_layers_are_read(tmp_path):
+    # issue 19.4: with --keepout-layer only the named layers count; compare reads every
+    # line layer of a GeoPackage (here two), or the one --lines-layer names
+    import shapely
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    k = _gpkg_layers(tmp_path / "nogo.gpkg", [
+        ("quarry", shapely.box(X0, Y0 - 40, X0 + 15, Y0 - 20), "Polygon"),
+        ("fence", shapely.LineString([(X0, Y0 - 50), (X0 + 50, Y0 - 50)]), "LineString")])
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--keepout", k, "--keepout-layer", "fence", "--out",
+                tmp_path / "a")
+    assert p.returncode == 1 and "only polygons" in p.stderr, p.stderr
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--keepout", k, "--keepout-layer", "quarry", "--out",
+                tmp_path / "b")
+    assert p.returncode == 3 and "keep-out" in p.stderr, p.stderr  # the quarry covers the start
+    lines = _gpkg_layers(tmp_path / "lines.gpkg", [
+        ("east", shapely.LineString([START, END]), "LineString"),
+        ("bend", shapely.LineString([START, (X0 + 30.0, Y0 - 40.0), END]), "LineString")])
+    import csv as _csv
+
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "c")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "c" / "comparison.csv", newline="") as fh:
+        assert sorted(r["name"] for r in _csv.DictReader(fh)) == ["bend", "east"]
+    p = run_cli("compare", dem, lines, "--no-optimum", "--lines-layer", "bend", "--out", tmp_path / "d")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "d" / "comparison.csv", newline="") as fh:
+        assert [r["name"] for r in _csv.DictReader(fh)] == ["bend"]

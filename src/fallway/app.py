@@ -109,14 +109,13 @@ def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=No
         its path, and the search plan reads the windows it needs).  A geographic DEM is
         always loaded (reprojected to its UTM zone).
     """
-    from .keepout import Keepout
     from .points import WGS84, dem_crs, to_terrain_crs
 
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
     if not need_start:
         terrain = _load_covering(sc.dem, cover or ())
-        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs) if sc.keepout is not None else None
+        keepout = _keepout(sc, terrain.crs)
         return Site(terrain=terrain, start=None, end=None, via=(), keepout=keepout, crs=terrain.crs)
     if sc.start is None:
         raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
@@ -133,9 +132,18 @@ def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=No
         terrain = Path(sc.dem)
         crs = src_crs
     pts = to_terrain_crs(pts, given, crs)
-    keepout = Keepout.from_file(sc.keepout).in_crs(crs) if sc.keepout is not None else None
+    keepout = _keepout(sc, crs)
     end = pts[-1] if sc.end is not None else None
     return Site(terrain=terrain, start=pts[0], end=end, via=tuple(pts[1:1 + len(sc.via)]), keepout=keepout, crs=crs)
+
+
+def _keepout(sc, crs):
+    """The scenario's keep-out areas in ``crs`` (None without a keep-out file)."""
+    from .keepout import Keepout
+
+    if sc.keepout is None:
+        return None
+    return Keepout.from_file(sc.keepout, layer=sc.keepout_layers or None).in_crs(crs)
 
 
 def _route_of(sc, site: Site, *, robust: bool):
@@ -223,8 +231,12 @@ def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool =
 
 
 @checked_options
-def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: bool = True, optimum: bool = True):
-    """Time and rank the candidate lines of a file on the scenario's DEM; returns the Comparison."""
+def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: bool = True, optimum: bool = True,
+                lines_layers=()):
+    """Time and rank the candidate lines of a file on the scenario's DEM; returns the Comparison.
+
+    ``lines_layers``: the layers of the lines file to read (default every line layer).
+    """
     from . import plot, report
     from .export import OutputSet
     from .points import dem_crs
@@ -235,11 +247,12 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
     src = dem_crs(sc.dem)
     with OutputSet(out_dir, overwrite=overwrite, result_names=COMPARE_FILES) as outs:
-        lines = read_lines(lines_path, crs=src)
+        layer = tuple(lines_layers) or None
+        lines = read_lines(lines_path, crs=src, layer=layer)
         site = resolve_site(sc, need_start=False, cover=[tuple(p[:2]) for _, line in lines for p in line])
         terrain = site.terrain
         if terrain.crs != src:
-            lines = read_lines(lines_path, crs=terrain.crs)
+            lines = read_lines(lines_path, crs=terrain.crs, layer=layer)
         cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, optimum=optimum,
                       search=sc.search, refine=refine, mu_range=sc.mu_range)
         cmp.to_csv(outs.path("comparison.csv"))

@@ -211,7 +211,10 @@ def _common_options(fn):
         click.option("--max-speed", type=float, help="Speed limit, m/s."),
         click.option("--stall-speed", type=float, help="The mover stops below this speed, m/s."),
         click.option("--max-step-turn", "max_turn", type=float, help="Largest change of heading from one lattice step to the next, degrees (a search limit; the refined line is held by --min-radius)."),
-        click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons."),
+        click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons (every polygon layer is read)."),
+        click.option("--keepout-layer", "keepout_layers", multiple=True, metavar="NAME",
+                     help="Read only this layer of the keep-out file (repeatable; needed when it also holds "
+                          "layers of other geometry)."),
         click.option("-q", "--quiet", is_flag=True, help="Print errors only."),
         click.option("-v", "--verbose", count=True, help="More log output (-vv for debug)."),
     ]
@@ -221,13 +224,16 @@ def _common_options(fn):
 
 
 def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours,
-               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, label_cap=None, **extra) -> dict:
+               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, keepout_layers=(), label_cap=None,
+               **extra) -> dict:
     """The flags given on the command line, in the scenario's nested layout."""
     d: dict = {"points": {}, "mover": {}, "limits": {}, "search": {}, "line": {}, "envelope": {}}
     if dem is not None:
         d["dem"] = str(dem)
     if keepout_path is not None:
         d["keepout"] = str(keepout_path)
+    if keepout_layers:
+        d["keepout_layers"] = list(keepout_layers)
     if start:
         d["points"]["start"] = list(start)
     if end:
@@ -280,6 +286,8 @@ def _resolve(scenario_path, overrides: dict):
     base_dir = None
     if scenario_path is not None:
         base = load_scenario(scenario_path).to_dict()
+        if "keepout" in overrides and "keepout_layers" not in overrides:
+            base.pop("keepout_layers", None)  # the scenario's layers belong to its own keep-out file
     return Scenario.from_dict(_merge(base, overrides), base_dir=base_dir)
 
 
@@ -401,16 +409,20 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
 @click.option("--mu-range", type=(float, float), metavar="LO HI", help="Evaluate every line at LO, nominal and HI friction.")
 @click.option("--refine/--no-refine", default=False, show_default=True, help="Refine the computed optimum.")
 @click.option("--optimum/--no-optimum", default=True, show_default=True, help="Add the tool's own optimum as a row.")
+@click.option("--lines-layer", "lines_layers", multiple=True, metavar="NAME",
+              help="Read only this layer of LINES (repeatable; default every line layer, needed when the file "
+                   "also holds layers of other geometry).")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @_guard
-def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refine, optimum, **opts):
+def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refine, optimum, lines_layers, **opts):
     """Time and rank candidate lines (GeoJSON/GeoPackage LineStrings) on DEM with the same physics."""
     _setup_logging(quiet, verbose)
     from .app import run_compare
 
     sc = _resolve(scenario_path, _overrides(dem=dem, start=None, end=None, via=(), **opts))
-    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=refine, optimum=optimum)
+    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=refine, optimum=optimum,
+                      lines_layers=lines_layers)
     if not quiet:
         _print_rows(cmp)
         click.echo(f"wrote comparison.csv, comparison.png, comparison.svg, report.html in {out_dir}")

@@ -7,6 +7,7 @@ Layout (every section and key optional; unknown keys are rejected)::
 
     dem = "site.tif"                 # relative paths are relative to the scenario file
     keepout = "keepout.geojson"
+    keepout_layers = ["no-go"]       # optional: the layers to read (default: every polygon layer)
 
     [points]
     start = [512300.0, 5401200.0]    # map coordinates of the DEM (or lon/lat, see lonlat)
@@ -63,6 +64,7 @@ __all__ = ["Scenario", "load_scenario"]
 _SCHEMA: dict[str, Any] = {
     "dem": str,
     "keepout": str,
+    "keepout_layers": "strings",
     "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
     "mover": {f.name: f.name for f in fields(Mover)},
     "limits": {f.name: f.name for f in fields(Limits)},
@@ -115,6 +117,7 @@ class Scenario:
 
     dem: str | None = None
     keepout: str | None = None
+    keepout_layers: tuple[str, ...] = ()
     start: tuple[float, float] | None = None
     end: tuple[float, float] | None = None
     via: tuple[tuple[float, float], ...] = ()
@@ -146,6 +149,11 @@ class Scenario:
                 if base_dir is not None and not p.is_absolute():
                     p = Path(base_dir) / p
                 kw[key] = str(p)
+        if "keepout_layers" in data:
+            kl = data["keepout_layers"]
+            if not (isinstance(kl, (list, tuple)) and kl and all(isinstance(v, str) and v for v in kl)):
+                raise ScenarioError(f"keepout_layers must be a list of layer names, got {kl!r}")
+            kw["keepout_layers"] = tuple(kl)
         pts = data.get("points", {})
         if "start" in pts:
             kw["start"] = _point("points.start", pts["start"])
@@ -204,6 +212,8 @@ class Scenario:
             d["dem"] = self.dem
         if self.keepout is not None:
             d["keepout"] = self.keepout
+        if self.keepout_layers:
+            d["keepout_layers"] = list(self.keepout_layers)
         pts: dict[str, Any] = {"lonlat": self.lonlat}
         if self.start is not None:
             pts["start"] = list(self.start)
