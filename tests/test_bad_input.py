@@ -274,6 +274,56 @@ def c_keepout_geojson_in_utm(tmp):
     return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
 
 
+
+# -- issue 19: heights that cannot be misread
+
+def _tagged_tif(path, z, **tags):
+    """The plane's heights with band tags set afterwards (scales, offsets, units), as gdal_edit.py does."""
+    import rasterio
+
+    _, t = plane(N, N, CELL, -0.3, 0.0)
+    write_geotiff(path, z, t, CRS)
+    with rasterio.open(path, "r+") as ds:
+        for k, v in tags.items():
+            setattr(ds, k, v)
+    return path
+
+
+def c_unknown_height_unit(tmp):
+    z, _ = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", _tagged_tif(tmp / "fur.tif", z, units=("furlong",)), *_pts(), "--no-refine"]
+
+
+def c_one_row_dem(tmp):
+    # issue 19.11: a 1 x N DEM was reported as "bounds do not overlap" (no bounds were given)
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", write_geotiff(tmp / "row.tif", z[:1], t, CRS), *_pts(start=(X0 + 2.5, Y0 - 2.5),
+                                                                         end=(X0 + 57.5, Y0 - 2.5)), "--no-refine"]
+
+
+def c_band_missing(tmp):
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", write_geotiff(tmp / "bands.tif", z, t, CRS, count=3), *_pts(), "--no-refine", "--band", "4"]
+
+
+def c_zero_z_scale(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--z-scale", "0"]
+
+
+def c_nan_z_scale(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--z-scale", "nan"]
+
+
+def c_lines_miss_the_dem(tmp):
+    lines = tmp / "far.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": "far"},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [[X0 + 9000, Y0], [X0 + 9100, Y0]]}}]}))
+    return ["compare", _plane_tif(tmp / "dem.tif"), lines]
+
+
 # case id -> (builder, exit code, key words in stderr (lower case, all must appear))
 CASES = {
     "missing file": (c_missing_file, 1, ["not found", "nothing_here.tif"]),
@@ -310,6 +360,12 @@ CASES = {
                                                                          "polygon layers: sheds"]),
     "keep-out layer missing": (c_keepout_layer_missing, 1, ["no layer 'quarry'", "sheds"]),
     "keep-out geojson in utm": (c_keepout_geojson_in_utm, 1, ["longitude/latitude", "500000.000", "rfc 7946"]),
+    "unknown height unit": (c_unknown_height_unit, 1, ["furlong", "--z-scale"]),
+    "one-row dem": (c_one_row_dem, 1, ["row.tif is 1 x 12 cells", "at least 2 x 2"]),
+    "band that does not exist": (c_band_missing, 1, ["3 bands", "no band 4"]),
+    "zero --z-scale": (c_zero_z_scale, 2, ["--z-scale"]),
+    "nan --z-scale": (c_nan_z_scale, 1, ["z_scale", "finite"]),
+    "candidate lines miss the dem": (c_lines_miss_the_dem, 1, ["candidate lines lie outside", "dem.tif"]),
 }
 
 

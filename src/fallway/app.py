@@ -62,12 +62,12 @@ class Site:
     crs: object
 
 
-def load_area(dem, bounds):
+def load_area(dem, bounds, *, band: int | None = None, z_scale: float | None = None):
     """:func:`fallway.terrain.load_terrain` with a too-large area refused in plain terms."""
     from .terrain import load_terrain
 
     try:
-        return load_terrain(dem, bounds=bounds)
+        return load_terrain(dem, bounds=bounds, band=band or 1, z_scale=z_scale)
     except TerrainError as err:
         head, sep, tail = str(err).partition("; pass bounds=")
         if not sep:
@@ -79,16 +79,34 @@ def load_area(dem, bounds):
                            ) from err
 
 
-def _load_covering(dem, points):
-    """The DEM around (x, y) points in its own CRS (all of it for a geographic DEM or no points)."""
-    from .points import dem_crs
+def _load_covering(sc, points, labels=None):
+    """The scenario's DEM around (x, y) points in its own CRS (all of it for a geographic DEM or no points).
 
+    ``labels`` name the points for the message when one lies outside the DEM (default:
+    the candidate lines, which are refused only when they miss the DEM entirely).
+    """
+    from .points import dem_header
+
+    head = dem_header(sc.dem)
     bounds = None
-    if points and not dem_crs(dem).is_geographic:
+    if points and not head["crs"].is_geographic:
         xs = [float(p[0]) for p in points]
         ys = [float(p[1]) for p in points]
+        left, bottom, right, top = head["bounds"]
+        where = f"{sc.dem} (its bounds are {left:.6g}, {bottom:.6g}, {right:.6g}, {top:.6g} in its CRS)"
+        if labels is not None:
+            for label, x, y in zip(labels, xs, ys):
+                if not (left <= x <= right and bottom <= y <= top):
+                    raise TerrainError(f"{label} ({x:.3f}, {y:.3f}) lies outside {where}; give a point on the DEM")
+        elif max(xs) < left or min(xs) > right or max(ys) < bottom or min(ys) > top:
+            raise TerrainError(f"the candidate lines lie outside {where}; check the lines' CRS")
         bounds = (min(xs), min(ys), max(xs), max(ys))
-    return load_area(dem, bounds)
+    return load_area(sc.dem, bounds, band=sc.band, z_scale=sc.z_scale)
+
+
+def _point_labels(sc) -> list[str]:
+    return (["start"] + [f"via point {i}" for i in range(1, len(sc.via) + 1)]
+            + (["end"] if sc.end is not None else []))
 
 
 def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=None, load: bool = False) -> Site:
@@ -107,26 +125,45 @@ def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=No
     load : bool
         Load the terrain around the points now (otherwise a projected DEM is passed on as
         its path, and the search plan reads the windows it needs).  A geographic DEM is
-        always loaded (reprojected to its UTM zone).
+        always loaded (reprojected to its UTM zone), and so is a DEM read from another
+        band than the first or with a given height scale (``sc.band``, ``sc.z_scale``).
+
+    Warns
+    -----
+    InputWarning
+        The DEM has several bands and the scenario names none: band 1 is read.
     """
-    from .points import WGS84, dem_crs, to_terrain_crs
+    import warnings
+
+    from .errors import InputWarning
+    from .points import WGS84, dem_header, to_terrain_crs
 
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    head = dem_header(sc.dem)
+    if sc.band is None and head["count"] > 1:
+        warnings.warn(InputWarning(f"{sc.dem} has {head['count']} bands; heights are read from band 1 "
+                                   "(--band N, or band in the scenario, to choose another)"), stacklevel=2)
     if not need_start:
-        terrain = _load_covering(sc.dem, cover or ())
+        terrain = _load_covering(sc, cover or ())
         keepout = _keepout(sc, terrain.crs)
         return Site(terrain=terrain, start=None, end=None, via=(), keepout=keepout, crs=terrain.crs)
     if sc.start is None:
         raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
     if need_end and sc.end is None:
         raise ParameterError("no end point: pass --end X Y or set points.end in the scenario")
-    src_crs = dem_crs(sc.dem)
+    src_crs = head["crs"]
     pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
     given = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
+    load = load or (sc.band or 1) != 1 or sc.z_scale is not None
     if src_crs.is_geographic or load or cover:
-        native = to_terrain_crs(pts, given, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
-        terrain = _load_covering(sc.dem, native if need_end else ())
+        more = [tuple(map(float, p)) for p in (cover or ())]
+        if need_end:
+            covered = to_terrain_crs(pts, given, src_crs) + more
+            labels = _point_labels(sc) + ["a candidate line"] * len(more)
+        else:  # a reach maps the whole DEM
+            covered, labels = more, None
+        terrain = _load_covering(sc, covered, labels)
         crs = terrain.crs
     else:
         terrain = Path(sc.dem)

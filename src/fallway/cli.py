@@ -133,23 +133,26 @@ def _signals_exit():
         wsock.close()
 
 
+def _log_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Library warnings become one log line each, when they happen."""
+    log.warning("%s", str(message).splitlines()[0])
+
+
 def _guard(fn):
     """Translate library errors into one-line messages and exit codes."""
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         try:
-            with _signals_exit(), warnings.catch_warnings(record=True) as caught:
+            with _signals_exit(), warnings.catch_warnings():
                 warnings.simplefilter("always", RefinementWarning)
+                warnings.showwarning = _log_warning
                 try:
                     return fn(*args, **kwargs)
                 except BaseException:
                     if _ENDING.is_set():  # a signal handler is ending the process: leave it the last word
                         threading.Event().wait()
                     raise
-                finally:
-                    for w in caught:  # library warnings become one log line each
-                        log.warning("%s", str(w.message).splitlines()[0])
         except NoFeasibleLine as err:
             msg = str(err)
             if err.closest is not None:
@@ -198,6 +201,10 @@ def _common_options(fn):
     opts = [
         click.option("--scenario", "scenario_path", type=click.Path(dir_okay=False), help="TOML scenario; flags override it."),
         click.option("--lonlat", is_flag=True, default=None, help="Points are WGS 84 longitude latitude, whatever the DEM's CRS."),
+        click.option("--band", type=click.IntRange(min=1), help="The DEM band holding the heights (default 1)."),
+        click.option("--z-scale", "z_scale", type=click.FloatRange(min=0.0, min_open=True),
+                     help="Metres per height unit of the DEM (0.3048 for feet; default: the unit the DEM "
+                          "declares, metres when none)."),
         click.option("--mu", type=float, help="Coulomb friction coefficient (sliding or rolling)."),
         click.option("--drag", type=float, help="Quadratic drag coefficient k in 1/m (rho*Cd*A/2m)."),
         click.option("--v0", type=float, help="Speed at the start, m/s."),
@@ -223,13 +230,17 @@ def _common_options(fn):
     return fn
 
 
-def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours,
+def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours, band, z_scale,
                min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, keepout_layers=(), label_cap=None,
                **extra) -> dict:
     """The flags given on the command line, in the scenario's nested layout."""
     d: dict = {"points": {}, "mover": {}, "limits": {}, "search": {}, "line": {}, "envelope": {}}
     if dem is not None:
         d["dem"] = str(dem)
+    if band is not None:
+        d["band"] = int(band)
+    if z_scale is not None:
+        d["z_scale"] = float(z_scale)
     if keepout_path is not None:
         d["keepout"] = str(keepout_path)
     if keepout_layers:

@@ -16,6 +16,7 @@ __all__ = [
     "NoFeasibleLine",
     "ScenarioError",
     "RefinementWarning",
+    "InputWarning",
 ]
 
 
@@ -66,3 +67,7 @@ class NoFeasibleLine(FallwayError):
 
 class RefinementWarning(UserWarning):
     """The continuous refinement stopped before it converged; the best line is returned."""
+
+
+class InputWarning(UserWarning):
+    """An input is read in a way worth saying (e.g. a given height scale overrides the unit the DEM declares)."""

@@ -6,6 +6,8 @@ override the file, and the resolved scenario is written beside the outputs.
 Layout (every section and key optional; unknown keys are rejected)::
 
     dem = "site.tif"                 # relative paths are relative to the scenario file
+    band = 1                         # optional: the DEM band holding the heights (default 1)
+    z_scale = 0.3048                 # optional: metres per height unit (default: the unit the band declares)
     keepout = "keepout.geojson"
     keepout_layers = ["no-go"]       # optional: the layers to read (default: every polygon layer)
 
@@ -63,6 +65,8 @@ __all__ = ["Scenario", "load_scenario"]
 
 _SCHEMA: dict[str, Any] = {
     "dem": str,
+    "band": int,
+    "z_scale": float,
     "keepout": str,
     "keepout_layers": "strings",
     "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
@@ -116,6 +120,8 @@ class Scenario:
     """
 
     dem: str | None = None
+    band: int | None = None
+    z_scale: float | None = None
     keepout: str | None = None
     keepout_layers: tuple[str, ...] = ()
     start: tuple[float, float] | None = None
@@ -149,6 +155,15 @@ class Scenario:
                 if base_dir is not None and not p.is_absolute():
                     p = Path(base_dir) / p
                 kw[key] = str(p)
+        if "band" in data:
+            b = data["band"]
+            if isinstance(b, bool) or not isinstance(b, int) or b < 1:
+                raise ScenarioError(f"band must be a whole number >= 1 (bands count from 1), got {b!r}")
+            kw["band"] = b
+        if "z_scale" in data:
+            kw["z_scale"] = _number("z_scale", data["z_scale"])
+            if kw["z_scale"] <= 0:
+                raise ScenarioError(f"z_scale must be a number > 0 (metres per height unit), got {data['z_scale']!r}")
         if "keepout_layers" in data:
             kl = data["keepout_layers"]
             if not (isinstance(kl, (list, tuple)) and kl and all(isinstance(v, str) and v for v in kl)):
@@ -210,6 +225,10 @@ class Scenario:
         d: dict[str, Any] = {}
         if self.dem is not None:
             d["dem"] = self.dem
+        if self.band is not None:
+            d["band"] = self.band
+        if self.z_scale is not None:
+            d["z_scale"] = self.z_scale
         if self.keepout is not None:
             d["keepout"] = self.keepout
         if self.keepout_layers:
