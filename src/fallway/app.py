@@ -228,6 +228,14 @@ def write_scenario(outs, sc, *, robust: bool = False, timings: bool = False, out
 
 def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool = False, core_only: bool = False):
     """Every output file of one route into an open output set; returns the names written."""
+    from .export import reproducible_figures
+
+    with reproducible_figures():
+        return _write_route(outs, sc, route, reach=reach, comparison=comparison, timings=timings,
+                            core_only=core_only)
+
+
+def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     from . import export, plot, report
 
     terrain = route.terrain
@@ -275,7 +283,7 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
     ``lines_layers``: the layers of the lines file to read (default every line layer).
     """
     from . import plot, report
-    from .export import OutputSet
+    from .export import OutputSet, reproducible_figures
     from .points import dem_crs
     from .routing import compare
     from .vector import read_lines
@@ -293,7 +301,8 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
         cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, optimum=optimum,
                       search=sc.search, refine=refine, mu_range=sc.mu_range)
         cmp.to_csv(outs.path("comparison.csv"))
-        plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=site.keepout), outs.path("comparison.png"))
+        with reproducible_figures():
+            plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=site.keepout), outs.path("comparison.png"))
         outs.path("comparison.svg")
         report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
                                      parameters=sc.to_dict())

@@ -10,8 +10,10 @@ The reach raster: :func:`write_reach_geotiff`.
 Conventions
 -----------
 - Floats are written with fixed rules (rounded, shortest round-trip repr in JSON; fixed
-  decimals in CSV) and no timestamps, so the same inputs give byte-identical GeoJSON,
-  CSV and JSON files.
+  decimals in CSV) and no timestamps, so the same inputs give byte-identical files:
+  GeoJSON, CSV, JSON, and also the GeoPackage (its ``last_change`` stamps come from
+  :func:`gpkg_timestamp`, not the clock) and the SVG figures written inside
+  :func:`reproducible_figures` (fixed clip-path ids).
 - Non-finite numbers (``inf`` for "no limit", ``NaN`` after a stall) become JSON
   ``null`` and empty CSV cells, so every file stays valid for strict readers.
 """
@@ -50,6 +52,8 @@ __all__ = [
     "write_route_geojson",
     "write_route_gpkg",
     "write_summary_json",
+    "gpkg_timestamp",
+    "reproducible_figures",
 ]
 
 #: File names a route run writes into its output folder.  :class:`OutputSet` refuses to
@@ -736,6 +740,69 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
 
 # --------------------------------------------------------------------------- GeoPackage
 
+def gpkg_timestamp() -> str:
+    """The ``last_change`` time written into GeoPackages: not the clock, so reruns repeat.
+
+    ``SOURCE_DATE_EPOCH`` (seconds since 1970, the reproducible-builds.org convention)
+    when set, else the epoch itself.  GDAL's GPKG driver takes it from its
+    ``OGR_CURRENT_DATE`` configuration option instead of the current time.
+
+    Examples
+    --------
+    >>> gpkg_timestamp() if "SOURCE_DATE_EPOCH" not in os.environ else "1970-01-01T00:00:00.000Z"
+    '1970-01-01T00:00:00.000Z'
+    """
+    import datetime
+
+    try:
+        epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
+    except ValueError:
+        raise ParameterError(f"SOURCE_DATE_EPOCH must be whole seconds since 1970, got "
+                             f"{os.environ['SOURCE_DATE_EPOCH']!r}") from None
+    t = datetime.datetime.fromtimestamp(epoch, tz=datetime.timezone.utc)
+    return t.strftime("%Y-%m-%dT%H:%M:%S.000Z")
+
+
+@contextlib.contextmanager
+def _gdal_config(**options):
+    """GDAL configuration options set for the block and restored after it."""
+    import pyogrio
+
+    old = {k: pyogrio.get_gdal_config_option(k) for k in options}
+    pyogrio.set_gdal_config_options(options)
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options(old)
+
+
+@contextlib.contextmanager
+def reproducible_figures():
+    """Matplotlib settings for figures that repeat byte for byte: fixed SVG ids.
+
+    Matplotlib names clip paths and other SVG elements from a random salt unless
+    ``svg.hashsalt`` is set; inside this block it is.
+
+    Examples
+    --------
+    >>> import io
+    >>> from matplotlib.figure import Figure
+    >>> def svg():
+    ...     fig = Figure()
+    ...     fig.add_subplot().plot([0, 1], [0, 1])
+    ...     buf = io.StringIO()
+    ...     fig.savefig(buf, format="svg", metadata={"Date": None})
+    ...     return buf.getvalue()
+    >>> with reproducible_figures():
+    ...     svg() == svg()
+    True
+    """
+    import matplotlib
+
+    with matplotlib.rc_context({"svg.hashsalt": "fallway"}):
+        yield
+
+
 def flatten(d: dict, sep: str = "_", prefix: str = "") -> dict:
     """Nested mappings as one level, keys joined with ``sep``.
 
@@ -831,10 +898,11 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     path = Path(path)
     with atomic_path(path) as tmp:
         try:
-            pyogrio.raw.write(tmp, line_wkb, arrays1, names1, layer="line", driver="GPKG",
-                              geometry_type="LineString Z", crs=wkt)
-            pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
-                              geometry_type="LineString Z", crs=wkt, append=True)
+            with _gdal_config(OGR_CURRENT_DATE=gpkg_timestamp()):
+                pyogrio.raw.write(tmp, line_wkb, arrays1, names1, layer="line", driver="GPKG",
+                                  geometry_type="LineString Z", crs=wkt)
+                pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
+                                  geometry_type="LineString Z", crs=wkt, append=True)
         except OSError:
             raise
         except Exception as err:  # pyogrio's DataSourceError / FieldError
