@@ -787,3 +787,58 @@ def test_named_keepout_and_line_layers_are_read(tmp_path):
     assert p.returncode == 0, p.stderr
     with open(tmp_path / "d" / "comparison.csv", newline="") as fh:
         assert [r["name"] for r in _csv.DictReader(fh)] == ["bend"]
+
+
+# --------------------------------------------------------------------------- a full disk (issue 19.11)
+
+@pytest.fixture
+def tiny_disk(tmp_path):
+    """A 400 kB tmpfs mounted in tmp_path (needs root and a kernel that allows it; else skip).
+
+    Returns ``fill(free_kb)``, which fills it up to ``free_kb`` kB of free space.
+    """
+    import shutil as _shutil
+
+    mnt = tmp_path / "tiny"
+    mnt.mkdir()
+    if os.geteuid() != 0 or _shutil.which("mount") is None:
+        pytest.skip("mounting a small filesystem needs root")
+    p = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=400k", "tmpfs", str(mnt)], capture_output=True, text=True)
+    if p.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here: {p.stderr.strip()}")
+
+    def fill(free_kb):
+        total = _shutil.disk_usage(mnt).total
+        with open(mnt / "filler", "wb") as fh:
+            fh.write(b"\0" * (total - free_kb * 1024))
+        return mnt
+
+    try:
+        yield fill
+    finally:
+        subprocess.run(["umount", str(mnt)], capture_output=True)
+
+
+def test_full_disk_is_named_as_such(tmp_path, tiny_disk):
+    # with ~28 kB free the GeoPackage is the first file that does not fit: SQLite then
+    # reported "no such table: gpkg_contents"
+    dem = _plane_tif(tmp_path / "dem.tif")
+    disk = tiny_disk(28)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", disk / "out")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "no space left on device" in p.stderr.lower() and "route.gpkg" in p.stderr, p.stderr
+    assert ".fallway-" not in p.stderr  # the file is named where it was to go
+    assert sorted(x.name for x in disk.iterdir()) == ["filler"]
+
+
+def test_full_disk_fails_the_reach_map(tmp_path, tiny_disk):
+    # GDAL's libtiff reported the failed writes on stderr only: the run "succeeded" with a
+    # broken GeoTIFF
+    dem = _plane_tif(tmp_path / "dem.tif")
+    disk = tiny_disk(2)
+    p = run_cli("reach", dem, "--start", *START, "--out", disk / "reach.tif")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "no space left on device" in p.stderr.lower(), p.stderr
+    assert sorted(x.name for x in disk.iterdir()) == ["filler"]

@@ -87,6 +87,49 @@ _PROFILE_COLUMNS = ("station_m", "x", "y", "z_ground", "z_line", "grade", "speed
 
 # --------------------------------------------------------------------------- atomic files
 
+# below this much free space a failed write is put down to the full disk (a route's
+# GeoPackage alone takes about 120 kB)
+_LOW_SPACE_BYTES = 1 << 20
+
+
+def _space_problem(folder) -> str | None:
+    """Why the folder's filesystem takes no more data (full, quota, file size limit), or None.
+
+    GDAL's drivers often report a full disk as a follow-on error (SQLite's "no such
+    table: gpkg_contents"), so after such a failure the folder is checked here: its free
+    space, then a small probe write, whose errno names the cause.
+    """
+    try:
+        free = shutil.disk_usage(folder).free
+    except OSError:
+        return None
+    if free < _LOW_SPACE_BYTES:
+        return f"no space left on device ({free // 1024} kB free)"
+    probe = Path(folder) / f".space-probe.{uuid.uuid4().hex[:12]}.tmp"
+    try:
+        with open(probe, "wb") as fh:
+            fh.write(b"\0" * (256 << 10))
+            fh.flush()
+            os.fsync(fh.fileno())
+    except OSError as err:
+        if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+            return (err.strerror or "no space left on device").lower()
+        return None
+    finally:
+        with contextlib.suppress(OSError):
+            probe.unlink()
+    return None
+
+
+def _gdal_failure(folder, err: BaseException) -> str:
+    """GDAL's first message line, or the disk problem behind it when there is one."""
+    space = _space_problem(folder)
+    if space is not None:
+        return f"{space}; free some space or choose another output folder"
+    text = str(err).strip()
+    return text.splitlines()[0] if text else type(err).__name__
+
+
 def _io_error(action: str, path, err: OSError) -> FallwayIOError:
     reason = err.strerror or type(err).__name__
     return FallwayIOError(f"cannot {action} {os.fspath(path)}: {reason}; "
@@ -371,6 +414,7 @@ class OutputSet:
                 _ACTIVE.pop(id(self), None)
                 return False
             if exc_type is not None:
+                self._name_final_paths(exc)
                 self._abort()
                 return False
             try:
@@ -382,6 +426,14 @@ class OutputSet:
             self.tmp_dir = None
             _ACTIVE.pop(id(self), None)
         return False
+
+    def _name_final_paths(self, exc) -> None:
+        """A writer's error names its file in the working folder: name it where it was to go."""
+        from .errors import FallwayError
+
+        if isinstance(exc, FallwayError) and self.tmp_dir is not None and exc.args and isinstance(exc.args[0], str):
+            exc.args = (exc.args[0].replace(str(self.tmp_dir) + os.sep, str(self.out_dir) + os.sep),
+                        *exc.args[1:])
 
     def _abort(self) -> None:
         _ACTIVE.pop(id(self), None)
@@ -906,7 +958,7 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
         except OSError:
             raise
         except Exception as err:  # pyogrio's DataSourceError / FieldError
-            raise FallwayIOError(f"cannot write {path}: {err}") from err
+            raise FallwayIOError(f"cannot write {path}: {_gdal_failure(path.parent, err)}") from err
     return path
 
 
@@ -1030,8 +1082,8 @@ def summary_document(route, extra: dict | None = None, *, crs=None) -> dict:
 def write_reach_geotiff(reach_map, path) -> Path:
     """Write a two-band float32 GeoTIFF: band 1 arrival time (s), band 2 speed (m/s).
 
-    NaN is the nodata value (unreachable cells).  The file is written under a
-    temporary name in the same folder and renamed when complete.
+    NaN is the nodata value (unreachable cells).  The file is built in memory, then
+    written under a temporary name in the same folder and renamed when complete.
 
     Examples
     --------
@@ -1047,29 +1099,31 @@ def write_reach_geotiff(reach_map, path) -> Path:
     2 float32 ('arrival_time_s', 'arrival_speed_m_s')
     """
     import rasterio
+    from rasterio.errors import RasterioError
 
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise FallwayIOError(f"output folder {folder} does not exist; create it first")
+    path = Path(path)
+    if not path.parent.is_dir():
+        raise FallwayIOError(f"output folder {path.parent} does not exist; create it first")
     rows, cols = np.shape(reach_map.time_s)
-    fd, tmp = tempfile.mkstemp(prefix=".reach-", suffix=".tif", dir=folder)
-    os.close(fd)
+    bands = (np.asarray(reach_map.time_s, dtype=np.float32), np.asarray(reach_map.speed_m_s, dtype=np.float32))
+    profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
+                   transform=reach_map.transform, nodata=float("nan"), compress="deflate",
+                   tiled=rows >= 256 and cols >= 256)
+    if reach_map.crs is not None:
+        profile["crs"] = reach_map.crs
+    # built in memory and written with Python's own file I/O: a write error (a full disk)
+    # then raises with its errno, where GDAL's libtiff reports some only on stderr
     try:
-        profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
-                       transform=reach_map.transform, nodata=float("nan"), compress="deflate",
-                       tiled=rows >= 256 and cols >= 256)
-        if reach_map.crs is not None:
-            profile["crs"] = reach_map.crs
-        with rasterio.open(tmp, "w", **profile) as dst:
-            dst.write(np.asarray(reach_map.time_s, dtype=np.float32), 1)
-            dst.write(np.asarray(reach_map.speed_m_s, dtype=np.float32), 2)
-            dst.set_band_description(1, "arrival_time_s")
-            dst.set_band_description(2, "arrival_speed_m_s")
-            dst.update_tags(start_x=str(reach_map.start[0]), start_y=str(reach_map.start[1]))
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-        raise
+        with rasterio.MemoryFile(ext=".tif") as mem:
+            with mem.open(**profile) as dst:
+                dst.write(bands[0], 1)
+                dst.write(bands[1], 2)
+                dst.set_band_description(1, "arrival_time_s")
+                dst.set_band_description(2, "arrival_speed_m_s")
+                dst.update_tags(start_x=str(reach_map.start[0]), start_y=str(reach_map.start[1]))
+            data = mem.read()
+    except RasterioError as err:
+        raise FallwayIOError(f"cannot write {path}: {_gdal_failure(path.parent, err)}") from err
+    with atomic_write(path, "wb") as fh:
+        fh.write(data)
     return Path(path)
