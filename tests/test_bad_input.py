@@ -324,6 +324,13 @@ def c_lines_miss_the_dem(tmp):
     return ["compare", _plane_tif(tmp / "dem.tif"), lines]
 
 
+
+def c_scenario_number_as_text(tmp):
+    # issue 19.12: mu = "0.2" was accepted (read as 0.2) while neighbours = 16.0 was refused
+    s = tmp / "scenario.toml"
+    s.write_text('[mover]\nmu = "0.2"\n')
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--scenario", s]
+
 # case id -> (builder, exit code, key words in stderr (lower case, all must appear))
 CASES = {
     "missing file": (c_missing_file, 1, ["not found", "nothing_here.tif"]),
@@ -360,6 +367,7 @@ CASES = {
                                                                          "polygon layers: sheds"]),
     "keep-out layer missing": (c_keepout_layer_missing, 1, ["no layer 'quarry'", "sheds"]),
     "keep-out geojson in utm": (c_keepout_geojson_in_utm, 1, ["longitude/latitude", "500000.000", "rfc 7946"]),
+    "scenario number as text": (c_scenario_number_as_text, 1, ["mover.mu must be a number", "'0.2' (a string)"]),
     "unknown height unit": (c_unknown_height_unit, 1, ["furlong", "--z-scale"]),
     "one-row dem": (c_one_row_dem, 1, ["row.tif is 1 x 12 cells", "at least 2 x 2"]),
     "band that does not exist": (c_band_missing, 1, ["3 bands", "no band 4"]),

@@ -109,7 +109,10 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     >>> [(r["name"], r["params"]["mover.mu"], r["params"]["points.end"]) for r in runs][:2]
     [('run-001', 0.1, [9, 0]), ('run-002', 0.1, [9, 1])]
     """
-    from .scenario import Scenario
+    import dataclasses
+
+    from .params import SearchOptions
+    from .scenario import Scenario, check_value, kind_of
 
     unknown = sorted(set(data) - {"base", "vary", "run", "options"})
     if unknown:
@@ -124,10 +127,14 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     explicit = data.get("run", [])
     if not isinstance(explicit, list):
         raise ScenarioError("[[run]] entries must be tables (use [[run]], not [run])")
-    options = dict(data.get("options", {}))
+    options = data.get("options", {})
+    if not isinstance(options, dict):
+        raise ScenarioError("[options] must be a table of search options")
     bad = sorted(set(options) - set(_OPTION_KEYS))
     if bad:
         raise ScenarioError(f"unknown batch option {bad[0]}; allowed: {', '.join(_OPTION_KEYS)}")
+    kinds = {f.name: kind_of(f.type) for f in dataclasses.fields(SearchOptions)}
+    options = {k: check_value(f"options.{k}", v, kinds[k]) for k, v in options.items()}  # the scenario's rule
     runs = []
     keys = list(vary)
     if keys:

@@ -61,7 +61,7 @@ from typing import Any
 from .errors import FallwayError, ParameterError, ScenarioError
 from .params import Limits, LineSpec, Mover, SearchOptions
 
-__all__ = ["Scenario", "load_scenario"]
+__all__ = ["Scenario", "load_scenario", "check_value", "kind_of"]
 
 _SCHEMA: dict[str, Any] = {
     "dem": str,
@@ -79,28 +79,73 @@ _SCHEMA: dict[str, Any] = {
 }
 
 
-def _point(key: str, value) -> tuple[float, float]:
-    if not (isinstance(value, (list, tuple)) and len(value) == 2):
-        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}")
-    try:
-        x, y = float(value[0]), float(value[1])
-    except (TypeError, ValueError):
-        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}") from None
-    if not (math.isfinite(x) and math.isfinite(y)):
-        raise ScenarioError(f"{key} must be finite, got {value!r}")
-    return (x, y)
+# One rule for every value (TOML types, never converted): a quantity is a TOML integer or
+# float, a count a TOML integer, a name or a choice a string, a switch a boolean.  So
+# mu = "0.2" is refused as neighbours = 16.0 is, instead of one being read as a number.
+_TOML_TYPE = {bool: "a boolean", int: "an integer", float: "a float", str: "a string", list: "a list",
+              dict: "a table"}
+
+
+def _what(value) -> str:
+    return f"{value!r} ({_TOML_TYPE.get(type(value), type(value).__name__)})"
 
 
 def _number(key: str, value) -> float:
-    if isinstance(value, bool):
-        raise ScenarioError(f"{key} must be a number, got {value!r}")
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ScenarioError(f"{key} must be a number, got {value!r}") from None
+    """A quantity: a TOML integer or float, finite."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ScenarioError(f"{key} must be a number, got {_what(value)}")
+    v = float(value)
     if not math.isfinite(v):
         raise ScenarioError(f"{key} must be a finite number, got {value!r}")
     return v
+
+
+def _count(key: str, value) -> int:
+    """A count: a TOML integer."""
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ScenarioError(f"{key} must be a whole number, got {_what(value)}")
+    return value
+
+
+def _text(key: str, value) -> str:
+    if not isinstance(value, str):
+        raise ScenarioError(f"{key} must be a string, got {_what(value)}")
+    return value
+
+
+def _point(key: str, value) -> tuple[float, float]:
+    if not (isinstance(value, (list, tuple)) and len(value) == 2):
+        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}")
+    x, y = (_number(key, v) for v in value)
+    return (x, y)
+
+
+def kind_of(annotation: str) -> str:
+    """The value kind of a parameter field from its annotation: number, count, text or flag.
+
+    Examples
+    --------
+    >>> [kind_of(a) for a in ("float", "int | None", "str", "bool", "float | None")]
+    ['number', 'count', 'text', 'flag', 'number']
+    """
+    a = str(annotation)
+    for word, kind in (("bool", "flag"), ("str", "text"), ("float", "number"), ("int", "count")):
+        if word in a:
+            return kind
+    return "number"
+
+
+def check_value(key: str, value, kind: str):
+    """``value`` checked against its kind (number, count, text, flag); raises ScenarioError."""
+    if value is None:
+        raise ScenarioError(f"{key} must be given a value")
+    if kind == "number":
+        return _number(key, value)
+    if kind == "count":
+        return _count(key, value)
+    if kind == "text":
+        return _text(key, value)
+    return _bool(key, value)
 
 
 @dataclass(frozen=True)
@@ -149,17 +194,14 @@ class Scenario:
         kw: dict[str, Any] = {}
         for key in ("dem", "keepout"):
             if key in data:
-                if not isinstance(data[key], str):
-                    raise ScenarioError(f"{key} must be a file path (string), got {data[key]!r}")
-                p = Path(data[key]).expanduser()
+                p = Path(_text(key, data[key])).expanduser()
                 if base_dir is not None and not p.is_absolute():
                     p = Path(base_dir) / p
                 kw[key] = str(p)
         if "band" in data:
-            b = data["band"]
-            if isinstance(b, bool) or not isinstance(b, int) or b < 1:
-                raise ScenarioError(f"band must be a whole number >= 1 (bands count from 1), got {b!r}")
-            kw["band"] = b
+            kw["band"] = _count("band", data["band"])
+            if kw["band"] < 1:
+                raise ScenarioError(f"band must be a whole number >= 1 (bands count from 1), got {kw['band']!r}")
         if "z_scale" in data:
             kw["z_scale"] = _number("z_scale", data["z_scale"])
             if kw["z_scale"] <= 0:
@@ -186,13 +228,8 @@ class Scenario:
         search = dict(data.get("search", {}))
         if "refine" in search:
             kw["refine"] = _bool("search.refine", search.pop("refine"))
-        for key in ("neighbours", "label_cap", "coarse_factor"):
-            if key in search and (isinstance(search[key], bool) or not isinstance(search[key], int)):
-                raise ScenarioError(f"search.{key} must be a whole number; got {search[key]!r}")
-        if "plan" in search and not isinstance(search["plan"], str):
-            raise ScenarioError(f"search.plan must be a string; got {search['plan']!r}")
-        if "corridor_m" in search:
-            search["corridor_m"] = _number("search.corridor_m", search["corridor_m"])
+        kinds = {f.name: kind_of(f.type) for f in fields(SearchOptions)}
+        search = {key: check_value(f"search.{key}", value, kinds[key]) for key, value in search.items()}
         try:
             kw["search"] = SearchOptions(**search)
         except ParameterError as err:
@@ -200,9 +237,7 @@ class Scenario:
         line = data.get("line", {})
         lk: dict[str, Any] = {}
         if "kind" in line:
-            if not isinstance(line["kind"], str):
-                raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {line['kind']!r}")
-            lk["kind"] = line["kind"]
+            lk["kind"] = _text("line.kind", line["kind"])
         if "clearance" in line:
             lo, hi = (_number("line.clearance", v) for v in _pair("line.clearance", line["clearance"]))
             if lo < 0 or hi < lo:
@@ -283,11 +318,8 @@ def _check_keys(data: dict, schema: dict, prefix: str) -> None:
 
 
 def _build(cls, section: str, values: dict):
-    kw = {}
-    for key, value in values.items():
-        if isinstance(value, bool):
-            raise ScenarioError(f"{section}.{key} must be a number, got {value!r}")
-        kw[key] = value
+    kinds = {f.name: kind_of(f.type) for f in fields(cls)}
+    kw = {key: check_value(f"{section}.{key}", value, kinds.get(key, "number")) for key, value in values.items()}
     try:
         return cls(**kw)
     except ParameterError as err:
