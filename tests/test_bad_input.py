@@ -850,3 +850,22 @@ def test_full_disk_fails_the_reach_map(tmp_path, tiny_disk):
     assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
     assert "no space left on device" in p.stderr.lower(), p.stderr
     assert sorted(x.name for x in disk.iterdir()) == ["filler"]
+
+
+def test_a_crawling_line_is_said_to_crawl(tmp_path):
+    # issue 19.12: --drag 1e9 "succeeded" with a line of 1e6 s at 5e-5 m/s, unremarked.
+    # On the 0.3 plane the mover is held at its terminal speed with quadratic drag,
+    # v_t = sqrt(g sin(theta) / k) (any mechanics text): 5.3e-5 m/s for k = 1e9 1/m
+    import math
+    import re
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--drag", "1e9", "--out", tmp_path / "crawl")
+    assert p.returncode == 0, p.stderr
+    lines = [ln for ln in p.stderr.splitlines() if "crawls" in ln]
+    assert len(lines) == 1 and "drag (1e+09 1/m)" in lines[0], p.stderr
+    mean = float(re.search(r"mean speed of ([0-9.e+-]+) m/s", lines[0]).group(1))
+    v_t = math.sqrt(9.80665 * math.sin(math.atan(0.3)) / 1e9)
+    assert mean == pytest.approx(v_t, rel=0.02)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--drag", "0.01", "--out", tmp_path / "fine")
+    assert p.returncode == 0 and "crawl" not in p.stderr, p.stderr

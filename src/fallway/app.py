@@ -32,6 +32,11 @@ CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
 COMPARE_FILES = ("comparison.csv", "comparison.png", "comparison.svg", "report.html")
 #: The files the demo writes.
 DEMO_FILES = ROUTE_FILES + ("reach.tif", "comparison.csv", "comparison.png", "comparison.svg")
+#: Mean speed (m/s) below which a line counts as a crawl when the mover has no stall speed.
+#: 1 cm/s, 100 s per metre: far below any chute, conveyor, slide or cable line in use, so
+#: only a line that a real load would never finish (drag so high that the terminal speed
+#: is tiny, friction that just balances the slope) is flagged.  A judgment, not a standard.
+CRAWL_SPEED_M_S = 0.01
 # the result names of a route run: every file it can write (run.json only with timings),
 # so an overwrite also removes a stale run.json of an earlier run
 _ROUTE_RESULTS = ROUTE_FILES + ("run.json",)
@@ -188,9 +193,37 @@ def _route_of(sc, site: Site, *, robust: bool):
 
     if robust and sc.mu_range is None:
         raise ParameterError("a robust line needs a friction range: --mu-range LO HI (or envelope.mu_range)")
-    return find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
-                      keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
-                      robust=robust)
+    route = find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
+                       keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
+                       robust=robust)
+    _warn_if_crawling(route)
+    return route
+
+
+def _warn_if_crawling(route) -> None:
+    """A :class:`~fallway.errors.CrawlWarning` when the line's mean speed is below :data:`CRAWL_SPEED_M_S`.
+
+    Why a warning and not a stall speed above zero by default: a default stall speed
+    would change the numbers of every existing scenario silently, and it would not even
+    catch the case -- a mover stalls where it *slows* below the stall speed, and one
+    held near a tiny terminal speed by drag never gets above it to slow down (the
+    ``--drag 1e9`` line: 57 m in 1e6 s).  The warning changes no number and says what
+    is wrong.
+    """
+    import warnings
+
+    from .errors import CrawlWarning
+
+    s = route.summary
+    t, length = s.travel_time_s, s.length_m
+    if t is None or not t > 0:
+        return
+    mean = length / t
+    if mean < CRAWL_SPEED_M_S:
+        m = route.mover
+        warnings.warn(CrawlWarning(
+            f"the line crawls: {length:.1f} m in {t:.0f} s, a mean speed of {mean:.2g} m/s; no real load would "
+            f"finish it: check the drag ({m.drag:g} 1/m) and friction ({m.mu:g})"), stacklevel=2)
 
 
 @checked_options

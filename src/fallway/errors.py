@@ -17,6 +17,7 @@ __all__ = [
     "ScenarioError",
     "RefinementWarning",
     "InputWarning",
+    "CrawlWarning",
 ]
 
 
@@ -71,3 +72,7 @@ class RefinementWarning(UserWarning):
 
 class InputWarning(UserWarning):
     """An input is read in a way worth saying (e.g. a given height scale overrides the unit the DEM declares)."""
+
+
+class CrawlWarning(UserWarning):
+    """The line is so slow that a real mover would stop long before the end; set a stall speed."""
