@@ -225,6 +225,112 @@ def c_no_start(tmp):
     return ["route", _plane_tif(tmp / "dem.tif"), "--end", *END, "--no-refine"]
 
 
+# -- issue 19: no-go areas that must not be ignored, messages that name the right cause
+
+def _gpkg_layers(path, layers):
+    """A GeoPackage in the DEM's CRS with one feature per layer: [(name, shapely geometry, type)]."""
+    import pyogrio.raw
+    import shapely
+
+    for i, (name, geom, kind) in enumerate(layers):
+        pyogrio.raw.write(path, np.array([shapely.to_wkb(geom)], dtype=object), [np.array([name], dtype=object)],
+                          ["name"], layer=name, driver="GPKG", geometry_type=kind, crs=CRS, append=i > 0)
+    return path
+
+
+def c_keepout_second_layer_covers_start(tmp):
+    # issue 19.4: the polygon in layer 2 covers the start; the first layer alone was read
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon"),
+                                        ("quarry", shapely.box(X0, Y0 - 40, X0 + 15, Y0 - 20), "Polygon")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_keepout_with_a_line_layer(tmp):
+    # a layer of lines beside the polygons: not silently skipped, the user names the layers
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon"),
+                                        ("fence", shapely.LineString([(X0, Y0 - 50), (X0 + 50, Y0 - 50)]),
+                                         "LineString")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+def c_keepout_layer_missing(tmp):
+    import shapely
+
+    k = _gpkg_layers(tmp / "nogo.gpkg", [("sheds", shapely.box(X0 + 30, Y0 - 10, X0 + 40, Y0 - 5), "Polygon")])
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k,
+            "--keepout-layer", "quarry"]
+
+
+def c_keepout_geojson_in_utm(tmp):
+    # issue 19.11: reported as "must be polygons, got GeometryCollection"
+    ring = [[X0, Y0 - 20], [X0 + 15, Y0 - 20], [X0 + 15, Y0 - 40], [X0, Y0 - 40], [X0, Y0 - 20]]
+    k = tmp / "keepout.geojson"
+    k.write_text(json.dumps({"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {}, "geometry": {"type": "Polygon", "coordinates": [ring]}}]}))
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--keepout", k]
+
+
+
+# -- issue 19: heights that cannot be misread
+
+def _tagged_tif(path, z, **tags):
+    """The plane's heights with band tags set afterwards (scales, offsets, units), as gdal_edit.py does."""
+    import rasterio
+
+    _, t = plane(N, N, CELL, -0.3, 0.0)
+    write_geotiff(path, z, t, CRS)
+    with rasterio.open(path, "r+") as ds:
+        for k, v in tags.items():
+            setattr(ds, k, v)
+    return path
+
+
+def c_unknown_height_unit(tmp):
+    z, _ = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", _tagged_tif(tmp / "fur.tif", z, units=("furlong",)), *_pts(), "--no-refine"]
+
+
+def c_one_row_dem(tmp):
+    # issue 19.11: a 1 x N DEM was reported as "bounds do not overlap" (no bounds were given)
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", write_geotiff(tmp / "row.tif", z[:1], t, CRS), *_pts(start=(X0 + 2.5, Y0 - 2.5),
+                                                                         end=(X0 + 57.5, Y0 - 2.5)), "--no-refine"]
+
+
+def c_band_missing(tmp):
+    z, t = plane(N, N, CELL, -0.3, 0.0)
+    return ["route", write_geotiff(tmp / "bands.tif", z, t, CRS, count=3), *_pts(), "--no-refine", "--band", "4"]
+
+
+def c_zero_z_scale(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--z-scale", "0"]
+
+
+def c_nan_z_scale(tmp):
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--z-scale", "nan"]
+
+
+def c_lines_miss_the_dem(tmp):
+    lines = tmp / "far.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": "far"},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [[X0 + 9000, Y0], [X0 + 9100, Y0]]}}]}))
+    return ["compare", _plane_tif(tmp / "dem.tif"), lines]
+
+
+
+def c_scenario_number_as_text(tmp):
+    # issue 19.12: mu = "0.2" was accepted (read as 0.2) while neighbours = 16.0 was refused
+    s = tmp / "scenario.toml"
+    s.write_text('[mover]\nmu = "0.2"\n')
+    return ["route", _plane_tif(tmp / "dem.tif"), *_pts(), "--no-refine", "--scenario", s]
+
 # case id -> (builder, exit code, key words in stderr (lower case, all must appear))
 CASES = {
     "missing file": (c_missing_file, 1, ["not found", "nothing_here.tif"]),
@@ -256,6 +362,18 @@ CASES = {
     "unknown scenario key": (c_scenario_unknown_key, 1, ["friction"]),
     "no start point": (c_no_start, 1, ["start"]),
     "reach start outside": (c_reach_start_outside, 1, ["start", "outside"]),
+    "keep-out in a second layer covers start": (c_keepout_second_layer_covers_start, 3, ["start", "keep-out"]),
+    "keep-out file with a line layer": (c_keepout_with_a_line_layer, 1, ["fence (linestring)", "--keepout-layer",
+                                                                         "polygon layers: sheds"]),
+    "keep-out layer missing": (c_keepout_layer_missing, 1, ["no layer 'quarry'", "sheds"]),
+    "keep-out geojson in utm": (c_keepout_geojson_in_utm, 1, ["longitude/latitude", "500000.000", "rfc 7946"]),
+    "scenario number as text": (c_scenario_number_as_text, 1, ["mover.mu must be a number", "'0.2' (a string)"]),
+    "unknown height unit": (c_unknown_height_unit, 1, ["furlong", "--z-scale"]),
+    "one-row dem": (c_one_row_dem, 1, ["row.tif is 1 x 12 cells", "at least 2 x 2"]),
+    "band that does not exist": (c_band_missing, 1, ["3 bands", "no band 4"]),
+    "zero --z-scale": (c_zero_z_scale, 2, ["--z-scale"]),
+    "nan --z-scale": (c_nan_z_scale, 1, ["z_scale", "finite"]),
+    "candidate lines miss the dem": (c_lines_miss_the_dem, 1, ["candidate lines lie outside", "dem.tif"]),
 }
 
 
@@ -502,3 +620,252 @@ def test_reach_writer_failing_leaves_nothing(tmp_path, monkeypatch):
     res = _invoke(["reach", dem, "--start", *START, "--out", out_dir / "reach.tif"])
     assert res.exit_code == 1, res.output
     assert list(out_dir.iterdir()) == []
+
+
+# --------------------------------------------------------------------------- result sets (issue 19)
+# A result set changes all at once or not at all; --overwrite replaces only the command's
+# own files.  These drive the command line as a user would and look at the folder.
+
+def _snapshot(folder: Path) -> dict:
+    """Every entry below ``folder``: file bytes, or None for a folder."""
+    return {str(p.relative_to(folder)): (None if p.is_dir() else p.read_bytes())
+            for p in sorted(folder.rglob("*"))}
+
+
+def test_overwrite_onto_a_folder_named_like_a_result_changes_nothing(tmp_path):
+    # issue 19.1: report.html exists as a folder; the old run replaced four files before failing
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert run_cli("route", dem, *_pts(), "--no-refine", "--out", out).returncode == 0
+    (out / "report.html").unlink()
+    (out / "report.html").mkdir()
+    before = _snapshot(out)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--mu", "0.05", "--out", out, "--overwrite")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "report.html" in p.stderr and "folder" in p.stderr, p.stderr
+    assert _snapshot(out) == before
+
+
+@pytest.mark.parametrize("fail_at", [1, 5, 10], ids=["first", "fifth", "last"])
+def test_overwrite_failing_at_any_move_restores_the_old_set(tmp_path, monkeypatch, fail_at):
+    # issue 19.1: a move into place fails part way (here the fail_at-th new file of ten);
+    # every old file must be back, byte for byte, and no working folder left
+    import fallway.export
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert _invoke(["route", dem, *_pts(), "--no-refine", "--out", out]).exit_code == 0
+    (out / "notes.txt").write_bytes(b"mine\n")
+    before = _snapshot(out)
+    real = os.replace
+    placed = []
+
+    def flaky(src, dst):
+        # a finished result moving from the working folder into place (not a writer's own
+        # rename of its temporary file, which starts with a dot)
+        src = Path(src)
+        if (src.parent.name.startswith(".fallway-") and not src.parent.name.startswith(".fallway-old")
+                and not src.name.startswith(".")):
+            placed.append(Path(dst).name)
+            if len(placed) == fail_at:
+                raise OSError(28, "No space left on device")
+        return real(src, dst)
+
+    monkeypatch.setattr(fallway.export.os, "replace", flaky)
+    res = _invoke(["route", dem, *_pts(), "--no-refine", "--mu", "0.05", "--out", out, "--overwrite"])
+    assert res.exit_code == 1, res.output
+    assert "No space left on device" in res.output and placed[-1] in res.output, res.output
+    assert _snapshot(out) == before
+
+
+def test_compare_overwrite_keeps_the_route_files(tmp_path):
+    # issue 19.3: compare --overwrite in a route folder removed nine route files it never writes
+    dem = _plane_tif(tmp_path / "dem.tif")
+    out = tmp_path / "out"
+    assert run_cli("route", dem, *_pts(), "--no-refine", "--out", out).returncode == 0
+    route_files = {n: (out / n).read_bytes() for n in os.listdir(out) if n != "report.html"}
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": "straight"},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [list(START), list(END)]}}]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", out)
+    assert p.returncode == 1 and "report.html" in p.stderr and "--overwrite" in p.stderr, p.stderr
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", out, "--overwrite")
+    assert p.returncode == 0, p.stderr
+    for n, b in route_files.items():
+        assert (out / n).read_bytes() == b, n
+    assert {"comparison.csv", "comparison.png", "comparison.svg", "report.html"} <= set(os.listdir(out))
+    assert not [n for n in os.listdir(out) if n.startswith(".")]
+
+
+def test_failed_run_into_a_new_nested_folder_removes_every_folder_it_made(tmp_path):
+    # issue 19.12: a failed run into a new a/b/c removed c but left a/b
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("route", dem, *_pts(end=(X0 + 57.5, Y0 + 9000.0)), "--no-refine", "--out", tmp_path / "a" / "b" / "c")
+    assert p.returncode == 1, p.stderr
+    assert not (tmp_path / "a").exists()
+
+
+def test_reach_out_must_be_a_tif_name(tmp_path):
+    # issue 19.12: reach --out x.txt wrote a GeoTIFF under a text name
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("reach", dem, "--start", *START, "--out", tmp_path / "x.txt")
+    assert p.returncode == 2 and "--out" in p.stderr and ".tif" in p.stderr and "Traceback" not in p.stderr, p.stderr
+    assert not (tmp_path / "x.txt").exists()
+
+
+
+# --------------------------------------------------------------------------- candidate names and CSV cells (issue 19)
+
+def test_duplicate_candidate_names_never_take_another_lines_name(tmp_path):
+    # issue 19.12: A, A, A-2 became A, A-2, A-2-2: the second A took the third line's name
+    import csv as _csv
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    mid = (X0 + 30.0, Y0 - 30.0)
+    feats = [("A", [START, END]), ("A", [START, (mid[0], mid[1] - 10.0), END]),
+             ("A-2", [START, (mid[0], mid[1] + 10.0), END])]
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": n},
+                                               "geometry": {"type": "LineString", "coordinates": [list(q) for q in c]}}
+                                              for n, c in feats]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "out")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "out" / "comparison.csv", newline="") as fh:
+        rows = {r["name"]: r for r in _csv.DictReader(fh)}
+    assert sorted(rows) == ["A", "A-2", "A-3"]
+    # the line drawn as "A-2" (north of the straight line, bulging +10 m) keeps its name;
+    # both detours have the same length, the straight "A" is shorter
+    assert float(rows["A"]["length_m"]) < float(rows["A-2"]["length_m"])
+    assert rows["A-2"]["length_m"] == rows["A-3"]["length_m"]
+
+
+def test_csv_cells_that_a_spreadsheet_would_run_are_neutralised(tmp_path):
+    # OWASP "CSV Injection": cells starting with = + - @ get a leading single quote
+    import csv as _csv
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    names = ["=HYPERLINK(\"http://example.invalid\")", "+1+cmd|' /C calc'!A0", "-2+3", "@SUM(A1:A2)", "plain"]
+    lines = tmp_path / "lines.geojson"
+    lines.write_text(json.dumps({"type": "FeatureCollection",
+                                 "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+                                 "features": [{"type": "Feature", "properties": {"name": n},
+                                               "geometry": {"type": "LineString",
+                                                            "coordinates": [list(START), [X0 + 30.0, Y0 - 30 - k],
+                                                                            list(END)]}}
+                                              for k, n in enumerate(names)]}))
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "out")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "out" / "comparison.csv", newline="") as fh:
+        got = sorted(r["name"] for r in _csv.DictReader(fh))
+    assert got == sorted(["'" + n for n in names[:4]] + ["plain"])
+
+
+
+def test_named_keepout_and_line_layers_are_read(tmp_path):
+    # issue 19.4: with --keepout-layer only the named layers count; compare reads every
+    # line layer of a GeoPackage (here two), or the one --lines-layer names
+    import shapely
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    k = _gpkg_layers(tmp_path / "nogo.gpkg", [
+        ("quarry", shapely.box(X0, Y0 - 40, X0 + 15, Y0 - 20), "Polygon"),
+        ("fence", shapely.LineString([(X0, Y0 - 50), (X0 + 50, Y0 - 50)]), "LineString")])
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--keepout", k, "--keepout-layer", "fence", "--out",
+                tmp_path / "a")
+    assert p.returncode == 1 and "only polygons" in p.stderr, p.stderr
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--keepout", k, "--keepout-layer", "quarry", "--out",
+                tmp_path / "b")
+    assert p.returncode == 3 and "keep-out" in p.stderr, p.stderr  # the quarry covers the start
+    lines = _gpkg_layers(tmp_path / "lines.gpkg", [
+        ("east", shapely.LineString([START, END]), "LineString"),
+        ("bend", shapely.LineString([START, (X0 + 30.0, Y0 - 40.0), END]), "LineString")])
+    import csv as _csv
+
+    p = run_cli("compare", dem, lines, "--no-optimum", "--out", tmp_path / "c")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "c" / "comparison.csv", newline="") as fh:
+        assert sorted(r["name"] for r in _csv.DictReader(fh)) == ["bend", "east"]
+    p = run_cli("compare", dem, lines, "--no-optimum", "--lines-layer", "bend", "--out", tmp_path / "d")
+    assert p.returncode == 0, p.stderr
+    with open(tmp_path / "d" / "comparison.csv", newline="") as fh:
+        assert [r["name"] for r in _csv.DictReader(fh)] == ["bend"]
+
+
+# --------------------------------------------------------------------------- a full disk (issue 19.11)
+
+@pytest.fixture
+def tiny_disk(tmp_path):
+    """A 400 kB tmpfs mounted in tmp_path (needs root and a kernel that allows it; else skip).
+
+    Returns ``fill(free_kb)``, which fills it up to ``free_kb`` kB of free space.
+    """
+    import shutil as _shutil
+
+    mnt = tmp_path / "tiny"
+    mnt.mkdir()
+    if os.geteuid() != 0 or _shutil.which("mount") is None:
+        pytest.skip("mounting a small filesystem needs root")
+    p = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=400k", "tmpfs", str(mnt)], capture_output=True, text=True)
+    if p.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here: {p.stderr.strip()}")
+
+    def fill(free_kb):
+        total = _shutil.disk_usage(mnt).total
+        with open(mnt / "filler", "wb") as fh:
+            fh.write(b"\0" * (total - free_kb * 1024))
+        return mnt
+
+    try:
+        yield fill
+    finally:
+        subprocess.run(["umount", str(mnt)], capture_output=True)
+
+
+def test_full_disk_is_named_as_such(tmp_path, tiny_disk):
+    # with ~28 kB free the GeoPackage is the first file that does not fit: SQLite then
+    # reported "no such table: gpkg_contents"
+    dem = _plane_tif(tmp_path / "dem.tif")
+    disk = tiny_disk(28)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--out", disk / "out")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "no space left on device" in p.stderr.lower() and "route.gpkg" in p.stderr, p.stderr
+    assert ".fallway-" not in p.stderr  # the file is named where it was to go
+    assert sorted(x.name for x in disk.iterdir()) == ["filler"]
+
+
+def test_full_disk_fails_the_reach_map(tmp_path, tiny_disk):
+    # GDAL's libtiff reported the failed writes on stderr only: the run "succeeded" with a
+    # broken GeoTIFF
+    dem = _plane_tif(tmp_path / "dem.tif")
+    disk = tiny_disk(2)
+    p = run_cli("reach", dem, "--start", *START, "--out", disk / "reach.tif")
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "no space left on device" in p.stderr.lower(), p.stderr
+    assert sorted(x.name for x in disk.iterdir()) == ["filler"]
+
+
+def test_a_crawling_line_is_said_to_crawl(tmp_path):
+    # issue 19.12: --drag 1e9 "succeeded" with a line of 1e6 s at 5e-5 m/s, unremarked.
+    # On the 0.3 plane the mover is held at its terminal speed with quadratic drag,
+    # v_t = sqrt(g sin(theta) / k) (any mechanics text): 5.3e-5 m/s for k = 1e9 1/m
+    import math
+    import re
+
+    dem = _plane_tif(tmp_path / "dem.tif")
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--drag", "1e9", "--out", tmp_path / "crawl")
+    assert p.returncode == 0, p.stderr
+    lines = [ln for ln in p.stderr.splitlines() if "crawls" in ln]
+    assert len(lines) == 1 and "drag (1e+09 1/m)" in lines[0], p.stderr
+    mean = float(re.search(r"mean speed of ([0-9.e+-]+) m/s", lines[0]).group(1))
+    v_t = math.sqrt(9.80665 * math.sin(math.atan(0.3)) / 1e9)
+    assert mean == pytest.approx(v_t, rel=0.02)
+    p = run_cli("route", dem, *_pts(), "--no-refine", "--drag", "0.01", "--out", tmp_path / "fine")
+    assert p.returncode == 0 and "crawl" not in p.stderr, p.stderr

@@ -170,3 +170,121 @@ corridor_m = 8.0
         assert r["travel_time_s"] == pytest.approx(single.summary.travel_time_s, rel=1e-12)
         s = json.loads((tmp_path / "out" / r["name"] / "summary.json").read_text())
         assert s["search_plan"] == "corridor" and len(s["corridor"]["steps"]) >= 2
+
+
+# --------------------------------------------------------------------------- result sets (issue 19)
+
+def _cli(*args):
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, COLUMNS="200")
+    return subprocess.run([sys.executable, "-m", "fallway.cli", *map(str, args)], capture_output=True, text=True,
+                          timeout=300, env=env)
+
+
+SMALL = f"""
+[base]
+dem = "dem.tif"
+[base.points]
+start = {START}
+end = {ENDS[0]}
+[base.search]
+refine = false
+[base.mover]
+normal = "gravity"
+[vary]
+mover.mu = {MUS}
+"""
+
+
+def _tree(folder):
+    return {str(p.relative_to(folder)): (None if p.is_dir() else p.read_bytes()) for p in sorted(folder.rglob("*"))}
+
+
+def test_second_batch_is_refused_without_overwrite(site, tmp_path):
+    # issue 19.2: a second run replaced batch.csv and run-*/ without asking
+    d, _ = site
+    f = d / "small.toml"
+    f.write_text(SMALL)
+    out = tmp_path / "out"
+    p = _cli("batch", f, "--out", out, "--workers", 1)
+    assert p.returncode == 0, p.stderr
+    (out / "notes.txt").write_text("mine")
+    before = _tree(out)
+    p = _cli("batch", f, "--out", out, "--workers", 1)
+    assert p.returncode == 1, p.stderr
+    assert "Traceback" not in p.stderr and "--overwrite" in p.stderr and "batch.csv" in p.stderr, p.stderr
+    assert _tree(out) == before
+    # with --overwrite the earlier batch is replaced as a whole; the user's file stays
+    (d / "one.toml").write_text(SMALL.replace(f"mover.mu = {MUS}", "mover.mu = [0.1]"))
+    p = _cli("batch", d / "one.toml", "--out", out, "--workers", 1, "--overwrite")
+    assert p.returncode == 0, p.stderr
+    assert sorted(x.name for x in out.iterdir()) == ["batch.csv", "notes.txt", "run-001"]
+    assert [r["mover.mu"] for r in read_table(out / "batch.csv")] == ["0.1"]
+
+
+def test_run_failing_while_moving_its_files_leaves_no_partial_folder(site, tmp_path):
+    # issue 19.9: a run that failed after writing left summary.json and route.geojson
+    # without profile.csv (here the earlier run-001 holds a folder named profile.csv)
+    d, _ = site
+    f = d / "small.toml"
+    f.write_text(SMALL)
+    out = tmp_path / "out"
+    assert _cli("batch", f, "--out", out, "--workers", 1).returncode == 0
+    (out / "run-001" / "profile.csv").unlink()
+    (out / "run-001" / "profile.csv").mkdir()
+    p = _cli("batch", f, "--out", out, "--workers", 1, "--overwrite")
+    assert p.returncode == 0, p.stderr
+    rows = read_table(out / "batch.csv")
+    assert [r["status"] for r in rows] == ["ok", "ok"]
+    for r in rows:
+        assert sorted(x.name for x in (out / r["name"]).iterdir()) == ["profile.csv", "route.geojson",
+                                                                       "summary.json"]
+        assert (out / r["name"] / "profile.csv").is_file()
+
+
+def test_failing_writer_leaves_no_run_folder(site, tmp_path, monkeypatch):
+    # a writer that fails half way (a full disk): the run is an error row and has no folder
+    import fallway.export
+
+    from fallway.errors import FallwayIOError
+
+    d, _ = site
+    f = d / "small.toml"
+    f.write_text(SMALL)
+
+    def half(route, terrain, path):
+        path.write_text("station_m,x")
+        raise FallwayIOError(f"cannot write {path}: No space left on device")
+
+    monkeypatch.setattr(fallway.export, "write_profile_csv", half)
+    rows = run_batch(f, tmp_path / "out", workers=1)
+    assert [r["status"] for r in rows] == ["error", "error"]
+    assert sorted(x.name for x in (tmp_path / "out").iterdir()) == ["batch.csv"]
+
+
+@pytest.mark.parametrize("name", [".hidden", "../up", "a/b", "batch.csv", "-x", " lead", "trail."])
+def test_run_names_make_plain_visible_folders_only(site, tmp_path, name):
+    # issue 19.12: a run name must not create hidden folders (nor paths, nor the table's name)
+    d, _ = site
+    f = tmp_path / "names.toml"
+    f.write_text(f'[base]\ndem = "{(d / "dem.tif").as_posix()}"\n[[run]]\nname = {json.dumps(name)}\n')
+    p = _cli("batch", f, "--out", tmp_path / "out", "--workers", 1)
+    assert p.returncode == 1 and "run name" in p.stderr and "Traceback" not in p.stderr, p.stderr
+    assert not (tmp_path / "out").exists()
+    assert sorted(x.name for x in tmp_path.iterdir()) == ["names.toml"]
+
+
+def test_batch_csv_text_cells_are_neutralised(site, tmp_path):
+    # OWASP "CSV Injection": a varied text value starting with = is written with a quote
+    d, _ = site
+    f = tmp_path / "inject.toml"
+    f.write_text(f'[base]\n[base.points]\nstart = {START}\nend = {ENDS[0]}\n'
+                 '[vary]\ndem = ["=cmd|\' /C calc\'!A0.tif"]\n')
+    rows = run_batch(f, tmp_path / "out", workers=1)
+    assert rows[0]["status"] == "error"
+    table = read_table(tmp_path / "out" / "batch.csv")
+    assert table[0]["dem"] == "'=cmd|' /C calc'!A0.tif"
+    assert table[0]["error"] and not table[0]["error"].startswith(("=", "+", "-", "@"))

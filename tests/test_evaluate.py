@@ -600,23 +600,29 @@ def test_line_entering_keepout_is_flagged():
     assert {r.name: r.status for r in cmp.rows} == {"a": "keepout", "b": "ok"}
 
 
-def test_read_lines_chooses_or_asks_for_a_layer(tmp_path):
+def test_read_lines_reads_every_line_layer_or_the_named_ones(tmp_path):
+    # issue 19.4, the keep-out rule applied to candidate lines: no line is left out
+    # because it sits in a second layer, and a file with layers of other geometry must
+    # name the layers to read
     import pyogrio.raw
     import shapely
 
     p = tmp_path / "site.gpkg"
     line = np.array([shapely.to_wkb(shapely.LineString([(X0, Y0 - 5.0), (X0 + 50.0, Y0 - 90.0)]))], dtype=object)
     pt = np.array([shapely.to_wkb(shapely.Point(X0, Y0 - 5.0))], dtype=object)
-    pyogrio.raw.write(p, pt, [np.array(["bay"], dtype=object)], ["name"], layer="points", driver="GPKG",
-                      geometry_type="Point", crs="EPSG:32633")
     pyogrio.raw.write(p, line, [np.array(["east"], dtype=object)], ["name"], layer="lines", driver="GPKG",
                       geometry_type="LineString", crs="EPSG:32633")
-    assert [n for n, _ in read_lines(p)] == ["east"]  # the only line layer
     pyogrio.raw.write(p, line, [np.array(["west"], dtype=object)], ["name"], layer="more", driver="GPKG",
-                      geometry_type="LineString", crs="EPSG:32633")
-    with pytest.raises(ParameterError, match="3 layers"):
-        read_lines(p)
+                      geometry_type="LineString", crs="EPSG:32633", append=True)
+    assert [n for n, _ in read_lines(p)] == ["east", "west"]  # both line layers
     assert [n for n, _ in read_lines(p, layer="more")] == ["west"]
+    pyogrio.raw.write(p, pt, [np.array(["bay"], dtype=object)], ["name"], layer="points", driver="GPKG",
+                      geometry_type="Point", crs="EPSG:32633", append=True)
+    with pytest.raises(ParameterError, match=r"points \(Point\).*--lines-layer.*line layers: lines, more"):
+        read_lines(p)
+    assert [n for n, _ in read_lines(p, layer=["lines", "more"])] == ["east", "west"]
+    with pytest.raises(ParameterError, match="no layer 'roads'"):
+        read_lines(p, layer="roads")
 
 
 def test_sample_site_candidates_behave_as_its_readme_says():

@@ -86,7 +86,7 @@ def test_infinite_grade_limits_are_left_out_of_the_written_file():
     ({"line": {"kind": "flying"}}, r"line\.kind must be one of ground, raised"),
     ({"line": {"clearance": [5.0, 1.0]}}, r"line\.clearance must be \[min, max\]"),
     ({"points": {"start": [1.0]}}, r"points\.start must be a pair"),
-    ({"points": {"end": [1.0, math.nan]}}, r"points\.end must be finite"),
+    ({"points": {"end": [1.0, math.nan]}}, r"points\.end must be a finite number"),
     ({"limits": {"min_grade": 0.5, "max_grade": 0.1}}, r"limits\.min_grade \(0\.5\) must not exceed"),
     ({"envelope": {"mu_range": [0.3, 0.1]}}, r"envelope\.mu_range must be \[low, high\]"),
     ({"mover": 3}, r"mover must be a table"),
@@ -108,3 +108,57 @@ def test_broken_toml_is_one_clear_error(tmp_path):
 def test_writer_escapes_strings():
     text = dumps_toml({"dem": 'a "quoted" \\ path'})
     assert tomllib.loads(text)["dem"] == 'a "quoted" \\ path'
+
+
+# one rule for every value (issue 19.12): mu = "0.2" was read as a number while
+# neighbours = 16.0 was refused; now a quantity is a TOML number, a count a TOML
+# integer, a choice a string, a switch a boolean -- and nothing else, for every key
+_WRONG = {"number": ["0.2", True, [0.2]], "count": [16.0, "16", True], "text": [1, True], "flag": ["yes", 1]}
+
+
+def _typed_keys():
+    import dataclasses
+
+    from fallway.params import Limits, Mover
+    from fallway.scenario import kind_of
+
+    keys = [(("mover", f.name), kind_of(f.type)) for f in dataclasses.fields(Mover)]
+    keys += [(("limits", f.name), kind_of(f.type)) for f in dataclasses.fields(Limits)]
+    keys += [(("search", k), kind) for k, kind in (("neighbours", "count"), ("label_cap", "count"),
+                                                   ("coarse_factor", "count"), ("corridor_m", "number"),
+                                                   ("plan", "text"), ("refine", "flag"))]
+    keys += [(("line", k), kind) for k, kind in (("kind", "text"), ("start_height", "number"),
+                                                 ("end_height", "number"))]
+    keys += [(("band",), "count"), (("z_scale",), "number"), (("dem",), "text"), (("keepout",), "text"),
+             (("points", "lonlat"), "flag")]
+    return [(k, kind, bad) for k, kind in keys for bad in _WRONG[kind]]
+
+
+@pytest.mark.parametrize("key, kind, bad", _typed_keys(), ids=lambda v: str(v))
+def test_every_value_of_the_wrong_type_is_refused(key, kind, bad):
+    data: dict = {}
+    d = data
+    for part in key[:-1]:
+        d = d.setdefault(part, {})
+    d[key[-1]] = bad
+    with pytest.raises(ScenarioError, match=rf"^{'.'.join(key)} must be"):
+        Scenario.from_dict(data)
+
+
+@pytest.mark.parametrize("key, value", [(("mover", "mu"), ["0.2", 0.2]), (("points", "start"), [["1", 2], [1, 2]]),
+                                        (("envelope", "mu_range"), [["0.1", 0.2], [0.1, 0.2]]),
+                                        (("line", "clearance"), [[0, "5"], [0, 5]])])
+def test_numbers_inside_pairs_follow_the_same_rule(key, value):
+    bad, good = value
+    with pytest.raises(ScenarioError, match=rf"^{'.'.join(key)} must be"):
+        Scenario.from_dict({key[0]: {key[1]: bad}})
+    Scenario.from_dict({key[0]: {key[1]: good}})  # an integer is a number too
+
+
+def test_batch_options_follow_the_same_rule():
+    from fallway.batch import expand_batch
+
+    with pytest.raises(ScenarioError, match=r"options\.coarse_factor must be a whole number"):
+        expand_batch({"options": {"coarse_factor": 2.0}})
+    with pytest.raises(ScenarioError, match=r"options\.corridor_m must be a number"):
+        expand_batch({"options": {"corridor_m": "40"}})

@@ -12,29 +12,91 @@ Examples
 8.8574
 """
 
-from .caution import CAUTION
-from .errors import (FallwayError, FallwayIOError, NoFeasibleLine, OutputExistsError,
-                     ParameterError, RefinementWarning, ScenarioError, TerrainError)
-from .params import STANDARD_GRAVITY, Limits, LineSpec, Mover, SearchOptions
-from .terrain import Terrain, load_terrain
-from .physics import Profile, SegmentResult, normal_gravity, segment, traverse
-from .keepout import Keepout
-from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
-from .refine import refine_line
-from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line
-from .vector import read_lines
-from .routing import compare, find_route, reach
-from .scenario import Scenario, load_scenario
-from .export import (OutputSet, write_profile_csv, write_reach_geotiff, write_route_geojson, write_route_gpkg,
-                     write_summary_json)
-from .plot import comparison_figure, plot_map, plot_profile, save_figure
-from .report import write_report_html
-from .app import run_scenario
-from .batch import run_batch
+from __future__ import annotations
 
-from importlib.metadata import version as _version
+from importlib import import_module as _import_module
+from typing import TYPE_CHECKING
 
-__version__ = _version("fallway")
+if TYPE_CHECKING:  # the same names, for type checkers and editors
+    from .caution import CAUTION
+    from .errors import (FallwayError, FallwayIOError, NoFeasibleLine, OutputExistsError,
+                         ParameterError, RefinementWarning, ScenarioError, TerrainError)
+    from .params import STANDARD_GRAVITY, Limits, LineSpec, Mover, SearchOptions
+    from .terrain import Terrain, load_terrain
+    from .physics import Profile, SegmentResult, normal_gravity, segment, traverse
+    from .keepout import Keepout
+    from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
+    from .refine import refine_line
+    from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line
+    from .vector import read_lines
+    from .routing import compare, find_route, reach
+    from .scenario import Scenario, load_scenario
+    from .export import (OutputSet, write_profile_csv, write_reach_geotiff, write_route_geojson, write_route_gpkg,
+                         write_summary_json)
+    from .plot import comparison_figure, plot_map, plot_profile, save_figure
+    from .report import write_report_html
+    from .app import run_scenario
+    from .batch import run_batch
+
+# The public names load on first use (PEP 562): `import fallway` and the command line
+# start in milliseconds, and the command line's signal handling is in place before
+# the numerical stack is imported (Ctrl-C during start-up exits 130, no traceback).
+_EXPORTS = {
+    "CAUTION": "caution",
+    "FallwayError": "errors",
+    "FallwayIOError": "errors",
+    "NoFeasibleLine": "errors",
+    "OutputExistsError": "errors",
+    "ParameterError": "errors",
+    "RefinementWarning": "errors",
+    "ScenarioError": "errors",
+    "TerrainError": "errors",
+    "STANDARD_GRAVITY": "params",
+    "Mover": "params",
+    "Limits": "params",
+    "LineSpec": "params",
+    "SearchOptions": "params",
+    "Terrain": "terrain",
+    "load_terrain": "terrain",
+    "Profile": "physics",
+    "SegmentResult": "physics",
+    "normal_gravity": "physics",
+    "segment": "physics",
+    "traverse": "physics",
+    "Keepout": "keepout",
+    "LatticeLine": "results",
+    "ReachMap": "results",
+    "RefineCandidate": "results",
+    "RefineResult": "results",
+    "Route": "results",
+    "RouteSummary": "results",
+    "refine_line": "refine",
+    "Comparison": "evaluate",
+    "Envelope": "evaluate",
+    "LineResult": "evaluate",
+    "drape": "evaluate",
+    "envelope": "evaluate",
+    "evaluate_line": "evaluate",
+    "read_lines": "vector",
+    "find_route": "routing",
+    "reach": "routing",
+    "compare": "routing",
+    "Scenario": "scenario",
+    "load_scenario": "scenario",
+    "OutputSet": "export",
+    "write_profile_csv": "export",
+    "write_reach_geotiff": "export",
+    "write_route_geojson": "export",
+    "write_route_gpkg": "export",
+    "write_summary_json": "export",
+    "comparison_figure": "plot",
+    "plot_map": "plot",
+    "plot_profile": "plot",
+    "save_figure": "plot",
+    "write_report_html": "report",
+    "run_scenario": "app",
+    "run_batch": "batch",
+}
 
 __all__ = [
     "CAUTION", "FallwayError", "FallwayIOError", "NoFeasibleLine", "OutputExistsError", "ParameterError",
@@ -53,3 +115,21 @@ __all__ = [
     "comparison_figure", "plot_map", "plot_profile", "save_figure", "write_report_html",
     "run_scenario", "run_batch",
 ]
+
+
+def __getattr__(name: str):
+    if name == "__version__":
+        from importlib.metadata import version
+
+        globals()[name] = value = version("fallway")
+        return value
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'fallway' has no attribute {name!r}")
+    value = getattr(_import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

@@ -20,14 +20,26 @@ from pathlib import Path
 from .errors import ParameterError, TerrainError
 from .params import checked_options
 
-__all__ = ["Site", "resolve_site", "run_scenario", "run_compare", "run_reach", "run_demo", "ROUTE_FILES",
-           "CORE_FILES"]
+__all__ = ["Site", "resolve_site", "run_scenario", "write_scenario", "run_compare", "run_reach", "run_demo",
+           "ROUTE_FILES", "CORE_FILES", "COMPARE_FILES", "DEMO_FILES"]
 
 #: The files a route run writes (``outputs="full"``).
 ROUTE_FILES = ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "map.png", "map.svg",
                "profile.png", "profile.svg", "report.html")
 #: The files of a batch run (``outputs="core"``).
 CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
+#: The files ``compare`` writes.
+COMPARE_FILES = ("comparison.csv", "comparison.png", "comparison.svg", "report.html")
+#: The files the demo writes.
+DEMO_FILES = ROUTE_FILES + ("reach.tif", "comparison.csv", "comparison.png", "comparison.svg")
+#: Mean speed (m/s) below which a line counts as a crawl when the mover has no stall speed.
+#: 1 cm/s, 100 s per metre: far below any chute, conveyor, slide or cable line in use, so
+#: only a line that a real load would never finish (drag so high that the terminal speed
+#: is tiny, friction that just balances the slope) is flagged.  A judgment, not a standard.
+CRAWL_SPEED_M_S = 0.01
+# the result names of a route run: every file it can write (run.json only with timings),
+# so an overwrite also removes a stale run.json of an earlier run
+_ROUTE_RESULTS = ROUTE_FILES + ("run.json",)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -55,12 +67,12 @@ class Site:
     crs: object
 
 
-def load_area(dem, bounds):
+def load_area(dem, bounds, *, band: int | None = None, z_scale: float | None = None):
     """:func:`fallway.terrain.load_terrain` with a too-large area refused in plain terms."""
     from .terrain import load_terrain
 
     try:
-        return load_terrain(dem, bounds=bounds)
+        return load_terrain(dem, bounds=bounds, band=band or 1, z_scale=z_scale)
     except TerrainError as err:
         head, sep, tail = str(err).partition("; pass bounds=")
         if not sep:
@@ -72,16 +84,34 @@ def load_area(dem, bounds):
                            ) from err
 
 
-def _load_covering(dem, points):
-    """The DEM around (x, y) points in its own CRS (all of it for a geographic DEM or no points)."""
-    from .points import dem_crs
+def _load_covering(sc, points, labels=None):
+    """The scenario's DEM around (x, y) points in its own CRS (all of it for a geographic DEM or no points).
 
+    ``labels`` name the points for the message when one lies outside the DEM (default:
+    the candidate lines, which are refused only when they miss the DEM entirely).
+    """
+    from .points import dem_header
+
+    head = dem_header(sc.dem)
     bounds = None
-    if points and not dem_crs(dem).is_geographic:
+    if points and not head["crs"].is_geographic:
         xs = [float(p[0]) for p in points]
         ys = [float(p[1]) for p in points]
+        left, bottom, right, top = head["bounds"]
+        where = f"{sc.dem} (its bounds are {left:.6g}, {bottom:.6g}, {right:.6g}, {top:.6g} in its CRS)"
+        if labels is not None:
+            for label, x, y in zip(labels, xs, ys):
+                if not (left <= x <= right and bottom <= y <= top):
+                    raise TerrainError(f"{label} ({x:.3f}, {y:.3f}) lies outside {where}; give a point on the DEM")
+        elif max(xs) < left or min(xs) > right or max(ys) < bottom or min(ys) > top:
+            raise TerrainError(f"the candidate lines lie outside {where}; check the lines' CRS")
         bounds = (min(xs), min(ys), max(xs), max(ys))
-    return load_area(dem, bounds)
+    return load_area(sc.dem, bounds, band=sc.band, z_scale=sc.z_scale)
+
+
+def _point_labels(sc) -> list[str]:
+    return (["start"] + [f"via point {i}" for i in range(1, len(sc.via) + 1)]
+            + (["end"] if sc.end is not None else []))
 
 
 def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=None, load: bool = False) -> Site:
@@ -100,35 +130,62 @@ def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=No
     load : bool
         Load the terrain around the points now (otherwise a projected DEM is passed on as
         its path, and the search plan reads the windows it needs).  A geographic DEM is
-        always loaded (reprojected to its UTM zone).
+        always loaded (reprojected to its UTM zone), and so is a DEM read from another
+        band than the first or with a given height scale (``sc.band``, ``sc.z_scale``).
+
+    Warns
+    -----
+    InputWarning
+        The DEM has several bands and the scenario names none: band 1 is read.
     """
-    from .keepout import Keepout
-    from .points import WGS84, dem_crs, to_terrain_crs
+    import warnings
+
+    from .errors import InputWarning
+    from .points import WGS84, dem_header, to_terrain_crs
 
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
+    head = dem_header(sc.dem)
+    if sc.band is None and head["count"] > 1:
+        warnings.warn(InputWarning(f"{sc.dem} has {head['count']} bands; heights are read from band 1 "
+                                   "(--band N, or band in the scenario, to choose another)"), stacklevel=2)
     if not need_start:
-        terrain = _load_covering(sc.dem, cover or ())
-        keepout = Keepout.from_file(sc.keepout).in_crs(terrain.crs) if sc.keepout is not None else None
+        terrain = _load_covering(sc, cover or ())
+        keepout = _keepout(sc, terrain.crs)
         return Site(terrain=terrain, start=None, end=None, via=(), keepout=keepout, crs=terrain.crs)
     if sc.start is None:
         raise ParameterError("no start point: pass --start X Y or set points.start in the scenario")
     if need_end and sc.end is None:
         raise ParameterError("no end point: pass --end X Y or set points.end in the scenario")
-    src_crs = dem_crs(sc.dem)
+    src_crs = head["crs"]
     pts = [sc.start] + list(sc.via) + ([sc.end] if sc.end is not None else [])
     given = WGS84 if (sc.lonlat or src_crs.is_geographic) else src_crs
+    load = load or (sc.band or 1) != 1 or sc.z_scale is not None
     if src_crs.is_geographic or load or cover:
-        native = to_terrain_crs(pts, given, src_crs) + [tuple(map(float, p)) for p in (cover or ())]
-        terrain = _load_covering(sc.dem, native if need_end else ())
+        more = [tuple(map(float, p)) for p in (cover or ())]
+        if need_end:
+            covered = to_terrain_crs(pts, given, src_crs) + more
+            labels = _point_labels(sc) + ["a candidate line"] * len(more)
+        else:  # a reach maps the whole DEM
+            covered, labels = more, None
+        terrain = _load_covering(sc, covered, labels)
         crs = terrain.crs
     else:
         terrain = Path(sc.dem)
         crs = src_crs
     pts = to_terrain_crs(pts, given, crs)
-    keepout = Keepout.from_file(sc.keepout).in_crs(crs) if sc.keepout is not None else None
+    keepout = _keepout(sc, crs)
     end = pts[-1] if sc.end is not None else None
     return Site(terrain=terrain, start=pts[0], end=end, via=tuple(pts[1:1 + len(sc.via)]), keepout=keepout, crs=crs)
+
+
+def _keepout(sc, crs):
+    """The scenario's keep-out areas in ``crs`` (None without a keep-out file)."""
+    from .keepout import Keepout
+
+    if sc.keepout is None:
+        return None
+    return Keepout.from_file(sc.keepout, layer=sc.keepout_layers or None).in_crs(crs)
 
 
 def _route_of(sc, site: Site, *, robust: bool):
@@ -136,9 +193,37 @@ def _route_of(sc, site: Site, *, robust: bool):
 
     if robust and sc.mu_range is None:
         raise ParameterError("a robust line needs a friction range: --mu-range LO HI (or envelope.mu_range)")
-    return find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
-                      keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
-                      robust=robust)
+    route = find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
+                       keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
+                       robust=robust)
+    _warn_if_crawling(route)
+    return route
+
+
+def _warn_if_crawling(route) -> None:
+    """A :class:`~fallway.errors.CrawlWarning` when the line's mean speed is below :data:`CRAWL_SPEED_M_S`.
+
+    Why a warning and not a stall speed above zero by default: a default stall speed
+    would change the numbers of every existing scenario silently, and it would not even
+    catch the case -- a mover stalls where it *slows* below the stall speed, and one
+    held near a tiny terminal speed by drag never gets above it to slow down (the
+    ``--drag 1e9`` line: 57 m in 1e6 s).  The warning changes no number and says what
+    is wrong.
+    """
+    import warnings
+
+    from .errors import CrawlWarning
+
+    s = route.summary
+    t, length = s.travel_time_s, s.length_m
+    if t is None or not t > 0:
+        return
+    mean = length / t
+    if mean < CRAWL_SPEED_M_S:
+        m = route.mover
+        warnings.warn(CrawlWarning(
+            f"the line crawls: {length:.1f} m in {t:.0f} s, a mean speed of {mean:.2g} m/s; no real load would "
+            f"finish it: check the drag ({m.drag:g} 1/m) and friction ({m.mu:g})"), stacklevel=2)
 
 
 @checked_options
@@ -163,14 +248,27 @@ def run_scenario(sc, out_dir, *, overwrite: bool = False, robust: bool = False, 
 
     if outputs not in ("full", "core"):
         raise ParameterError(f"outputs must be 'full' or 'core', got {outputs!r}")
-    with OutputSet(out_dir, overwrite=overwrite) as outs:  # refuses early, before the work
-        route = _route_of(sc, resolve_site(sc), robust=robust)
-        written = write_route(outs, sc, route, timings=timings, core_only=outputs == "core")
-    return route, written
+    names = _ROUTE_RESULTS if outputs == "full" else CORE_FILES
+    with OutputSet(out_dir, overwrite=overwrite, result_names=names) as outs:  # refuses early, before the work
+        return write_scenario(outs, sc, robust=robust, timings=timings, outputs=outputs)
+
+
+def write_scenario(outs, sc, *, robust: bool = False, timings: bool = False, outputs: str = "full"):
+    """Find the scenario's route and write it into an open output set; returns ``(route, names)``."""
+    route = _route_of(sc, resolve_site(sc), robust=robust)
+    return route, write_route(outs, sc, route, timings=timings, core_only=outputs == "core")
 
 
 def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool = False, core_only: bool = False):
     """Every output file of one route into an open output set; returns the names written."""
+    from .export import reproducible_figures
+
+    with reproducible_figures():
+        return _write_route(outs, sc, route, reach=reach, comparison=comparison, timings=timings,
+                            core_only=core_only)
+
+
+def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     from . import export, plot, report
 
     terrain = route.terrain
@@ -211,10 +309,14 @@ def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool =
 
 
 @checked_options
-def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: bool = True, optimum: bool = True):
-    """Time and rank the candidate lines of a file on the scenario's DEM; returns the Comparison."""
+def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: bool = True, optimum: bool = True,
+                lines_layers=()):
+    """Time and rank the candidate lines of a file on the scenario's DEM; returns the Comparison.
+
+    ``lines_layers``: the layers of the lines file to read (default every line layer).
+    """
     from . import plot, report
-    from .export import OutputSet
+    from .export import OutputSet, reproducible_figures
     from .points import dem_crs
     from .routing import compare
     from .vector import read_lines
@@ -222,16 +324,18 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
     if sc.dem is None:
         raise ParameterError("no DEM given: pass it as the first argument or as dem in the scenario")
     src = dem_crs(sc.dem)
-    with OutputSet(out_dir, overwrite=overwrite) as outs:
-        lines = read_lines(lines_path, crs=src)
+    with OutputSet(out_dir, overwrite=overwrite, result_names=COMPARE_FILES) as outs:
+        layer = tuple(lines_layers) or None
+        lines = read_lines(lines_path, crs=src, layer=layer)
         site = resolve_site(sc, need_start=False, cover=[tuple(p[:2]) for _, line in lines for p in line])
         terrain = site.terrain
         if terrain.crs != src:
-            lines = read_lines(lines_path, crs=terrain.crs)
+            lines = read_lines(lines_path, crs=terrain.crs, layer=layer)
         cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, optimum=optimum,
                       search=sc.search, refine=refine, mu_range=sc.mu_range)
         cmp.to_csv(outs.path("comparison.csv"))
-        plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=site.keepout), outs.path("comparison.png"))
+        with reproducible_figures():
+            plot.save_figure(plot.comparison_figure(terrain, cmp, keepout=site.keepout), outs.path("comparison.png"))
         outs.path("comparison.svg")
         report.write_comparison_html(cmp, outs.path("report.html"), comparison_png=outs.path("comparison.png"),
                                      parameters=sc.to_dict())
@@ -242,16 +346,15 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
 def run_reach(sc, out_path, *, overwrite: bool = False, max_time_s: float | None = None,
               max_distance_m: float | None = None):
     """Map arrival time and speed from the scenario's start; writes one GeoTIFF and returns the ReachMap."""
-    from .errors import OutputExistsError
     from .export import OutputSet, write_reach_geotiff
     from .routing import reach
 
     out = Path(out_path)
-    if out.exists() and not overwrite:
-        raise OutputExistsError(f"{out} exists; pass --overwrite to replace it")
-    site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
+    if out.suffix.lower() not in (".tif", ".tiff"):
+        raise ParameterError(f"the reach map is a GeoTIFF: give --out a .tif name, not {out.name!r}")
     # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
-    with OutputSet(out.parent, overwrite=True, result_names=(out.name,)) as outs:
+    with OutputSet(out.parent, overwrite=overwrite, result_names=(out.name,)) as outs:
+        site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
         rm = reach(site.terrain, site.start, sc.mover, limits=sc.limits, keepout=site.keepout, search=sc.search,
                    max_time_s=max_time_s, max_distance_m=max_distance_m)
         write_reach_geotiff(rm, outs.path(out.name))
@@ -273,7 +376,7 @@ def run_demo(out_dir, *, overwrite: bool = False):
         sc = load_scenario(Path(site_dir) / "scenario.toml")
         lines_path = Path(site_dir) / "lines.geojson"
         cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
-        with OutputSet(out_dir, overwrite=overwrite) as outs:
+        with OutputSet(out_dir, overwrite=overwrite, result_names=DEMO_FILES) as outs:
             site = resolve_site(sc, cover=cover)
             route = _route_of(sc, site, robust=False)
             terrain = route.terrain

@@ -28,10 +28,20 @@ Keys under ``[vary]`` are dotted paths into the scenario (``mover.mu``, ``points
 ``line.kind``, ``search.neighbours``...), each a list of values.  Product runs are named
 ``run-001``, ``run-002``... in the order of the product (the last key varies fastest).
 
+Run names (``[[run]] name``) are plain folder names: they start with a letter or digit
+and hold letters, digits, ``.``, ``-``, ``_`` and spaces (no hidden folders, no paths).
+
 Each run writes ``summary.json``, ``route.geojson`` and ``profile.csv`` into
-``out_dir/<name>/``; a run that fails records its one-line error.  All runs end up in
-``out_dir/batch.csv``: name, the varied parameters, travel_time_s, lattice_time_s,
-exit_speed_m_s, status ("ok" or "error") and error.
+``out_dir/<name>/``; a run that fails records its one-line error and leaves no folder.
+All runs end up in ``out_dir/batch.csv``: name, the varied parameters, travel_time_s,
+lattice_time_s, exit_speed_m_s, status ("ok" or "error") and error.
+
+The whole batch is one :class:`~fallway.export.OutputSet`: the run folders are written
+into its working folder and appear together with ``batch.csv`` when every run has
+ended, or not at all (an error, Ctrl-C, SIGTERM).  Earlier results (``batch.csv``, a
+run folder of the same name) are refused unless ``overwrite`` is given; then they are
+replaced, together with the run folders the earlier ``batch.csv`` lists, so a folder
+never mixes two batches.  Other files in ``out_dir`` stay.
 """
 
 from __future__ import annotations
@@ -41,6 +51,7 @@ import csv
 import itertools
 import math
 import os
+import re
 import tomllib
 from pathlib import Path
 
@@ -50,6 +61,11 @@ __all__ = ["run_batch", "expand_batch", "BATCH_COLUMNS"]
 
 #: Fixed columns of batch.csv (the varied parameters come between name and these).
 BATCH_COLUMNS = ("travel_time_s", "lattice_time_s", "exit_speed_m_s", "status", "error")
+
+# a run name: a letter or digit first, then letters, digits, '.', '-', '_' or spaces
+_RUN_NAME = re.compile(r"[^\W_][\w.\- ]{0,99}")
+#: The table of a batch run, beside the run folders.
+BATCH_TABLE = "batch.csv"
 
 _OPTION_KEYS = ("plan", "coarse_factor", "corridor_m", "max_widen", "widen_tol", "label_cap", "energy_tol",
                 "max_labels", "heuristic")
@@ -93,7 +109,10 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     >>> [(r["name"], r["params"]["mover.mu"], r["params"]["points.end"]) for r in runs][:2]
     [('run-001', 0.1, [9, 0]), ('run-002', 0.1, [9, 1])]
     """
-    from .scenario import Scenario
+    import dataclasses
+
+    from .params import SearchOptions
+    from .scenario import Scenario, check_value, kind_of
 
     unknown = sorted(set(data) - {"base", "vary", "run", "options"})
     if unknown:
@@ -108,10 +127,14 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     explicit = data.get("run", [])
     if not isinstance(explicit, list):
         raise ScenarioError("[[run]] entries must be tables (use [[run]], not [run])")
-    options = dict(data.get("options", {}))
+    options = data.get("options", {})
+    if not isinstance(options, dict):
+        raise ScenarioError("[options] must be a table of search options")
     bad = sorted(set(options) - set(_OPTION_KEYS))
     if bad:
         raise ScenarioError(f"unknown batch option {bad[0]}; allowed: {', '.join(_OPTION_KEYS)}")
+    kinds = {f.name: kind_of(f.type) for f in dataclasses.fields(SearchOptions)}
+    options = {k: check_value(f"options.{k}", v, kinds[k]) for k, v in options.items()}  # the scenario's rule
     runs = []
     keys = list(vary)
     if keys:
@@ -132,8 +155,7 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     if dup:
         raise ScenarioError(f"run name {dup[0]} appears twice; give every [[run]] its own name")
     for r in runs:
-        if os.sep in r["name"] or r["name"] in (".", ".."):
-            raise ScenarioError(f"run name {r['name']!r} must be a plain folder name")
+        _check_run_name(r["name"])
         try:
             Scenario.from_dict(r["scenario"], base_dir=base_dir)
         except ScenarioError as err:
@@ -141,11 +163,25 @@ def expand_batch(data: dict, *, base_dir=None) -> tuple[list[dict], dict]:
     return runs, options
 
 
+def _check_run_name(name: str) -> None:
+    if (not _RUN_NAME.fullmatch(name) or name.endswith((".", " "))
+            or name.lower() == BATCH_TABLE):
+        raise ScenarioError(f"run name {name!r} must be a plain folder name: a letter or digit first, then "
+                            "letters, digits, '.', '-', '_' or spaces (at most 100), not ending in '.' or a space, "
+                            f"not {BATCH_TABLE}")
+
+
 def run_one(spec: dict) -> dict:
-    """Run one batch entry (picklable in and out); a failed run is a row with its error."""
+    """Run one batch entry (picklable in and out); a failed run is a row with its error.
+
+    The run's files go into ``spec["out_dir"]/<name>/`` as one output set; that folder's
+    parent (the batch's working folder) must exist: a run that outlives an interrupted
+    batch fails instead of creating it again.
+    """
     import dataclasses
 
-    from .app import run_scenario
+    from .app import CORE_FILES, write_scenario
+    from .export import OutputSet
     from .scenario import Scenario
 
     row = {"name": spec["name"], **{k: _cell(v) for k, v in spec["params"].items()}}
@@ -154,7 +190,8 @@ def run_one(spec: dict) -> dict:
         opts = dict(spec.get("options", {}))
         if opts:
             sc = dataclasses.replace(sc, search=dataclasses.replace(sc.search, **opts))  # validated
-        r, _ = run_scenario(sc, Path(spec["out_dir"]) / spec["name"], overwrite=True, outputs="core")
+        with OutputSet(Path(spec["out_dir"]) / spec["name"], result_names=CORE_FILES, make_parents=False) as outs:
+            r, _ = write_scenario(outs, sc, outputs="core")
         s = r.summary
         row.update(travel_time_s=s.travel_time_s, lattice_time_s=s.lattice_time_s,
                    exit_speed_m_s=s.exit_speed_m_s, status="ok", error="")
@@ -171,7 +208,8 @@ def _cell(v):
     return v
 
 
-def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=None) -> list[dict]:
+def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=None,
+              overwrite: bool = False) -> list[dict]:
     """Run every scenario of a batch file; write per-run outputs and ``batch.csv``.
 
     Parameters
@@ -186,6 +224,8 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
     scheduler : str or dask.distributed.Client, optional
         A Dask scheduler address (``"tcp://host:8786"``) or a client: the runs go to
         that cluster (needs ``dask[distributed]``).
+    overwrite : bool
+        Replace the results of an earlier batch in ``out_dir`` (module notes).
 
     Returns
     -------
@@ -196,9 +236,13 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
     ------
     FallwayIOError
         The batch file is missing or not valid TOML.
+    OutputExistsError
+        ``out_dir`` holds results of an earlier batch and ``overwrite`` is False.
     ScenarioError
         A run's scenario does not validate (nothing is run).
     """
+    from .export import OutputSet
+
     p = Path(os.fspath(scenarios_path))
     if not p.is_file():
         raise FallwayIOError(f"batch file not found: {p}; check the path")
@@ -208,27 +252,60 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
         raise ScenarioError(f"{p} is not valid TOML: {err}") from None
     base_dir = str(p.resolve().parent)
     runs, options = expand_batch(data, base_dir=base_dir)
+    n = (os.cpu_count() or 1) if workers is None else int(workers)
+    if scheduler is None and n < 1:
+        from .errors import ParameterError
+        raise ParameterError(f"workers must be >= 1, got {workers}")
     out = Path(os.fspath(out_dir))
-    out.mkdir(parents=True, exist_ok=True)
-    specs = [{**r, "base_dir": base_dir, "out_dir": str(out), "options": options} for r in runs]
-    if scheduler is not None:
-        rows = _run_dask(specs, scheduler)
-    else:
-        n = (os.cpu_count() or 1) if workers is None else int(workers)
-        if n < 1:
-            from .errors import ParameterError
-            raise ParameterError(f"workers must be >= 1, got {workers}")
-        if n == 1 or len(specs) == 1:
+    names = [r["name"] for r in runs]
+    earlier = [m for m in _earlier_runs(out / BATCH_TABLE) if m not in names] if overwrite else []
+    with OutputSet(out, overwrite=overwrite, result_names=(BATCH_TABLE,), result_dirs=names + earlier) as outs:
+        for name in names:  # a failed run leaves no folder: optional
+            outs.path(name, optional=True)
+        work = str(outs.tmp_dir)
+        specs = [{**r, "base_dir": base_dir, "out_dir": work, "options": options} for r in runs]
+        if scheduler is not None:
+            rows = _run_dask(specs, scheduler)
+        elif n == 1 or len(specs) == 1:
             rows = [run_one(s) for s in specs]
         else:
             import multiprocessing
             from concurrent.futures import ProcessPoolExecutor
 
             ctx = multiprocessing.get_context("spawn")  # no fork of a process holding threads
-            with ProcessPoolExecutor(max_workers=min(n, len(specs)), mp_context=ctx) as ex:
+            with ProcessPoolExecutor(max_workers=min(n, len(specs)), mp_context=ctx,
+                                     initializer=_quiet_worker) as ex:
                 rows = list(ex.map(run_one, specs))
-    _write_table(rows, runs, out / "batch.csv")
+        _write_table(rows, runs, outs.path(BATCH_TABLE))
     return rows
+
+
+def _quiet_worker() -> None:
+    """Workers leave Ctrl-C and hang-ups to the main process, which stops them and cleans up."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, signal.SIG_IGN)
+
+
+def _earlier_runs(table: Path) -> list[str]:
+    """Run names an earlier batch.csv lists (plain run names only; none if it cannot be read)."""
+    try:
+        with open(table, newline="", encoding="utf-8") as fh:
+            names = [row.get("name") or "" for row in csv.DictReader(fh)]
+    except FileNotFoundError:
+        return []
+    except (OSError, UnicodeDecodeError, csv.Error):  # not a table this command wrote: nothing to add
+        return []
+    out = []
+    for name in names:
+        try:
+            _check_run_name(name)
+        except ScenarioError:
+            continue
+        out.append(name)
+    return out
 
 
 def _run_dask(specs, scheduler):
@@ -248,22 +325,27 @@ def _run_dask(specs, scheduler):
 
 
 def _write_table(rows, runs, path):
+    from .evaluate import csv_text
+    from .export import atomic_write
+
     params = []
     for r in runs:
         for k in r["params"]:
             if k not in params:
                 params.append(k)
     cols = ["name", *params, *BATCH_COLUMNS]
-    tmp = Path(str(path) + ".tmp")
-    with open(tmp, "w", newline="", encoding="utf-8") as fh:
-        w = csv.DictWriter(fh, fieldnames=cols, extrasaction="ignore")
-        w.writeheader()
+    with atomic_write(path) as fh:
+        w = csv.writer(fh, lineterminator="\r\n")
+        w.writerow([csv_text(c) for c in cols])
         for row in rows:
-            w.writerow({c: ("" if row.get(c) is None else _fmt(row.get(c))) for c in cols})
-    os.replace(tmp, path)
+            w.writerow(["" if row.get(c) is None else _fmt(row.get(c), csv_text) for c in cols])
 
 
-def _fmt(v):
+def _fmt(v, text):
+    if isinstance(v, bool):
+        return str(v)
     if isinstance(v, float):
         return "" if not math.isfinite(v) else repr(v)
-    return v
+    if isinstance(v, int):
+        return str(v)
+    return text(str(v))

@@ -36,20 +36,63 @@ def _fail(message: str, code: int) -> None:
 
 _INTERRUPTED = "interrupted; no partial outputs were left"
 
+#: Signals that end a run cleanly, with their exit codes: 128 + the signal number, as
+#: shells report a process ended by a signal (POSIX `wait` status; common practice for
+#: programs that catch the signal and exit themselves).
+_EXIT_SIGNALS = {"SIGINT": 130, "SIGTERM": 143, "SIGHUP": 129}
+# set once a signal handler has begun to end the process: the main thread then waits
+# for it instead of reporting the failures the clean-up causes (e.g. killed workers)
+_ENDING = threading.Event()
+
+
+def _end_on_signal(signum: int) -> None:
+    """Stop worker processes, remove the working folders of the open output sets, exit 128 + N."""
+    from .export import _ACTIVE_LOCK, abort_active_outputs
+
+    _ENDING.set()
+    with _ACTIVE_LOCK:  # also keeps the main thread out of its own clean-up meanwhile
+        mp = sys.modules.get("multiprocessing")
+        if mp is not None:  # batch workers: stopped before their folders are removed
+            children = mp.active_children()
+            for child in children:
+                with contextlib.suppress(Exception):
+                    child.kill()
+            for child in children:
+                with contextlib.suppress(Exception):
+                    child.join(timeout=5.0)
+        abort_active_outputs()
+        name = signal.Signals(signum).name
+        what = _INTERRUPTED if signum == signal.SIGINT else f"stopped by {name}; no partial outputs were left"
+        with contextlib.suppress(Exception):
+            sys.stderr.write(f"fallway: error: {what}\n")
+            sys.stderr.flush()
+        os._exit(_EXIT_SIGNALS[name])
+
 
 @contextlib.contextmanager
-def _sigint_exits():
-    """Ctrl-C (SIGINT) removes the temporary outputs and exits 130 at once.
+def _signals_exit():
+    """Ctrl-C (SIGINT), SIGTERM and SIGHUP remove the temporary outputs and exit 130, 143, 129.
 
     The search runs in compiled code that a KeyboardInterrupt must not unwind (numba
-    turns it into a crash), so SIGINT is not raised in the main thread: Python's C
-    handler wakes a watcher thread through :func:`signal.set_wakeup_fd`, which removes
-    the temporary folders of the output sets being written (waiting for a commit in
-    progress) and ends the process.  Only in the main thread, and only while SIGINT has
-    Python's default handler.
+    turns it into a crash), so no exception is raised in the main thread: a no-op Python
+    handler lets the C handler wake a watcher thread through :func:`signal.set_wakeup_fd`,
+    which stops worker processes, removes the working folders of the output sets being
+    written (waiting for a commit in progress) and folders they created, and ends the
+    process.  Only in the main thread, and only for signals still at their default
+    disposition (SIGINT: Python's KeyboardInterrupt handler).
     """
-    if (threading.current_thread() is not threading.main_thread()
-            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    ours = []
+    for name in _EXIT_SIGNALS:
+        sig = getattr(signal, name, None)
+        if sig is None:
+            continue
+        default = signal.default_int_handler if sig == signal.SIGINT else signal.SIG_DFL
+        if signal.getsignal(sig) is default:
+            ours.append(sig)
+    if not ours:
         yield
         return
     rsock, wsock = socket.socketpair()
@@ -70,22 +113,18 @@ def _sigint_exits():
                 return
             if not data or 0 in data:  # closed, or the stop byte
                 return
-            if signal.SIGINT in data:
-                from .export import abort_active_outputs
+            for b in data:
+                if b in ours:
+                    _end_on_signal(b)
 
-                abort_active_outputs()
-                with contextlib.suppress(Exception):
-                    sys.stderr.write(f"fallway: error: {_INTERRUPTED}\n")
-                    sys.stderr.flush()
-                os._exit(130)
-
-    old_handler = signal.signal(signal.SIGINT, lambda signum, frame: None)
-    watcher = threading.Thread(target=watch, name="fallway-sigint", daemon=True)
+    old = {sig: signal.signal(sig, lambda signum, frame: None) for sig in ours}
+    watcher = threading.Thread(target=watch, name="fallway-signals", daemon=True)
     watcher.start()
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, old_handler)
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
         signal.set_wakeup_fd(old_fd)
         with contextlib.suppress(OSError):
             wsock.send(b"\0")
@@ -94,19 +133,26 @@ def _sigint_exits():
         wsock.close()
 
 
+def _log_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Library warnings become one log line each, when they happen."""
+    log.warning("%s", str(message).splitlines()[0])
+
+
 def _guard(fn):
     """Translate library errors into one-line messages and exit codes."""
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         try:
-            with _sigint_exits(), warnings.catch_warnings(record=True) as caught:
+            with _signals_exit(), warnings.catch_warnings():
                 warnings.simplefilter("always", RefinementWarning)
+                warnings.showwarning = _log_warning
                 try:
                     return fn(*args, **kwargs)
-                finally:
-                    for w in caught:  # library warnings become one log line each
-                        log.warning("%s", str(w.message).splitlines()[0])
+                except BaseException:
+                    if _ENDING.is_set():  # a signal handler is ending the process: leave it the last word
+                        threading.Event().wait()
+                    raise
         except NoFeasibleLine as err:
             msg = str(err)
             if err.closest is not None:
@@ -144,8 +190,10 @@ def _setup_logging(quiet: bool, verbose: int) -> None:
     logging.getLogger("rasterio").setLevel(logging.NOTSET if verbose else logging.ERROR)
 
 
-class _FloatPair(click.ParamType):
-    name = "X Y"
+def _tif_name(ctx, param, value):
+    if value is not None and Path(value).suffix.lower() not in (".tif", ".tiff"):
+        raise click.BadParameter(f"the reach map is a GeoTIFF: give a .tif name, not {Path(value).name!r}")
+    return value
 
 
 def _common_options(fn):
@@ -153,6 +201,10 @@ def _common_options(fn):
     opts = [
         click.option("--scenario", "scenario_path", type=click.Path(dir_okay=False), help="TOML scenario; flags override it."),
         click.option("--lonlat", is_flag=True, default=None, help="Points are WGS 84 longitude latitude, whatever the DEM's CRS."),
+        click.option("--band", type=click.IntRange(min=1), help="The DEM band holding the heights (default 1)."),
+        click.option("--z-scale", "z_scale", type=click.FloatRange(min=0.0, min_open=True),
+                     help="Metres per height unit of the DEM (0.3048 for feet; default: the unit the DEM "
+                          "declares, metres when none)."),
         click.option("--mu", type=float, help="Coulomb friction coefficient (sliding or rolling)."),
         click.option("--drag", type=float, help="Quadratic drag coefficient k in 1/m (rho*Cd*A/2m)."),
         click.option("--v0", type=float, help="Speed at the start, m/s."),
@@ -166,7 +218,10 @@ def _common_options(fn):
         click.option("--max-speed", type=float, help="Speed limit, m/s."),
         click.option("--stall-speed", type=float, help="The mover stops below this speed, m/s."),
         click.option("--max-step-turn", "max_turn", type=float, help="Largest change of heading from one lattice step to the next, degrees (a search limit; the refined line is held by --min-radius)."),
-        click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons."),
+        click.option("--keepout", "keepout_path", type=click.Path(dir_okay=False), help="GeoJSON or GeoPackage of no-go polygons (every polygon layer is read)."),
+        click.option("--keepout-layer", "keepout_layers", multiple=True, metavar="NAME",
+                     help="Read only this layer of the keep-out file (repeatable; needed when it also holds "
+                          "layers of other geometry)."),
         click.option("-q", "--quiet", is_flag=True, help="Print errors only."),
         click.option("-v", "--verbose", count=True, help="More log output (-vv for debug)."),
     ]
@@ -175,14 +230,21 @@ def _common_options(fn):
     return fn
 
 
-def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours,
-               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, label_cap=None, **extra) -> dict:
+def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neighbours, band, z_scale,
+               min_grade, max_grade, max_speed, stall_speed, max_turn, keepout_path, keepout_layers=(), label_cap=None,
+               **extra) -> dict:
     """The flags given on the command line, in the scenario's nested layout."""
     d: dict = {"points": {}, "mover": {}, "limits": {}, "search": {}, "line": {}, "envelope": {}}
     if dem is not None:
         d["dem"] = str(dem)
+    if band is not None:
+        d["band"] = int(band)
+    if z_scale is not None:
+        d["z_scale"] = float(z_scale)
     if keepout_path is not None:
         d["keepout"] = str(keepout_path)
+    if keepout_layers:
+        d["keepout_layers"] = list(keepout_layers)
     if start:
         d["points"]["start"] = list(start)
     if end:
@@ -235,11 +297,21 @@ def _resolve(scenario_path, overrides: dict):
     base_dir = None
     if scenario_path is not None:
         base = load_scenario(scenario_path).to_dict()
+        if "keepout" in overrides and "keepout_layers" not in overrides:
+            base.pop("keepout_layers", None)  # the scenario's layers belong to its own keep-out file
     return Scenario.from_dict(_merge(base, overrides), base_dir=base_dir)
 
 
 # --------------------------------------------------------------------------- commands
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class _Main(click.Group):
+    """The command group; signals end a run cleanly from the moment the command line parses."""
+
+    def main(self, *args, **kwargs):
+        with _signals_exit():
+            return super().main(*args, **kwargs)
+
+
+@click.group(cls=_Main, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="fallway", prog_name="fallway")
 def main() -> None:
     """Minimum-time gravity descent lines across terrain (GeoTIFF DEMs).
@@ -322,7 +394,8 @@ def _print_route(r, out_dir, written) -> None:
                    "only the area it can reach).")
 @click.option("--max-distance", "max_distance_m", type=click.FloatRange(min=0.0, min_open=True),
               help="Map only within this plan distance of the start, m (lines confined to that disc).")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Output GeoTIFF (2 bands: time s, speed m/s).")
+@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), callback=_tif_name,
+              help="Output GeoTIFF, a .tif name (2 bands: time s, speed m/s).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
 @_guard
 def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, **opts):
@@ -347,16 +420,20 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
 @click.option("--mu-range", type=(float, float), metavar="LO HI", help="Evaluate every line at LO, nominal and HI friction.")
 @click.option("--refine/--no-refine", default=False, show_default=True, help="Refine the computed optimum.")
 @click.option("--optimum/--no-optimum", default=True, show_default=True, help="Add the tool's own optimum as a row.")
+@click.option("--lines-layer", "lines_layers", multiple=True, metavar="NAME",
+              help="Read only this layer of LINES (repeatable; default every line layer, needed when the file "
+                   "also holds layers of other geometry).")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @_guard
-def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refine, optimum, **opts):
+def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refine, optimum, lines_layers, **opts):
     """Time and rank candidate lines (GeoJSON/GeoPackage LineStrings) on DEM with the same physics."""
     _setup_logging(quiet, verbose)
     from .app import run_compare
 
     sc = _resolve(scenario_path, _overrides(dem=dem, start=None, end=None, via=(), **opts))
-    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=refine, optimum=optimum)
+    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=refine, optimum=optimum,
+                      lines_layers=lines_layers)
     if not quiet:
         _print_rows(cmp)
         click.echo(f"wrote comparison.csv, comparison.png, comparison.svg, report.html in {out_dir}")
@@ -376,14 +453,18 @@ def _print_rows(cmp, indent: str = "") -> None:
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--workers", type=click.IntRange(min=1), help="Local worker processes (default: one per core).")
 @click.option("--scheduler", help="Address of a Dask scheduler (needs the 'cluster' extra: dask[distributed]).")
+@click.option("--overwrite", is_flag=True, help="Replace the results of an earlier batch in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="Print errors only.")
 @_guard
-def batch(scenarios, out_dir, workers, scheduler, quiet):
-    """Run every scenario of a batch file (base x variations) and collect batch.csv."""
+def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
+    """Run every scenario of a batch file (base x variations) and collect batch.csv.
+
+    The run folders and batch.csv appear together when every run has ended, or not at all.
+    """
     _setup_logging(quiet, 0)
     from .batch import run_batch
 
-    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler)
+    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler, overwrite=overwrite)
     bad = [r for r in rows if r.get("status") == "error"]
     if not quiet:
         click.echo(f"{len(rows) - len(bad)} of {len(rows)} runs done; wrote {Path(out_dir) / 'batch.csv'}")

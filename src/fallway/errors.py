@@ -16,6 +16,8 @@ __all__ = [
     "NoFeasibleLine",
     "ScenarioError",
     "RefinementWarning",
+    "InputWarning",
+    "CrawlWarning",
 ]
 
 
@@ -90,3 +92,11 @@ class NoFeasibleLine(FallwayError):
 
 class RefinementWarning(UserWarning):
     """The continuous refinement stopped before it converged; the best line is returned."""
+
+
+class InputWarning(UserWarning):
+    """An input is read in a way worth saying (e.g. a given height scale overrides the unit the DEM declares)."""
+
+
+class CrawlWarning(UserWarning):
+    """The line is so slow that a real mover would stop long before the end; set a stall speed."""

@@ -30,6 +30,7 @@ import csv
 import dataclasses
 import math
 import os
+import re
 import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -510,6 +511,29 @@ def _rank_key(r: LineResult):
     return (2, 0.0, r.name)
 
 
+# a cell holding numbers only (a point "-120.5 35.2"): nothing a spreadsheet could run
+_CSV_NUMBERS = re.compile(r"\s*[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(\s+[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)*\s*")
+
+
+def csv_text(text: str) -> str:
+    """Text for a CSV cell that a spreadsheet shows as text and never evaluates.
+
+    OWASP's CSV-injection guidance: a cell starting with ``=``, ``+``, ``-``, ``@``, a tab
+    or a carriage return is read as a formula by spreadsheet programs (a line named
+    ``=HYPERLINK(...)`` in a candidate file would run), so such a cell gets a leading
+    single quote.  A cell that holds only numbers (``-120.5 35.2``) is left as it is.
+
+    Examples
+    --------
+    >>> [csv_text(t) for t in ("A", "=1+2", "@SUM(A1)", "-2+3+cmd|' /C calc'!A0", "-120.5 35.2")]
+    ['A', "'=1+2", "'@SUM(A1)", "'-2+3+cmd|' /C calc'!A0", '-120.5 35.2']
+    """
+    text = str(text)
+    if text.startswith(("=", "+", "-", "@", "\t", "\r")) and not _CSV_NUMBERS.fullmatch(text):
+        return "'" + text
+    return text
+
+
 def _fmt(value, column: str) -> str:
     if value is None:
         return ""
@@ -521,7 +545,7 @@ def _fmt(value, column: str) -> str:
             return ""
         s = f"{v:.{_DECIMALS.get(column, 6)}f}"
         return s.lstrip("-") if float(s) == 0.0 else s  # no "-0.000"
-    return str(value)
+    return csv_text(str(value))
 
 
 @dataclass(frozen=True, eq=False)

@@ -10,8 +10,10 @@ The reach raster: :func:`write_reach_geotiff`.
 Conventions
 -----------
 - Floats are written with fixed rules (rounded, shortest round-trip repr in JSON; fixed
-  decimals in CSV) and no timestamps, so the same inputs give byte-identical GeoJSON,
-  CSV and JSON files.
+  decimals in CSV) and no timestamps, so the same inputs give byte-identical files:
+  GeoJSON, CSV, JSON, and also the GeoPackage (its ``last_change`` stamps come from
+  :func:`gpkg_timestamp`, not the clock) and the SVG figures written inside
+  :func:`reproducible_figures` (fixed clip-path ids).
 - Non-finite numbers (``inf`` for "no limit", ``NaN`` after a stall) become JSON
   ``null`` and empty CSV cells, so every file stays valid for strict readers.
 """
@@ -20,6 +22,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import errno
 import json
 import math
 import os
@@ -49,6 +52,8 @@ __all__ = [
     "write_route_geojson",
     "write_route_gpkg",
     "write_summary_json",
+    "gpkg_timestamp",
+    "reproducible_figures",
 ]
 
 #: File names a route run writes into its output folder.  :class:`OutputSet` refuses to
@@ -81,6 +86,49 @@ _PROFILE_COLUMNS = ("station_m", "x", "y", "z_ground", "z_line", "grade", "speed
 
 
 # --------------------------------------------------------------------------- atomic files
+
+# below this much free space a failed write is put down to the full disk (a route's
+# GeoPackage alone takes about 120 kB)
+_LOW_SPACE_BYTES = 1 << 20
+
+
+def _space_problem(folder) -> str | None:
+    """Why the folder's filesystem takes no more data (full, quota, file size limit), or None.
+
+    GDAL's drivers often report a full disk as a follow-on error (SQLite's "no such
+    table: gpkg_contents"), so after such a failure the folder is checked here: its free
+    space, then a small probe write, whose errno names the cause.
+    """
+    try:
+        free = shutil.disk_usage(folder).free
+    except OSError:
+        return None
+    if free < _LOW_SPACE_BYTES:
+        return f"no space left on device ({free // 1024} kB free)"
+    probe = Path(folder) / f".space-probe.{uuid.uuid4().hex[:12]}.tmp"
+    try:
+        with open(probe, "wb") as fh:
+            fh.write(b"\0" * (256 << 10))
+            fh.flush()
+            os.fsync(fh.fileno())
+    except OSError as err:
+        if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+            return (err.strerror or "no space left on device").lower()
+        return None
+    finally:
+        with contextlib.suppress(OSError):
+            probe.unlink()
+    return None
+
+
+def _gdal_failure(folder, err: BaseException) -> str:
+    """GDAL's first message line, or the disk problem behind it when there is one."""
+    space = _space_problem(folder)
+    if space is not None:
+        return f"{space}; free some space or choose another output folder"
+    text = str(err).strip()
+    return text.splitlines()[0] if text else type(err).__name__
+
 
 def _io_error(action: str, path, err: OSError) -> FallwayIOError:
     reason = err.strerror or type(err).__name__
@@ -162,18 +210,19 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", *, encoding: str = "u
 
 
 #: Output sets inside their ``with`` block, so an interrupt handler running in another
-#: thread can remove their temporary folders (:func:`abort_active_outputs`).  The lock
-#: is held while a set moves its files into place, so an abort never splits a commit.
+#: thread can remove their working folders (:func:`abort_active_outputs`).  The lock is
+#: held while a set creates its folders and while it moves its files into place, so an
+#: abort never splits either.
 _ACTIVE_LOCK = threading.RLock()
 _ACTIVE: dict[int, "OutputSet"] = {}
 
 
 def abort_active_outputs() -> None:
-    """Remove the temporary folders of every output set still being written.
+    """Remove the working folders of every output set still being written.
 
     For an interrupt handler that ends the process at once (the search may be deep in
     compiled code): it waits for a commit in progress to finish, so each output folder
-    is left either complete or as it was.
+    is left either with the complete new set or exactly as it was.
     """
     with _ACTIVE_LOCK:
         for outs in list(_ACTIVE.values()):
@@ -181,6 +230,7 @@ def abort_active_outputs() -> None:
 
 
 def _remove_quietly(path: Path) -> None:
+    """Remove a file or a folder tree of our own making; a missing one is fine."""
     try:
         if path.is_dir() and not path.is_symlink():
             shutil.rmtree(path, ignore_errors=True)
@@ -192,31 +242,71 @@ def _remove_quietly(path: Path) -> None:
         pass
 
 
-class OutputSet:
-    """A folder of results that appears complete or not at all.
+def _lexists(path: Path) -> bool:
+    return os.path.lexists(path)
 
-    Files are written into a fresh hidden folder inside ``out_dir`` (same filesystem,
-    so the final renames are atomic); on a successful exit each is moved into
-    ``out_dir`` with :func:`os.replace`.  On an exception or KeyboardInterrupt the
-    hidden folder is removed and ``out_dir`` is left exactly as it was (a folder the set
-    created is removed again).  With ``overwrite=True``, result files of an earlier run
-    that this run did not write are removed at commit, so the folder never mixes two
-    runs.
+
+class OutputSet:
+    """A command's set of results in a folder that changes all at once, or not at all.
+
+    The set is the command's own result names: files (``result_names``) and, for a
+    batch, folders (``result_dirs``).  Nothing else in ``out_dir`` -- the user's files,
+    another command's results -- is ever moved, replaced or removed.
+
+    How it works:
+
+    1. **Write.**  Entering the block creates ``out_dir`` if needed (and remembers every
+       folder it created, ``a``, ``a/b`` and ``a/b/c``) and a hidden working folder
+       ``.fallway-XXXX`` inside it (the same filesystem, so every move below is a
+       rename).  Writers write to :meth:`path`, inside the working folder.
+    2. **Commit** (leaving the block normally), holding a lock that interrupt handlers
+       wait for: (a) every result of this command already in ``out_dir`` -- all of its
+       result names, also those this run does not write, so no stale file of an
+       earlier run stays beside the new ones -- is renamed into a backup folder
+       ``.fallway-old-XXXX``; (b) each new file is renamed into place; (c) the backup
+       folder is removed.  If any rename fails, the renames already done are undone in
+       reverse order (new files back into the working folder, old files back from the
+       backup) and the error names the file; only if an undo fails too is the backup
+       kept, and the error says where.  Without ``overwrite`` step (a) is empty: an
+       earlier result is refused on entry (before any work) and again at commit.
+    3. **Abort** (an exception, KeyboardInterrupt, or :func:`abort_active_outputs`
+       from a signal handler): the working folder is removed, and so is every folder
+       the set created, if it is empty.
+
+    So whatever ends the run -- success, an error, Ctrl-C, SIGTERM, SIGHUP -- the
+    folder holds either the complete new set or exactly the old one.  A result name
+    that is a folder (``report.html/``) is refused on entry: it is not a result file.
+
+    Why not write the new set into a sibling folder and swap the two?  A swap replaces
+    the folder itself, so every file the command does not write (the user's notes,
+    another command's results, files another process is writing) would have to be
+    moved across first and back on failure; the folder would also lose its identity
+    -- a shell standing in it, a symbolic link or a mount point named ``--out``, its
+    owner and permissions -- and the parent folder would have to be writable.  The
+    per-name renames above touch only the command's own names.  The price is a window
+    of a few renames during which another program listing the folder can see a mix;
+    a process killed outright (SIGKILL, power loss) inside that window leaves the old
+    files in ``.fallway-old-XXXX``.
 
     Parameters
     ----------
     out_dir : path-like
-        Destination folder (created if missing).
+        Destination folder (created if missing, with its parents).
     overwrite : bool
         Replace earlier results; otherwise refuse with :class:`OutputExistsError`.
     result_names : sequence of str
-        File names that count as results (default :data:`RESULT_FILES`).
+        File names that count as this command's results (default :data:`RESULT_FILES`).
+    result_dirs : sequence of str
+        Folder names that count as results (a batch's run folders).
+    make_parents : bool
+        Create missing parent folders of ``out_dir`` (False: only ``out_dir`` itself,
+        so a set inside another set's working folder fails once that is gone).
 
     Examples
     --------
     >>> import tempfile, pathlib
     >>> d = pathlib.Path(tempfile.mkdtemp()) / "run"
-    >>> with OutputSet(d) as out:
+    >>> with OutputSet(d, result_names=("summary.json", "route.geojson")) as out:
     ...     _ = out.path("summary.json").write_text("{}")
     >>> sorted(p.name for p in d.iterdir())
     ['summary.json']
@@ -227,20 +317,26 @@ class OutputSet:
     """
 
     def __init__(self, out_dir: str | os.PathLike, overwrite: bool = False,
-                 result_names: tuple[str, ...] | list[str] = RESULT_FILES) -> None:
+                 result_names: tuple[str, ...] | list[str] = RESULT_FILES, *,
+                 result_dirs: tuple[str, ...] | list[str] = (), make_parents: bool = True) -> None:
         self.out_dir = Path(out_dir)
         self.overwrite = bool(overwrite)
         self.result_names = tuple(result_names)
+        self.result_dirs = tuple(result_dirs)
+        for n in self.result_names + self.result_dirs:
+            _check_plain_name(n)
+        self.make_parents = bool(make_parents)
         self.tmp_dir: Path | None = None
-        self._created_dir = False
+        self._created: list[Path] = []
         self._names: list[str] = []
+        self._optional: set[str] = set()
 
     # -- helpers
     def existing(self) -> list[str]:
-        """Result file names already present in ``out_dir``."""
+        """This command's result names already present in ``out_dir``."""
         if not self.out_dir.is_dir():
             return []
-        return [n for n in self.result_names if (self.out_dir / n).exists()]
+        return [n for n in self.result_names + self.result_dirs if _lexists(self.out_dir / n)]
 
     def _refuse(self, names) -> OutputExistsError:
         names = list(names)
@@ -249,37 +345,67 @@ class OutputSet:
         return OutputExistsError(f"{self.out_dir} already holds {what}; pass --overwrite to replace "
                                  f"{it} or choose another folder")
 
-    def path(self, name: str) -> Path:
-        """Where to write the result file ``name`` during the run (inside the temporary folder)."""
+    def _check_kinds(self) -> None:
+        """Refuse a result file name that is a folder, or a result folder name that is a file."""
+        for n in self.result_names:
+            p = self.out_dir / n
+            if p.is_dir():
+                raise FallwayIOError(f"{p} is a folder, not a result file; move or rename it (nothing was "
+                                     "changed)")
+        for n in self.result_dirs:
+            p = self.out_dir / n
+            if _lexists(p) and not p.is_dir():
+                raise FallwayIOError(f"{p} is a file where a result folder goes; move or rename it (nothing was "
+                                     "changed)")
+
+    def path(self, name: str, *, optional: bool = False) -> Path:
+        """Where to write the result ``name`` during the run (inside the working folder).
+
+        ``optional``: the result may end up not written (a batch run that failed); it is
+        then left out of the commit instead of being an error.
+        """
         if self.tmp_dir is None:
             raise FallwayIOError("OutputSet.path() is only available inside the 'with' block")
-        if not name or Path(name).name != name or name.startswith("."):
-            raise ParameterError(f"result file name must be a plain file name, got {name!r}")
+        _check_plain_name(name)
+        if name not in self.result_names and name not in self.result_dirs:
+            raise ParameterError(f"{name!r} is not one of this output set's result names")
         if name not in self._names:
             self._names.append(name)
+        if optional:
+            self._optional.add(name)
+        else:
+            self._optional.discard(name)
         return self.tmp_dir / name
 
     # -- context manager
     def __enter__(self) -> "OutputSet":
-        if self.out_dir.exists() and not self.out_dir.is_dir():
+        if _lexists(self.out_dir) and not self.out_dir.is_dir():
             raise FallwayIOError(f"cannot write results to {self.out_dir}: it is a file, not a folder; "
                                  "choose another output folder")
+        self._check_kinds()
         if not self.overwrite:
             present = self.existing()
             if present:
                 raise self._refuse(present)
-        try:
-            if not self.out_dir.exists():
-                self.out_dir.mkdir(parents=True)
-                self._created_dir = True
-            self.tmp_dir = Path(tempfile.mkdtemp(prefix=".fallway-", dir=self.out_dir))
-        except OSError as err:
-            if self._created_dir:
-                _remove_quietly(self.out_dir)
-                self._created_dir = False
-            raise _io_error("write results to", self.out_dir, err) from err
-        with _ACTIVE_LOCK:
+        with _ACTIVE_LOCK:  # registered first: an abort from now on removes what was created
             _ACTIVE[id(self)] = self
+            try:
+                missing = []
+                p = self.out_dir
+                while not _lexists(p):
+                    missing.append(p)
+                    if p.parent == p:
+                        break
+                    p = p.parent
+                if len(missing) > 1 and not self.make_parents:
+                    raise FileNotFoundError(errno.ENOENT, "its parent folder does not exist", str(self.out_dir))
+                for d in reversed(missing):
+                    d.mkdir()
+                    self._created.insert(0, d)
+                self.tmp_dir = Path(tempfile.mkdtemp(prefix=".fallway-", dir=self.out_dir))
+            except OSError as err:
+                self._abort()
+                raise _io_error("write results to", self.out_dir, err) from err
         return self
 
     def __exit__(self, exc_type, exc, tb) -> bool:
@@ -287,48 +413,110 @@ class OutputSet:
             if self.tmp_dir is None:  # aborted from outside (interrupt handler)
                 _ACTIVE.pop(id(self), None)
                 return False
+            if exc_type is not None:
+                self._name_final_paths(exc)
+                self._abort()
+                return False
             try:
-                if exc_type is None:
-                    self._commit()
+                self._commit()
             except BaseException:
                 self._abort()
                 raise
-            if exc_type is not None:
-                self._abort()
-            else:
-                _remove_quietly(self.tmp_dir)
+            _remove_quietly(self.tmp_dir)
             self.tmp_dir = None
             _ACTIVE.pop(id(self), None)
         return False
 
+    def _name_final_paths(self, exc) -> None:
+        """A writer's error names its file in the working folder: name it where it was to go."""
+        from .errors import FallwayError
+
+        if isinstance(exc, FallwayError) and self.tmp_dir is not None and exc.args and isinstance(exc.args[0], str):
+            exc.args = (exc.args[0].replace(str(self.tmp_dir) + os.sep, str(self.out_dir) + os.sep),
+                        *exc.args[1:])
+
     def _abort(self) -> None:
         _ACTIVE.pop(id(self), None)
         if self.tmp_dir is not None:
-            _remove_quietly(self.tmp_dir)
+            # renamed first: a writer still running in another thread (the abort may come
+            # from a signal handler) can then add nothing more to it, so it goes completely
+            doomed = self.tmp_dir.with_name(self.tmp_dir.name + "-aborted")
+            try:
+                os.rename(self.tmp_dir, doomed)
+            except OSError:
+                doomed = self.tmp_dir
+            _remove_quietly(doomed)
             self.tmp_dir = None
-        if self._created_dir:
+        for d in self._created:  # deepest first; a folder someone else filled meanwhile stays
             with contextlib.suppress(OSError):
-                self.out_dir.rmdir()
+                d.rmdir()
+        self._created = []
 
     def _commit(self) -> None:
         assert self.tmp_dir is not None
-        written = [n for n in self._names if (self.tmp_dir / n).exists()]
-        missing = [n for n in self._names if n not in written]
+        tmp, out = self.tmp_dir, self.out_dir
+        written = [n for n in self._names if _lexists(tmp / n)]
+        missing = [n for n in self._names if n not in written and n not in self._optional]
         if missing:
-            raise FallwayIOError(f"results were not written: {', '.join(missing)}; nothing was changed in {self.out_dir}")
+            raise FallwayIOError(f"results were not written: {', '.join(missing)}; nothing was changed in {out}")
+        self._check_kinds()
+        present = self.existing()
         if not self.overwrite:
-            clash = [n for n in written if (self.out_dir / n).exists()]
+            clash = [n for n in written if n in present]
             if clash:
                 raise self._refuse(clash)
+        old = present if self.overwrite else []
+        backup: Path | None = None
+        moved: list[str] = []
+        placed: list[str] = []
+        current = None
         try:
+            if old:
+                backup = Path(tempfile.mkdtemp(prefix=".fallway-old-", dir=out))
+                for n in old:
+                    current = n
+                    os.replace(out / n, backup / n)
+                    moved.append(n)
             for n in written:
-                os.replace(self.tmp_dir / n, self.out_dir / n)
-            if self.overwrite:
-                for n in self.result_names:
-                    if n not in written and (self.out_dir / n).is_file():
-                        (self.out_dir / n).unlink()
-        except OSError as err:
-            raise _io_error("move results into", self.out_dir, err) from err
+                current = n
+                os.replace(tmp / n, out / n)
+                placed.append(n)
+        except BaseException as err:
+            self._undo(placed, moved, backup, err)
+            if isinstance(err, OSError):
+                reason = err.strerror or type(err).__name__
+                raise FallwayIOError(f"cannot put {current} into {out}: {reason}; the earlier results were "
+                                     "left as they were") from err
+            raise
+        if backup is not None:
+            _remove_quietly(backup)
+        self._created = []  # the folders now hold results: they stay
+
+    def _undo(self, placed, moved, backup, cause) -> None:
+        """Reverse a commit's renames: new files back to the working folder, old ones back."""
+        assert self.tmp_dir is not None
+        failed = []
+        for n in reversed(placed):
+            try:
+                os.replace(self.out_dir / n, self.tmp_dir / n)
+            except OSError:
+                failed.append(n)
+        for n in reversed(moved):
+            try:
+                os.replace(backup / n, self.out_dir / n)
+            except OSError:
+                failed.append(n)
+        if failed:
+            raise FallwayIOError(f"replacing results in {self.out_dir} failed and could not be undone for "
+                                 f"{', '.join(failed)}; the earlier results are in {backup}") from cause
+        if backup is not None:
+            _remove_quietly(backup)
+
+
+def _check_plain_name(name: str) -> None:
+    if not isinstance(name, str) or not name or Path(name).name != name or name.startswith(".") \
+            or "/" in name or "\\" in name or "\0" in name:
+        raise ParameterError(f"result name must be a plain file name, got {name!r}")
 
 
 # --------------------------------------------------------------------------- small helpers
@@ -604,6 +792,69 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
 
 # --------------------------------------------------------------------------- GeoPackage
 
+def gpkg_timestamp() -> str:
+    """The ``last_change`` time written into GeoPackages: not the clock, so reruns repeat.
+
+    ``SOURCE_DATE_EPOCH`` (seconds since 1970, the reproducible-builds.org convention)
+    when set, else the epoch itself.  GDAL's GPKG driver takes it from its
+    ``OGR_CURRENT_DATE`` configuration option instead of the current time.
+
+    Examples
+    --------
+    >>> gpkg_timestamp() if "SOURCE_DATE_EPOCH" not in os.environ else "1970-01-01T00:00:00.000Z"
+    '1970-01-01T00:00:00.000Z'
+    """
+    import datetime
+
+    try:
+        epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
+    except ValueError:
+        raise ParameterError(f"SOURCE_DATE_EPOCH must be whole seconds since 1970, got "
+                             f"{os.environ['SOURCE_DATE_EPOCH']!r}") from None
+    t = datetime.datetime.fromtimestamp(epoch, tz=datetime.timezone.utc)
+    return t.strftime("%Y-%m-%dT%H:%M:%S.000Z")
+
+
+@contextlib.contextmanager
+def _gdal_config(**options):
+    """GDAL configuration options set for the block and restored after it."""
+    import pyogrio
+
+    old = {k: pyogrio.get_gdal_config_option(k) for k in options}
+    pyogrio.set_gdal_config_options(options)
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options(old)
+
+
+@contextlib.contextmanager
+def reproducible_figures():
+    """Matplotlib settings for figures that repeat byte for byte: fixed SVG ids.
+
+    Matplotlib names clip paths and other SVG elements from a random salt unless
+    ``svg.hashsalt`` is set; inside this block it is.
+
+    Examples
+    --------
+    >>> import io
+    >>> from matplotlib.figure import Figure
+    >>> def svg():
+    ...     fig = Figure()
+    ...     fig.add_subplot().plot([0, 1], [0, 1])
+    ...     buf = io.StringIO()
+    ...     fig.savefig(buf, format="svg", metadata={"Date": None})
+    ...     return buf.getvalue()
+    >>> with reproducible_figures():
+    ...     svg() == svg()
+    True
+    """
+    import matplotlib
+
+    with matplotlib.rc_context({"svg.hashsalt": "fallway"}):
+        yield
+
+
 def flatten(d: dict, sep: str = "_", prefix: str = "") -> dict:
     """Nested mappings as one level, keys joined with ``sep``.
 
@@ -699,14 +950,15 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     path = Path(path)
     with atomic_path(path) as tmp:
         try:
-            pyogrio.raw.write(tmp, line_wkb, arrays1, names1, layer="line", driver="GPKG",
-                              geometry_type="LineString Z", crs=wkt)
-            pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
-                              geometry_type="LineString Z", crs=wkt, append=True)
+            with _gdal_config(OGR_CURRENT_DATE=gpkg_timestamp()):
+                pyogrio.raw.write(tmp, line_wkb, arrays1, names1, layer="line", driver="GPKG",
+                                  geometry_type="LineString Z", crs=wkt)
+                pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
+                                  geometry_type="LineString Z", crs=wkt, append=True)
         except OSError:
             raise
         except Exception as err:  # pyogrio's DataSourceError / FieldError
-            raise FallwayIOError(f"cannot write {path}: {err}") from err
+            raise FallwayIOError(f"cannot write {path}: {_gdal_failure(path.parent, err)}") from err
     return path
 
 
@@ -830,8 +1082,8 @@ def summary_document(route, extra: dict | None = None, *, crs=None) -> dict:
 def write_reach_geotiff(reach_map, path) -> Path:
     """Write a two-band float32 GeoTIFF: band 1 arrival time (s), band 2 speed (m/s).
 
-    NaN is the nodata value (unreachable cells).  The file is written under a
-    temporary name in the same folder and renamed when complete.
+    NaN is the nodata value (unreachable cells).  The file is built in memory, then
+    written under a temporary name in the same folder and renamed when complete.
 
     Examples
     --------
@@ -847,29 +1099,31 @@ def write_reach_geotiff(reach_map, path) -> Path:
     2 float32 ('arrival_time_s', 'arrival_speed_m_s')
     """
     import rasterio
+    from rasterio.errors import RasterioError
 
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise FallwayIOError(f"output folder {folder} does not exist; create it first")
+    path = Path(path)
+    if not path.parent.is_dir():
+        raise FallwayIOError(f"output folder {path.parent} does not exist; create it first")
     rows, cols = np.shape(reach_map.time_s)
-    fd, tmp = tempfile.mkstemp(prefix=".reach-", suffix=".tif", dir=folder)
-    os.close(fd)
+    bands = (np.asarray(reach_map.time_s, dtype=np.float32), np.asarray(reach_map.speed_m_s, dtype=np.float32))
+    profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
+                   transform=reach_map.transform, nodata=float("nan"), compress="deflate",
+                   tiled=rows >= 256 and cols >= 256)
+    if reach_map.crs is not None:
+        profile["crs"] = reach_map.crs
+    # built in memory and written with Python's own file I/O: a write error (a full disk)
+    # then raises with its errno, where GDAL's libtiff reports some only on stderr
     try:
-        profile = dict(driver="GTiff", width=cols, height=rows, count=2, dtype="float32",
-                       transform=reach_map.transform, nodata=float("nan"), compress="deflate",
-                       tiled=rows >= 256 and cols >= 256)
-        if reach_map.crs is not None:
-            profile["crs"] = reach_map.crs
-        with rasterio.open(tmp, "w", **profile) as dst:
-            dst.write(np.asarray(reach_map.time_s, dtype=np.float32), 1)
-            dst.write(np.asarray(reach_map.speed_m_s, dtype=np.float32), 2)
-            dst.set_band_description(1, "arrival_time_s")
-            dst.set_band_description(2, "arrival_speed_m_s")
-            dst.update_tags(start_x=str(reach_map.start[0]), start_y=str(reach_map.start[1]))
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-        raise
+        with rasterio.MemoryFile(ext=".tif") as mem:
+            with mem.open(**profile) as dst:
+                dst.write(bands[0], 1)
+                dst.write(bands[1], 2)
+                dst.set_band_description(1, "arrival_time_s")
+                dst.set_band_description(2, "arrival_speed_m_s")
+                dst.update_tags(start_x=str(reach_map.start[0]), start_y=str(reach_map.start[1]))
+            data = mem.read()
+    except RasterioError as err:
+        raise FallwayIOError(f"cannot write {path}: {_gdal_failure(path.parent, err)}") from err
+    with atomic_write(path, "wb") as fh:
+        fh.write(data)
     return Path(path)

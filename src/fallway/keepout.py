@@ -31,6 +31,39 @@ def _to_pyproj(crs):
         raise ParameterError(f"cannot read the CRS {crs!r}; give an EPSG code or WKT") from None
 
 
+def _first_line(err: BaseException) -> str:
+    text = str(err).strip()
+    return text.splitlines()[0] if text else type(err).__name__
+
+
+def _keepout_layers(p: str, listed, layer) -> list[str]:
+    """The layers to read: those named, else every layer with geometry (all polygon layers)."""
+    names = [n for n, _ in listed]
+    if layer is not None:
+        wanted = [layer] if isinstance(layer, (str, int)) else list(layer)
+        out = []
+        for w in wanted:
+            w = names[w] if isinstance(w, int) and 0 <= w < len(names) else w
+            if w not in names:
+                raise ParameterError(f"keep-out file {p} has no layer {w!r}; its layers: {', '.join(names)}")
+            out.append(w)
+        return out
+    spatial = [(n, k) for n, k in listed if k is not None]
+    other = [f"{n} ({k})" for n, k in spatial if not _maybe_polygons(k)]
+    if other:
+        polys = [n for n, k in spatial if _maybe_polygons(k)]
+        raise ParameterError(f"keep-out file {p} holds layers of other geometry besides polygons: "
+                             f"{', '.join(other)}; name the keep-out layers to read with --keepout-layer "
+                             f"(polygon layers: {', '.join(polys) or 'none'})")
+    return [n for n, _ in spatial]
+
+
+def _maybe_polygons(kind: str) -> bool:
+    """A layer type that holds polygons, or may (GeoJSON of mixed or unknown geometry)."""
+    k = kind.lower()
+    return "polygon" in k or k in ("unknown", "geometry", "geometrycollection")
+
+
 @dataclass(frozen=True, eq=False)
 class Keepout:
     """No-go areas: polygons the line must not enter.
@@ -87,14 +120,27 @@ class Keepout:
     def from_file(cls, path, layer=None) -> "Keepout":
         """Read polygons from a GeoJSON or GeoPackage file (all features, unioned).
 
-        GeoJSON without a CRS is lon/lat (RFC 7946: WGS 84, EPSG:4326).
+        Every polygon layer is read: a no-go area is never left out because it sits in a
+        second layer.  A file that also holds layers of other geometry (lines, points)
+        is refused unless ``layer`` names the layers to read; tables without geometry
+        are skipped.  GeoJSON without a CRS is lon/lat (RFC 7946: WGS 84, EPSG:4326), and
+        coordinates outside that range are refused (a file saved in map coordinates).
+
+        Parameters
+        ----------
+        path : path-like
+        layer : str or sequence of str, optional
+            The layers to read (CLI ``--keepout-layer``, repeatable); default every
+            polygon layer.
 
         Raises
         ------
         FallwayIOError
             The file is missing or unreadable.
         ParameterError
-            It holds no features or non-polygon geometry.
+            It holds no features, non-polygon geometry, a layer of other geometry when
+            no layer is named, a named layer it does not have, or lon/lat coordinates
+            out of range.
         """
         import pyogrio
         import shapely
@@ -102,25 +148,57 @@ class Keepout:
         p = os.fspath(path)
         if not os.path.exists(p):
             raise FallwayIOError(f"keep-out file not found: {p}")
+        if os.path.isdir(p):
+            raise FallwayIOError(f"keep-out path {p} is a folder; give a GeoJSON or GeoPackage of polygons")
         try:
-            meta, _, geoms, _ = pyogrio.raw.read(p, layer=layer, read_geometry=True, columns=[])
-        except Exception as err:  # pyogrio raises several DataSource/Layer error types
-            raise FallwayIOError(f"cannot read keep-out file {p}: {err}; give a GeoJSON or GeoPackage of polygons") from err
-        if geoms is None or len(geoms) == 0:
+            listed = [(str(n), None if k is None else str(k)) for n, k in pyogrio.list_layers(p)]
+        except Exception as err:  # pyogrio raises several DataSource error types
+            raise FallwayIOError(f"cannot read keep-out file {p}: {_first_line(err)}; give a GeoJSON or "
+                                 "GeoPackage of polygons") from err
+        layers = _keepout_layers(p, listed, layer)
+        shapes, crs = [], None
+        for name in layers:
+            try:
+                meta, _, geoms, _ = pyogrio.raw.read(p, layer=name, read_geometry=True, columns=[])
+            except Exception as err:  # pyogrio's DataSource/DataLayer errors, GDAL decoding errors
+                raise FallwayIOError(f"cannot read layer {name!r} of keep-out file {p}: {_first_line(err)}") from err
+            where = p if len(listed) == 1 else f"layer {name!r} of {p}"
+            if geoms is None or len(geoms) == 0:
+                continue
+            try:
+                got = shapely.from_wkb(geoms)
+            except shapely.errors.GEOSException as err:
+                raise ParameterError(f"keep-out {where} holds a geometry that cannot be decoded: "
+                                     f"{_first_line(err)}") from err
+            got = got[~shapely.is_missing(got)]
+            kinds = sorted({g.geom_type for g in got if g.geom_type not in _POLYGONAL})
+            if kinds:
+                raise ParameterError(f"keep-out {where} holds {', '.join(kinds)}; only polygons can be keep-out "
+                                     "areas (buffer lines or points first)")
+            layer_crs = meta.get("crs")
+            if layer_crs is None and p.lower().endswith((".geojson", ".json")):
+                layer_crs = "EPSG:4326"
+            if crs is not None and layer_crs is not None and _to_pyproj(layer_crs) != _to_pyproj(crs):
+                raise ParameterError(f"the layers of keep-out file {p} are in different CRSs; reproject them to one")
+            crs = crs if crs is not None else layer_crs
+            if len(got) and layer_crs is not None and _to_pyproj(layer_crs).is_geographic:
+                xy = shapely.get_coordinates(got)
+                if np.any(~np.isfinite(xy)) or np.any(np.abs(xy[:, 0]) > 360.0) or np.any(np.abs(xy[:, 1]) > 90.0):
+                    bad = xy[(np.abs(xy[:, 0]) > 360.0) | (np.abs(xy[:, 1]) > 90.0) | ~np.isfinite(xy).all(axis=1)][0]
+                    raise ParameterError(
+                        f"keep-out {where} has coordinates outside the longitude/latitude range (vertex "
+                        f"{bad[0]:.3f}, {bad[1]:.3f}): a GeoJSON must be in lon/lat (RFC 7946); reproject it to "
+                        "EPSG:4326 or save it as a GeoPackage with its CRS")
+            shapes.extend(got)
+        if not shapes:
             raise ParameterError(f"keep-out file {p} holds no features; add at least one polygon")
-        shapes = shapely.from_wkb(geoms)
-        shapes = shapes[~shapely.is_missing(shapes)]
-        if len(shapes) == 0:
-            raise ParameterError(f"keep-out file {p} holds no geometry; add at least one polygon")
-        kinds = sorted({s.geom_type for s in shapes if s.geom_type not in _POLYGONAL})
-        if kinds:
-            raise ParameterError(f"keep-out file {p} holds {', '.join(kinds)}; only polygons can be keep-out areas")
-        crs = meta.get("crs")
-        if crs is None and p.lower().endswith((".geojson", ".json")):
-            crs = "EPSG:4326"
         # drop a third coordinate: keep-out areas are plan polygons
-        shapes = shapely.force_2d(shapes)
-        return cls(shapely.union_all(shapes), crs)
+        shapes = shapely.force_2d(np.asarray(shapes, dtype=object))
+        try:
+            return cls(shapely.union_all(shapes), crs)
+        except shapely.errors.GEOSException as err:
+            raise ParameterError(f"the polygons of keep-out file {p} cannot be combined ({_first_line(err)}); "
+                                 "repair them in a GIS (e.g. 'Fix geometries')") from err
 
     def in_crs(self, crs) -> "Keepout":
         """The same areas in another CRS (no-op when either CRS is None or both agree)."""
@@ -140,7 +218,11 @@ class Keepout:
         g = self.geometry
         if self.crs.is_geographic:
             g = shapely.segmentize(g, 0.0005)
-        return Keepout(shapely.transform(g, fn), target)
+        moved = shapely.transform(g, fn)
+        if not np.all(np.isfinite(shapely.get_coordinates(moved))):
+            raise ParameterError(f"the keep-out areas cannot be projected from {self.crs.name} into the terrain's "
+                                 f"CRS {target.name}: they lie far outside its area; check the keep-out file's CRS")
+        return Keepout(moved, target)
 
     def mask(self, terrain) -> np.ndarray:
         """Bool array of the terrain's shape, True on every cell the areas touch."""

@@ -6,7 +6,10 @@ override the file, and the resolved scenario is written beside the outputs.
 Layout (every section and key optional; unknown keys are rejected)::
 
     dem = "site.tif"                 # relative paths are relative to the scenario file
+    band = 1                         # optional: the DEM band holding the heights (default 1)
+    z_scale = 0.3048                 # optional: metres per height unit (default: the unit the band declares)
     keepout = "keepout.geojson"
+    keepout_layers = ["no-go"]       # optional: the layers to read (default: every polygon layer)
 
     [points]
     start = [512300.0, 5401200.0]    # map coordinates of the DEM (or lon/lat, see lonlat)
@@ -58,11 +61,14 @@ from typing import Any
 from .errors import FallwayError, ParameterError, ScenarioError
 from .params import Limits, LineSpec, Mover, SearchOptions
 
-__all__ = ["Scenario", "load_scenario"]
+__all__ = ["Scenario", "load_scenario", "check_value", "kind_of"]
 
 _SCHEMA: dict[str, Any] = {
     "dem": str,
+    "band": int,
+    "z_scale": float,
     "keepout": str,
+    "keepout_layers": "strings",
     "points": {"start": "point", "end": "point", "via": "points", "lonlat": bool},
     "mover": {f.name: f.name for f in fields(Mover)},
     "limits": {f.name: f.name for f in fields(Limits)},
@@ -73,28 +79,73 @@ _SCHEMA: dict[str, Any] = {
 }
 
 
-def _point(key: str, value) -> tuple[float, float]:
-    if not (isinstance(value, (list, tuple)) and len(value) == 2):
-        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}")
-    try:
-        x, y = float(value[0]), float(value[1])
-    except (TypeError, ValueError):
-        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}") from None
-    if not (math.isfinite(x) and math.isfinite(y)):
-        raise ScenarioError(f"{key} must be finite, got {value!r}")
-    return (x, y)
+# One rule for every value (TOML types, never converted): a quantity is a TOML integer or
+# float, a count a TOML integer, a name or a choice a string, a switch a boolean.  So
+# mu = "0.2" is refused as neighbours = 16.0 is, instead of one being read as a number.
+_TOML_TYPE = {bool: "a boolean", int: "an integer", float: "a float", str: "a string", list: "a list",
+              dict: "a table"}
+
+
+def _what(value) -> str:
+    return f"{value!r} ({_TOML_TYPE.get(type(value), type(value).__name__)})"
 
 
 def _number(key: str, value) -> float:
-    if isinstance(value, bool):
-        raise ScenarioError(f"{key} must be a number, got {value!r}")
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ScenarioError(f"{key} must be a number, got {value!r}") from None
+    """A quantity: a TOML integer or float, finite."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ScenarioError(f"{key} must be a number, got {_what(value)}")
+    v = float(value)
     if not math.isfinite(v):
         raise ScenarioError(f"{key} must be a finite number, got {value!r}")
     return v
+
+
+def _count(key: str, value) -> int:
+    """A count: a TOML integer."""
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ScenarioError(f"{key} must be a whole number, got {_what(value)}")
+    return value
+
+
+def _text(key: str, value) -> str:
+    if not isinstance(value, str):
+        raise ScenarioError(f"{key} must be a string, got {_what(value)}")
+    return value
+
+
+def _point(key: str, value) -> tuple[float, float]:
+    if not (isinstance(value, (list, tuple)) and len(value) == 2):
+        raise ScenarioError(f"{key} must be a pair of numbers [x, y], got {value!r}")
+    x, y = (_number(key, v) for v in value)
+    return (x, y)
+
+
+def kind_of(annotation: str) -> str:
+    """The value kind of a parameter field from its annotation: number, count, text or flag.
+
+    Examples
+    --------
+    >>> [kind_of(a) for a in ("float", "int | None", "str", "bool", "float | None")]
+    ['number', 'count', 'text', 'flag', 'number']
+    """
+    a = str(annotation)
+    for word, kind in (("bool", "flag"), ("str", "text"), ("float", "number"), ("int", "count")):
+        if word in a:
+            return kind
+    return "number"
+
+
+def check_value(key: str, value, kind: str):
+    """``value`` checked against its kind (number, count, text, flag); raises ScenarioError."""
+    if value is None:
+        raise ScenarioError(f"{key} must be given a value")
+    if kind == "number":
+        return _number(key, value)
+    if kind == "count":
+        return _count(key, value)
+    if kind == "text":
+        return _text(key, value)
+    return _bool(key, value)
 
 
 @dataclass(frozen=True)
@@ -114,7 +165,10 @@ class Scenario:
     """
 
     dem: str | None = None
+    band: int | None = None
+    z_scale: float | None = None
     keepout: str | None = None
+    keepout_layers: tuple[str, ...] = ()
     start: tuple[float, float] | None = None
     end: tuple[float, float] | None = None
     via: tuple[tuple[float, float], ...] = ()
@@ -140,12 +194,23 @@ class Scenario:
         kw: dict[str, Any] = {}
         for key in ("dem", "keepout"):
             if key in data:
-                if not isinstance(data[key], str):
-                    raise ScenarioError(f"{key} must be a file path (string), got {data[key]!r}")
-                p = Path(data[key]).expanduser()
+                p = Path(_text(key, data[key])).expanduser()
                 if base_dir is not None and not p.is_absolute():
                     p = Path(base_dir) / p
                 kw[key] = str(p)
+        if "band" in data:
+            kw["band"] = _count("band", data["band"])
+            if kw["band"] < 1:
+                raise ScenarioError(f"band must be a whole number >= 1 (bands count from 1), got {kw['band']!r}")
+        if "z_scale" in data:
+            kw["z_scale"] = _number("z_scale", data["z_scale"])
+            if kw["z_scale"] <= 0:
+                raise ScenarioError(f"z_scale must be a number > 0 (metres per height unit), got {data['z_scale']!r}")
+        if "keepout_layers" in data:
+            kl = data["keepout_layers"]
+            if not (isinstance(kl, (list, tuple)) and kl and all(isinstance(v, str) and v for v in kl)):
+                raise ScenarioError(f"keepout_layers must be a list of layer names, got {kl!r}")
+            kw["keepout_layers"] = tuple(kl)
         pts = data.get("points", {})
         if "start" in pts:
             kw["start"] = _point("points.start", pts["start"])
@@ -163,13 +228,8 @@ class Scenario:
         search = dict(data.get("search", {}))
         if "refine" in search:
             kw["refine"] = _bool("search.refine", search.pop("refine"))
-        for key in ("neighbours", "label_cap", "coarse_factor"):
-            if key in search and (isinstance(search[key], bool) or not isinstance(search[key], int)):
-                raise ScenarioError(f"search.{key} must be a whole number; got {search[key]!r}")
-        if "plan" in search and not isinstance(search["plan"], str):
-            raise ScenarioError(f"search.plan must be a string; got {search['plan']!r}")
-        if "corridor_m" in search:
-            search["corridor_m"] = _number("search.corridor_m", search["corridor_m"])
+        kinds = {f.name: kind_of(f.type) for f in fields(SearchOptions)}
+        search = {key: check_value(f"search.{key}", value, kinds[key]) for key, value in search.items()}
         try:
             kw["search"] = SearchOptions(**search)
         except ParameterError as err:
@@ -177,9 +237,7 @@ class Scenario:
         line = data.get("line", {})
         lk: dict[str, Any] = {}
         if "kind" in line:
-            if not isinstance(line["kind"], str):
-                raise ScenarioError(f"line.kind must be 'ground' or 'raised'; got {line['kind']!r}")
-            lk["kind"] = line["kind"]
+            lk["kind"] = _text("line.kind", line["kind"])
         if "clearance" in line:
             lo, hi = (_number("line.clearance", v) for v in _pair("line.clearance", line["clearance"]))
             if lo < 0 or hi < lo:
@@ -202,8 +260,14 @@ class Scenario:
         d: dict[str, Any] = {}
         if self.dem is not None:
             d["dem"] = self.dem
+        if self.band is not None:
+            d["band"] = self.band
+        if self.z_scale is not None:
+            d["z_scale"] = self.z_scale
         if self.keepout is not None:
             d["keepout"] = self.keepout
+        if self.keepout_layers:
+            d["keepout_layers"] = list(self.keepout_layers)
         pts: dict[str, Any] = {"lonlat": self.lonlat}
         if self.start is not None:
             pts["start"] = list(self.start)
@@ -254,11 +318,8 @@ def _check_keys(data: dict, schema: dict, prefix: str) -> None:
 
 
 def _build(cls, section: str, values: dict):
-    kw = {}
-    for key, value in values.items():
-        if isinstance(value, bool):
-            raise ScenarioError(f"{section}.{key} must be a number, got {value!r}")
-        kw[key] = value
+    kinds = {f.name: kind_of(f.type) for f in fields(cls)}
+    kw = {key: check_value(f"{section}.{key}", value, kinds.get(key, "number")) for key, value in values.items()}
     try:
         return cls(**kw)
     except ParameterError as err:

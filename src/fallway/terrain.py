@@ -332,14 +332,14 @@ def _utm_crs(lon: float, lat: float):
 
 
 def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
-                 resolution_m: float | None = None, z_scale: float = 1.0,
+                 resolution_m: float | None = None, z_scale: float | None = None, band: int = 1,
                  max_cells: int | None = None) -> Terrain:
     """Read a GeoTIFF (any raster GDAL reads) into a :class:`Terrain`.
 
     Parameters
     ----------
     path : str or path-like
-        The raster.  Band 1 holds the heights; further bands are ignored.
+        The raster.  ``band`` holds the heights; other bands are ignored.
     bounds : (left, bottom, right, top), optional
         Area of interest in the raster's own CRS (degrees for a geographic raster).
         Only this box plus ``margin_m`` on every side is read.
@@ -350,11 +350,26 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
         resampling (every source cell contributes, so small bumps do not alias into the
         coarse grid and nodata cells are left out); otherwise cells keep their native
         size (the smaller edge of non-square cells).
-    z_scale : float, default 1
-        Factor from the raster's height unit to metres (0.3048 for feet).
+    z_scale : float, optional
+        Metres per height unit (0.3048 for international feet), after the band's scale
+        and offset.  Default: from the unit the band declares (GDAL's unit type:
+        metres, international feet, US survey feet, centimetres, millimetres; none
+        declared is taken as metres); a unit it does not know is refused.  Given, it
+        replaces the declared unit (with an :class:`~fallway.errors.InputWarning` when
+        the two disagree).
+    band : int, default 1
+        The band that holds the heights (1-based, as GDAL counts).
     max_cells : int, optional
         Largest grid accepted; default the smaller of 200 M cells and what fits in half
         the available memory.  The check is made on an estimate *before* any read.
+
+    Notes
+    -----
+    Heights are ``(stored value * scale + offset) * metres per unit``: the band's scale
+    and offset tags are applied as GDAL defines them (``GDALGetRasterScale`` /
+    ``GDALGetRasterOffset``: "units value = (raw value * scale) + offset"), after nodata
+    is masked on the stored values, so an int16 DEM of decimetres with scale 0.1 reads
+    in metres.
 
     Returns
     -------
@@ -372,7 +387,7 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
         heights, or a grid too large for memory (the message gives the size and the
         options ``bounds`` and ``resolution_m``).
     ParameterError
-        A bad ``margin_m``, ``resolution_m``, ``z_scale`` or ``max_cells``.
+        A bad ``margin_m``, ``resolution_m``, ``z_scale``, ``band`` or ``max_cells``.
 
     Examples
     --------
@@ -386,7 +401,10 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
     import rasterio
     from rasterio.errors import NotGeoreferencedWarning, RasterioError
 
-    z_scale = _positive("z_scale", z_scale)
+    z_scale = _positive("z_scale", z_scale, allow_none=True)
+    if isinstance(band, bool) or not isinstance(band, (int, np.integer)) or band < 1:
+        raise ParameterError(f"band must be a whole number >= 1 (bands count from 1), got {band!r}")
+    band = int(band)
     resolution_m = _positive("resolution_m", resolution_m, allow_none=True)
     try:
         margin_m = float(margin_m)
@@ -414,7 +432,7 @@ def load_terrain(path, *, bounds=None, margin_m: float = DEFAULT_MARGIN_M,
                                  "another GDAL-readable DEM") from err
         try:
             with src:
-                return _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells)
+                return _load_open(src, p, bounds, margin_m, resolution_m, z_scale, band, max_cells)
         except RasterioError as err:
             raise FallwayIOError(f"reading or reprojecting {p} failed ({_first_line(err)}); check the file "
                                  "is complete (gdalinfo -checksum) and its CRS is valid") from err
@@ -428,12 +446,17 @@ def _first_line(err: BaseException) -> str:
     return text.splitlines()[0] if text else type(err).__name__
 
 
-def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Terrain:
+def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, band, max_cells) -> Terrain:
     import rasterio.windows
     from rasterio.enums import Resampling
 
     if src.count < 1:
         raise TerrainError(f"{p} has no raster bands; give a single-band elevation raster")
+    if band > src.count:
+        raise ParameterError(f"{p} has {src.count} band{'s' if src.count > 1 else ''}; there is no band {band}")
+    if src.width < 2 or src.height < 2:
+        raise TerrainError(f"{p} is {src.height} x {src.width} cells; a DEM needs at least 2 x 2 cells")
+    scale, offset, to_m = _height_units(src, p, band, z_scale)
     if src.crs is None:
         raise TerrainError(f"{p} has no CRS; assign the right one first "
                            "(e.g. gdal_edit.py -a_srs EPSG:32633 file.tif)")
@@ -536,10 +559,10 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
 
     # -- read ----------------------------------------------------------------------------
     if (kx, ky) == (1, 1):
-        data = src.read(1, window=window, masked=True)
+        data = src.read(band, window=window, masked=True)
         rt = wt
     else:
-        data = src.read(1, window=window, masked=True, out_shape=(read_h, read_w),
+        data = src.read(band, window=window, masked=True, out_shape=(read_h, read_w),
                         resampling=Resampling.average)
         rt = wt @ Affine.scale(w / read_w, h / read_h)
     z = np.ma.filled(data.astype(np.float64), np.nan)
@@ -588,9 +611,56 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, max_cells) -> Te
         crs = src_crs
     if not np.isfinite(z).any():
         raise TerrainError(f"{p} holds no valid heights after resampling; check the bounds")
-    if z_scale != 1.0:
-        z = z * z_scale
+    # scale, offset and unit are affine, so applying them after averaging or bilinear
+    # resampling gives the same heights as applying them first
+    if (scale, offset, to_m) != (1.0, 0.0, 1.0):
+        with np.errstate(over="ignore", invalid="ignore"):
+            z = (z * scale + offset) * to_m
+        if not np.all(np.isfinite(z[~np.isnan(z)])):
+            raise TerrainError(f"{p}: heights overflow after scale {scale:g}, offset {offset:g} and unit "
+                               f"factor {to_m:g}; check the band's scale/offset tags and --z-scale")
     return Terrain(z, rt, crs)
+
+
+#: Height units a band may declare (GDAL's unit type), normalised (lower case, no
+#: spaces, '-', '_', '.', '(' or ')'), as metres per unit.  The international foot is
+#: 0.3048 m exactly and the US survey foot 1200/3937 m (NIST SP 811, appendix B).
+_HEIGHT_UNITS = {
+    **dict.fromkeys(("m", "metre", "metres", "meter", "meters"), 1.0),
+    **dict.fromkeys(("ft", "foot", "feet", "internationalfoot", "internationalfeet", "footinternational",
+                     "ftintl", "intlfoot"), 0.3048),
+    **dict.fromkeys(("ftus", "usft", "ussurveyfoot", "ussurveyfeet", "surveyfoot", "footus", "footussurvey",
+                     "usfoot", "usfeet"), 1200.0 / 3937.0),
+    **dict.fromkeys(("cm", "centimetre", "centimetres", "centimeter", "centimeters"), 0.01),
+    **dict.fromkeys(("mm", "millimetre", "millimetres", "millimeter", "millimeters"), 0.001),
+}
+
+
+def _height_units(src, p, band: int, z_scale: float | None) -> tuple[float, float, float]:
+    """(scale, offset, metres per unit) of the height band, from its tags or ``z_scale``."""
+    import re
+
+    scale = float(src.scales[band - 1]) if src.scales else 1.0
+    offset = float(src.offsets[band - 1]) if src.offsets else 0.0
+    if not (math.isfinite(scale) and math.isfinite(offset)) or scale == 0.0:
+        raise TerrainError(f"band {band} of {p} has the scale {scale:g} and offset {offset:g}; heights need a "
+                           "finite, non-zero scale (fix with gdal_edit.py -scale / -offset)")
+    unit = (src.units[band - 1] if src.units else "") or ""
+    key = re.sub(r"[\s\-_.()]", "", unit.lower())
+    declared = _HEIGHT_UNITS.get(key) if key else 1.0
+    if z_scale is not None:
+        if declared is not None and key and abs(declared - z_scale) > 1e-12 * declared:
+            from .errors import InputWarning
+
+            warnings.warn(InputWarning(f"band {band} of {p} declares its heights in {unit!r} "
+                                       f"({declared:g} m per unit); the given z_scale {z_scale:g} is used "
+                                       "instead"), stacklevel=3)
+        return scale, offset, z_scale
+    if declared is None:
+        raise TerrainError(f"band {band} of {p} declares its heights in {unit!r}, a unit fallway cannot "
+                           "convert; give the metres per unit (--z-scale) or fix the unit "
+                           "(gdal_edit.py -units m)")
+    return scale, offset, declared
 
 
 def _center_lonlat(rt: Affine, shape, crs) -> tuple[float, float]:
