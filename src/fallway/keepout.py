@@ -9,6 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import FallwayIOError, ParameterError
+from .vector import first_line, pick_layers
 
 __all__ = ["Keepout"]
 
@@ -29,39 +30,6 @@ def _to_pyproj(crs):
         if hasattr(crs, "to_wkt"):
             return pyproj.CRS.from_wkt(crs.to_wkt())
         raise ParameterError(f"cannot read the CRS {crs!r}; give an EPSG code or WKT") from None
-
-
-def _first_line(err: BaseException) -> str:
-    text = str(err).strip()
-    return text.splitlines()[0] if text else type(err).__name__
-
-
-def _keepout_layers(p: str, listed, layer) -> list[str]:
-    """The layers to read: those named, else every layer with geometry (all polygon layers)."""
-    names = [n for n, _ in listed]
-    if layer is not None:
-        wanted = [layer] if isinstance(layer, (str, int)) else list(layer)
-        out = []
-        for w in wanted:
-            w = names[w] if isinstance(w, int) and 0 <= w < len(names) else w
-            if w not in names:
-                raise ParameterError(f"keep-out file {p} has no layer {w!r}; its layers: {', '.join(names)}")
-            out.append(w)
-        return out
-    spatial = [(n, k) for n, k in listed if k is not None]
-    other = [f"{n} ({k})" for n, k in spatial if not _maybe_polygons(k)]
-    if other:
-        polys = [n for n, k in spatial if _maybe_polygons(k)]
-        raise ParameterError(f"keep-out file {p} holds layers of other geometry besides polygons: "
-                             f"{', '.join(other)}; name the keep-out layers to read with --keepout-layer "
-                             f"(polygon layers: {', '.join(polys) or 'none'})")
-    return [n for n, _ in spatial]
-
-
-def _maybe_polygons(kind: str) -> bool:
-    """A layer type that holds polygons, or may (GeoJSON of mixed or unknown geometry)."""
-    k = kind.lower()
-    return "polygon" in k or k in ("unknown", "geometry", "geometrycollection")
 
 
 @dataclass(frozen=True, eq=False)
@@ -153,15 +121,15 @@ class Keepout:
         try:
             listed = [(str(n), None if k is None else str(k)) for n, k in pyogrio.list_layers(p)]
         except Exception as err:  # pyogrio raises several DataSource error types
-            raise FallwayIOError(f"cannot read keep-out file {p}: {_first_line(err)}; give a GeoJSON or "
+            raise FallwayIOError(f"cannot read keep-out file {p}: {first_line(err)}; give a GeoJSON or "
                                  "GeoPackage of polygons") from err
-        layers = _keepout_layers(p, listed, layer)
+        layers = pick_layers(f"keep-out file {p}", listed, layer, geometry="polygon", option="--keepout-layer")
         shapes, crs = [], None
         for name in layers:
             try:
                 meta, _, geoms, _ = pyogrio.raw.read(p, layer=name, read_geometry=True, columns=[])
             except Exception as err:  # pyogrio's DataSource/DataLayer errors, GDAL decoding errors
-                raise FallwayIOError(f"cannot read layer {name!r} of keep-out file {p}: {_first_line(err)}") from err
+                raise FallwayIOError(f"cannot read layer {name!r} of keep-out file {p}: {first_line(err)}") from err
             where = p if len(listed) == 1 else f"layer {name!r} of {p}"
             if geoms is None or len(geoms) == 0:
                 continue
@@ -169,7 +137,7 @@ class Keepout:
                 got = shapely.from_wkb(geoms)
             except shapely.errors.GEOSException as err:
                 raise ParameterError(f"keep-out {where} holds a geometry that cannot be decoded: "
-                                     f"{_first_line(err)}") from err
+                                     f"{first_line(err)}") from err
             got = got[~shapely.is_missing(got)]
             kinds = sorted({g.geom_type for g in got if g.geom_type not in _POLYGONAL})
             if kinds:
@@ -197,7 +165,7 @@ class Keepout:
         try:
             return cls(shapely.union_all(shapes), crs)
         except shapely.errors.GEOSException as err:
-            raise ParameterError(f"the polygons of keep-out file {p} cannot be combined ({_first_line(err)}); "
+            raise ParameterError(f"the polygons of keep-out file {p} cannot be combined ({first_line(err)}); "
                                  "repair them in a GIS (e.g. 'Fix geometries')") from err
 
     def in_crs(self, crs) -> "Keepout":

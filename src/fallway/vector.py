@@ -12,7 +12,7 @@ import numpy as np
 from .errors import FallwayIOError, ParameterError
 from .geometry import drop_repeats
 
-__all__ = ["read_lines"]
+__all__ = ["read_lines", "pick_layers", "may_hold", "first_line"]
 
 # consecutive plan vertices closer than this (m) are one vertex
 _SAME_POINT_M = 1e-6
@@ -66,13 +66,36 @@ def _drop_repeats(coords: np.ndarray, tol_m: float = _SAME_POINT_M) -> np.ndarra
     return drop_repeats(coords, tol_m)
 
 
-def _first_line(err: BaseException) -> str:
+def first_line(err: BaseException) -> str:
+    """The first line of an error's text (its type name when it has none)."""
     text = str(err).strip()
     return text.splitlines()[0] if text else type(err).__name__
 
 
-def _line_layers(p: Path, listed, layer) -> list[str]:
-    """The layers to read: those named, else every layer with geometry (all line layers)."""
+def may_hold(kind: str, geometry: str) -> bool:
+    """A layer type that holds ``geometry`` ("polygon", "linestring"), or may (mixed or unknown)."""
+    k = kind.lower()
+    return geometry in k or k in ("unknown", "geometry", "geometrycollection")
+
+
+def pick_layers(what: str, listed, layer, *, geometry: str, option: str) -> list[str]:
+    """The layers of a vector file to read: those named, else every layer with geometry.
+
+    A file that also holds layers of other geometry must name its layers (no layer is
+    silently left out).
+
+    Parameters
+    ----------
+    what : str
+        The file as the messages name it (e.g. ``"keep-out file x.gpkg"``).
+    listed : sequence of (name, geometry type)
+        ``pyogrio.list_layers`` of the file.
+    layer : str, int, sequence or None
+        The layers asked for (names or positions).
+    geometry : {"polygon", "linestring"}
+    option : str
+        The option that names layers, for the message.
+    """
     names = [n for n, _ in listed]
     if layer is not None:
         wanted = [layer] if isinstance(layer, (str, int)) else list(layer)
@@ -80,22 +103,17 @@ def _line_layers(p: Path, listed, layer) -> list[str]:
         for w in wanted:
             w = names[w] if isinstance(w, int) and 0 <= w < len(names) else w
             if w not in names:
-                raise ParameterError(f"{p} has no layer {w!r}; its layers: {', '.join(names)}")
+                raise ParameterError(f"{what} has no layer {w!r}; its layers: {', '.join(names)}")
             out.append(w)
         return out
     spatial = [(n, k) for n, k in listed if k is not None]
-    other = [f"{n} ({k})" for n, k in spatial if not _maybe_lines(k)]
+    other = [f"{n} ({k})" for n, k in spatial if not may_hold(k, geometry)]
     if other:
-        lines = [n for n, k in spatial if _maybe_lines(k)]
-        raise ParameterError(f"{p} holds layers of other geometry besides lines: {', '.join(other)}; name the "
-                             f"layers of candidate lines with --lines-layer (line layers: {', '.join(lines) or 'none'})")
+        ok = [n for n, k in spatial if may_hold(k, geometry)]
+        plural = "polygons" if geometry == "polygon" else "lines"
+        raise ParameterError(f"{what} holds layers of other geometry besides {plural}: {', '.join(other)}; name "
+                             f"the layers to read with {option} ({plural[:-1]} layers: {', '.join(ok) or 'none'})")
     return [n for n, _ in spatial] or names[:1]
-
-
-def _maybe_lines(kind: str) -> bool:
-    """A layer type that holds lines, or may (GeoJSON of mixed or unknown geometry)."""
-    k = kind.lower()
-    return "linestring" in k or k in ("unknown", "geometry", "geometrycollection")
 
 
 def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | Sequence[str] | None = None
@@ -164,8 +182,8 @@ def read_lines(path: str | os.PathLike, *, crs=None, layer: str | int | Sequence
     try:
         listed = [(str(n), None if k is None else str(k)) for n, k in pyogrio.list_layers(p)]
     except Exception as err:  # pyogrio's DataSourceError and GDAL's decoding errors
-        raise FallwayIOError(f"cannot read {p} as GeoJSON or GeoPackage ({_first_line(err)}); check the file") from err
-    layers = _line_layers(p, listed, layer)
+        raise FallwayIOError(f"cannot read {p} as GeoJSON or GeoPackage ({first_line(err)}); check the file") from err
+    layers = pick_layers(str(p), listed, layer, geometry="linestring", option="--lines-layer")
     dst = _crs_object(crs)
     raw_names: list = []
     lines: list[np.ndarray] = []
@@ -188,7 +206,7 @@ def _read_layer(p: Path, layer: str, where: str, dst) -> tuple[list, list[np.nda
     try:
         meta, _fids, geoms, field_data = pyogrio.raw.read(p, layer=layer)
     except Exception as err:  # pyogrio's DataSource/DataLayer errors, GDAL's decoding errors
-        raise FallwayIOError(f"cannot read {where} as GeoJSON or GeoPackage ({_first_line(err)}); "
+        raise FallwayIOError(f"cannot read {where} as GeoJSON or GeoPackage ({first_line(err)}); "
                              "check the file") from err
     if geoms is None or len(geoms) == 0:
         return [], []
@@ -207,7 +225,7 @@ def _read_layer(p: Path, layer: str, where: str, dst) -> tuple[list, list[np.nda
         try:
             g = shapely.from_wkb(wkb)
         except shapely.errors.GEOSException as err:
-            raise ParameterError(f"{label} in {where} cannot be decoded ({_first_line(err)}); fix the geometry") from err
+            raise ParameterError(f"{label} in {where} cannot be decoded ({first_line(err)}); fix the geometry") from err
         kind = g.geom_type
         if kind == "MultiLineString" and len(g.geoms) == 1:
             g = g.geoms[0]
