@@ -35,7 +35,6 @@ from fallway.physics import Mover, traverse
 from fallway.refine import refine_line
 from fallway.refine.chain import gravity_chain
 from fallway.refine.stages import OFF_SURFACE
-from fallway.params import SearchOptions
 from fallway.routing import find_route
 from fallway.terrain import Terrain
 

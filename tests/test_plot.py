@@ -16,7 +16,7 @@ from fallway.plot import nice_step, plot_map, plot_profile, save_figure
 from fallway.results import ReachMap
 
 # the route builders live beside the export tests (same synthetic site)
-from test_export import make_profile, make_route, make_terrain
+from test_export import make_route, make_terrain
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec (ISO/IEC 15948), section 5.2
 

@@ -11,7 +11,6 @@ working folder.
 
 from __future__ import annotations
 
-import os
 import signal
 import subprocess
 import sys

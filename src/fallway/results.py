@@ -16,9 +16,12 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
+
+if TYPE_CHECKING:  # annotations only: this module imports nothing of fallway at run time
+    from .physics import Profile
 
 __all__ = ["LatticeLine", "ReachMap", "RefineCandidate", "RefineResult", "RouteSummary", "Route"]
 
