@@ -192,3 +192,135 @@ if __name__ == "__main__":  # pragma: no cover - prints the worked examples
         r = friction_brachistochrone(L, H, mu)
         print(f"L={L} H={H} mu={mu}: C={r.C_m:.6f} psi_end={r.psi_end:.6f} fall={r.free_fall_m:.6f} "
               f"T={r.time_s:.7f} cycloid={cycloid(L, H).time_s:.7f} EL-res={euler_lagrange_residual(r):.2e}")
+
+
+# ---------------------------------------------------------------------------------------
+# re-reading an exported polyline, independently of fallway
+
+
+def incline_step(v0: float, drop_m: float, plan_m: float, mu: float, k: float = 0.0,
+                 g: float = G0) -> tuple[float, float]:
+    """Exit speed and time on one straight segment (incline with Coulomb friction and
+    drag k·v², any mechanics text; the formulas of CHECKS "Incline with Coulomb friction").
+
+    a = g(sin θ − μ cos θ); without drag v² = v0² + 2as, t = (v − v0)/a; with drag
+    v_t² = a/k, v² = v_t² + (v0² − v_t²)e^(−2ks) and the time by quadrature of ds/v.
+    Returns ``(nan, inf)`` when the mover comes to rest on the segment.
+    """
+    s = math.hypot(drop_m, plan_m)
+    a = g * (drop_m - mu * plan_m) / s
+    if k == 0.0:
+        v2 = v0 * v0 + 2.0 * a * s
+        if v2 <= 0.0:
+            return math.nan, math.inf
+        v = math.sqrt(v2)
+        t = (v - v0) / a if abs(a) > 1e-14 else s / v0
+        return v, t
+
+    def v2_at(x):
+        if a == 0.0:
+            return v0 * v0 * math.exp(-2.0 * k * x)
+        vt2 = a / k
+        return vt2 + (v0 * v0 - vt2) * math.exp(-2.0 * k * x)
+
+    if v2_at(s) <= 0.0:
+        return math.nan, math.inf
+    v = math.sqrt(v2_at(s))
+    if abs(v - v0) < 1e-12 * max(v, 1.0):  # at the terminal speed already
+        return v, s / v
+    # dv/dt = a − k v² along the segment: t = ∫ dv / (a − k v²) from v0 to v
+    t, _ = quad(lambda w: 1.0 / (a - k * w * w), v0, v, epsabs=0.0, epsrel=1e-11, limit=200)
+    return v, t
+    return math.sqrt(v2_at(s)), t
+
+
+def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
+                         g: float = G0, crest_relief: bool = True) -> tuple[float, float]:
+    """Time and exit speed of a polyline read as straight segments with sharp corners.
+
+    Each segment by :func:`incline_step`; at every interior vertex the belt-friction
+    (capstan) law of Euler–Eytelwein, v_out = v_in·e^(−μφ), φ the angle between the two
+    segment directions in 3D.  With ``crest_relief`` a corner that turns the line down
+    over a crest (its turn has a component φ_v < 0 across the bed) relieves the bed
+    instead: the angle becomes φ_h − |φ_v| (the sharp limit of a convex arc whose
+    normal force is g cos θ − v²κ; A. W. Roberts' curved-chute equation, CHECKS), a gain
+    of v² bounded by the gravity-normal friction μg·(plan length) of the two
+    half-segments beside the corner (where that bound binds the mover would lift off).
+    Returns ``(time_s, exit_speed_m_s)`` (``inf``, ``nan`` when the mover stops).
+    """
+    P = np.asarray(points, dtype=float)
+    d = np.diff(P, axis=0)
+    d = d[np.linalg.norm(d, axis=1) > 1e-9]
+    v, t = float(v0), 0.0
+    for j, seg in enumerate(d):
+        if j:
+            a, b = d[j - 1] / np.linalg.norm(d[j - 1]), seg / np.linalg.norm(seg)
+            phi = math.atan2(np.linalg.norm(np.cross(a, b)), float(a @ b))
+            if crest_relief and phi > 0.0:
+                # the turn's component across the bed (up: the upward normal in the
+                # vertical plane of the bisector); a crest relieves the bed
+                tb = (a + b) / np.linalg.norm(a + b)
+                up = np.array([0.0, 0.0, 1.0]) - tb[2] * tb
+                n = (b - a) / np.linalg.norm(b - a)
+                c = float(n @ up) / np.linalg.norm(up) if np.linalg.norm(up) > 1e-12 else 0.0
+                if c < 0.0:
+                    phi = phi * (math.sqrt(1.0 - c * c) + c)
+            if phi >= 0.0:
+                v *= math.exp(-mu * phi)
+            else:  # relief, at most the gravity-normal friction of the two half-segments
+                relief = mu * g * (math.hypot(*d[j - 1][:2]) + math.hypot(*seg[:2]))
+                v = math.sqrt(min(v * v * math.exp(-2.0 * mu * phi), v * v + relief))
+        v, dt = incline_step(v, -float(seg[2]), float(math.hypot(seg[0], seg[1])), mu, k, g)
+        if not math.isfinite(dt):
+            return math.inf, math.nan
+        t += dt
+    return t, v
+
+
+def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float = G0,
+                   law: str = "separate") -> tuple[float, float]:
+    """Time and exit speed along a smooth reading of a polyline, by ``solve_ivp``.
+
+    The smooth reading: a cubic spline through the vertices parametrised by chord length
+    (scipy ``CubicSpline``), its tangent and curvature vector from the spline's
+    derivatives.  Along arc length s (per unit mass)::
+
+        d(v²)/ds = 2 g sin θ − 2 μ |N| − 2 k v²
+
+    ``law="separate"``: |N| = |g_perp| + v²|κ| — the gravity normal on the bed and the
+    centripetal force as separate contact forces (the continuous limit of the
+    sharp-corner reading: straight pieces plus the capstan law); ``law="vector"``:
+    |N| = |v²κ n − g_perp| (a point mass on one smooth surface; CHECKS "Level bend").
+    Returns ``(time_s, exit_speed_m_s)``.
+    """
+    from scipy.interpolate import CubicSpline
+
+    P = np.asarray(points, dtype=float)
+    keep = np.r_[True, np.linalg.norm(np.diff(P, axis=0), axis=1) > 1e-9]
+    P = P[keep]
+    u = np.r_[0.0, np.cumsum(np.linalg.norm(np.diff(P, axis=0), axis=1))]
+    spl = CubicSpline(u, P, bc_type="natural")
+    d1, d2 = spl.derivative(1), spl.derivative(2)
+    gvec = np.array([0.0, 0.0, -g])
+
+    def rhs(par, y):
+        # y = (v², t, s); independent variable: the spline parameter
+        r1, r2 = d1(par), d2(par)
+        speed = float(np.linalg.norm(r1))
+        T = r1 / speed
+        kap = (r2 - (r2 @ T) * T) / speed ** 2  # curvature vector
+        gt = gvec @ T
+        gp = gvec - gt * T
+        u2 = max(y[0], 0.0)
+        if law == "separate":
+            nmag = np.linalg.norm(gp) + u2 * np.linalg.norm(kap)
+        else:
+            nmag = np.linalg.norm(u2 * kap - gp)
+        dv2 = 2.0 * gt - 2.0 * mu * nmag - 2.0 * k * u2
+        v = math.sqrt(u2) if u2 > 0 else 1e-9
+        return [dv2 * speed, speed / v, speed]
+
+    sol = solve_ivp(rhs, (u[0], u[-1]), [v0 * v0, 0.0, 0.0], method="DOP853", rtol=1e-10, atol=1e-10,
+                    max_step=max(u[-1] / 4000.0, 1e-3))
+    v2e = sol.y[0, -1]
+    return float(sol.y[1, -1]), math.sqrt(max(v2e, 0.0))

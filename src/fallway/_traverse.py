@@ -8,30 +8,30 @@ Model (per unit mass, DESIGN §3).  Along a polyline with unit segment direction
 ``"gravity"`` model: ``|N| = |g_perp| = g * plan / s``; ``b`` and ``|N|`` are constant
 on a straight segment and :func:`fallway._segment.segment_law` solves it exactly.
 
-``"full"`` model: ``N = u * kappa * n - g_perp`` (the force the line must supply: the
-centripetal part plus gravity's cross component).  The curvature is discrete: at each
-interior vertex i with turning angle ``phi_i`` between ``T_{i-1}`` and ``T_i``
-(``atan2(|T_{i-1} x T_i|, T_{i-1} . T_i)``) the curvature vector is
-``kappa_i n_i`` with ``|kappa_i| = phi_i / l_i``, ``l_i = (s_{i-1} + s_i) / 2`` and
-``n_i`` the unit vector along ``T_i - T_{i-1}``.  It acts on the half-segments either
-side of vertex i, so the integral of kappa over the bend is exactly ``phi_i``: a dense
-polyline along a smooth curve converges to the continuous answer, and a short sharp
-corner (centripetal part dominant) gives the belt-friction law
-``v_out = v_in * exp(-mu * phi)``.  Each half-segment carries constant coefficients
-(``b``, ``kappa²``, ``kappa n . g_perp``, ``|g_perp|²``), so ``u`` obeys an autonomous
-scalar ODE there; it is integrated with classical RK4 in σ, the number of substeps set
-from the stiffness ``(2 mu |kappa| + 2 k) * length`` (about 0.1 per substep, at least
-one); the time of each substep is ``2 h / (v_a + v_b)`` (exact for constant
-acceleration) improved by Richardson extrapolation over the two halves split at the
-Hermite midpoint.  Turning angles below 1e-12 rad count as straight.  A half-segment
-without curvature uses the exact segment law.  Everything is deterministic: no
-adaptivity that depends on floating-point noise.
+``"full"`` model: the **sharp-corner (channel) reading** of the polyline as it is:
+the same exact straight-segment law on every segment, and at every interior vertex the
+belt-friction (capstan) law of Euler–Eytelwein, ``v_out = v_in exp(-mu phi)``, ``phi``
+the turn's friction angle (:func:`turn_angle`: the 3D turning angle where the turn
+presses the mover into its bed or walls; a crest relieves the bed instead, bounded in
+:func:`corner_v2`).  The bed carries gravity's normal part, the walls the centripetal
+force, each with Coulomb friction: the continuous limit is ``|N| = |g_perp| + v²|kappa|``
+(exact for a channel with a bed and side walls; a point mass on one banked surface would
+see the smaller ``|v² kappa n - g_perp|``: this reading is the conservative one).  The
+time is a property of the line's shape: a collinear vertex turns by 0 and changes
+nothing, and no curvature is spread over segment lengths.  A line meant as a smooth
+curve must be sampled densely where it bends (the route's refined line is, at <= 5° of
+turn per vertex: :func:`fallway.geometry.round_corners`).
 
-Ends: the line starts along its first segment and ends along its last (no curvature at
-the end vertices).  A smooth curve sampled with angular step dθ therefore loses the
-half-step of turning at each end, a bend of dθ in all: at most a factor exp(-mu dθ) on
-the speed, first order in the spacing but confined to the ends; the interior is second
-order.
+The normal force ratio and lift-off outputs are read on the smooth reading of the
+vertices: a discrete curvature vector at each interior vertex with turning angle
+``phi_i`` between ``T_{i-1}`` and ``T_i``, ``|kappa_i| = phi_i / l_i``, ``l_i =
+(s_{i-1} + s_i) / 2``, ``n_i`` along ``T_i - T_{i-1}`` (:func:`vertex_turn`); the load
+is the resultant ``|v² kappa n - g_perp|`` of bed and wall forces.  The curved-segment
+integrator (:func:`curved_step`, :func:`half_step`, :func:`full_segment_step`: RK4 on
+half-segments carrying the spread curvature) is kept for that smooth reading.
+
+Ends: the line starts along its first segment and ends along its last (no turn at the
+end vertices).  The speed at a vertex is the speed arriving there (before its corner).
 
 Building blocks (all ``@njit(cache=True, nogil=True)``, scalars and flat arrays):
 :func:`vertex_turn` (the discrete curvature at one vertex), :func:`vertex_geometry`
@@ -187,6 +187,59 @@ def vertex_geometry(pts, tang, seg_len, kappa, normal):
 
 
 @njit(cache=True, nogil=True, inline="always")
+def turn_angle(ax, ay, az, bx, by, bz):
+    """Friction angle (rad) of a sharp corner from unit direction ``a`` to ``b``.
+
+    The turning angle ``phi = atan2(|a x b|, a . b)`` (0 up to :data:`_STRAIGHT_RAD`,
+    rounding noise of collinear points), split along the unit turn ``n = (b - a)/|b - a|``
+    into its part across the bed, ``phi_v = phi (n . up)`` with ``up`` the upward normal
+    in the vertical plane of the bisector tangent, and the rest, ``phi_h``.  A corner
+    that presses the mover into its bed or its walls (``phi_v >= 0``: a sag, a plan
+    turn) costs the belt-friction (capstan) law of the whole turn, ``v_out = v_in
+    exp(-mu phi)``.  A crest (``phi_v < 0``) relieves the bed: ``phi_h - |phi_v|``, the
+    limit of a convex arc on which the normal force is ``g cos θ - v² κ`` (negative: a
+    net relief, bounded in :func:`corner_v2`; lift-off is judged apart).
+    """
+    cx = ay * bz - az * by
+    cy = az * bx - ax * bz
+    cz = ax * by - ay * bx
+    phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
+    if phi <= _STRAIGHT_RAD:
+        return 0.0
+    nx, ny, nz = bx - ax, by - ay, bz - az
+    nn = math.sqrt(nx * nx + ny * ny + nz * nz)
+    tx, ty, tz = ax + bx, ay + by, az + bz
+    tn = math.sqrt(tx * tx + ty * ty + tz * tz)
+    if nn <= 0.0 or tn <= 1e-12:
+        return phi
+    tx, ty, tz = tx / tn, ty / tn, tz / tn
+    ux, uy, uz = -tz * tx, -tz * ty, 1.0 - tz * tz
+    un = math.sqrt(ux * ux + uy * uy + uz * uz)
+    if un <= 1e-12:  # a vertical tangent: no bed to relieve
+        return phi
+    c = (nx * ux + ny * uy + nz * uz) / (nn * un)
+    if c >= 0.0:
+        return phi
+    c = max(c, -1.0)
+    return phi * (math.sqrt(1.0 - c * c) + c)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def corner_v2(u, phi, mu, g, plan_a, plan_b):
+    """Squared speed after a sharp corner of friction angle ``phi`` (:func:`turn_angle`).
+
+    ``phi >= 0``: the capstan law, ``u e^(-2 mu phi)``.  ``phi < 0`` (a crest relieves
+    the bed): ``u e^(2 mu |phi|)``, but never more than the gravity-normal friction of the
+    half-segments either side, ``mu g (plan_a + plan_b)`` of ``v²`` (plan lengths of the
+    two segments): the relief of a convex arc is bounded by the normal force it relieves,
+    and the bound binds exactly where the mover would lift off (``v² kappa > g cos θ``).
+    """
+    if phi >= 0.0:
+        return u * math.exp(-2.0 * mu * phi)
+    return min(u * math.exp(-2.0 * mu * phi), u + mu * g * (plan_a + plan_b))
+
+
+@njit(cache=True, nogil=True, inline="always")
 def vertex_turn(ax, ay, az, bx, by, bz, mean_len):
     """Discrete curvature at a vertex where the unit direction turns from ``a`` to ``b``.
 
@@ -249,16 +302,16 @@ def full_segment_step(v2_in, drop_m, plan_m, length_m, kappa_a, kdg_a, kappa_b, 
 
 @njit(cache=True, nogil=True, inline="always")
 def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
-    """One segment of the full model from its window of four vertices.
+    """One segment of the full model (sharp-corner reading) from its window of vertices.
 
     ``Q`` (4, 3): vertices j-1, j, j+1, j+2 relative to vertex j; the segment runs from
-    row 1 to row 2, and rows 0 / 3 give the curvature at its start / end vertex when
-    ``has_a`` / ``has_b`` (the vertex is interior).  The same geometry as
-    :func:`traverse_kernel` (:func:`vertex_turn`, :func:`bend_kdg`) for a per-segment
-    caller (the refinement's adjoint perturbs one window at a time).  ``eps_plan`` > 0
+    row 1 to row 2.  When ``has_a`` (vertex j is interior) the capstan factor of the
+    turn at vertex j (from row 0-1 to row 1-2) applies first, as in
+    :func:`traverse_kernel`; row 3 and ``has_b`` do not enter (kept so the window of
+    every segment has one shape for the refinement's adjoint).  ``eps_plan`` > 0
     smooths the plan length, ``sqrt(plan² + eps²)``.  Returns ``(v2_out, time_s,
-    stall_at_m)`` as :func:`full_segment_step`; a repeated vertex (no segment) returns
-    ``(v2_in, 0, -1)``.
+    stall_at_m)`` as :func:`fallway._segment.segment_law`; a repeated vertex (no
+    segment) returns ``(v2_in, 0, -1)``.
     """
     dx = Q[2, 0] - Q[1, 0]
     dy = Q[2, 1] - Q[1, 1]
@@ -266,38 +319,16 @@ def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
     s = math.sqrt(dx * dx + dy * dy + dz * dz)
     if s <= 1e-12:
         return v2_in, 0.0, -1.0
-    tx, ty, tz = dx / s, dy / s, dz / s
     drop = -dz
     plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
-    ka = 0.0
-    kdg_a = 0.0
-    kb = 0.0
-    kdg_b = 0.0
-    for side in range(2):
-        if (side == 0 and not has_a) or (side == 1 and not has_b):
-            continue
-        if side == 0:
-            ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
-        else:
-            ex, ey, ez = Q[3, 0] - Q[2, 0], Q[3, 1] - Q[2, 1], Q[3, 2] - Q[2, 2]
+    u = v2_in
+    if has_a:
+        ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
         so = math.sqrt(ex * ex + ey * ey + ez * ez)
-        if so <= 1e-12:
-            continue
-        ox, oy, oz = ex / so, ey / so, ez / so
-        # a: turn from the previous direction o to t; b: from t to the next direction o
-        if side == 0:
-            kap, nx, ny, nz = vertex_turn(ox, oy, oz, tx, ty, tz, 0.5 * (so + s))
-        else:
-            kap, nx, ny, nz = vertex_turn(tx, ty, tz, ox, oy, oz, 0.5 * (so + s))
-        if kap <= 0.0:
-            continue
-        kdg = bend_kdg(kap, nx, ny, nz, tx, ty, tz, g)
-        if side == 0:
-            ka, kdg_a = kap, kdg
-        else:
-            kb, kdg_b = kap, kdg
-    un, t, at, _ = full_segment_step(v2_in, drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k, v2_stall)
-    return un, t, at
+        if so > 1e-12:
+            phi = turn_angle(ex / so, ey / so, ez / so, dx / s, dy / s, dz / s)
+            u = corner_v2(u, phi, mu, g, math.sqrt(max(so * so - ez * ez, 0.0)), plan)
+    return segment_law(u, drop, plan, s, g, mu, k, v2_stall)
 
 
 @njit(cache=True, nogil=True)
@@ -351,17 +382,20 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
                 last = j
                 break
         else:
-            tx, ty, tz = tang[j, 0], tang[j, 1], tang[j, 2]
-            ka = kappa[j]
-            kb = kappa[j + 1]
-            kdg_a = bend_kdg(ka, normal[j, 0], normal[j, 1], normal[j, 2], tx, ty, tz, g)
-            kdg_b = bend_kdg(kb, normal[j + 1, 0], normal[j + 1, 1], normal[j + 1, 2], tx, ty, tz, g)
-            u, t, at, um = full_segment_step(v2[j], drop, plan, s, ka, kdg_a, kb, kdg_b, g, mu, k,
-                                             v2_stall)
+            # sharp-corner reading: the belt-friction (capstan) law for the turn at the
+            # vertex the segment leaves from, then the exact straight-segment law
+            u0 = v2[j]
+            if j >= 1:
+                phi = turn_angle(tang[j - 1, 0], tang[j - 1, 1], tang[j - 1, 2], tang[j, 0], tang[j, 1], tang[j, 2])
+                dzp = pts[j - 1, 2] - pts[j, 2]
+                plan_prev = math.sqrt(max(seg_len[j - 1] ** 2 - dzp * dzp, 0.0))
+                u0 = corner_v2(u0, phi, mu, g, plan_prev, plan)
+            u, t, at = segment_law(u0, drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at
                 last = j
                 break
+            um, _, _ = segment_law(u0, 0.5 * drop, 0.5 * plan, 0.5 * s, g, mu, k, 0.0)
             v2_mid[j] = um
         v2[j + 1] = u
         time[j + 1] = time[j] + t

@@ -232,25 +232,22 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     ``normal="gravity"``: ``|N| = g plan / s`` per straight segment; the exact
     closed-form segment law is chained over the segments.
 
-    ``normal="full"``: ``N = v² kappa n - g_perp`` (vector; its magnitude gives the
-    friction), ``g_perp`` gravity's component across the tangent.  Discretisation: at
-    each interior vertex i the turning angle ``phi_i`` between the adjoining segment
-    directions (3D) defines a curvature vector ``kappa_i n_i``, ``|kappa_i| = phi_i /
-    l_i``, ``l_i = (s_{i-1} + s_i) / 2``, ``n_i`` along ``T_i - T_{i-1}``.  The bend is
-    carried by the two half-segments either side of the vertex, so the integral of
-    ``kappa`` over it is exactly ``phi_i``.  On each half-segment the coefficients are
-    constant and ``v²`` obeys an autonomous ODE, integrated by RK4 substeps (about 0.1
-    of stiffness ``(2 mu kappa + 2k) * length`` per substep; the exact segment law where
-    ``kappa = 0``); a substep's time is ``2 h / (v_a + v_b)``.  This is the limit of a
-    smooth interpolant of the vertices: a dense polyline along a curve converges to the
-    continuous answer (second order in the spacing).  **Corners**: a sparse polyline's
-    sharp vertex is a bend of angle ``phi`` spread over the half-segments around it;
-    when the adjoining segments are short (centripetal part dominant) this gives the
-    belt-friction (capstan) law ``v_out = v_in exp(-mu phi)``, its short-bend limit.
-    Refine or round a polyline whose corners are not meant to be tight bends.  The end
-    vertices carry no curvature (the line leaves along its first segment and arrives
-    along its last), so a curve sampled with angular step dθ misses a bend of dθ in all:
-    at most a factor ``exp(-mu dθ)`` on the speed.
+    ``normal="full"``: the sharp-corner (channel) reading of the polyline as given:
+    the exact segment law on each straight segment (the bed carries gravity's normal
+    part), and at each interior vertex the belt-friction (capstan) law of
+    Euler–Eytelwein, ``v_out = v_in exp(-mu phi)`` for a turn of 3D angle ``phi`` that
+    presses the mover into its bed or walls; a crest relieves the bed instead (the turn's
+    downward part counts negative, the gain bounded by the gravity-normal friction of
+    the half-segments beside it, which binds exactly where the mover would lift off).
+    The time is a property of the shape: adding collinear vertices changes nothing.  In
+    the continuous limit friction is ``mu (|g_perp| + v² |kappa|)``: exact for a channel
+    with bed and walls, conservative against a point mass on one banked surface
+    (``mu |v² kappa n - g_perp|``).  A line meant as a smooth curve must therefore be
+    sampled densely where it bends; route lines are (<= 5° of turn per vertex).  The
+    speed at a vertex is the arriving speed.  ``normal_ratio`` and lift-off are read on
+    the smooth reading of the vertices (discrete curvature ``phi_i / l_i``, ``l_i`` the
+    mean of the adjoining segment lengths); the load is the resultant of bed and wall
+    forces, ``|v² kappa n - g_perp| / g``.
 
     Stalls: the mover stalls where it slows below ``stall_speed`` (or comes to rest).
     A line that starts at rest (or below the stall speed) on an upslope or a level
