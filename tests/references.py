@@ -235,14 +235,16 @@ def incline_step(v0: float, drop_m: float, plan_m: float, mu: float, k: float = 
 
 
 def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
-                         g: float = G0, crest_relief: bool = True) -> tuple[float, float]:
+                         g: float = G0, channel: bool = True) -> tuple[float, float]:
     """Time and exit speed of a polyline read as straight segments with sharp corners.
 
     Each segment by :func:`incline_step`; at every interior vertex the belt-friction
     (capstan) law of Euler–Eytelwein, v_out = v_in·e^(−μφ), φ the angle between the two
-    segment directions in 3D.  With ``crest_relief`` a corner that turns the line down
-    over a crest (its turn has a component φ_v < 0 across the bed) relieves the bed
-    instead: the angle becomes φ_h − |φ_v| (the sharp limit of a convex arc whose
+    segment directions in 3D.  With ``channel`` (the channel reading) the corner's
+    impulse is shared between the bed (c = n·up, n the unit turn, up the upward normal
+    in the vertical plane of the bisector) and the walls (√(1 − c²)), each with Coulomb
+    friction: the angle becomes φ(√(1 − c²) + c), φ for a plan turn or a sag; a crest
+    (c < 0) relieves the bed (the sharp limit of a convex arc whose
     normal force is g cos θ − v²κ; A. W. Roberts' curved-chute equation, CHECKS), a gain
     of v² bounded by the gravity-normal friction μg·(plan length) of the two
     half-segments beside the corner (where that bound binds the mover would lift off).
@@ -251,24 +253,45 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     P = np.asarray(points, dtype=float)
     d = np.diff(P, axis=0)
     d = d[np.linalg.norm(d, axis=1) > 1e-9]
+    # plan length of the straight run before / after each corner (collinear vertices do
+    # not end a run): the crest relief's bound
+    unit = d / np.linalg.norm(d, axis=1)[:, None]
+    bend = [j > 0 and float(unit[j - 1] @ unit[j]) < 1.0 - 1e-15 and
+            np.linalg.norm(np.cross(unit[j - 1], unit[j])) > 1e-12 for j in range(len(d))]
+    plan = np.hypot(d[:, 0], d[:, 1])
+    before, after = np.zeros(len(d)), np.zeros(len(d))
+    for j in range(1, len(d)):
+        i = j - 1
+        while True:
+            before[j] += plan[i]
+            if bend[i] or i == 0:
+                break
+            i -= 1
+        i = j
+        while True:
+            after[j] += plan[i]
+            if i + 1 >= len(d) or bend[i + 1]:
+                break
+            i += 1
     v, t = float(v0), 0.0
     for j, seg in enumerate(d):
         if j:
             a, b = d[j - 1] / np.linalg.norm(d[j - 1]), seg / np.linalg.norm(seg)
             phi = math.atan2(np.linalg.norm(np.cross(a, b)), float(a @ b))
-            if crest_relief and phi > 0.0:
+            if channel and phi > 0.0:
                 # the turn's component across the bed (up: the upward normal in the
                 # vertical plane of the bisector); a crest relieves the bed
                 tb = (a + b) / np.linalg.norm(a + b)
                 up = np.array([0.0, 0.0, 1.0]) - tb[2] * tb
                 n = (b - a) / np.linalg.norm(b - a)
-                c = float(n @ up) / np.linalg.norm(up) if np.linalg.norm(up) > 1e-12 else 0.0
-                if c < 0.0:
-                    phi = phi * (math.sqrt(1.0 - c * c) + c)
+                if np.linalg.norm(up) > 1e-12:
+                    up = up / np.linalg.norm(up)
+                    c = float(n @ up)
+                    phi = phi * (float(np.linalg.norm(n - c * up)) + c)
             if phi >= 0.0:
                 v *= math.exp(-mu * phi)
             else:  # relief, at most the gravity-normal friction of the two half-segments
-                relief = mu * g * (math.hypot(*d[j - 1][:2]) + math.hypot(*seg[:2]))
+                relief = mu * g * (before[j] + after[j])
                 v = math.sqrt(min(v * v * math.exp(-2.0 * mu * phi), v * v + relief))
         v, dt = incline_step(v, -float(seg[2]), float(math.hypot(seg[0], seg[1])), mu, k, g)
         if not math.isfinite(dt):
@@ -281,46 +304,67 @@ def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float 
                    law: str = "separate") -> tuple[float, float]:
     """Time and exit speed along a smooth reading of a polyline, by ``solve_ivp``.
 
-    The smooth reading: a cubic spline through the vertices parametrised by chord length
-    (scipy ``CubicSpline``), its tangent and curvature vector from the spline's
-    derivatives.  Along arc length s (per unit mass)::
+    The smooth reading: each interior vertex's turn φ_i is spread as a circular bend
+    over the half-segments either side of it (curvature φ_i / l_i, l_i the mean of the
+    two segment lengths, towards the turn; the discrete Frenet frame of a sampled
+    curve, which is exact for a circle sampled at equal steps).  Along arc length s, per
+    unit mass::
 
         d(v²)/ds = 2 g sin θ − 2 μ |N| − 2 k v²
 
-    ``law="separate"``: |N| = |g_perp| + v²|κ| — the gravity normal on the bed and the
-    centripetal force as separate contact forces (the continuous limit of the
-    sharp-corner reading: straight pieces plus the capstan law); ``law="vector"``:
-    |N| = |v²κ n − g_perp| (a point mass on one smooth surface; CHECKS "Level bend").
-    Returns ``(time_s, exit_speed_m_s)``.
+    ``law="separate"``: the bed carries gravity's normal part plus the bend's part across
+    the bed (c = n·up, signed: a sag presses, a crest relieves), the walls the rest:
+    |N| = |g_perp| + v²κ(c + √(1 − c²)) (the continuous limit of the sharp-corner
+    reading);
+    ``law="vector"``: |N| = |v²κ n − g_perp| (a point mass on one smooth surface;
+    CHECKS "Level bend").  Integrated half-segment by half-segment with ``solve_ivp``
+    (DOP853).  Returns ``(time_s, exit_speed_m_s)``.
     """
-    from scipy.interpolate import CubicSpline
-
     P = np.asarray(points, dtype=float)
     keep = np.r_[True, np.linalg.norm(np.diff(P, axis=0), axis=1) > 1e-9]
     P = P[keep]
-    u = np.r_[0.0, np.cumsum(np.linalg.norm(np.diff(P, axis=0), axis=1))]
-    spl = CubicSpline(u, P, bc_type="natural")
-    d1, d2 = spl.derivative(1), spl.derivative(2)
+    d = np.diff(P, axis=0)
+    L = np.linalg.norm(d, axis=1)
+    T = d / L[:, None]
+    n_v = len(P)
+    kap = np.zeros(n_v)
+    nrm = np.zeros((n_v, 3))
+    for i in range(1, n_v - 1):
+        phi = math.atan2(np.linalg.norm(np.cross(T[i - 1], T[i])), float(T[i - 1] @ T[i]))
+        if phi > 1e-12:
+            kap[i] = phi / (0.5 * (L[i - 1] + L[i]))
+            nrm[i] = (T[i] - T[i - 1]) / np.linalg.norm(T[i] - T[i - 1])
     gvec = np.array([0.0, 0.0, -g])
+    u2, t = v0 * v0, 0.0
+    for j in range(n_v - 1):
+        gt = float(gvec @ T[j])
+        gp = gvec - gt * T[j]
+        for vertex in (j, j + 1):  # the half-segment next to each end vertex
+            kv, nv = kap[vertex], nrm[vertex]
+            # the bend's parts across the bed (signed: a sag presses, a crest relieves) and
+            # against the walls; up: the upward normal in the vertical plane of the chord
+            up = np.array([0.0, 0.0, 1.0]) - T[j][2] * T[j]
+            shares = 1.0
+            if np.linalg.norm(up) > 1e-12 and kv > 0.0:
+                up = up / np.linalg.norm(up)
+                c = float(nv @ up)
+                shares = float(np.linalg.norm(nv - c * up)) + c
 
-    def rhs(par, y):
-        # y = (v², t, s); independent variable: the spline parameter
-        r1, r2 = d1(par), d2(par)
-        speed = float(np.linalg.norm(r1))
-        T = r1 / speed
-        kap = (r2 - (r2 @ T) * T) / speed ** 2  # curvature vector
-        gt = gvec @ T
-        gp = gvec - gt * T
-        u2 = max(y[0], 0.0)
-        if law == "separate":
-            nmag = np.linalg.norm(gp) + u2 * np.linalg.norm(kap)
-        else:
-            nmag = np.linalg.norm(u2 * kap - gp)
-        dv2 = 2.0 * gt - 2.0 * mu * nmag - 2.0 * k * u2
-        v = math.sqrt(u2) if u2 > 0 else 1e-9
-        return [dv2 * speed, speed / v, speed]
+            def rhs(_s, y, kv=kv, nv=nv, gt=gt, gp=gp, shares=shares):
+                w = max(y[0], 0.0)
+                if law == "separate":
+                    nmag = np.linalg.norm(gp) + w * kv * shares
+                else:
+                    nmag = np.linalg.norm(w * kv * nv - gp)
+                v = math.sqrt(w) if w > 0 else 1e-12
+                return [2.0 * gt - 2.0 * mu * nmag - 2.0 * k * w, 1.0 / v]
 
-    sol = solve_ivp(rhs, (u[0], u[-1]), [v0 * v0, 0.0, 0.0], method="DOP853", rtol=1e-10, atol=1e-10,
-                    max_step=max(u[-1] / 4000.0, 1e-3))
-    v2e = sol.y[0, -1]
-    return float(sol.y[1, -1]), math.sqrt(max(v2e, 0.0))
+            def stop(_s, y):
+                return y[0]
+            stop.terminal, stop.direction = True, -1
+            sol = solve_ivp(rhs, (0.0, 0.5 * L[j]), [u2, t], method="DOP853", rtol=1e-11, atol=1e-11,
+                            events=stop if u2 > 0 else None)
+            if sol.status == 1:
+                return math.inf, math.nan
+            u2, t = float(sol.y[0, -1]), float(sol.y[1, -1])
+    return t, math.sqrt(max(u2, 0.0))

@@ -11,9 +11,9 @@ on a straight segment and :func:`fallway._segment.segment_law` solves it exactly
 ``"full"`` model: the **sharp-corner (channel) reading** of the polyline as it is:
 the same exact straight-segment law on every segment, and at every interior vertex the
 belt-friction (capstan) law of Euler–Eytelwein, ``v_out = v_in exp(-mu phi)``, ``phi``
-the turn's friction angle (:func:`turn_angle`: the 3D turning angle where the turn
-presses the mover into its bed or walls; a crest relieves the bed instead, bounded in
-:func:`corner_v2`).  The bed carries gravity's normal part, the walls the centripetal
+the turn's friction angle (:func:`turn_angle`: the turning angle of a plan turn or a sag;
+for a mixed turn the bed and the walls each take their part; a crest relieves the bed
+instead, bounded in :func:`corner_v2`).  The bed carries gravity's normal part, the walls the centripetal
 force, each with Coulomb friction: the continuous limit is ``|N| = |g_perp| + v²|kappa|``
 (exact for a channel with a bed and side walls; a point mass on one banked surface would
 see the smaller ``|v² kappa n - g_perp|``: this reading is the conservative one).  The
@@ -192,13 +192,14 @@ def turn_angle(ax, ay, az, bx, by, bz):
 
     The turning angle ``phi = atan2(|a x b|, a . b)`` (0 up to :data:`_STRAIGHT_RAD`,
     rounding noise of collinear points), split along the unit turn ``n = (b - a)/|b - a|``
-    into its part across the bed, ``phi_v = phi (n . up)`` with ``up`` the upward normal
-    in the vertical plane of the bisector tangent, and the rest, ``phi_h``.  A corner
-    that presses the mover into its bed or its walls (``phi_v >= 0``: a sag, a plan
-    turn) costs the belt-friction (capstan) law of the whole turn, ``v_out = v_in
-    exp(-mu phi)``.  A crest (``phi_v < 0``) relieves the bed: ``phi_h - |phi_v|``, the
-    limit of a convex arc on which the normal force is ``g cos θ - v² κ`` (negative: a
-    net relief, bounded in :func:`corner_v2`; lift-off is judged apart).
+    into its part across the bed, ``c = n . up`` with ``up`` the upward unit normal in the
+    vertical plane of the bisector tangent, and its part against the walls,
+    ``sqrt(1 - c²)``.  The corner's impulse ``v phi n`` is shared the same way, each part
+    with Coulomb friction (a channel: bed and walls): the friction angle is
+    ``phi (sqrt(1 - c²) + c)``.  A turn purely in plan (``c = 0``) or a sag (``c = 1``)
+    gives the belt-friction (capstan) law of the whole turn, ``v_out = v_in exp(-mu
+    phi)``; a crest (``c < 0``) relieves the bed (negative angle: bounded in
+    :func:`corner_v2`; lift-off is judged apart).
     """
     cx = ay * bz - az * by
     cy = az * bx - ax * bz
@@ -217,11 +218,12 @@ def turn_angle(ax, ay, az, bx, by, bz):
     un = math.sqrt(ux * ux + uy * uy + uz * uz)
     if un <= 1e-12:  # a vertical tangent: no bed to relieve
         return phi
-    c = (nx * ux + ny * uy + nz * uz) / (nn * un)
-    if c >= 0.0:
-        return phi
-    c = max(c, -1.0)
-    return phi * (math.sqrt(1.0 - c * c) + c)
+    nx, ny, nz = nx / nn, ny / nn, nz / nn
+    ux, uy, uz = ux / un, uy / un, uz / un
+    c = nx * ux + ny * uy + nz * uz
+    # the wall share as the length of n's part across up (better conditioned than √(1 − c²))
+    wx, wy, wz = nx - c * ux, ny - c * uy, nz - c * uz
+    return phi * (math.sqrt(wx * wx + wy * wy + wz * wz) + c)
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -229,10 +231,13 @@ def corner_v2(u, phi, mu, g, plan_a, plan_b):
     """Squared speed after a sharp corner of friction angle ``phi`` (:func:`turn_angle`).
 
     ``phi >= 0``: the capstan law, ``u e^(-2 mu phi)``.  ``phi < 0`` (a crest relieves
-    the bed): ``u e^(2 mu |phi|)``, but never more than the gravity-normal friction of the
-    half-segments either side, ``mu g (plan_a + plan_b)`` of ``v²`` (plan lengths of the
-    two segments): the relief of a convex arc is bounded by the normal force it relieves,
-    and the bound binds exactly where the mover would lift off (``v² kappa > g cos θ``).
+    the bed): ``u e^(2 mu |phi|)``, but never more than the gravity-normal friction of
+    half the straight runs either side, ``mu g (plan_a + plan_b)`` of ``v²`` (``plan_a``,
+    ``plan_b``: plan lengths of the runs to the neighbouring corners, so collinear
+    vertices change nothing): the relief of a convex arc is bounded by the normal force
+    it relieves, and the bound binds only where the mover would lift off (``v² kappa > g
+    cos θ``).  :func:`window_step` (the refinement's four-vertex window) takes the two
+    adjoining segments as the runs.
     """
     if phi >= 0.0:
         return u * math.exp(-2.0 * mu * phi)
@@ -367,6 +372,27 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
         v2_mid[j] = math.nan
     grade[m - 1] = grade[m - 2]
 
+    # corners: friction angle at each interior vertex, and the plan length of the straight
+    # runs either side of it (up to the next corner: collinear vertices do not end a run)
+    phi_c = np.zeros(m)
+    run_before = np.zeros(m)
+    run_after = np.zeros(m)
+    if full:
+        for i in range(1, m - 1):
+            phi_c[i] = turn_angle(tang[i - 1, 0], tang[i - 1, 1], tang[i - 1, 2], tang[i, 0], tang[i, 1], tang[i, 2])
+        acc = 0.0
+        for i in range(1, m):
+            acc += seg_len[i - 1] * math.sqrt(max(1.0 - tang[i - 1, 2] ** 2, 0.0))
+            run_before[i] = acc
+            if phi_c[i] != 0.0:
+                acc = 0.0
+        acc = 0.0
+        for i in range(m - 2, -1, -1):
+            acc += seg_len[i] * math.sqrt(max(1.0 - tang[i, 2] ** 2, 0.0))
+            run_after[i] = acc
+            if phi_c[i] != 0.0:
+                acc = 0.0
+
     v2[0] = v2_0
     time[0] = 0.0
     stall = -1.0
@@ -386,10 +412,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
             # vertex the segment leaves from, then the exact straight-segment law
             u0 = v2[j]
             if j >= 1:
-                phi = turn_angle(tang[j - 1, 0], tang[j - 1, 1], tang[j - 1, 2], tang[j, 0], tang[j, 1], tang[j, 2])
-                dzp = pts[j - 1, 2] - pts[j, 2]
-                plan_prev = math.sqrt(max(seg_len[j - 1] ** 2 - dzp * dzp, 0.0))
-                u0 = corner_v2(u0, phi, mu, g, plan_prev, plan)
+                u0 = corner_v2(u0, phi_c[j], mu, g, run_before[j], run_after[j])
             u, t, at = segment_law(u0, drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at

@@ -12,7 +12,8 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["drop_repeats", "resample_plan", "circumradii", "min_radius_m", "plan_length_m", "raised_heights_m"]
+__all__ = ["drop_repeats", "resample_plan", "circumradii", "min_radius_m", "plan_length_m", "raised_heights_m",
+           "round_corners", "MAX_VERTEX_TURN_DEG", "MIN_EXPORT_SEGMENT_M"]
 
 #: Vertices closer than this (m) are the same point.
 SAME_POINT_M = 1e-6
@@ -167,3 +168,77 @@ def raised_heights_m(xy, start_height_m: float, end_height_m: float, clearance_m
     frac = frac / frac[-1] if frac[-1] > 0 else np.linspace(0.0, 1.0, len(frac))
     h = float(start_height_m) + (float(end_height_m) - float(start_height_m)) * frac
     return np.clip(h, float(clearance_m[0]), float(clearance_m[1]))
+
+
+#: Largest turn (degrees) at one vertex of a route's exported line.
+MAX_VERTEX_TURN_DEG = 5.0
+
+
+#: Shortest segment (m) of a route's exported line: finer detail is not a buildable shape.
+MIN_EXPORT_SEGMENT_M = 0.05
+
+
+def round_corners(points, max_turn_deg: float = MAX_VERTEX_TURN_DEG, *, fixed_xy=(),
+                  min_segment_m: float = 0.0) -> np.ndarray:
+    """The 3D polyline with every corner sharper than ``max_turn_deg`` replaced by an arc.
+
+    First, with ``min_segment_m`` > 0, vertices closer than that to the previous kept
+    one are dropped (ends and ``fixed_xy`` kept): detail finer than a built line can hold
+    (a route uses :data:`MIN_EXPORT_SEGMENT_M`, 5 cm, a judgment).
+
+    A vertex where the direction turns by ``phi > max_turn_deg`` becomes a circular arc
+    tangent to both adjoining segments, in their plane, starting and ending at most half
+    a segment from the vertex (tangent length ``t = min(s_prev, s_next) / 2``, radius
+    ``t / tan(phi / 2)``, the largest arc that leaves the neighbouring corners room), and
+    sampled by ``m = ceil(phi / max_turn_deg)`` chords: ``phi / m`` of turn at each arc
+    vertex, ``phi / (2m)`` where the arc meets the straight.  The line's time under the
+    sharp-corner reading (:func:`fallway.traverse`) then agrees with its smooth reading,
+    and bend radius, lateral acceleration and lift-off read off consecutive vertices.
+    End vertices and vertices at ``fixed_xy`` (via points, within 1 mm in plan) stay.
+
+    Examples
+    --------
+    A right angle with 10 m legs becomes a 5 m-radius quarter arc in 18 chords of 5°:
+
+    >>> line = round_corners([(0, 0, 0), (10, 0, 0), (10, 10, 0)])
+    >>> len(line), round(float(np.hypot(*(line[10, :2] - (5, 5)))), 9)
+    (21, 5.0)
+    """
+    P = drop_repeats(np.asarray(points, dtype=float))
+    if P.ndim != 2 or P.shape[1] != 3:
+        raise ParameterError(f"round_corners needs an (N, 3) polyline, got shape {P.shape}")
+    fixed = np.asarray(fixed_xy, dtype=float).reshape(-1, 2)
+    if min_segment_m > 0.0 and len(P) > 2:
+        keep = [0]
+        for i in range(1, len(P) - 1):
+            pinned = len(fixed) and np.min(np.hypot(*(fixed - P[i, :2]).T)) < 1e-3
+            if pinned or np.linalg.norm(P[i] - P[keep[-1]]) >= min_segment_m:
+                keep.append(i)
+        if len(keep) > 1 and np.linalg.norm(P[-1] - P[keep[-1]]) < min_segment_m and not (
+                len(fixed) and np.min(np.hypot(*(fixed - P[keep[-1], :2]).T)) < 1e-3):
+            keep.pop()
+        P = P[keep + [len(P) - 1]]
+    if len(P) < 3:
+        return P.copy()
+    lim = math.radians(float(max_turn_deg))
+    d = np.diff(P, axis=0)
+    s = np.linalg.norm(d, axis=1)
+    T = d / s[:, None]
+    out = [P[0]]
+    for i in range(1, len(P) - 1):
+        a, b = T[i - 1], T[i]
+        phi = math.atan2(float(np.linalg.norm(np.cross(a, b))), float(a @ b))
+        t = 0.5 * min(s[i - 1], s[i])
+        pinned = len(fixed) and np.min(np.hypot(*(fixed - P[i, :2]).T)) < 1e-3
+        if phi <= lim or pinned or t <= SAME_POINT_M or phi >= math.pi - 1e-9:
+            out.append(P[i])
+            continue
+        n = b - (a @ b) * a
+        n /= np.linalg.norm(n)
+        r = t / math.tan(0.5 * phi)
+        m = math.ceil(phi / lim - 1e-12)
+        th = np.linspace(0.0, phi, m + 1)
+        start = P[i] - t * a
+        out.extend(start + r * np.sin(th)[:, None] * a + r * (1.0 - np.cos(th))[:, None] * n)
+    out.append(P[-1])
+    return drop_repeats(np.array(out))

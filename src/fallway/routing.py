@@ -40,7 +40,7 @@ import numpy as np
 from .caution import CAUTION
 from .errors import NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
 from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, enters_keepout, envelope, row_for_line
-from .geometry import drop_repeats, min_radius_m, raised_heights_m
+from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
 from .keepout import Keepout
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
@@ -366,7 +366,9 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         t0 = time.perf_counter()
         rr = _refine(found, job, mover)
         compute["refine"] = time.perf_counter() - t0
-        final = np.asarray(rr.line, dtype=float)  # the chosen line as it is: its time is the reported one
+        # the chosen line with its corners sampled as arcs (<= 5° of turn per vertex): the
+        # exported line, and its time is the reported one
+        final = round_corners(np.asarray(rr.line, dtype=float), fixed_xy=job.via, min_segment_m=MIN_EXPORT_SEGMENT_M)
     profile = _timed(terrain, final, mover, job.line.kind)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
     violated = _violated(terrain, final, profile, job.limits, found.keepout)
