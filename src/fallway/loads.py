@@ -264,6 +264,10 @@ def curvature_caps(points, speed_m_s, limits: Limits, *, g: float = STANDARD_GRA
     P, v, g = _inputs(points, speed_m_s, g)
     if not isinstance(limits, Limits):
         raise ParameterError(f"limits must be a fallway.Limits, got {type(limits).__name__}")
+    keep = _distinct(P)
+    if not keep.all():  # a repeated vertex takes the cap of the one it repeats
+        sn = None if surface_normal is None else np.asarray(surface_normal, dtype=float)[keep]
+        return curvature_caps(P[keep], v[keep], limits, g=g, surface_normal=sn)[np.cumsum(keep) - 1]
     _, t, kap, A = _frame(P, surface_normal)
     n = len(P)
     caps = np.full(n, np.inf)
