@@ -21,6 +21,7 @@ LAYERS = [
     ["_segment", "_surface"],
     ["_traverse"],
     ["physics", "geometry"],
+    ["loads"],
     ["terrain"],
     ["results"],
     ["vector"],

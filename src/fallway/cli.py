@@ -258,7 +258,8 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
         if val is not None:
             d["mover"][key] = val
     for key, val in (("min_grade", min_grade), ("max_grade", max_grade), ("max_step_turn_deg", max_turn),
-                     ("min_radius_m", extra.get("min_radius"))):
+                     ("min_radius_m", extra.get("min_radius")), ("max_lateral_g", extra.get("max_lateral_g")),
+                     ("max_normal_g", extra.get("max_normal_g")), ("allow_liftoff", extra.get("allow_liftoff"))):
         if val is not None:
             d["limits"][key] = val
     if neighbours is not None:
@@ -334,6 +335,11 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 @click.option("--start-height", type=float, help="Raised line: height above ground at the start, m (default MIN).")
 @click.option("--end-height", type=float, help="Raised line: height above ground at the end, m (default MIN).")
 @click.option("--min-radius", type=float, help="Smallest bend radius of the refined line along the line (3D), m.")
+@click.option("--max-lateral-g", type=float, help="Largest sideways acceleration in bends, in g (v²/R <= n g on a level "
+              "bend: the smallest allowed radius grows with the square of the speed).")
+@click.option("--max-normal-g", type=float, help="Largest normal load on the bed, in g (>= 1; 1 on a level straight).")
+@click.option("--allow-liftoff", is_flag=True, default=None, help="An enclosed chute or pipe: a crest taken fast enough "
+              "to lift the mass off an open bed is allowed (default: an open line, which must not lift off).")
 @click.option("--no-refine", is_flag=True, help="Report the lattice line only.")
 @click.option("--mu-range", type=(float, float), metavar="LO HI", help="Friction range to check the line against.")
 @click.option("--robust", is_flag=True, help="With --mu-range: the fastest line that works across the whole range.")
@@ -374,6 +380,9 @@ def _print_route(r, out_dir, written) -> None:
     exit_v = "-" if s.exit_speed_m_s is None else f"{s.exit_speed_m_s:.2f} m/s"
     click.echo(f"travel time {t} (lattice {lat}), length {s.length_m:.1f} m, drop {s.drop_m:.1f} m, "
                f"exit speed {exit_v}, max speed {s.max_speed_m_s:.2f} m/s")
+    if s.max_lateral_g is not None:
+        click.echo(f"largest lateral {s.max_lateral_g:.2f} g, normal load {s.max_normal_g:.2f} g, "
+                   f"smallest lift-off margin {s.min_liftoff_margin_g:.2f} g (at {s.min_liftoff_margin_station_m:.0f} m)")
     if not s.feasible:
         click.echo(f"warning: the line breaks limits ({', '.join(s.violated_limits) or 'the mover stalls'}); "
                    "it is not a feasible design", err=True)

@@ -7,8 +7,8 @@ Frozen dataclasses validated at construction: a bad value raises
   normal-force model) and its **speed window** (stall speed, speed limit).  The speed
   window stays on the mover, not on :class:`Limits`, because every motion profile
   flags it: a profile knows its mover, not the route's limits.
-* :class:`Limits` - the geometric limits of a line (grade window, turn per lattice
-  step, bend radius).
+* :class:`Limits` - the geometric and load limits of a line (grade window, turn per
+  lattice step, bend radius, lateral and normal acceleration, lift-off).
 * :class:`LineSpec` - the kind of line (on the ground, or raised within a clearance
   band) with its end heights.
 * :class:`SearchOptions` - how the lattice is searched (stencil, label cap, budget,
@@ -147,11 +147,33 @@ class Limits:
         plan radius differs (a plan circle of radius R draped on a plane tilted by α has a
         3D radius down to R cos α); route summaries report both, ``min_radius_m`` (plan)
         and ``min_radius_3d_m``.
+    max_lateral_g : float or None
+        Largest sideways (horizontal, across the plan direction) acceleration, in units
+        of g: ``v_h² κ_plan <= max_lateral_g * g`` with ``v_h`` the horizontal speed
+        (``v² / R`` on a level bend, so the smallest allowed plan radius is
+        ``v² / (max_lateral_g * g)``: it grows with the square of the speed).  Measured
+        at every vertex of the line (:func:`fallway.loads.line_loads`); the refinement
+        holds it as a bend radius that depends on the local speed.
+    max_normal_g : float or None
+        Largest normal load ratio N/g, N the force per unit mass the bed supplies
+        (``|v² κ n - g_perp|``, the full model's normal force; 1 on a level straight).
+        Must be >= 1 when given (a line at rest on level ground already carries 1 g).
+    allow_liftoff : bool
+        False (default): the line is an open chute or conveyor, and a line on which the
+        bed would have to pull the mass (a crest taken too fast: ``v² κ_crest > g cos θ``)
+        is not feasible.  True: an enclosed chute or pipe, which can hold the mass on a
+        crest; the lift-off margin is still reported.
 
     Examples
     --------
     >>> Limits(min_grade=0.05, max_grade=0.6).min_grade
     0.05
+    >>> Limits(max_lateral_g=0.5).speed_aware
+    True
+    >>> Limits(max_normal_g=0.8)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: max_normal_g must be >= 1 (a level straight line already carries 1 g), got 0.8
     >>> Limits(min_grade=0.5, max_grade=0.1)
     Traceback (most recent call last):
     ...
@@ -162,6 +184,9 @@ class Limits:
     max_grade: float = math.inf
     max_step_turn_deg: float | None = None
     min_radius_m: float | None = None
+    max_lateral_g: float | None = None
+    max_normal_g: float | None = None
+    allow_liftoff: bool = False
 
     def __post_init__(self) -> None:
         for name in ("min_grade", "max_grade"):
@@ -185,6 +210,22 @@ class Limits:
             if not (math.isfinite(v) and v > 0.0):
                 raise ParameterError(f"min_radius_m must be a finite number > 0, got {self.min_radius_m!r}")
             object.__setattr__(self, "min_radius_m", v)
+        for name in ("max_lateral_g", "max_normal_g"):
+            check_number(name, getattr(self, name), allow_none=True, strictly_positive=True)
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, float(getattr(self, name)))
+        if self.max_normal_g is not None and self.max_normal_g < 1.0:
+            raise ParameterError(f"max_normal_g must be >= 1 (a level straight line already carries 1 g), "
+                                 f"got {self.max_normal_g!r}")
+        if not isinstance(self.allow_liftoff, bool):
+            raise ParameterError(f"allow_liftoff must be True or False, got {self.allow_liftoff!r}")
+        object.__setattr__(self, "allow_liftoff", bool(self.allow_liftoff))
+
+    @property
+    def speed_aware(self) -> bool:
+        """True when a limit depends on the speed along the line (lateral g, normal g,
+        lift-off of an open line)."""
+        return self.max_lateral_g is not None or self.max_normal_g is not None or not self.allow_liftoff
 
 
 

@@ -224,6 +224,19 @@ class RouteSummary:
         verdict across the range, nominal travel time.
     caution : str
         The safety note every output carries.
+    max_lateral_g, max_lateral_g_station_m : float or None
+        Largest sideways (horizontal, across the plan direction) acceleration of the
+        reported line in g, and the station (m along the line) where it occurs
+        (:func:`fallway.loads.line_loads`: the smooth reading at the vertices; None after
+        a stall before the second vertex).
+    max_normal_g, max_normal_g_station_m : float or None
+        Largest normal load ratio N/g and where.
+    min_liftoff_margin_g, min_liftoff_margin_station_m : float or None
+        Smallest normal force along the bed's outward normal, in g, and where: negative
+        where an open bed would have to pull the mass (lift-off; ``"liftoff"`` in
+        ``violated_limits`` unless the limits allow it).
+    min_grade : float or None
+        Smallest descent grade of a segment (negative = rising).
     """
 
     line_kind: str
@@ -263,6 +276,13 @@ class RouteSummary:
     robust_note: str | None
     robust_candidates: list | None
     caution: str
+    max_lateral_g: float | None = None
+    max_lateral_g_station_m: float | None = None
+    max_normal_g: float | None = None
+    max_normal_g_station_m: float | None = None
+    min_liftoff_margin_g: float | None = None
+    min_liftoff_margin_station_m: float | None = None
+    min_grade: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""

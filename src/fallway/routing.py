@@ -41,6 +41,7 @@ from .caution import CAUTION
 from .errors import NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
 from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, enters_keepout, envelope, row_for_line
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
+from .loads import Loads, line_loads, load_status
 from .keepout import Keepout
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
@@ -329,14 +330,22 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
 
 # --------------------------------------------------------------------------- finishing
 
+def _bed_normals(terrain, points: np.ndarray, kind: str):
+    """The ground's upward normals under a ground line (None for a raised line, or off the surface)."""
+    if kind != "ground":
+        return None
+    n = terrain.normal(points[:, 0], points[:, 1])
+    return n if np.isfinite(n).all() else None
+
+
 def _timed(terrain, points: np.ndarray, mover: Mover, kind: str):
     """``traverse`` of a route's line; a ground line's lift-off is judged against the ground normal."""
-    normals = None
-    if kind == "ground":
-        n = terrain.normal(points[:, 0], points[:, 1])
-        if np.isfinite(n).all():
-            normals = n
-    return traverse(points, mover, surface_normal=normals)
+    return traverse(points, mover, surface_normal=_bed_normals(terrain, points, kind))
+
+
+def _loads(terrain, points: np.ndarray, profile, mover: Mover, kind: str) -> Loads:
+    """The loads of a reported line (its smooth reading) at the profile's vertex speeds."""
+    return line_loads(points, profile.speed_m_s, g=mover.g, surface_normal=_bed_normals(terrain, points, kind))
 
 
 def _num(v) -> float | None:
@@ -371,7 +380,8 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         final = round_corners(np.asarray(rr.line, dtype=float), fixed_xy=job.via, min_segment_m=MIN_EXPORT_SEGMENT_M)
     profile = _timed(terrain, final, mover, job.line.kind)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
-    violated = _violated(terrain, final, profile, job.limits, found.keepout)
+    loads = _loads(terrain, final, profile, mover, job.line.kind)
+    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads)
     if rr is not None:
         violated += [k for k, v in (rr.limits or {}).items() if v == "violated" and k not in violated]
     d = np.diff(final, axis=0)
@@ -415,14 +425,28 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         robust_note=None,
         robust_candidates=None,
         caution=CAUTION,
+        **_load_fields(loads, profile),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,
                  compute_s=compute)
 
 
-def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout) -> list[str]:
-    """The limits a reported line breaks, checked on the line itself (lift-off is only flagged)."""
+def _load_fields(loads: Loads, profile) -> dict:
+    """The summary's achieved loads: extremes over the vertices and where they occur."""
+    lat, lat_at = loads.extreme("lateral_g")
+    nrm, nrm_at = loads.extreme("normal_g")
+    lift, lift_at = loads.extreme("liftoff_margin_g", largest=False)
+    g = np.asarray(profile.grade[:-1], dtype=float)
+    g = g[np.isfinite(g)]
+    return dict(max_lateral_g=lat, max_lateral_g_station_m=lat_at, max_normal_g=nrm, max_normal_g_station_m=nrm_at,
+                min_liftoff_margin_g=lift, min_liftoff_margin_station_m=lift_at,
+                min_grade=float(g.min()) if g.size else None)
+
+
+def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None) -> list[str]:
+    """The limits a reported line breaks, checked on the line itself; the speed-dependent
+    ones (lateral g, normal g, lift-off of an open line) on ``loads``, its smooth reading."""
     out = []
     if not profile.feasible:
         out.append("stalls")
@@ -437,7 +461,10 @@ def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout) -> li
         out.append("grade")
     if limits.min_radius_m is not None and min_radius_m(line, dims=3) < limits.min_radius_m * (1 - 1e-9):
         out.append("min_radius")
+    if loads is not None:
+        out += load_status(loads, limits, broken_only=True)
     return out
+
 
 
 def _envelope_of(route: Route, mu_range) -> Envelope:

@@ -31,6 +31,9 @@ Layout (every section and key optional; unknown keys are rejected)::
     max_grade = 1.0
     max_step_turn_deg = 45.0
     min_radius_m = 10.0
+    max_lateral_g = 0.5              # sideways acceleration in bends, g
+    max_normal_g = 3.0               # normal load on the bed, g
+    allow_liftoff = false            # an open chute (true: enclosed chute or pipe)
 
     [search]                         # fallway.SearchOptions
     neighbours = 16

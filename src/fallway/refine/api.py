@@ -42,7 +42,13 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         fine with an iteration budget per level and moves vertices normal to the line
         only (their spacing stays the gravity optimum's).
     limits : Limits, optional
-        Grade window and minimum bend radius (the speed window is on ``mover``).  With
+        Grade window, minimum bend radius and the speed-aware limits (lateral g, normal
+        g, lift-off of an open line; the speed window is on ``mover``).  The speed-aware
+        limits are held as a bend radius per vertex,
+        ``max(min_radius_m, v² / (max_lateral_g g), ...)`` at the vertex's speed
+        (:func:`fallway.loads.required_radius_m`), frozen for each solve from the line it
+        starts from and measured again before the next (levels, stronger penalties,
+        repair rounds); their status is in ``limits`` like ``min_radius``.  With
         ``min_radius_m`` the start is the lattice line with its corners replaced by arcs
         of that radius (where the room between corners allows), lines are resampled on
         splines between levels, and tight vertex triples left by the penalty are smoothed
@@ -129,9 +135,10 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     P_start = _start_line(prob, P_in, spec)
     cands = [Candidate("start", P_start)]
     seed = P_start
-    if limits.min_radius_m is not None:
-        # a bend radius limit: start from the lattice line with its corners rounded
-        P_round = rounded_start(prob, P_start, limits.min_radius_m, spec.start_height_m, spec.end_height_m)
+    r_round = _rounding_radius(prob, P_start)
+    if r_round is not None:
+        # a bend limit: start from the lattice line with its corners rounded
+        P_round = rounded_start(prob, P_start, r_round, spec.start_height_m, spec.end_height_m)
         cands.append(Candidate("rounded", P_round, None if P_round is not None else
                                "the rounded start leaves the smooth ground surface"))
         seed = P_start if P_round is None else P_round
@@ -151,6 +158,20 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             cands.append(Candidate("gravity optimum, full-model timed", repair_radius(prob, alt.line, P_start),
                                    alt.error, True, alt))
     return choose(prob, cands, mover, pol)
+
+
+def _rounding_radius(prob: Problem, P_start: np.ndarray) -> float | None:
+    """The arc radius of the rounded start: the bend radius limit, or with a lateral
+    acceleration limit the radius it needs at the start line's highest speed (gravity-normal
+    speeds: an upper bound on the full model's), whichever is larger; None without a plan
+    bend limit."""
+    lim = prob.limits
+    r = lim.min_radius_m
+    if lim.max_lateral_g is not None:
+        vmax2 = float(np.nanmax(prob.speeds(P_start, "gravity")))
+        r_lat = vmax2 / (lim.max_lateral_g * prob.mover.g)
+        r = r_lat if r is None else max(r, r_lat)
+    return r if r is not None and r > 0 else None
 
 
 def _line_spec(line) -> LineSpec:

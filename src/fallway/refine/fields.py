@@ -170,29 +170,37 @@ def curvature(A, B, C) -> np.ndarray:
     return num / np.maximum(den, 1e-300)
 
 
-def radius_penalty(P, r_min: float, w: float, margin: float):
+def radius_penalty(P, r_min, w: float, margin: float):
     """Exterior penalty on the 3D curvature of consecutive vertex triples above
     ``(1 - margin) / r_min``; gradient by central differences on the triples near it.
-    Returns ``(value, grad)``."""
+    ``r_min`` is one radius (m) for every triple or one per triple (``len(P) - 2``; 0 where
+    the vertex is free).  Returns ``(value, grad)``."""
     if len(P) < 3:
         return 0.0, np.zeros_like(P)
+    r = np.broadcast_to(np.asarray(r_min, dtype=float), (len(P) - 2,))
     kap = curvature(P[:-2], P[1:-1], P[2:])
-    lim = (1.0 - margin) / r_min
-    act = np.nonzero(kap * r_min > (1.0 - margin) - 0.05)[0]
     grad = np.zeros_like(P)
-    viol = np.maximum(kap - lim, 0.0) * r_min
+    with np.errstate(divide="ignore"):
+        band = ((1.0 - margin) - 0.05) / r  # inf where the vertex is free, 0 where it must be straight
+    act = np.nonzero(kap > band)[0]
+    if act.size == 0:
+        return 0.0, grad
+    # an infinite radius (the vertex must stay straight) is penalised as a very large one
+    ra = np.minimum(r[act], 1e9)
+    lim = (1.0 - margin) / ra
+    viol = np.maximum(kap[act] - lim, 0.0) * ra
     val = w * float(np.sum(viol ** 2))
-    if act.size == 0 or val == 0.0:
+    if val == 0.0:
         return val, grad
-    h = 1e-7 * max(1.0, r_min)
+    h = 1e-7 * np.maximum(1.0, ra)[:, None]
     tri = [P[act].copy(), P[act + 1].copy(), P[act + 2].copy()]
     for role in range(3):
         for c in range(3):
             tp = [q.copy() for q in tri]
             tm = [q.copy() for q in tri]
-            tp[role][:, c] += h
-            tm[role][:, c] -= h
-            vp = np.maximum(curvature(*tp) - lim, 0.0) * r_min
-            vm = np.maximum(curvature(*tm) - lim, 0.0) * r_min
-            np.add.at(grad[:, c], act + role, w * (vp ** 2 - vm ** 2) / (2 * h))
+            tp[role][:, c] += h[:, 0]
+            tm[role][:, c] -= h[:, 0]
+            vp = np.maximum(curvature(*tp) - lim, 0.0) * ra
+            vm = np.maximum(curvature(*tm) - lim, 0.0) * ra
+            np.add.at(grad[:, c], act + role, w * (vp ** 2 - vm ** 2) / (2 * h[:, 0]))
     return val, grad

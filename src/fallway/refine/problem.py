@@ -16,10 +16,11 @@ import math
 import numpy as np
 
 from ..geometry import min_radius_m
+from ..loads import line_loads, load_status, required_radius_m
 from ..params import Limits, LineSpec
 from ..physics import Mover
 from .chain import full_chain, gravity_chain, ground_fg
-from .fields import DistanceField, field_penalty, grade_penalty, keepout_status, radius_penalty
+from .fields import DistanceField, curvature, field_penalty, grade_penalty, keepout_status, radius_penalty
 
 __all__ = ["Ground", "Problem", "on_data"]
 
@@ -67,6 +68,12 @@ def on_data(terrain, x, y) -> np.ndarray:
     return ok & data
 
 
+def _fractions(P) -> np.ndarray:
+    """Station of each vertex as a fraction of the line's 3D length."""
+    s = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(P, axis=0), axis=1))])
+    return s / s[-1] if s[-1] > 0 else np.linspace(0.0, 1.0, len(P))
+
+
 class Problem:
     """The optimisation problem: variables <-> vertices, objective, bounds, checks.
 
@@ -105,6 +112,9 @@ class Problem:
         #: with the plan length smoothed by ``eps_full`` (m)
         self.full = False
         self.eps_full = 0.0
+        #: speed-aware bends: ``(station fraction, required radius m)`` of the interior
+        #: vertices of the line last given to :meth:`update_bends`, or None
+        self.bends = None
 
     # -- variables: interior vertices; ground (x, y), raised (x, y, h above ground) ------
 
@@ -163,6 +173,49 @@ class Problem:
             P[1:-1, 2] = zg + np.clip(P[1:-1, 2] - zg, self.c_min, self.c_max)
         return P
 
+    @property
+    def round_bends(self) -> bool:
+        """True when a plan bend limit is set (a radius, or a lateral acceleration): lines
+        are rounded and resampled on splines."""
+        return self.limits.min_radius_m is not None or self.limits.max_lateral_g is not None
+
+    def bed_normals(self, P):
+        """Upward ground normals under a ground line's vertices (None for a raised line)."""
+        if self.line != "ground":
+            return None
+        n = self.gr.terrain.normal(P[:, 0], P[:, 1])
+        return n if np.all(np.isfinite(n)) else None
+
+    def loads(self, P, model: str):
+        """The line's loads (:func:`fallway.loads.line_loads`) at the speeds of ``model``."""
+        v = np.sqrt(np.maximum(self.speeds(P, model), 0.0))
+        return line_loads(P, v, g=self.mover.g, surface_normal=self.bed_normals(P))
+
+    def update_bends(self, P, model: str) -> None:
+        """Freeze the speed-aware bend radii for the next solve: the radius each interior
+        vertex of ``P`` needs at its speed with ``model``
+        (:func:`fallway.loads.required_radius_m`: lateral g, normal g, lift-off, and the
+        bend radius limit), as a function of the station fraction.  Left None while every
+        vertex is below half its cap and no radius limit is set (the penalty would be zero
+        and the compiled objective stays in use)."""
+        lim = self.limits
+        if not lim.speed_aware or len(P) < 3 or not np.all(np.isfinite(P)):
+            self.bends = None
+            return
+        v = np.sqrt(np.maximum(self.speeds(P, model), 0.0))
+        r = required_radius_m(P, v, lim, g=self.mover.g, surface_normal=self.bed_normals(P))
+        kap = curvature(P[:-2], P[1:-1], P[2:])
+        if lim.min_radius_m is None and not np.any(kap * r > 0.5):
+            self.bends = None
+            return
+        self.bends = (_fractions(P)[1:-1], r)
+
+    def bend_radii(self, P):
+        """The frozen required radius at each interior vertex of ``P`` (None when not frozen)."""
+        if self.bends is None:
+            return None
+        return np.interp(_fractions(P)[1:-1], *self.bends)
+
     # -- objective ---------------------------------------------------------------------
 
     def speeds(self, P, model: str) -> np.ndarray:
@@ -190,8 +243,9 @@ class Problem:
             v, gg = grade_penalty(P, lim.min_grade, lim.max_grade, self.w_pen, 1e-3, self.eps_plan)
             f += v
             G += gg
-        if lim.min_radius_m is not None:
-            v, gg = radius_penalty(P, lim.min_radius_m, self.w_pen, 2e-3)
+        radii = self.bend_radii(P) if self.bends is not None else lim.min_radius_m
+        if radii is not None:
+            v, gg = radius_penalty(P, radii, self.w_pen, 2e-3)
             f += v
             G += gg
         for fld, marg in ((self.keep, self.margin), (self.nodata, 1.5 * self.cell)):
@@ -205,7 +259,8 @@ class Problem:
         """True when the objective is the bare chain on the ground surface (one compiled pass)."""
         lim = self.limits
         return not (self.full or self.line != "ground" or self.keep is not None or self.nodata is not None
-                    or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None)
+                    or math.isfinite(lim.min_grade) or math.isfinite(lim.max_grade) or lim.min_radius_m is not None
+                    or self.bends is not None)
 
     def fg(self, X, ends):
         """Objective and gradient in the variables; 1e30 (zero gradient) off the surface."""
@@ -254,6 +309,8 @@ class Problem:
             rmin = min_radius_m(P, dims=3)
             out["min_radius"] = ("violated" if rmin < lim.min_radius_m * (1 - 1e-4)
                                  else "active" if rmin < lim.min_radius_m * (1 + 1e-2) else "inactive")
+        if lim.speed_aware and len(P) >= 3:
+            out.update(load_status(self.loads(P, model), lim))
         if self.keep is not None:
             out["keepout"] = keepout_status(P, self.keep, self.margin)
         # DEM extent and nodata: every vertex and segment point over cells with data

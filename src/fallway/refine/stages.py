@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..geometry import circumradii
+from ..loads import required_radius_m
 from .chain import full_chain
 from .fields import curvature
 from .problem import Problem
@@ -109,35 +110,46 @@ def rounded_start(prob: Problem, P_start: np.ndarray, r_min: float, h0: float, h
     return best
 
 
-def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, sweeps: int = 400) -> np.ndarray | None:
-    """A refined line whose bend radius is broken, repaired: the penalty leaves a few tight
-    triples, smoothed out locally.  The vertices whose circumradius (with their two
-    neighbours, :func:`fallway.geometry.circumradii` in 3D) is below the limit (plus a
-    0.2 % margin) and their neighbours move halfway to the midpoint of their neighbours,
-    which spreads the bend over more vertices; ends stay fixed, heights follow the ground
-    (or the clearance band).  Stops when no triple is too tight.  Any other line (or None)
-    is returned as it is."""
-    r_min = prob.limits.min_radius_m
-    if P is None or r_min is None or prob.violations(P, "gravity").get("min_radius") != "violated":
+def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, sweeps: int = 400,
+                  rounds: int = 4) -> np.ndarray | None:
+    """A refined line whose bends are too tight, repaired: the penalty leaves a few tight
+    triples, smoothed out locally.  Each vertex needs the radius of
+    :func:`fallway.loads.required_radius_m` at its speed (the bend radius limit, and the
+    lateral g, normal g and lift-off limits at the speeds of the mover's model).  The
+    vertices whose circumradius (with their two neighbours, :func:`fallway.geometry.circumradii`
+    in 3D) is below it (plus a 0.2 % margin) and their neighbours move halfway to the
+    midpoint of their neighbours, which spreads the bend over more vertices; ends stay
+    fixed, heights follow the ground (or the clearance band).  Speeds change with the
+    line, so the required radii are measured again after each round of sweeps (at most
+    ``rounds``).  A line that breaks no bend limit (or None) is returned as it is."""
+    lim = prob.limits
+    bend = ("min_radius", "lateral_g", "normal_g", "liftoff")
+    model = prob.mover.normal
+    if P is None or (lim.min_radius_m is None and not lim.speed_aware):
         return P
-    P = P.copy()
-    for _ in range(sweeps):
-        bad = np.nonzero(circumradii(P, dims=3) < r_min * (1 + 2e-3))[0] + 1
-        if bad.size == 0:
+    for _ in range(rounds):
+        if not any(prob.violations(P, model).get(k) == "violated" for k in bend):
             break
-        idx = np.unique(np.clip(np.concatenate([bad - 1, bad, bad + 1]), 1, len(P) - 2))
-        Q = P.copy()
-        Q[idx] += 0.5 * (0.5 * (P[idx - 1] + P[idx + 1]) - P[idx])
-        if prob.line == "ground":
-            Q[idx, 2] = prob.gr.z(Q[idx, 0], Q[idx, 1])
-        P = prob.project(Q, P_start)
+        v = np.sqrt(np.maximum(prob.speeds(P, model), 0.0))
+        need = required_radius_m(P, v, lim, g=prob.mover.g, surface_normal=prob.bed_normals(P))
+        P = P.copy()
+        for _ in range(sweeps):
+            bad = np.nonzero(circumradii(P, dims=3) < need * (1 + 2e-3))[0] + 1
+            if bad.size == 0:
+                break
+            idx = np.unique(np.clip(np.concatenate([bad - 1, bad, bad + 1]), 1, len(P) - 2))
+            Q = P.copy()
+            Q[idx] += 0.5 * (0.5 * (P[idx - 1] + P[idx + 1]) - P[idx])
+            if prob.line == "ground":
+                Q[idx, 2] = prob.gr.z(Q[idx, 0], Q[idx, 1])
+            P = prob.project(Q, P_start)
     return P
 
 
 def _first_level(prob: Problem, P_seed, P_start, plan: Plan, model: str):
     """The first level's line: the seed resampled finely, its vertices then re-distributed
     by the time/length monitor of the speeds with ``model``; None off the surface."""
-    smooth = prob.limits.min_radius_m is not None
+    smooth = prob.round_bends
     n0 = plan.sizes[0]
     if smooth:
         P = resample_smooth(P_seed, max(len(P_seed), 4 * n0))
@@ -164,7 +176,7 @@ def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: 
     if P is None:
         return GravityRun(None, OFF_SURFACE)
     run = GravityRun(P)
-    smooth = prob.limits.min_radius_m is not None
+    smooth = prob.round_bends
     for li, n in enumerate(plan.sizes):
         if li > 0:
             Pn = prob.project(refine_density(P, n, smooth), P_start)
@@ -177,6 +189,7 @@ def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: 
         # stationarity test there (the slow tangential sliding of its vertices is redone
         # on the finer level anyway)
         last = li == len(plan.sizes) - 1
+        prob.update_bends(P, model)
         P, it, res, ok, msg = solve(prob, P, plan.max_iter, plan.gtol, stat_tol=None if last else STAT_TOL_COARSE)
         run.iterations += it
         run.converged, run.residual = ok, res
@@ -197,6 +210,7 @@ def _strengthen(prob: Problem, P: np.ndarray, plan: Plan, run: GravityRun, model
             prob.margin *= 4.0
         if any(v == "violated" for k, v in viol.items() if k != "keepout"):
             prob.w_pen *= 100.0
+        prob.update_bends(P, model)
         P, it, res, ok, msg = solve(prob, P, plan.max_iter, plan.gtol)
         run.iterations += it
         run.converged, run.residual = ok, res
@@ -222,6 +236,7 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
     for li, n in enumerate(sizes):
         if li == 1 and gain0 < _POLISH_GAIN:
             cap = max(50, min(plan.max_iter, _POLISH_BUDGET // max(len(P), 1)))
+            prob.update_bends(P, "full")
             Pf, it, res, ok, _ = polish(prob, P, cap, plan.gtol, (0.0,))
             iters += it
             levels.append((len(sizes) - 1, Pf))
@@ -233,6 +248,7 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
         # their optimum and get an iteration budget by size
         cap = max(50, min(plan.max_iter, _POLISH_BUDGET // max(n, 1)))
         t0 = _full_time(prob, Pn) if li == 0 else None
+        prob.update_bends(Pn, "full")
         Pn, it, res, ok, _ = polish(prob, Pn, cap, plan.gtol, (0.1, 0.01, 0.0) if li == 0 else (0.0,))
         if li == 0:
             t1 = _full_time(prob, Pn)
