@@ -29,6 +29,7 @@ LAYERS = [
     ["lattice"],
     ["refine"],
     ["evaluate"],
+    ["relax"],
     ["routing"],
     ["export"],
     ["plot"],

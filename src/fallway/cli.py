@@ -374,9 +374,6 @@ def _print_route(r, out_dir, written) -> None:
     exit_v = "-" if s.exit_speed_m_s is None else f"{s.exit_speed_m_s:.2f} m/s"
     click.echo(f"travel time {t} (lattice {lat}), length {s.length_m:.1f} m, drop {s.drop_m:.1f} m, "
                f"exit speed {exit_v}, max speed {s.max_speed_m_s:.2f} m/s")
-    if not s.feasible:
-        click.echo(f"warning: the line breaks limits ({', '.join(s.violated_limits) or 'the mover stalls'}); "
-                   "it is not a feasible design", err=True)
     env = r.envelope
     if env is not None:
         lo, hi = env.exit_speed_range_m_s
