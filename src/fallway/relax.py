@@ -72,6 +72,11 @@ class Relaxation:
         ``reason="limits"`` may be stopped by it).
     violations : tuple of str
         Names in ``RouteSummary.violated_limits`` that this limit explains.
+    positive : bool
+        The value is always above zero (a cap, a radius): it is stepped out by factors of
+        two; otherwise (a grade) by steps of its own size, at least 0.05.
+    ceiling : float or None
+        The largest value the parameter takes (the turn per step: 180 degrees).
     """
 
     name: str
@@ -84,6 +89,8 @@ class Relaxation:
     loosest: float | None = None
     lattice: bool = False
     violations: tuple = ()
+    positive: bool = True
+    ceiling: float | None = None
 
 
 def _limits_field(field: str, off):
@@ -159,13 +166,13 @@ _SPEED = Relaxation("max_speed", "speed cap", "m/s", +1, _get, _put, _max_speed,
                     violations=("overspeed", "max_speed"))
 _get, _put = _limits_field("min_grade", -math.inf)
 _MIN_GRADE = Relaxation("min_grade", "smallest grade", "", -1, _get, _put, _min_grade, lattice=True,
-                        violations=("grade",))
+                        violations=("grade",), positive=False)
 _get, _put = _limits_field("max_grade", math.inf)
 _MAX_GRADE = Relaxation("max_grade", "largest grade", "", +1, _get, _put, _max_grade, lattice=True,
-                        violations=("grade",))
+                        violations=("grade",), positive=False)
 _get, _put = _limits_field("max_step_turn_deg", None)
 _TURN = Relaxation("max_step_turn_deg", "turn per lattice step", "deg", +1, _get, _put, lambda r, m: None,
-                   lattice=True)
+                   lattice=True, ceiling=180.0)
 _get, _put = _limits_field("min_radius_m", None)
 _RADIUS = Relaxation("min_radius_m", "bend radius", "m", -1, _get, _put, _min_radius,
                      violations=("min_radius",))
@@ -256,7 +263,8 @@ def find_workable(probe, mover: Mover, limits: Limits, candidates, *, budget_s: 
     ----------
     probe : callable (Mover, Limits) -> Route or None
         Runs the search; returns the route when it gives a line that meets every limit,
-        else None.
+        else None.  (Any other object counts as success too, without a first guess of
+        the working value from the line.)
     mover, limits
         The settings that failed.
     candidates : sequence of Relaxation
@@ -329,10 +337,15 @@ def find_workable(probe, mover: Mover, limits: Limits, candidates, *, budget_s: 
     return findings, stats
 
 
+#: How many times a bisection steps out from the failing value to find a working one
+#: (when the line found without the limit gives no first guess).
+_EXPANSIONS = 3
+
+
 def _bisect(rel: Relaxation, mover, limits, lifted, run, left, steps: int, others) -> Finding:
     bad = float(rel.get(mover, limits))
     good = None
-    guess = rel.achieved(lifted, mover)
+    guess = rel.achieved(lifted, mover) if hasattr(lifted, "profile") else None  # not a Route: no first guess
     if guess is not None and math.isfinite(guess) and (guess - bad) * rel.looser > 0:
         g = round_looser(guess, rel.looser)
         if left() and run(*rel.put(mover, limits, g)) is not None:
@@ -341,6 +354,19 @@ def _bisect(rel: Relaxation, mover, limits, lifted, run, left, steps: int, other
             bad = g  # fails too, and is nearer the working end
     if good is None and rel.loosest is not None:
         good = rel.loosest  # probed already: lifting the limit is setting it to its loosest value
+    for k in range(_EXPANSIONS if good is None else 0):  # a finite working value: step out from the failing one
+        if not left():
+            break
+        g = round_looser(bad * 2.0 ** rel.looser if rel.positive else bad + rel.looser * max(abs(bad), 0.05),
+                         rel.looser)
+        if rel.ceiling is not None:
+            g = min(g, rel.ceiling)
+        if g == bad:
+            break
+        if run(*rel.put(mover, limits, g)) is not None:
+            good = g
+            break
+        bad = g
     narrowed = False
     if good is not None:
         for _ in range(steps):
