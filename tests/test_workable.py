@@ -126,9 +126,11 @@ def test_refined_line_that_breaks_the_radius_exits_3_and_writes_nothing(tmp_path
     _assert_no_outputs(out)
     radius = _workable(p.stderr, "highest")
     assert 0 < radius < 400
+    print(p.stderr)
     p2 = _route(dem, start, end, out, "--mu", 0.1, "--via", *via, "--min-radius", radius)
     assert p2.returncode == 0, p2.stderr
-    rows = list(csv.DictReader((out / "profile.csv").open()))
+    with (out / "profile.csv").open(newline="") as fh:
+        rows = list(csv.DictReader(fh))
     xyz = np.array([[float(row["x"]), float(row["y"]), float(row["z_line"])] for row in rows])
     # the written line meets the radius it was given (circumradius, computed here)
     assert _menger_radii(xyz).min() >= radius * (1 - 1e-3)
