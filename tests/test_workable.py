@@ -178,3 +178,15 @@ def test_the_python_api_keeps_the_line_on_the_error():
     err = ei.value
     assert err.reason == "limits" and err.binding == ("max_speed",)
     assert math.sqrt(2 * G * 30.0) <= err.workable["max_speed"] <= math.sqrt(2 * G * 30.0) + 0.1
+
+
+def test_reach_that_reaches_nothing_exits_3_and_names_a_workable_friction(tmp_path, strip):
+    dem, start, _ = strip
+    out = tmp_path / "reach.tif"
+    args = [sys.executable, "-m", "fallway.cli", "reach", str(dem), "--start", *map(str, start), "--mu", "0.35",
+            "--out", str(out)]
+    p = subprocess.run(args, capture_output=True, text=True, timeout=600)
+    assert p.returncode == 3 and "reaches no cell" in p.stderr and "mu=0.35 stalls" in p.stderr, p.stderr
+    assert not out.exists()
+    # CHECKS.md incline: from rest the mover starts only while mu < tan θ = GRADE (the fall line)
+    assert GRADE - 0.001 - 1e-12 <= _workable(p.stderr, "highest") < GRADE

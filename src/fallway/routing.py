@@ -743,7 +743,9 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
         check_memory(win.z.size, "the reach search", neighbours=search.neighbours, legs=1,
                      turn_limit=limits.max_step_turn_deg is not None, max_per_cell=search.label_cap,
                      memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True)
-        return lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        return _reached_something(rm, lambda m, lim: lattice_reach(win, (x, y), m, limits=lim, keepout=keep,
+                                                                     options=search), mover, limits)
     radius = math.inf if max_distance_m is None else float(max_distance_m)
     if max_time_s is not None:
         # energy height over the lowest cell: no mover is faster (friction only takes energy)
@@ -768,11 +770,37 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
                  active_cells=int(np.count_nonzero(inside)))
     rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, allowed=inside, options=search,
                        max_time_s=max_time_s)
+    rm = _reached_something(rm, lambda m, lim: lattice_reach(win, (x, y), m, limits=lim, keepout=keep, allowed=inside,
+                                                             options=search, max_time_s=max_time_s), mover, limits)
     stats = dict(rm.stats)
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
                        "window_shape": list(win.shape),
                        "bound": "area window and kernel time cut-off" if max_time_s is not None else "area window"}
     return dataclasses.replace(rm, stats=stats)
+
+
+def _reached_something(rm: ReachMap, again, mover: Mover, limits: Limits) -> ReachMap:
+    """``rm`` when it reaches a cell beyond the start; else NoFeasibleLine naming the binding limits.
+
+    ``again(mover, limits)`` reruns the same reach; the bisection (:mod:`fallway.relax`)
+    finds the nearest values that reach at least one more cell.
+    """
+    if int(np.isfinite(rm.time_s).sum()) > 1:
+        return rm
+    t0 = time.perf_counter()
+
+    def probe(m: Mover, lim: Limits):
+        r = again(m, lim)
+        return r if int(np.isfinite(r.time_s).sum()) > 1 else None
+
+    cands = relaxations_for(mover, limits, reason="limits") + relaxations_for(mover, limits, reason="stall")
+    findings, stats = find_workable(probe, mover, limits, cands,
+                                    budget_s=max(WORKABLE_BUDGET_FACTOR * (time.perf_counter() - t0),
+                                                 WORKABLE_MIN_BUDGET_S), max_probes=WORKABLE_MAX_PROBES)
+    clause = describe(findings, stats, candidates=cands)
+    reason = "stall" if [f.name for f in findings] == ["mu"] or not findings else "limits"
+    raise NoFeasibleLine(f"the mover reaches no cell beyond the start: {clause}", reason=reason,
+                         binding=tuple(f.name for f in findings), workable={f.name: f.workable for f in findings})
 
 
 # --------------------------------------------------------------------------- compare
