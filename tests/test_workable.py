@@ -126,7 +126,6 @@ def test_refined_line_that_breaks_the_radius_exits_3_and_writes_nothing(tmp_path
     _assert_no_outputs(out)
     radius = _workable(p.stderr, "highest")
     assert 0 < radius < 400
-    print(p.stderr)
     p2 = _route(dem, start, end, out, "--mu", 0.1, "--via", *via, "--min-radius", radius)
     assert p2.returncode == 0, p2.stderr
     with (out / "profile.csv").open(newline="") as fh:
