@@ -30,6 +30,7 @@ LAYERS = [
     ["lattice"],
     ["refine"],
     ["evaluate"],
+    ["relax"],
     ["routing"],
     ["export"],
     ["plot"],

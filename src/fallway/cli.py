@@ -383,9 +383,6 @@ def _print_route(r, out_dir, written) -> None:
     if s.max_lateral_g is not None:
         click.echo(f"largest lateral {s.max_lateral_g:.2f} g, normal load {s.max_normal_g:.2f} g, "
                    f"smallest lift-off margin {s.min_liftoff_margin_g:.2f} g (at {s.min_liftoff_margin_station_m:.0f} m)")
-    if not s.feasible:
-        click.echo(f"warning: the line breaks limits ({', '.join(s.violated_limits) or 'the mover stalls'}); "
-                   "it is not a feasible design", err=True)
     env = r.envelope
     if env is not None:
         lo, hi = env.exit_speed_range_m_s

@@ -75,6 +75,15 @@ class NoFeasibleLine(FallwayError):
           the labels per state, or coarsen the grid).
     closest : tuple of float, optional
         Map coordinates (x, y) of the reached cell nearest to the target.
+    route : Route, optional
+        The best line found when it breaks a limit (``route.summary.feasible`` is False,
+        ``violated_limits`` names what it breaks): for inspection, never a result.
+    binding : tuple of str, optional
+        The limits found to bind (parameter names: ``"max_speed"``, ``"min_grade"``,
+        ``"max_grade"``, ``"max_step_turn_deg"``, ``"min_radius_m"``, ``"mu"``).
+    workable : dict, optional
+        For each binding limit, the nearest value found to work by a bisection with the
+        same search (:mod:`fallway.relax`); None where none was found.
 
     Examples
     --------
@@ -84,10 +93,14 @@ class NoFeasibleLine(FallwayError):
     """
 
     def __init__(self, message: str, *, reason: str = "unreachable",
-                 closest: tuple[float, float] | None = None) -> None:
+                 closest: tuple[float, float] | None = None, route=None, binding: tuple = (),
+                 workable: dict | None = None) -> None:
         super().__init__(message)
         self.reason = reason
         self.closest = closest
+        self.route = route
+        self.binding = tuple(binding)
+        self.workable = dict(workable or {})
 
 
 class RefinementWarning(UserWarning):

@@ -48,12 +48,14 @@ from .lattice.search import reach as lattice_reach
 from .params import Limits, LineSpec, Mover, SearchOptions, checked_options
 from .physics import check_mu_range, traverse
 from .refine import refine_line
+from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, Route, RouteSummary
 from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside, lowest_within,
                     search_memory_bytes, terrain_source)
 from .terrain import DEFAULT_MARGIN_M, Terrain
 
-__all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS"]
+__all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
+           "WORKABLE_BUDGET_FACTOR", "WORKABLE_MAX_CELLS"]
 
 #: ``plan="auto"`` searches the full grid up to this many cells of search area.
 FULL_GRID_MAX_CELLS = 4_000_000
@@ -61,13 +63,26 @@ FULL_GRID_MAX_CELLS = 4_000_000
 #: The largest search area (cells of the DEM) a route takes; beyond it, coarsen the DEM.
 MAX_AREA_CELLS = 200_000_000
 
+#: The search for the nearest workable limit values (:mod:`fallway.relax`) runs at most
+#: this many searches ...
+WORKABLE_MAX_PROBES = 16
+#: ... and starts none after this multiple of the failed run's own time (at least
+#: :data:`WORKABLE_MIN_BUDGET_S`), whichever comes first.  On small sites the probe count
+#: binds (the answer is then deterministic); on the demo site the time can (values the time
+#: cut short are marked "at most" / "at least" in the message).
+WORKABLE_BUDGET_FACTOR = 4.0
+WORKABLE_MIN_BUDGET_S = 5.0
+#: Above this many cells of search area the bisection searches a block-mean coarse copy
+#: of the area (its values are then estimates, and the message says so).
+WORKABLE_MAX_CELLS = DEFAULT_COARSE_CELLS
+
 # --------------------------------------------------------------------------- the entry
 
 @checked_options
 def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
                line: LineSpec | None = None, search: SearchOptions | None = None, refine: bool = True,
                mu_range: tuple[float, float] | None = None, robust: bool = False,
-               memory_limit_bytes: int | None = None) -> Route:
+               memory_limit_bytes: int | None = None, workable: bool = True) -> Route:
     """The minimum-time line from ``start`` to ``end``: plan, lattice search, refinement.
 
     Parameters
@@ -99,16 +114,25 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         at HI and stays under the speed limit at LO (:func:`_plan_robust`).
     memory_limit_bytes : int, optional
         Budget for the memory estimates (default: the memory available).
+    workable : bool
+        When the limits cannot all be met, find which bind and the nearest workable value
+        of each (a bisection with the same search, :mod:`fallway.relax`; at most
+        :data:`WORKABLE_MAX_PROBES` searches) and put them on the error.
 
     Returns
     -------
     Route
-        With a :class:`~fallway.results.RouteSummary` of fixed fields.
+        With a :class:`~fallway.results.RouteSummary` of fixed fields; always a line that
+        meets every limit (``summary.feasible`` is True).
 
     Raises
     ------
     NoFeasibleLine
-        No line satisfies the physics and the limits (``reason`` says why).
+        No line satisfies the physics and the limits (``reason`` says why), or the line
+        found breaks a limit (``reason`` ``"limits"``, or ``"stall"`` when the mover
+        stalls on it; ``err.route`` holds that line for inspection).  With ``workable``
+        and ``reason`` ``"limits"`` or ``"stall"``: ``err.binding`` names the binding
+        limits and ``err.workable`` their nearest workable values, also in the message.
     TerrainError
         The search would not fit in memory.
 
@@ -140,16 +164,74 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
     src = terrain_source(terrain, keepout)
     plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
     job = _Job(mover=mover, limits=limits, line=line, search=search, refine=bool(refine), via=tuple(points[1:-1]))
-    if plan == "robust":
-        route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
-    else:
-        found = (_plan_full if plan == "full" else _plan_corridor)(src, points, job, memory_limit_bytes)
-        route = _finish(found, job)
-        if mu_range is not None:
-            route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
+    explain = bool(workable) and plan != "robust"
+    try:
+        if plan == "robust":
+            route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
+        else:
+            found = (_plan_full if plan == "full" else _plan_corridor)(src, points, job, memory_limit_bytes)
+            route = _finish(found, job)
+            if mu_range is not None:
+                route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
+    except NoFeasibleLine as err:
+        if not explain or err.reason not in ("limits", "stall") or err.binding:
+            raise
+        raise _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start) from err
+    if not route.summary.feasible:
+        broken = route.summary.violated_limits
+        err = NoFeasibleLine(f"the line found breaks {'its limits' if broken else 'the physics'} "
+                             f"({', '.join(broken) or 'the mover stalls'}); no line meeting them was found",
+                             reason="stall" if set(broken) <= {"stalls"} else "limits", route=route)
+        if explain:
+            err = _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start, route=route)
+        raise err
     compute = dict(route.compute_s)
     compute["total"] = time.perf_counter() - t_start
     return dataclasses.replace(route, compute_s=compute)
+
+
+def _explained(err: NoFeasibleLine, src, points, job: _Job, memory_limit_bytes, failed_s: float,
+               route: Route | None = None) -> NoFeasibleLine:
+    """``err`` with the binding limits and their nearest workable values (:mod:`fallway.relax`).
+
+    Each probe is the route's own pipeline (full-grid search, refinement when the run
+    refines, the limits checked on the reported line) with one limit changed; on an area
+    of more than :data:`WORKABLE_MAX_CELLS` cells it runs on a block-mean coarse copy.
+    """
+    violated = route.summary.violated_limits if route is not None else ()
+    cands = relaxations_for(job.mover, job.limits, reason=None if route is not None else err.reason,
+                            violated=violated)
+    psrc, estimated = _probe_source(src, points)
+
+    def probe(mover: Mover, limits: Limits):
+        j = dataclasses.replace(job, mover=mover, limits=limits)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RefinementWarning)
+                r = _finish(_plan_full(psrc, points, j, memory_limit_bytes), j)
+        except NoFeasibleLine:
+            return None
+        return r if r.summary.feasible else None
+
+    budget = max(WORKABLE_BUDGET_FACTOR * failed_s, WORKABLE_MIN_BUDGET_S)
+    findings, stats = find_workable(probe, job.mover, job.limits, cands, budget_s=budget,
+                                    max_probes=WORKABLE_MAX_PROBES)
+    clause = describe(findings, stats, candidates=cands, estimated_on=estimated)
+    msg = f"{str(err).rstrip('; ')}: {clause}" if clause else str(err)
+    return NoFeasibleLine(msg, reason=err.reason, closest=err.closest, route=route if route is not None else err.route,
+                          binding=tuple(f.name for f in findings),
+                          workable={f.name: f.workable for f in findings})
+
+
+def _probe_source(src, points):
+    """Where the bisection searches: the area itself, or a block-mean copy when it is large."""
+    box = _full_window(src, points)
+    cells = _cells(box, src.cell)
+    if cells <= WORKABLE_MAX_CELLS:
+        return src, None
+    factor = math.ceil(math.sqrt(cells / WORKABLE_MAX_CELLS))
+    coarse, keep = src.window(box, factor)
+    return terrain_source(coarse, keep), f"a copy coarsened to {coarse.cell_size:g} m cells"
 
 
 def _xy(p, name: str) -> tuple[float, float]:
@@ -691,7 +773,9 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
         check_memory(win.z.size, "the reach search", neighbours=search.neighbours, legs=1,
                      turn_limit=limits.max_step_turn_deg is not None, max_per_cell=search.label_cap,
                      memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True)
-        return lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        return _reached_something(rm, lambda m, lim: lattice_reach(win, (x, y), m, limits=lim, keepout=keep,
+                                                                     options=search), mover, limits)
     radius = math.inf if max_distance_m is None else float(max_distance_m)
     if max_time_s is not None:
         # energy height over the lowest cell: no mover is faster (friction only takes energy)
@@ -716,11 +800,37 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
                  active_cells=int(np.count_nonzero(inside)))
     rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, allowed=inside, options=search,
                        max_time_s=max_time_s)
+    rm = _reached_something(rm, lambda m, lim: lattice_reach(win, (x, y), m, limits=lim, keepout=keep, allowed=inside,
+                                                             options=search, max_time_s=max_time_s), mover, limits)
     stats = dict(rm.stats)
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
                        "window_shape": list(win.shape),
                        "bound": "area window and kernel time cut-off" if max_time_s is not None else "area window"}
     return dataclasses.replace(rm, stats=stats)
+
+
+def _reached_something(rm: ReachMap, again, mover: Mover, limits: Limits) -> ReachMap:
+    """``rm`` when it reaches a cell beyond the start; else NoFeasibleLine naming the binding limits.
+
+    ``again(mover, limits)`` reruns the same reach; the bisection (:mod:`fallway.relax`)
+    finds the nearest values that reach at least one more cell.
+    """
+    if int(np.isfinite(rm.time_s).sum()) > 1:
+        return rm
+    t0 = time.perf_counter()
+
+    def probe(m: Mover, lim: Limits):
+        r = again(m, lim)
+        return r if int(np.isfinite(r.time_s).sum()) > 1 else None
+
+    cands = relaxations_for(mover, limits, reason="limits") + relaxations_for(mover, limits, reason="stall")
+    findings, stats = find_workable(probe, mover, limits, cands,
+                                    budget_s=max(WORKABLE_BUDGET_FACTOR * (time.perf_counter() - t0),
+                                                 WORKABLE_MIN_BUDGET_S), max_probes=WORKABLE_MAX_PROBES)
+    clause = describe(findings, stats, candidates=cands)
+    reason = "stall" if [f.name for f in findings] == ["mu"] or not findings else "limits"
+    raise NoFeasibleLine(f"the mover reaches no cell beyond the start: {clause}", reason=reason,
+                         binding=tuple(f.name for f in findings), workable={f.name: f.workable for f in findings})
 
 
 # --------------------------------------------------------------------------- compare
@@ -787,9 +897,11 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
             first = items[0][1]
             try:
                 route = find_route(terrain, tuple(first[0, :2]), tuple(first[-1, :2]), mover, limits=limits,
-                                   keepout=keepout, search=search, refine=refine)
+                                   keepout=keepout, search=search, refine=refine, workable=False)
             except NoFeasibleLine as err:
-                rows.append(_failed_row(name, str(err)))
+                if err.route is None:
+                    rows.append(_failed_row(name, str(err)))
+                route = err.route  # a line that breaks a limit: its row carries the status
         if route is not None:
             pts = drop_repeats(np.asarray(route.line, dtype=float))
             rows.append(row_for_line(terrain, name, pts, mover, limits, mu_range, computed=True, keepout=keepout))
