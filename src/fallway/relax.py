@@ -179,13 +179,19 @@ _RADIUS = Relaxation("min_radius_m", "bend radius", "m", -1, _get, _put, _min_ra
 _get, _put = _mover_field("mu", 0.0)
 _MU = Relaxation("mu", "friction", "", -1, _get, _put, _tolerated_mu, loosest=0.0,
                  violations=("stalls", "stall"))
+_get, _put = _limits_field("max_lateral_g", None)
+_LATERAL = Relaxation("max_lateral_g", "lateral acceleration", "g", +1, _get, _put,
+                      lambda r, m: r.summary.max_lateral_g, violations=("lateral_g",))
+_get, _put = _limits_field("max_normal_g", None)
+_NORMAL = Relaxation("max_normal_g", "normal load", "g", +1, _get, _put,
+                     lambda r, m: r.summary.max_normal_g, violations=("normal_g",))
 del _get, _put
 
 #: Every limit the bisection knows, in the order they are tried and reported.  To add a
 #: limit (e.g. a lateral acceleration limit on :class:`~fallway.params.Limits`), add one
 #: entry: ``Relaxation("max_lateral_g", "lateral acceleration", "g", +1,
 #: *_limits_field("max_lateral_g", None), achieved, violations=("lateral_g",))``.
-RELAXATIONS: tuple[Relaxation, ...] = (_SPEED, _MIN_GRADE, _MAX_GRADE, _TURN, _RADIUS, _MU)
+RELAXATIONS: tuple[Relaxation, ...] = (_SPEED, _MIN_GRADE, _MAX_GRADE, _TURN, _RADIUS, _LATERAL, _NORMAL, _MU)
 
 
 def relaxations_for(mover: Mover, limits: Limits, *, reason: str | None = None,
