@@ -224,6 +224,16 @@ class RouteSummary:
         verdict across the range, nominal travel time.
     caution : str
         The safety note every output carries.
+    start_given_xy, end_given_xy : list of float
+        The start and end points as given (x, y), in the terrain's CRS; the line starts
+        and ends exactly there (``start_xyz``, ``end_xyz``) unless a point had to move.
+    start_moved_m, end_moved_m : float
+        How far (plan, m) the line's start or end lies from the point given: 0 unless
+        the point lay on nodata, in a keep-out area or in the DEM's outer half cell
+        (moved to the nearest free cell centre), or the robust search, which starts and
+        ends at cell centres, ran.
+    start_moved_why, end_moved_why : str or None
+        Why the point moved (None when it did not).
     """
 
     line_kind: str
@@ -263,6 +273,12 @@ class RouteSummary:
     robust_note: str | None
     robust_candidates: list | None
     caution: str
+    start_given_xy: list
+    end_given_xy: list
+    start_moved_m: float
+    end_moved_m: float
+    start_moved_why: str | None
+    end_moved_why: str | None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""

@@ -66,7 +66,7 @@ MAX_AREA_CELLS = 200_000_000
 def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
                line: LineSpec | None = None, search: SearchOptions | None = None, refine: bool = True,
                mu_range: tuple[float, float] | None = None, robust: bool = False,
-               memory_limit_bytes: int | None = None) -> Route:
+               memory_limit_bytes: int | None = None, points_crs=None) -> Route:
     """The minimum-time line from ``start`` to ``end``: plan, lattice search, refinement.
 
     Parameters
@@ -75,7 +75,11 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         An in-memory terrain, or a GeoTIFF in a projected CRS (only the windows the plan
         needs are read).
     start, end : (x, y)
-        Map coordinates in the terrain's CRS; each snaps to the nearest cell centre.
+        Map coordinates in the terrain's CRS.  The line starts and ends exactly there
+        (heights from the smooth surface; :mod:`fallway.lattice.ends`); a point on nodata,
+        in a keep-out area or in the DEM's outer half cell moves to the nearest free cell
+        centre (with a warning).  The robust plan starts and ends at cell centres.
+        Via points snap to the nearest cell centre.
     mover : Mover
         Physics and speed window.
     via : sequence of (x, y)
@@ -98,11 +102,20 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         at HI and stays under the speed limit at LO (:func:`_plan_robust`).
     memory_limit_bytes : int, optional
         Budget for the memory estimates (default: the memory available).
+    points_crs : CRS or str, optional
+        The CRS the caller gave the points in, for messages only (the points themselves
+        are in the terrain's CRS); default the terrain's.
 
     Returns
     -------
     Route
         With a :class:`~fallway.results.RouteSummary` of fixed fields.
+
+    Warns
+    -----
+    InputWarning
+        A point lay on nodata, in a keep-out area or in the DEM's outer half cell and the
+        line starts or ends elsewhere (where, and how far: ``start_moved_m``, ...).
 
     Raises
     ------
@@ -146,6 +159,7 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         route = _finish(found, job)
         if mu_range is not None:
             route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
+    warn_moved_points(route.summary.to_dict(), route.terrain.crs, points_crs)
     compute = dict(route.compute_s)
     compute["total"] = time.perf_counter() - t_start
     return dataclasses.replace(route, compute_s=compute)
@@ -413,10 +427,58 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         robust_note=None,
         robust_candidates=None,
         caution=CAUTION,
+        **_point_fields(st, final),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,
                  compute_s=compute)
+
+
+def _point_fields(stats: dict, line: np.ndarray) -> dict:
+    """The summary's end-point fields from the lattice line's stats (:mod:`fallway.lattice.ends`)."""
+    out = {}
+    for key, vertex in (("start", line[0]), ("end", line[-1])):
+        given = stats.get(f"{key}_given_xy")
+        out[f"{key}_given_xy"] = [float(v) for v in (vertex[:2] if given is None else given)]
+        out[f"{key}_moved_m"] = float(stats.get(f"{key}_moved_m", 0.0))
+        out[f"{key}_moved_why"] = stats.get(f"{key}_moved_why")
+    return out
+
+
+def _describe_xy(xy, terrain_crs, points_crs) -> str:
+    """A point for a message, in the caller's CRS (lon/lat when that is geographic)."""
+    x, y = float(xy[0]), float(xy[1])
+    if points_crs is None or terrain_crs is None:
+        return f"({x:.1f}, {y:.1f})"
+    from pyproj import CRS
+
+    from .points import to_terrain_crs
+
+    dst = CRS.from_user_input(points_crs)
+    (px, py), = to_terrain_crs([(x, y)], terrain_crs, dst)
+    if dst.is_geographic:
+        return f"(lon {px:.6f}, lat {py:.6f})"
+    return f"({px:.1f}, {py:.1f})"
+
+
+def warn_moved_points(stats, terrain_crs, points_crs=None) -> None:
+    """One :class:`~fallway.errors.InputWarning` per end point the line does not start or end at.
+
+    ``stats`` is a :class:`~fallway.results.RouteSummary` (as a dict) or a search's
+    stats; coordinates are given in ``points_crs`` (the caller's; default the terrain's).
+    """
+    from .errors import InputWarning
+
+    for key in ("start", "end"):
+        moved = stats.get(f"{key}_moved_m")
+        if not moved:
+            continue
+        given = stats[f"{key}_given_xy"]
+        now = stats.get(f"{key}_xy") or stats.get(f"{key}_xyz")
+        verb = "starts" if key == "start" else "ends"
+        warnings.warn(InputWarning(
+            f"{key} {_describe_xy(given, terrain_crs, points_crs)} {stats.get(f'{key}_moved_why')}: the line "
+            f"{verb} {moved:.1f} m away, at {_describe_xy(now, terrain_crs, points_crs)}"), stacklevel=3)
 
 
 def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout) -> list[str]:
@@ -616,7 +678,7 @@ def _mark_robust(route: Route, method: str, mu_range, notes, tried) -> Route:
 @checked_options
 def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout=None,
           search: SearchOptions | None = None, max_time_s: float | None = None, max_distance_m: float | None = None,
-          memory_limit_bytes: int | None = None) -> ReachMap:
+          memory_limit_bytes: int | None = None, points_crs=None) -> ReachMap:
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
     Parameters
@@ -624,7 +686,10 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     terrain : Terrain or path
         An in-memory terrain, or a GeoTIFF in a projected CRS (only the window needed is read).
     start : (x, y)
-        Map coordinates in the terrain's CRS (snaps to the nearest cell centre).
+        Map coordinates in the terrain's CRS: the lines start exactly there, or at the
+        nearest free cell centre when the point lies on nodata, in a keep-out area or in
+        the DEM's outer half cell (with an :class:`~fallway.errors.InputWarning`; the
+        map's ``start`` and ``stats["start_moved_m"]`` say where).
     mover, limits, keepout, search
         As :func:`find_route`.
     max_time_s : float, optional
@@ -634,6 +699,8 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     max_distance_m : float, optional
         Confine lines to the disc of this plan radius around the start.
     memory_limit_bytes : int, optional
+    points_crs : CRS or str, optional
+        The CRS the caller gave the start in, for messages only.
 
     Returns
     -------
@@ -662,7 +729,9 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
         check_memory(win.z.size, "the reach search", neighbours=search.neighbours, legs=1,
                      turn_limit=limits.max_step_turn_deg is not None, max_per_cell=search.label_cap,
                      memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True)
-        return lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        warn_moved_points(rm.stats, win.crs, points_crs)
+        return rm
     radius = math.inf if max_distance_m is None else float(max_distance_m)
     if max_time_s is not None:
         # energy height over the lowest cell: no mover is faster (friction only takes energy)
@@ -691,6 +760,7 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
                        "window_shape": list(win.shape),
                        "bound": "area window and kernel time cut-off" if max_time_s is not None else "area window"}
+    warn_moved_points(stats, win.crs, points_crs)
     return dataclasses.replace(rm, stats=stats)
 
 

@@ -94,7 +94,8 @@ from .._segment import segment_law
 __all__ = ["OK", "NOT_REACHED", "LABEL_BUDGET", "NODATA", "KEEPOUT", "OUTSIDE", "LAW_OK", "LAW_STALL",
            "LAW_SPEED", "LAW_GRADE", "N_COUNTERS", "heap_push", "heap_pop", "grow", "grow_rows", "new_pool",
            "push_label", "passable", "count_blocked", "sub_count", "sub_segment", "law_step", "state_of",
-           "astar_bound", "count_law", "heading_slot", "turn_deg", "virtual_passable", "virtual_walk"]
+           "astar_bound", "count_law", "heading_slot", "turn_deg", "virtual_passable", "virtual_walk",
+           "virtual_edge"]
 
 # -- search status ------------------------------------------------------------------------
 #: The last target was settled.
@@ -372,6 +373,26 @@ def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max
             return v2, te, law
         te += dt
     return v2, te, LAW_OK
+
+
+@njit(cache=True, nogil=True, inline="always")
+def virtual_edge(counters, blocked, j, v2, vcode, vtch_start, vtch, vsub_start, vdrop, vplan, g, mu, kdrag,
+                 v2_stall, v2_max, min_grade, max_grade):
+    """Virtual edge ``j`` from entry energy ``v2``: its cells (:func:`virtual_passable`), then
+    its walk (:func:`virtual_walk`); a stopped edge is counted as a stencil edge is.
+
+    Returns ``(v2_out, time, ok)``.
+    """
+    code = virtual_passable(blocked, j, vcode, vtch_start, vtch)
+    if code:
+        count_blocked(counters, code)
+        return v2, 0.0, False
+    v2o, te, law = virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade,
+                                max_grade)
+    if law != LAW_OK:
+        count_law(counters, law, mu, kdrag)
+        return v2, te, False
+    return v2o, te, True
 
 
 @njit(cache=True, nogil=True, inline="always")

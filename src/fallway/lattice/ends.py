@@ -37,7 +37,7 @@ from ..errors import NoFeasibleLine, ParameterError
 from . import core as _c
 from .stencil import touched_cells
 
-__all__ = ["EndPoint", "Virtual", "resolve_point", "virtual_edges", "no_virtual"]
+__all__ = ["EndPoint", "Virtual", "parse_point", "resolve_point", "virtual_edges", "no_virtual"]
 
 # a point closer than this fraction of a cell to a cell centre is that centre
 _AT_CENTRE = 1e-9
@@ -115,6 +115,20 @@ def _problem(terrain, x: float, y: float, blocked_cell) -> str | None:
     return None
 
 
+def parse_point(terrain, xy, name: str) -> tuple[float, float]:
+    """``xy`` as two floats; a :class:`~fallway.errors.ParameterError` when it is not a pair
+    of numbers or lies outside the terrain."""
+    try:
+        x, y = (float(v) for v in xy)
+    except (TypeError, ValueError):
+        raise ParameterError(f"{name} must be a pair (x, y) of map coordinates, got {xy!r}") from None
+    left, bottom, right, top = terrain.bounds
+    if not (left <= x <= right and bottom <= y <= top):
+        raise ParameterError(f"{name} ({x:.3f}, {y:.3f}) lies outside the terrain "
+                             f"[{left:.3f}, {right:.3f}] x [{bottom:.3f}, {top:.3f}]; give a point on the grid")
+    return x, y
+
+
 def resolve_point(terrain, xy, name: str, blocked: np.ndarray) -> EndPoint:
     """Where a line starts or ends for the point ``xy`` given in the terrain's CRS.
 
@@ -130,14 +144,7 @@ def resolve_point(terrain, xy, name: str, blocked: np.ndarray) -> EndPoint:
         The point lies outside the search domain (``reason="corridor"``), or there is no
         free cell to move it to.
     """
-    try:
-        x, y = (float(v) for v in xy)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a pair (x, y) of map coordinates, got {xy!r}") from None
-    left, bottom, right, top = terrain.bounds
-    if not (left <= x <= right and bottom <= y <= top):
-        raise ParameterError(f"{name} ({x:.3f}, {y:.3f}) lies outside the terrain "
-                             f"[{left:.3f}, {right:.3f}] x [{bottom:.3f}, {top:.3f}]; give a point on the grid")
+    x, y = parse_point(terrain, xy, name)
     rows, cols = terrain.shape
     flat = blocked.reshape(-1)
     why = _problem(terrain, x, y, lambda k: int(flat[k]))
@@ -208,7 +215,7 @@ class Virtual:
         return float(np.max(g * (grade - mu) / np.sqrt(1.0 + grade * grade)))
 
 
-def _edge(terrain, p_rc, p_z, cell_rc):
+def _edge(terrain, p_xy, p_rc, p_z, cell_rc):
     """Polyline (x, y, z) from the point (fractional row, col) to a cell centre, split where it
     crosses the lines joining cell centres."""
     (pr, pc), (R, C) = p_rc, cell_rc
@@ -222,6 +229,7 @@ def _edge(terrain, p_rc, p_z, cell_rc):
     rr = np.concatenate([[pr], pr + us * (R - pr), [R]])
     cc = np.concatenate([[pc], pc + us * (C - pc), [C]])
     x, y = terrain.cell_center(rr, cc)
+    x[0], y[0] = p_xy  # exactly as given (no round trip through cell units)
     z = np.empty(len(rr))
     z[0] = p_z
     if len(us):
@@ -251,7 +259,7 @@ def virtual_edges(terrain, stencil, start: EndPoint | None, end: EndPoint | None
             touched = touched_cells(pr, pc, float(R), float(C))
             if any(not (0 <= i < rows and 0 <= j < cols) for i, j in touched):
                 continue  # the edge leaves the grid
-            P = _edge(terrain, (pr, pc), pt.z, (R, C))
+            P = _edge(terrain, pt.xy, (pr, pc), pt.z, (R, C))
             if which == "end":
                 P = P[::-1].copy()
             d = np.diff(P, axis=0)

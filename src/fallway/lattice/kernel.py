@@ -101,7 +101,7 @@ from numba import njit
 from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRID, C_SETTLED, C_TURN, LABEL_BUDGET, LAW_GRADE,
                    LAW_OK, N_COUNTERS, NOT_REACHED, OK, astar_bound, count_blocked, count_law, grow, grow_rows,
                    heading_slot, heap_pop, law_step, new_pool, passable, push_label, state_of, sub_count, sub_segment,
-                   turn_deg, virtual_passable, virtual_walk)
+                   turn_deg, virtual_edge)
 
 __all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
 
@@ -228,14 +228,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             hkey = grow(hkey, 2 * nvs + 2)
             hidx = grow(hidx, 2 * nvs + 2)
         for j in range(nvs):
-            code = virtual_passable(blocked, j, vcode, vtch_start, vtch)
-            if code:
-                count_blocked(counters, code)
-                continue
-            v2, te, law = virtual_walk(j, v2_start, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max,
-                                       min_grade, max_grade)
-            if law != LAW_OK:
-                count_law(counters, law, mu, kdrag)
+            v2, te, ok = virtual_edge(counters, blocked, j, v2_start, vcode, vtch_start, vtch, vsub_start, vdrop,
+                                      vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade)
+            if not ok:
                 continue
             if te > t_max:
                 counters[C_CUTOFF] += 1
@@ -316,14 +311,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                         if turn_deg(sdir[hd] if hd < nk else vdir[hd - nk], vdir[j]) > max_turn + 1e-9:
                             counters[C_TURN] += 1
                             continue
-                    code = virtual_passable(blocked, j, vcode, vtch_start, vtch)
-                    if code:
-                        count_blocked(counters, code)
-                        continue
-                    v2, te, law = virtual_walk(j, v20, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max,
-                                               min_grade, max_grade)
-                    if law != LAW_OK:
-                        count_law(counters, law, mu, kdrag)
+                    v2, te, ok = virtual_edge(counters, blocked, j, v20, vcode, vtch_start, vtch, vsub_start,
+                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade)
+                    if not ok:
                         continue
                     tn = t0 + te
                     if tn >= best_end_t:  # a later arrival at the end is of no use

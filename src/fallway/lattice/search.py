@@ -82,7 +82,7 @@ from ..physics import Mover, check_mu_range, traverse
 from ..results import LatticeLine, ReachMap
 from . import core as _c
 from .kernel import search as _search
-from .ends import EndPoint, Virtual, no_virtual, resolve_point, virtual_edges
+from .ends import EndPoint, Virtual, no_virtual, parse_point, resolve_point, virtual_edges
 from .robust import ROBUST_ENERGY_TOL, lo_floor, robust_search
 from .stencil import make_stencil
 
@@ -113,14 +113,7 @@ def _check_mover(mover) -> None:
 
 
 def _snap(terrain, xy, name: str) -> int:
-    try:
-        x, y = (float(v) for v in xy)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a pair (x, y) of map coordinates, got {xy!r}") from None
-    left, bottom, right, top = terrain.bounds
-    if not (left <= x <= right and bottom <= y <= top):
-        raise ParameterError(f"{name} ({x:.3f}, {y:.3f}) lies outside the terrain "
-                             f"[{left:.3f}, {right:.3f}] x [{bottom:.3f}, {top:.3f}]; give a point on the grid")
+    x, y = parse_point(terrain, xy, name)
     rows, cols = terrain.shape
     r, c = terrain.nearest_cell(x, y)
     r = min(max(r, 0), rows - 1)
