@@ -159,6 +159,7 @@ def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
     tm, v = np.asarray(rm.time_s), np.asarray(rm.speed_m_s)
     assert tm.shape == t.shape and v.shape == t.shape
     ok = np.isfinite(tm)
+    s = t.nearest_cell(*rm.start)  # a start on nodata moves to the nearest free cell centre
     assert ok[s] and tm[s] == 0.0
     assert np.all(tm[ok] >= 0.0) and np.all(np.isfinite(v[ok])) and np.all(v[ok] >= 0.0)
     assert not np.any(ok & np.isnan(t.z))  # nothing arrives on a nodata cell
@@ -171,6 +172,7 @@ def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
         return
     except FallwayError:
         return
+    e = t.nearest_cell(*lat.stats["end_xy"])  # an end on nodata moves too
     assert ok[e]
     assert lat.time_s == pytest.approx(float(tm[e]), rel=1e-9)
 

@@ -63,6 +63,15 @@ kernels look at the bits of the first blocked cell and count them
 edge was ever stopped by a keep-out cell, lifting the keep-out changes nothing (the
 search would run exactly the same), so it need not be tried.
 
+Virtual edges
+-------------
+An exact end point is joined to nearby cell centres by virtual edges
+(:mod:`fallway.lattice.ends`) given as flat arrays: per edge a static blocked code, the
+flat indices of the cells it touches, and its sub-segments' drops and plan lengths.
+:func:`virtual_edge` tests its cells, walks it with the grade window and
+:func:`law_step` as a stencil edge is walked, and counts a stopped edge in the same
+counters, so the failure diagnosis sees it too.
+
 Compact state
 -------------
 ``cidx`` (int32, one per window cell) maps a searchable cell to its compact index

@@ -80,6 +80,21 @@ float32 resolution (6e-8), and ``t`` accumulates over thousands of segments; in 
 the dominance tests and the times - so the answer - would change.  Saving is done by
 sizing, not by precision.
 
+Virtual end points
+------------------
+Exact end points (:mod:`fallway.lattice.ends`) enter as virtual edges, walked sub-segment
+by sub-segment with the same grade window and segment law as stencil edges
+(:func:`fallway.lattice.core.virtual_edge`).  The start point is a virtual source: the
+search begins with one label per cell its edges reach (heading ``nk + j``, edge ``j``:
+the turn limit from it is judged on the edge's own direction; its dominance slot is the
+"no heading" one, which no stencil step uses).  The end point is a virtual node
+(index ``rows * cols``): a label settled at a cell joined to it in the last leg pushes an
+arrival there, keyed by its time (the A* bound is 0 at the end); the first arrival
+popped is optimal, because the A* bound to the end point's exact position and height is
+still a lower bound along a virtual edge (its 3D length is at least the straight
+distance).  The front includes the virtual edges' heights and drives in the speed bound
+V.  Only the earliest arrival so far is queued (an end has no continuation).
+
 Time cut-off
 ------------
 ``t_max``: a label later than ``t_max`` is neither queued nor settled, so a reach stops

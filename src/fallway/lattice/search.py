@@ -12,10 +12,16 @@ router's and are not read here) and rejects an unknown keyword with a
 kernels are :mod:`fallway.lattice.kernel` and :mod:`fallway.lattice.robust`, on the
 shared compiled core :mod:`fallway.lattice.core`.
 
-Points given as map coordinates (x, y) in the terrain CRS snap to the *nearest cell
-centre*; a point outside the grid raises :class:`~fallway.errors.ParameterError`, one on
-a nodata or keep-out cell or outside the search domain raises
-:class:`~fallway.errors.NoFeasibleLine`.
+End points given as map coordinates (x, y) in the terrain CRS are exact
+(:mod:`fallway.lattice.ends`): the line starts and ends there, joined to nearby cell
+centres by virtual edges the kernel walks like any edge; a point on nodata, in a keep-out
+area or in the DEM's outer half cell moves to the nearest free cell centre and
+``stats["start_moved_m"]`` / ``stats["start_moved_why"]`` (and ``end_...``) say so.  Via
+points and the robust search's ends snap to the nearest cell centre (the robust search
+records that as a move).  A point outside the grid raises
+:class:`~fallway.errors.ParameterError`, one outside the search domain
+:class:`~fallway.errors.NoFeasibleLine` (``"corridor"``); a via point on a nodata or
+keep-out cell raises :class:`~fallway.errors.NoFeasibleLine`.
 
 Physics on the lattice: the search times every sub-segment with the closed-form
 gravity-normal segment law (friction work mu * g * plan length, drag k v²) even when
@@ -540,11 +546,14 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | 
     ----------
     terrain : Terrain
     start, end : (x, y)
-        Map coordinates in the terrain CRS; they snap to the nearest cell centre.
+        Map coordinates in the terrain CRS: the line starts and ends exactly there (module
+        notes; a point on nodata, in a keep-out area or in the DEM's outer half cell moves
+        to the nearest free cell centre, recorded in ``stats``).
     mover : Mover
         Physics; the lattice uses the gravity-normal friction model (module notes).
     via : sequence of (x, y)
         Points the line must pass through, in order; the energy carries through them.
+        They snap to the nearest cell centre.
     limits : Limits, optional
         Grade window per sub-segment, max turn per step (``max_step_turn_deg``); the
         speed window comes from ``mover.stall_speed`` and ``mover.max_speed``.
@@ -570,7 +579,10 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | 
     -------
     LatticeLine
         With ``stats``: labels created/settled, ``label_cap``, ``exact``, search
-        seconds, ``state_cells``, start/end cells, exit speed.
+        seconds, ``state_cells``, start/end cells, exit speed, and per end point
+        ``start_given_xy``, ``start_xy``, ``start_z``, ``start_moved_m``,
+        ``start_moved_why`` (``end_...`` alike).  ``points`` begins and ends with the end
+        points and the break points of the virtual edges taken.
 
     Raises
     ------
@@ -680,7 +692,7 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
           max_time_s: float | None = None) -> ReachMap:
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
-    ``start`` snaps to the nearest cell centre.  The speed is that of the earliest label
+    Lines start exactly at ``start`` (module notes).  The speed is that of the earliest label
     (a later, faster arrival may exist).
 
     Parameters
@@ -789,7 +801,8 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     ----------
     terrain : Terrain
     start, end : (x, y)
-        Map coordinates; they snap to the nearest cell centre.
+        Map coordinates; the robust search starts and ends at the nearest cell centres
+        (``stats["start_moved_m"]`` etc. record the distance).
     mover : Mover
         Nominal physics (gravity-normal model on the lattice); ``mu_lo <= mover.mu <= mu_hi``.
     mu_lo, mu_hi : float
