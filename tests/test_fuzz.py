@@ -28,7 +28,7 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from fallway.errors import FallwayError, NoFeasibleLine, RefinementWarning
+from fallway.errors import FallwayError, InputWarning, NoFeasibleLine, RefinementWarning
 from fallway.lattice.search import lattice_line, reach
 from fallway.params import SearchOptions
 from fallway.physics import Mover, traverse
@@ -103,13 +103,22 @@ def _same_time(route) -> None:
 def _route(t, s, e, mover, n, refine):
     """find_route with no warning silenced: a RefinementWarning is allowed only as one of the
     refinement's documented outcomes, each marked in the summary too (no line meeting the
-    limits; the final level not converged).  Anything else raised inside fails the test."""
+    limits; the final level not converged), an InputWarning only for an end point that
+    moved (on nodata), with the distance in the summary.  Anything else raised inside fails
+    the test."""
     with warnings.catch_warnings(record=True) as rec:
         warnings.simplefilter("always", RefinementWarning)
+        warnings.simplefilter("always", InputWarning)
         r = find_route(t, t.cell_center(*s), t.cell_center(*e), mover, search=SearchOptions(neighbours=n),
                        refine=refine)
     for w in rec:
         text = str(w.message)
+        if issubclass(w.category, InputWarning):
+            key = text.split(" ", 1)[0]
+            assert key in ("start", "end") and "nodata" in text, text
+            moved = getattr(r.summary, f"{key}_moved_m")
+            assert moved > 0 and f"{moved:.1f} m away" in text, text
+            continue
         if text.startswith("no line meeting the limits"):
             assert r.summary.refine_message.startswith("no line meeting the limits"), text
         else:
