@@ -94,7 +94,9 @@ def make_route(terrain=None, mover=None, *, raised=0.0, n=31):
         refined=True, refine_choice="gravity optimum", refine_converged=True, refine_iterations=17,
         refine_residual_s_per_m=1.5e-7, refine_message="refined", refine_limits={"grade": "inactive"},
         refine_candidates=None, robust_method=None, robust_mu_range=None, robust_note=None,
-        robust_candidates=None, caution=CAUTION)
+        robust_candidates=None, caution=CAUTION, start_given_xy=line[0, :2].tolist(),
+        end_given_xy=line[-1, :2].tolist(), start_moved_m=0.0, end_moved_m=0.0, start_moved_why=None,
+        end_moved_why=None)
     return Route(line=line, profile=prof, lattice=lattice, summary=summary, mover=mover,
                  limits=Limits(min_grade=0.05, max_step_turn_deg=45.0), line_spec=LineSpec(), search=SearchOptions(),
                  refinement=None, terrain=terrain)

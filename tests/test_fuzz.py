@@ -28,7 +28,7 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from fallway.errors import FallwayError, NoFeasibleLine, RefinementWarning
+from fallway.errors import FallwayError, InputWarning, NoFeasibleLine, RefinementWarning
 from fallway.lattice.search import lattice_line, reach
 from fallway.params import SearchOptions
 from fallway.physics import Mover, traverse
@@ -103,13 +103,22 @@ def _same_time(route) -> None:
 def _route(t, s, e, mover, n, refine):
     """find_route with no warning silenced: a RefinementWarning is allowed only as one of the
     refinement's documented outcomes, each marked in the summary too (no line meeting the
-    limits; the final level not converged).  Anything else raised inside fails the test."""
+    limits; the final level not converged), an InputWarning only for an end point that
+    moved (on nodata), with the distance in the summary.  Anything else raised inside fails
+    the test."""
     with warnings.catch_warnings(record=True) as rec:
         warnings.simplefilter("always", RefinementWarning)
+        warnings.simplefilter("always", InputWarning)
         r = find_route(t, t.cell_center(*s), t.cell_center(*e), mover, search=SearchOptions(neighbours=n),
                        refine=refine)
     for w in rec:
         text = str(w.message)
+        if issubclass(w.category, InputWarning):
+            key = text.split(" ", 1)[0]
+            assert key in ("start", "end") and "nodata" in text, text
+            moved = getattr(r.summary, f"{key}_moved_m")
+            assert moved > 0 and f"{moved:.1f} m away" in text, text
+            continue
         if text.startswith("no line meeting the limits"):
             assert r.summary.refine_message.startswith("no line meeting the limits"), text
         else:
@@ -159,6 +168,7 @@ def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
     tm, v = np.asarray(rm.time_s), np.asarray(rm.speed_m_s)
     assert tm.shape == t.shape and v.shape == t.shape
     ok = np.isfinite(tm)
+    s = t.nearest_cell(*rm.start)  # a start on nodata moves to the nearest free cell centre
     assert ok[s] and tm[s] == 0.0
     assert np.all(tm[ok] >= 0.0) and np.all(np.isfinite(v[ok])) and np.all(v[ok] >= 0.0)
     assert not np.any(ok & np.isnan(t.z))  # nothing arrives on a nodata cell
@@ -171,6 +181,7 @@ def test_reach_never_crashes_and_agrees_with_route(case, mover, n):
         return
     except FallwayError:
         return
+    e = t.nearest_cell(*lat.stats["end_xy"])  # an end on nodata moves too
     assert ok[e]
     assert lat.time_s == pytest.approx(float(tm[e]), rel=1e-9)
 

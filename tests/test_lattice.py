@@ -454,8 +454,7 @@ def test_nodata_wall():
     with pytest.raises(NoFeasibleLine) as ei:
         lattice_line(t, xy(t, 5, 0), xy(t, 5, 11), Mover(mu=0.1), options=SearchOptions(neighbours=32))
     assert ei.value.reason == "nodata"
-    with pytest.raises(NoFeasibleLine, match="nodata"):
-        lattice_line(t, xy(t, 5, 6), xy(t, 5, 11), Mover(mu=0.1))
+    # a point on a nodata cell is moved, not refused: tests/test_ends.py
 
 
 # ----------------------------------------------------------------------------- search domain, reasons, options

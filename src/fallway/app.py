@@ -57,6 +57,8 @@ class Site:
     keepout : Keepout or None
     crs : CRS
         The terrain's CRS.
+    given_crs : CRS or str or None
+        The CRS the scenario gave the points in (lon/lat: ``"EPSG:4326"``), for messages.
     """
 
     terrain: object
@@ -65,6 +67,7 @@ class Site:
     via: tuple
     keepout: object
     crs: object
+    given_crs: object = None
 
 
 def load_area(dem, bounds, *, band: int | None = None, z_scale: float | None = None):
@@ -176,7 +179,8 @@ def resolve_site(sc, *, need_end: bool = True, need_start: bool = True, cover=No
     pts = to_terrain_crs(pts, given, crs)
     keepout = _keepout(sc, crs)
     end = pts[-1] if sc.end is not None else None
-    return Site(terrain=terrain, start=pts[0], end=end, via=tuple(pts[1:1 + len(sc.via)]), keepout=keepout, crs=crs)
+    return Site(terrain=terrain, start=pts[0], end=end, via=tuple(pts[1:1 + len(sc.via)]), keepout=keepout, crs=crs,
+                given_crs=given)
 
 
 def _keepout(sc, crs):
@@ -195,7 +199,7 @@ def _route_of(sc, site: Site, *, robust: bool):
         raise ParameterError("a robust line needs a friction range: --mu-range LO HI (or envelope.mu_range)")
     route = find_route(site.terrain, site.start, site.end, sc.mover, via=site.via, limits=sc.limits,
                        keepout=site.keepout, line=sc.line, search=sc.search, refine=sc.refine, mu_range=sc.mu_range,
-                       robust=robust)
+                       robust=robust, points_crs=site.given_crs)
     _warn_if_crawling(route)
     return route
 
@@ -356,7 +360,7 @@ def run_reach(sc, out_path, *, overwrite: bool = False, max_time_s: float | None
     with OutputSet(out.parent, overwrite=overwrite, result_names=(out.name,)) as outs:
         site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
         rm = reach(site.terrain, site.start, sc.mover, limits=sc.limits, keepout=site.keepout, search=sc.search,
-                   max_time_s=max_time_s, max_distance_m=max_distance_m)
+                   max_time_s=max_time_s, max_distance_m=max_distance_m, points_crs=site.given_crs)
         write_reach_geotiff(rm, outs.path(out.name))
     return rm
 

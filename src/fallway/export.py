@@ -635,7 +635,9 @@ def _example_route():
         labels_created=0, labels_settled=0, corridor=None, refined=False, refine_choice=None,
         refine_converged=None, refine_iterations=None, refine_residual_s_per_m=None, refine_message=None,
         refine_limits=None, refine_candidates=None, robust_method=None, robust_mu_range=None, robust_note=None,
-        robust_candidates=None, caution=CAUTION)
+        robust_candidates=None, caution=CAUTION, start_given_xy=line[0, :2].tolist(),
+        end_given_xy=line[-1, :2].tolist(), start_moved_m=0.0, end_moved_m=0.0, start_moved_why=None,
+        end_moved_why=None)
     route = Route(line=line, profile=prof, lattice=lattice, summary=summary, mover=mover, limits=Limits(),
                   line_spec=LineSpec(), search=SearchOptions(), refinement=None, terrain=terrain)
     return route, terrain

@@ -237,6 +237,16 @@ class RouteSummary:
         ``violated_limits`` unless the limits allow it).
     min_grade : float or None
         Smallest descent grade of a segment (negative = rising).
+    start_given_xy, end_given_xy : list of float
+        The start and end points as given (x, y), in the terrain's CRS; the line starts
+        and ends exactly there (``start_xyz``, ``end_xyz``) unless a point had to move.
+    start_moved_m, end_moved_m : float
+        How far (plan, m) the line's start or end lies from the point given: 0 unless
+        the point lay on nodata, in a keep-out area or in the DEM's outer half cell
+        (moved to the nearest free cell centre), or the robust search, which starts and
+        ends at cell centres, ran.
+    start_moved_why, end_moved_why : str or None
+        Why the point moved (None when it did not).
     """
 
     line_kind: str
@@ -276,6 +286,12 @@ class RouteSummary:
     robust_note: str | None
     robust_candidates: list | None
     caution: str
+    start_given_xy: list
+    end_given_xy: list
+    start_moved_m: float
+    end_moved_m: float
+    start_moved_why: str | None
+    end_moved_why: str | None
     max_lateral_g: float | None = None
     max_lateral_g_station_m: float | None = None
     max_normal_g: float | None = None

@@ -82,7 +82,7 @@ WORKABLE_MAX_CELLS = DEFAULT_COARSE_CELLS
 def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
                line: LineSpec | None = None, search: SearchOptions | None = None, refine: bool = True,
                mu_range: tuple[float, float] | None = None, robust: bool = False,
-               memory_limit_bytes: int | None = None, workable: bool = True) -> Route:
+               memory_limit_bytes: int | None = None, workable: bool = True, points_crs=None) -> Route:
     """The minimum-time line from ``start`` to ``end``: plan, lattice search, refinement.
 
     Parameters
@@ -91,7 +91,11 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         An in-memory terrain, or a GeoTIFF in a projected CRS (only the windows the plan
         needs are read).
     start, end : (x, y)
-        Map coordinates in the terrain's CRS; each snaps to the nearest cell centre.
+        Map coordinates in the terrain's CRS.  The line starts and ends exactly there
+        (heights from the smooth surface; :mod:`fallway.lattice.ends`); a point on nodata,
+        in a keep-out area or in the DEM's outer half cell moves to the nearest free cell
+        centre (with a warning).  The robust plan starts and ends at cell centres.
+        Via points snap to the nearest cell centre.
     mover : Mover
         Physics and speed window.
     via : sequence of (x, y)
@@ -118,12 +122,21 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         When the limits cannot all be met, find which bind and the nearest workable value
         of each (a bisection with the same search, :mod:`fallway.relax`; at most
         :data:`WORKABLE_MAX_PROBES` searches) and put them on the error.
+    points_crs : CRS or str, optional
+        The CRS the caller gave the points in, for messages only (the points themselves
+        are in the terrain's CRS); default the terrain's.
 
     Returns
     -------
     Route
         With a :class:`~fallway.results.RouteSummary` of fixed fields; always a line that
         meets every limit (``summary.feasible`` is True).
+
+    Warns
+    -----
+    InputWarning
+        A point lay on nodata, in a keep-out area or in the DEM's outer half cell and the
+        line starts or ends elsewhere (where, and how far: ``start_moved_m``, ...).
 
     Raises
     ------
@@ -177,6 +190,7 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         if not explain or err.reason not in ("limits", "stall") or err.binding:
             raise
         raise _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start) from err
+    warn_moved_points(route.summary.to_dict(), route.terrain.crs, points_crs)
     if not route.summary.feasible:
         broken = route.summary.violated_limits
         err = NoFeasibleLine(f"the line found breaks {'its limits' if broken else 'the physics'} "
@@ -508,10 +522,58 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         robust_candidates=None,
         caution=CAUTION,
         **_load_fields(loads, profile),
+        **_point_fields(st, final),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,
                  compute_s=compute)
+
+
+def _point_fields(stats: dict, line: np.ndarray) -> dict:
+    """The summary's end-point fields from the lattice line's stats (:mod:`fallway.lattice.ends`)."""
+    out = {}
+    for key, vertex in (("start", line[0]), ("end", line[-1])):
+        given = stats.get(f"{key}_given_xy")
+        out[f"{key}_given_xy"] = [float(v) for v in (vertex[:2] if given is None else given)]
+        out[f"{key}_moved_m"] = float(stats.get(f"{key}_moved_m", 0.0))
+        out[f"{key}_moved_why"] = stats.get(f"{key}_moved_why")
+    return out
+
+
+def _describe_xy(xy, terrain_crs, points_crs) -> str:
+    """A point for a message, in the caller's CRS (lon/lat when that is geographic)."""
+    x, y = float(xy[0]), float(xy[1])
+    if points_crs is None or terrain_crs is None:
+        return f"({x:.1f}, {y:.1f})"
+    from pyproj import CRS
+
+    from .points import to_terrain_crs
+
+    dst = CRS.from_user_input(points_crs)
+    (px, py), = to_terrain_crs([(x, y)], terrain_crs, dst)
+    if dst.is_geographic:
+        return f"(lon {px:.6f}, lat {py:.6f})"
+    return f"({px:.1f}, {py:.1f})"
+
+
+def warn_moved_points(stats, terrain_crs, points_crs=None) -> None:
+    """One :class:`~fallway.errors.InputWarning` per end point the line does not start or end at.
+
+    ``stats`` is a :class:`~fallway.results.RouteSummary` (as a dict) or a search's
+    stats; coordinates are given in ``points_crs`` (the caller's; default the terrain's).
+    """
+    from .errors import InputWarning
+
+    for key in ("start", "end"):
+        moved = stats.get(f"{key}_moved_m")
+        if not moved:
+            continue
+        given = stats[f"{key}_given_xy"]
+        now = stats.get(f"{key}_xy") or stats.get(f"{key}_xyz")
+        verb = "starts" if key == "start" else "ends"
+        warnings.warn(InputWarning(
+            f"{key} {_describe_xy(given, terrain_crs, points_crs)} {stats.get(f'{key}_moved_why')}: the line "
+            f"{verb} {moved:.1f} m away, at {_describe_xy(now, terrain_crs, points_crs)}"), stacklevel=3)
 
 
 def _load_fields(loads: Loads, profile) -> dict:
@@ -727,7 +789,7 @@ def _mark_robust(route: Route, method: str, mu_range, notes, tried) -> Route:
 @checked_options
 def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout=None,
           search: SearchOptions | None = None, max_time_s: float | None = None, max_distance_m: float | None = None,
-          memory_limit_bytes: int | None = None) -> ReachMap:
+          memory_limit_bytes: int | None = None, points_crs=None) -> ReachMap:
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
     Parameters
@@ -735,7 +797,10 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     terrain : Terrain or path
         An in-memory terrain, or a GeoTIFF in a projected CRS (only the window needed is read).
     start : (x, y)
-        Map coordinates in the terrain's CRS (snaps to the nearest cell centre).
+        Map coordinates in the terrain's CRS: the lines start exactly there, or at the
+        nearest free cell centre when the point lies on nodata, in a keep-out area or in
+        the DEM's outer half cell (with an :class:`~fallway.errors.InputWarning`; the
+        map's ``start`` and ``stats["start_moved_m"]`` say where).
     mover, limits, keepout, search
         As :func:`find_route`.
     max_time_s : float, optional
@@ -745,6 +810,8 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     max_distance_m : float, optional
         Confine lines to the disc of this plan radius around the start.
     memory_limit_bytes : int, optional
+    points_crs : CRS or str, optional
+        The CRS the caller gave the start in, for messages only.
 
     Returns
     -------
@@ -774,6 +841,7 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
                      turn_limit=limits.max_step_turn_deg is not None, max_per_cell=search.label_cap,
                      memory_limit_bytes=memory_limit_bytes, cell_m=win.cell_size, reach=True)
         rm = lattice_reach(win, (x, y), mover, limits=limits, keepout=keep, options=search)
+        warn_moved_points(rm.stats, win.crs, points_crs)
         return _reached_something(rm, lambda m, lim: lattice_reach(win, (x, y), m, limits=lim, keepout=keep,
                                                                      options=search), mover, limits)
     radius = math.inf if max_distance_m is None else float(max_distance_m)
@@ -806,6 +874,7 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     stats["cutoff"] = {"radius_m": float(radius), "max_time_s": max_time_s, "max_distance_m": max_distance_m,
                        "window_shape": list(win.shape),
                        "bound": "area window and kernel time cut-off" if max_time_s is not None else "area window"}
+    warn_moved_points(stats, win.crs, points_crs)
     return dataclasses.replace(rm, stats=stats)
 
 

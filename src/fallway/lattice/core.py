@@ -63,6 +63,15 @@ kernels look at the bits of the first blocked cell and count them
 edge was ever stopped by a keep-out cell, lifting the keep-out changes nothing (the
 search would run exactly the same), so it need not be tried.
 
+Virtual edges
+-------------
+An exact end point is joined to nearby cell centres by virtual edges
+(:mod:`fallway.lattice.ends`) given as flat arrays: per edge a static blocked code, the
+flat indices of the cells it touches, and its sub-segments' drops and plan lengths.
+:func:`virtual_edge` tests its cells, walks it with the grade window and
+:func:`law_step` as a stencil edge is walked, and counts a stopped edge in the same
+counters, so the failure diagnosis sees it too.
+
 Compact state
 -------------
 ``cidx`` (int32, one per window cell) maps a searchable cell to its compact index
@@ -94,7 +103,8 @@ from .._segment import segment_law
 __all__ = ["OK", "NOT_REACHED", "LABEL_BUDGET", "NODATA", "KEEPOUT", "OUTSIDE", "LAW_OK", "LAW_STALL",
            "LAW_SPEED", "LAW_GRADE", "N_COUNTERS", "heap_push", "heap_pop", "grow", "grow_rows", "new_pool",
            "push_label", "passable", "count_blocked", "sub_count", "sub_segment", "law_step", "state_of",
-           "astar_bound"]
+           "astar_bound", "count_law", "heading_slot", "turn_deg", "virtual_passable", "virtual_walk",
+           "virtual_edge"]
 
 # -- search status ------------------------------------------------------------------------
 #: The last target was settled.
@@ -306,6 +316,92 @@ def law_step(v2, drop, plan, length, g, mu, kdrag, v2_stall, v2_max):
     if v2o > v2_max:
         return v2, dt, LAW_SPEED
     return v2o, dt, LAW_OK
+
+
+@njit(cache=True, nogil=True, inline="always")
+def count_law(counters, law, mu, kdrag):
+    """Count an edge the law stopped: grade, stall (uphill without friction and drag) or speed."""
+    if law == LAW_GRADE:
+        counters[C_GRADE] += 1
+    elif law == LAW_STALL:
+        if mu == 0.0 and kdrag == 0.0:
+            counters[C_UPHILL] += 1
+        else:
+            counters[C_STALL] += 1
+    else:
+        counters[C_SPEED] += 1
+
+
+@njit(cache=True, nogil=True, inline="always")
+def heading_slot(use_heading, hd, nk):
+    """The dominance slot of a label's heading: 0 without a turn limit, and for a label with
+    no stencil heading (the start, ``hd < 0``, or a step along a virtual start edge,
+    ``hd >= nk``); else ``hd + 1``."""
+    if not use_heading or hd < 0 or hd >= nk:
+        return 0
+    return hd + 1
+
+
+@njit(cache=True, nogil=True, inline="always")
+def turn_deg(a_deg, b_deg):
+    """The plan turn, degrees in [0, 180], from heading ``a_deg`` to heading ``b_deg``."""
+    return abs((b_deg - a_deg + 180.0) % 360.0 - 180.0)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def virtual_passable(blocked, j, vcode, vtch_start, vtch):
+    """0 when virtual edge ``j`` is free, else its blocked code: its own ``vcode[j]`` (e.g.
+    :data:`NODATA` where the smooth surface is undefined along it) or the bits of the first
+    blocked cell it touches (``vtch``: flat cell indices)."""
+    code = vcode[j]
+    if code:
+        return code
+    for q in range(vtch_start[j], vtch_start[j + 1]):
+        b = blocked[vtch[q]]
+        if b:
+            return b
+    return 0
+
+
+@njit(cache=True, nogil=True, inline="always")
+def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade):
+    """Walk virtual edge ``j`` (an exact end point joined to a cell centre) sub-segment by
+    sub-segment: the grade window, then the law, as on a stencil edge.
+
+    Returns ``(v2_out, time, outcome)`` (outcome as :func:`law_step`, or :data:`LAW_GRADE`).
+    """
+    te = 0.0
+    for q in range(vsub_start[j], vsub_start[j + 1]):
+        d = vdrop[q]
+        p = vplan[q]
+        grade = d / p
+        if grade < min_grade or grade > max_grade:
+            return v2, te, LAW_GRADE
+        v2, dt, law = law_step(v2, d, p, math.sqrt(p * p + d * d), g, mu, kdrag, v2_stall, v2_max)
+        if law != LAW_OK:
+            return v2, te, law
+        te += dt
+    return v2, te, LAW_OK
+
+
+@njit(cache=True, nogil=True, inline="always")
+def virtual_edge(counters, blocked, j, v2, vcode, vtch_start, vtch, vsub_start, vdrop, vplan, g, mu, kdrag,
+                 v2_stall, v2_max, min_grade, max_grade):
+    """Virtual edge ``j`` from entry energy ``v2``: its cells (:func:`virtual_passable`), then
+    its walk (:func:`virtual_walk`); a stopped edge is counted as a stencil edge is.
+
+    Returns ``(v2_out, time, ok)``.
+    """
+    code = virtual_passable(blocked, j, vcode, vtch_start, vtch)
+    if code:
+        count_blocked(counters, code)
+        return v2, 0.0, False
+    v2o, te, law = virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade,
+                                max_grade)
+    if law != LAW_OK:
+        count_law(counters, law, mu, kdrag)
+        return v2, te, False
+    return v2o, te, True
 
 
 @njit(cache=True, nogil=True, inline="always")

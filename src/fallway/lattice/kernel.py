@@ -80,6 +80,21 @@ float32 resolution (6e-8), and ``t`` accumulates over thousands of segments; in 
 the dominance tests and the times - so the answer - would change.  Saving is done by
 sizing, not by precision.
 
+Virtual end points
+------------------
+Exact end points (:mod:`fallway.lattice.ends`) enter as virtual edges, walked sub-segment
+by sub-segment with the same grade window and segment law as stencil edges
+(:func:`fallway.lattice.core.virtual_edge`).  The start point is a virtual source: the
+search begins with one label per cell its edges reach (heading ``nk + j``, edge ``j``:
+the turn limit from it is judged on the edge's own direction; its dominance slot is the
+"no heading" one, which no stencil step uses).  The end point is a virtual node
+(index ``rows * cols``): a label settled at a cell joined to it in the last leg pushes an
+arrival there, keyed by its time (the A* bound is 0 at the end); the first arrival
+popped is optimal, because the A* bound to the end point's exact position and height is
+still a lower bound along a virtual edge (its 3D length is at least the straight
+distance).  The front includes the virtual edges' heights and drives in the speed bound
+V.  Only the earliest arrival so far is queued (an end has no continuation).
+
 Time cut-off
 ------------
 ``t_max``: a label later than ``t_max`` is neither queued nor settled, so a reach stops
@@ -98,10 +113,10 @@ import math
 import numpy as np
 from numba import njit
 
-from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRADE, C_GRID, C_SETTLED, C_SPEED, C_STALL,
-                   C_TURN, C_UPHILL, LABEL_BUDGET, LAW_GRADE, LAW_OK, LAW_STALL, N_COUNTERS, NOT_REACHED, OK,
-                   astar_bound, count_blocked, grow, grow_rows, heap_pop, law_step, new_pool, passable, push_label,
-                   state_of, sub_count, sub_segment)
+from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRID, C_SETTLED, C_TURN, LABEL_BUDGET, LAW_GRADE,
+                   LAW_OK, N_COUNTERS, NOT_REACHED, OK, astar_bound, count_blocked, count_law, grow, grow_rows,
+                   heading_slot, heap_pop, law_step, new_pool, passable, push_label, state_of, sub_count, sub_segment,
+                   turn_deg, virtual_edge)
 
 __all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
 
@@ -114,7 +129,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            turn_ok, use_heading,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
-           tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max):
+           tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max,
+           sdir, max_turn, nvs, vcell, vdir, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, end_rcz):
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
@@ -134,6 +150,17 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     approximation, counted in ``C_CAPPED``); 0 keeps the exact Pareto set.  Labels
     later than ``t_max`` are neither queued nor settled (``C_CUTOFF``; ``inf``: none).
 
+    Exact end points ("Virtual end points" in the module notes): virtual edges
+    ``0 .. nvs - 1`` join the start point to cells ``vcell[j]``, edges ``nvs ..`` join cells
+    to the end point; ``vdir`` their plan headings (degrees, as ``sdir`` of the stencil
+    offsets), ``vcode`` a static blocked code, ``vsub_start``/``vdrop``/``vplan`` their
+    sub-segments, ``vtch_start``/``vtch`` the flat indices of the cells they touch.  With
+    ``nvs == 0`` the search starts at cell ``start``; otherwise ``start`` is only the
+    nearest cell (where ``closest`` starts).  With end edges the last leg ends at the
+    virtual node ``rows * cols`` (``targets[-1]`` is then ignored) and ``end_rcz`` is the
+    end point's fractional (row, col) and height, for the A* bound.  ``max_turn`` is the
+    turn limit in degrees (used for virtual edges; ``turn_ok`` for stencil steps).
+
     Returns
     -------
     status, final_label, n_labels, t, v2, node, parent, leg, best_t, best_v2,
@@ -149,13 +176,30 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
 
-    tgt_r = np.empty(max(nlegs, 1), dtype=np.int64)
-    tgt_c = np.empty(max(nlegs, 1), dtype=np.int64)
+    nve = vcell.shape[0] - nvs
+    vend = nve > 0 and not reach_mode  # the last leg ends at the virtual end node
+    vnode = ncell
+    tgt_r = np.empty(max(nlegs, 1), dtype=np.float64)
+    tgt_c = np.empty(max(nlegs, 1), dtype=np.float64)
     tgt_z = np.empty(max(nlegs, 1), dtype=np.float64)
     for i in range(nlegs):
         tgt_r[i] = targets[i] // cols
         tgt_c[i] = targets[i] - tgt_r[i] * cols
         tgt_z[i] = z[targets[i]]
+    if vend:
+        tgt_r[nlegs - 1] = end_rcz[0]
+        tgt_c[nlegs - 1] = end_rcz[1]
+        tgt_z[nlegs - 1] = end_rcz[2]
+    # cells joined to the end point lie within this box around the end's nearest cell
+    er0 = 0
+    ec0 = 0
+    ebox = -1
+    if vend:
+        er0 = vcell[nvs] // cols
+        ec0 = vcell[nvs] - er0 * cols
+        for j in range(nvs, nvs + nve):
+            ebox = max(ebox, abs(vcell[j] // cols - er0), abs(vcell[j] - (vcell[j] // cols) * cols - ec0))
+    best_end_t = math.inf
 
     Lt, Le, Lnode, Lpar, Lhd, Lleg, hkey, hidx = new_pool(init_cap, 1, np.empty(0, dtype=np.int8))
     hsize = 0
@@ -178,13 +222,43 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
         best_t = np.full(1, np.nan)
         best_v2 = np.full(1, np.nan)
 
-    key0 = 0.0
-    if not reach_mode:
-        key0 = astar_bound(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
-    Le[0, 0] = v2_start
-    hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, 0.0, start, -1, -1, 0, key0)
-    n_lab += 1
-    counters[C_CREATED] = 1
+    if nvs == 0:
+        key0 = 0.0
+        if not reach_mode:
+            key0 = astar_bound(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+        Le[0, 0] = v2_start
+        hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, 0.0, start, -1, -1, 0, key0)
+        n_lab += 1
+        counters[C_CREATED] = 1
+    else:
+        # the virtual start edges: one label per cell joined to the start point (distinct
+        # cells, so none dominates another), heading nk + j (no stencil heading)
+        if nvs + 1 > Lt.shape[0]:
+            Lt = grow(Lt, 2 * nvs + 2)
+            Le = grow_rows(Le, 2 * nvs + 2)
+            Lnode = grow(Lnode, 2 * nvs + 2)
+            Lpar = grow(Lpar, 2 * nvs + 2)
+            Lhd = grow(Lhd, 2 * nvs + 2)
+            Lleg = grow(Lleg, 2 * nvs + 2)
+            hkey = grow(hkey, 2 * nvs + 2)
+            hidx = grow(hidx, 2 * nvs + 2)
+        for j in range(nvs):
+            v2, te, ok = virtual_edge(counters, blocked, j, v2_start, vcode, vtch_start, vtch, vsub_start, vdrop,
+                                      vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade)
+            if not ok:
+                continue
+            if te > t_max:
+                counters[C_CUTOFF] += 1
+                continue
+            m = vcell[j]
+            key = te
+            if not reach_mode:
+                key += astar_bound(m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+            Le[n_lab, 0] = v2
+            hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, te, m, -1,
+                               nk + j if use_heading else -1, 0, key)
+            n_lab += 1
+            counters[C_CREATED] += 1
 
     status = NOT_REACHED
     final = -1
@@ -193,7 +267,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     closest_d = math.inf
 
     while hsize > 0:
-        if n_lab + nk + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
+        if n_lab + nk + nve + 1 > Lt.shape[0]:  # room for this label's expansion: the pool grows
             cap = 2 * Lt.shape[0]         # array by array, so only one old array is alive at a time
             Lt = grow(Lt, cap)
             Le = grow_rows(Le, cap)
@@ -201,19 +275,23 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             Lpar = grow(Lpar, cap)
             Lhd = grow(Lhd, cap)
             Lleg = grow(Lleg, cap)
-        if hsize + nk + 1 > hkey.shape[0]:
+        if hsize + nk + nve + 1 > hkey.shape[0]:
             hcap = 2 * hkey.shape[0]
             hkey = grow(hkey, hcap)
             hidx = grow(hidx, hcap)
         li, hsize = heap_pop(hkey, hidx, hsize)
         n = Lnode[li]
+        if n == vnode:  # the earliest arrival at the end point (its A* bound is 0)
+            status = OK
+            final = li
+            break
         leg = Lleg[li]
         t0 = Lt[li]
         v20 = Le[li, 0]
         hd = Lhd[li]
         cn = state_of(cidx, ident, n)
         s = cn if reach_mode else leg * nact + cn
-        slot = s * nh + (hd + 1 if use_heading else 0)
+        slot = s * nh + heading_slot(use_heading, hd, nk)
         if emax[slot] >= v20 - (tol_abs + tol_rel * v20):
             counters[C_DOMINATED] += 1
             continue
@@ -239,7 +317,30 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 closest_leg = leg
                 closest_d = dd
                 closest = n
-            if n == targets[leg]:
+            if vend and leg == nlegs - 1 and abs(r - er0) <= ebox and abs(c - ec0) <= ebox:
+                # a cell joined to the end point: the virtual end edge, walked like any edge
+                for j in range(nvs, nvs + nve):
+                    if vcell[j] != n:
+                        continue
+                    if use_heading and hd >= 0:
+                        if turn_deg(sdir[hd] if hd < nk else vdir[hd - nk], vdir[j]) > max_turn + 1e-9:
+                            counters[C_TURN] += 1
+                            continue
+                    v2, te, ok = virtual_edge(counters, blocked, j, v20, vcode, vtch_start, vtch, vsub_start,
+                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade)
+                    if not ok:
+                        continue
+                    tn = t0 + te
+                    if tn >= best_end_t:  # a later arrival at the end is of no use
+                        counters[C_DOMINATED] += 1
+                        continue
+                    best_end_t = tn
+                    Le[n_lab, 0] = v2
+                    hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, tn, vnode, li, -1, leg,
+                                       tn)
+                    n_lab += 1
+                    counters[C_CREATED] += 1
+            if n == targets[leg] and not (vend and leg == nlegs - 1):
                 if leg == nlegs - 1:
                     status = OK
                     final = li
@@ -247,7 +348,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 # switch legs: seed the next leg with this arrival (the whole Pareto
                 # set at the via point passes through here, one label at a time)
                 nleg = leg + 1
-                s2 = ((nleg * nact + cn) * nh) + (hd + 1 if use_heading else 0)
+                s2 = ((nleg * nact + cn) * nh) + heading_slot(use_heading, hd, nk)
                 if emax[s2] >= v20 - (tol_abs + tol_rel * v20):
                     counters[C_DOMINATED] += 1
                     continue
@@ -264,9 +365,10 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
 
         zn = z[n]
         for kk in range(nk):
-            if use_heading and hd >= 0 and not turn_ok[hd, kk]:
-                counters[C_TURN] += 1
-                continue
+            if use_heading and hd >= 0:
+                if (not turn_ok[hd, kk]) if hd < nk else turn_deg(vdir[hd - nk], sdir[kk]) > max_turn + 1e-9:
+                    counters[C_TURN] += 1
+                    continue
             r2 = r + off_dr[kk]
             c2 = c + off_dc[kk]
             if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
@@ -293,15 +395,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                     break
                 te += dt
             if law != LAW_OK:
-                if law == LAW_GRADE:
-                    counters[C_GRADE] += 1
-                elif law == LAW_STALL:
-                    if mu == 0.0 and kdrag == 0.0:
-                        counters[C_UPHILL] += 1
-                    else:
-                        counters[C_STALL] += 1
-                else:
-                    counters[C_SPEED] += 1
+                count_law(counters, law, mu, kdrag)
                 continue
             tn = t0 + te
             if tn > t_max:

@@ -12,10 +12,16 @@ router's and are not read here) and rejects an unknown keyword with a
 kernels are :mod:`fallway.lattice.kernel` and :mod:`fallway.lattice.robust`, on the
 shared compiled core :mod:`fallway.lattice.core`.
 
-Points given as map coordinates (x, y) in the terrain CRS snap to the *nearest cell
-centre*; a point outside the grid raises :class:`~fallway.errors.ParameterError`, one on
-a nodata or keep-out cell or outside the search domain raises
-:class:`~fallway.errors.NoFeasibleLine`.
+End points given as map coordinates (x, y) in the terrain CRS are exact
+(:mod:`fallway.lattice.ends`): the line starts and ends there, joined to nearby cell
+centres by virtual edges the kernel walks like any edge; a point on nodata, in a keep-out
+area or in the DEM's outer half cell moves to the nearest free cell centre and
+``stats["start_moved_m"]`` / ``stats["start_moved_why"]`` (and ``end_...``) say so.  Via
+points and the robust search's ends snap to the nearest cell centre (the robust search
+records that as a move).  A point outside the grid raises
+:class:`~fallway.errors.ParameterError`, one outside the search domain
+:class:`~fallway.errors.NoFeasibleLine` (``"corridor"``); a via point on a nodata or
+keep-out cell raises :class:`~fallway.errors.NoFeasibleLine`.
 
 Physics on the lattice: the search times every sub-segment with the closed-form
 gravity-normal segment law (friction work mu * g * plan length, drag k v²) even when
@@ -82,6 +88,7 @@ from ..physics import Mover, check_mu_range, traverse
 from ..results import LatticeLine, ReachMap
 from . import core as _c
 from .kernel import search as _search
+from .ends import EndPoint, Virtual, no_virtual, parse_point, resolve_point, virtual_edges
 from .robust import ROBUST_ENERGY_TOL, lo_floor, robust_search
 from .stencil import make_stencil
 
@@ -112,14 +119,7 @@ def _check_mover(mover) -> None:
 
 
 def _snap(terrain, xy, name: str) -> int:
-    try:
-        x, y = (float(v) for v in xy)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a pair (x, y) of map coordinates, got {xy!r}") from None
-    left, bottom, right, top = terrain.bounds
-    if not (left <= x <= right and bottom <= y <= top):
-        raise ParameterError(f"{name} ({x:.3f}, {y:.3f}) lies outside the terrain "
-                             f"[{left:.3f}, {right:.3f}] x [{bottom:.3f}, {top:.3f}]; give a point on the grid")
+    x, y = parse_point(terrain, xy, name)
     rows, cols = terrain.shape
     r, c = terrain.nearest_cell(x, y)
     r = min(max(r, 0), rows - 1)
@@ -172,15 +172,35 @@ def _check_points(terrain, keep, domain, points, names) -> None:
                                  "(allowed) or move the point", reason="corridor", closest=None)
 
 
-def _check_uphill(terrain, mover, start, points, names):
-    zs = terrain.z.ravel()
-    ceiling = zs[start] + mover.v0 ** 2 / (2.0 * mover.g)
-    for p, name in zip(points, names):
-        if zs[p] > ceiling + 1e-9:
-            xy = _cell_xy(terrain, p)
-            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) at {zs[p]:.2f} m lies above the start's energy "
+def _check_uphill(mover, start: EndPoint, points) -> None:
+    """Raise when a point (name, (x, y), z) lies above the start's energy height."""
+    ceiling = start.z + mover.v0 ** 2 / (2.0 * mover.g)
+    for name, xy, z in points:
+        if z > ceiling + 1e-9:
+            raise NoFeasibleLine(f"{name} ({xy[0]:.1f}, {xy[1]:.1f}) at {z:.2f} m lies above the start's energy "
                                  f"height {ceiling:.2f} m; a gravity line cannot climb there",
-                                 reason="uphill", closest=_cell_xy(terrain, start))
+                                 reason="uphill", closest=start.xy)
+
+
+def _point_stats(stats: dict, pt: EndPoint, key: str) -> None:
+    """Record where an end point was given, where the line meets it, and any move."""
+    stats[f"{key}_given_xy"] = [float(v) for v in pt.given_xy]
+    stats[f"{key}_xy"] = [float(v) for v in pt.xy]
+    stats[f"{key}_z"] = float(pt.z)
+    stats[f"{key}_moved_m"] = float(pt.moved_m)
+    stats[f"{key}_moved_why"] = pt.why
+
+
+def _at_cell_centre(terrain, pt: EndPoint, why: str) -> EndPoint:
+    """``pt`` moved to its nearest cell centre (for a search without virtual edges)."""
+    if pt.at_centre:
+        return pt
+    cols = terrain.shape[1]
+    r, c = divmod(pt.cell, cols)
+    x, y = terrain.cell_center(r, c)
+    gx, gy = pt.given_xy
+    return replace(pt, xy=(x, y), z=float(terrain.z[r, c]), moved_m=float(math.hypot(x - gx, y - gy)),
+                   why=why if pt.why is None else f"{pt.why}; {why}", at_centre=True)
 
 
 # ----------------------------------------------------------------------------- kernel arrays
@@ -232,6 +252,8 @@ class _Problem:
         turn = limits.max_step_turn_deg if use_limits else None
         self.use_heading = turn is not None
         self.turn_ok = np.ascontiguousarray(st.turn_ok(turn))
+        self.max_turn = 360.0 if turn is None else float(turn)
+        self.sdir = np.ascontiguousarray(st.direction_deg, dtype=np.float64)
         self.min_grade = limits.min_grade if use_limits else -math.inf
         self.max_grade = limits.max_grade if use_limits else math.inf
         vmax = mover.max_speed if use_limits else None
@@ -272,16 +294,18 @@ class _Problem:
             cidx[free] = np.flatnonzero(free).astype(np.int32)
         return cidx, nact
 
-    def _tolerance(self, start: int, energy_tol: float | None, default: float) -> tuple[float, float, float]:
+    def _tolerance(self, z_start: float, energy_tol: float | None, default: float,
+                   zmin: float | None = None) -> tuple[float, float, float]:
         m = self.mover
         v2_start = m.v0 * m.v0
-        v2_scale = v2_start + 2.0 * m.g * max(self.z[start] - self.zmin, 0.0)
+        zmin = self.zmin if zmin is None else zmin
+        v2_scale = v2_start + 2.0 * m.g * max(z_start - zmin, 0.0)
         tol_rel = default if energy_tol is None else float(energy_tol)
         # relative to each label's own v², with a floor far below any meaningful speed
         tol_abs = 1e-12 * max(v2_scale, 1e-300) if tol_rel > 0.0 else 0.0
         return tol_rel, tol_abs, v2_scale
 
-    def _drag_bound(self, v2: float) -> float:
+    def _drag_bound(self, v2: float, virtual: Virtual | None = None) -> float:
         """With drag, v² falls wherever it exceeds a/k (d(v²)/ds = 2a - 2kv²), so v² <=
         max(v0², a_max/k).  a = g (G - mu)/sqrt(1 + G²) grows with the descent grade G of a
         sub-segment, and G <= |grad z| of the bilinear surface <= hypot(max |dz| along
@@ -289,28 +313,41 @@ class _Problem:
         m = self.mover
         v2_start = m.v0 * m.v0
         a_max = self.a_max(m)
+        if virtual is not None:
+            a_max = max(a_max, virtual.drive_max(m.g, m.mu))
         return min(v2, max(v2_start, a_max / m.drag) if a_max > 0.0 else v2_start)
 
     def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
             max_labels: int | None, label_cap: int | None = None, max_time_s: float | None = None,
-            compact: bool = True) -> dict:
-        """Run the ordinary kernel; a dict of the status, the label pool and the stats."""
+            compact: bool = True, virtual: Virtual | None = None, z_start: float | None = None) -> dict:
+        """Run the ordinary kernel; a dict of the status, the label pool and the stats.
+
+        ``virtual``: the virtual edges of exact end points (:mod:`fallway.lattice.ends`),
+        ``z_start`` the start point's height (default: the start cell's).
+        """
         m = self.mover
         v2_start = m.v0 * m.v0
-        tol_rel, tol_abs, v2_scale = self._tolerance(start, energy_tol, DEFAULT_ENERGY_TOL)
+        vt = no_virtual() if virtual is None else virtual
+        z_start = float(self.z[start]) if z_start is None else float(z_start)
+        zmin = min(self.zmin, vt.z_range()[0])
+        tol_rel, tol_abs, v2_scale = self._tolerance(z_start, energy_tol, DEFAULT_ENERGY_TOL, zmin)
         tg = np.asarray(targets, dtype=np.int64)
         remaining = np.zeros(max(len(tg), 1), dtype=np.float64)
         cols = self.cols
+        # target positions (row, col, z): cells, or the end point itself with a virtual end
+        pos = [(float(a // cols), float(a % cols), float(self.z[a])) for a in tg]
+        if vt.has_end and len(pos):
+            pos[-1] = tuple(float(v) for v in vt.end_rcz)
         for i in range(len(tg) - 2, -1, -1):
-            a, b = tg[i], tg[i + 1]
-            dx = (a % cols - b % cols) * self.cell
-            dy = (a // cols - b // cols) * self.cell
-            dz = self.z[a] - self.z[b]
+            (ra, ca, za), (rb, cb, zb) = pos[i], pos[i + 1]
+            dx = (ca - cb) * self.cell
+            dy = (ra - rb) * self.cell
+            dz = za - zb
             remaining[i] = remaining[i + 1] + math.sqrt(dx * dx + dy * dy + dz * dz)
         use_bound = bool(heuristic and len(tg))
         vbound = math.sqrt(v2_scale)
         if m.drag > 0.0 and use_bound:
-            vbound = min(vbound, math.sqrt(self._drag_bound(v2_scale)))
+            vbound = min(vbound, math.sqrt(self._drag_bound(v2_scale, vt)))
         if self.v2_max < math.inf:
             vbound = min(vbound, math.sqrt(self.v2_max))
         inv_v = 1.0 / vbound if (use_bound and vbound > 0.0) else 0.0
@@ -324,7 +361,9 @@ class _Problem:
                       self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
                       m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
                       int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
-                      int(label_cap or 0), t_max)
+                      int(label_cap or 0), t_max,
+                      self.sdir, self.max_turn, int(vt.nvs), vt.cell, vt.dir_deg, vt.code, vt.sub_start, vt.drop,
+                      vt.plan, vt.tch_start, vt.tch, vt.end_rcz)
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         if len(tg) == 0 and nact < cidx.size:  # reach: compact index -> window cells
@@ -364,7 +403,7 @@ class _Problem:
         m = self.mover
         g = m.g
         v2_start = m.v0 * m.v0
-        tol_rel, tol_abs, v2_scale = self._tolerance(start, energy_tol, ROBUST_ENERGY_TOL)
+        tol_rel, tol_abs, v2_scale = self._tolerance(float(self.z[start]), energy_tol, ROBUST_ENERGY_TOL)
         budget = _ROBUST_MAX_LABELS if max_labels is None else int(max_labels)
         cap = int(label_cap or 0)
         cidx, nact = self.index(compact)
@@ -507,11 +546,14 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | 
     ----------
     terrain : Terrain
     start, end : (x, y)
-        Map coordinates in the terrain CRS; they snap to the nearest cell centre.
+        Map coordinates in the terrain CRS: the line starts and ends exactly there (module
+        notes; a point on nodata, in a keep-out area or in the DEM's outer half cell moves
+        to the nearest free cell centre, recorded in ``stats``).
     mover : Mover
         Physics; the lattice uses the gravity-normal friction model (module notes).
     via : sequence of (x, y)
         Points the line must pass through, in order; the energy carries through them.
+        They snap to the nearest cell centre.
     limits : Limits, optional
         Grade window per sub-segment, max turn per step (``max_step_turn_deg``); the
         speed window comes from ``mover.stall_speed`` and ``mover.max_speed``.
@@ -537,7 +579,10 @@ def lattice_line(terrain, start, end, mover: Mover, *, via=(), limits: Limits | 
     -------
     LatticeLine
         With ``stats``: labels created/settled, ``label_cap``, ``exact``, search
-        seconds, ``state_cells``, start/end cells, exit speed.
+        seconds, ``state_cells``, start/end cells, exit speed, and per end point
+        ``start_given_xy``, ``start_xy``, ``start_z``, ``start_moved_m``,
+        ``start_moved_why`` (``end_...`` alike).  ``points`` begins and ends with the end
+        points and the break points of the virtual edges taken.
 
     Raises
     ------
@@ -580,20 +625,25 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
     domain = _domain_mask(terrain, allowed)
-    s = _snap(terrain, start, "start")
     if len(via) > 100:
         raise ParameterError(f"at most 100 via points are supported, got {len(via)}; split the route")
-    vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
-    e = _snap(terrain, end, "end")
-    targets = vias + [e]
-    names = [f"via point {i + 1}" for i in range(len(vias))] + ["end"]
-    _check_points(terrain, keep, domain, [s] + targets, ["start"] + names)
-    _check_uphill(terrain, mover, s, targets, names)
     nb = opts.neighbours
-    run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
-                  label_cap=opts.label_cap)
     prob = _Problem(terrain, mover, nb, limits, keep, domain)
-    res = prob.run(s, targets, **run_kw)
+    sp = resolve_point(terrain, start, "start", prob.blocked)
+    vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
+    ep = resolve_point(terrain, end, "end", prob.blocked)
+    if sp.xy == ep.xy:
+        raise ParameterError(f"start and end are the same point ({sp.xy[0]:.3f}, {sp.xy[1]:.3f}); give two points")
+    vnames = [f"via point {i + 1}" for i in range(len(vias))]
+    _check_points(terrain, keep, domain, vias, vnames)
+    zs = terrain.z.ravel()
+    _check_uphill(mover, sp, [(n, _cell_xy(terrain, v), float(zs[v])) for n, v in zip(vnames, vias)]
+                  + [("end", ep.xy, ep.z)])
+    virt = virtual_edges(terrain, prob.stencil, sp, ep)
+    targets = vias + [ep.cell]
+    run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
+                  label_cap=opts.label_cap, virtual=virt, z_start=sp.z)
+    res = prob.run(sp.cell, targets, **run_kw)
     if res["status"] == _c.LABEL_BUDGET:
         raise _budget_error(terrain, opts.max_labels or _DEFAULT_MAX_LABELS, res["closest"])
     if res["status"] != _c.OK:
@@ -602,21 +652,38 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
         def found(**relax) -> bool:
             kw = dict(keep=keep, domain=domain) | relax
             p = _Problem(terrain, mover, nb, limits, kw.pop("keep"), kw.pop("domain"), **kw)
-            return p.run(s, targets, **run_kw)["status"] == _c.OK
+            return p.run(sp.cell, targets, **run_kw)["status"] == _c.OK
 
         raise _diagnose(terrain, res["closest"], res["counters"], found, keep=keep, domain=domain, limits=limits,
                         mover=mover)
     nodes = _chain(res["final"], res["parent"], res["node"])
-    if len(nodes) == 1:
+    if virt.has_end:
+        nodes = nodes[:-1]  # the virtual end node
+    if len(nodes) == 1 and not (virt.has_start or virt.has_end):
         raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
     cells, points = _line_points(terrain, prob.stencil, nodes)
+    points = _with_virtual(points, virt, nodes)
     t_final = float(res["t"][res["final"]])
     stats = dict(res["stats"])
     stats["start_cell"] = [int(cells[0, 0]), int(cells[0, 1])]
     stats["end_cell"] = [int(cells[-1, 0]), int(cells[-1, 1])]
+    _point_stats(stats, sp, "start")
+    _point_stats(stats, ep, "end")
     stats["exit_speed_m_s"] = float(math.sqrt(res["v2"][res["final"]]))
     profile = traverse(points, replace(mover, normal="gravity"))
     return LatticeLine(cells=cells, points=points, profile=profile, time_s=t_final, stats=stats)
+
+
+def _with_virtual(points: np.ndarray, virt: Virtual, nodes: list[int]) -> np.ndarray:
+    """The lattice polyline with the virtual start and end edges it took (exact end points)."""
+    parts = [points]
+    if virt.has_start:
+        j = [k for k in range(virt.nvs) if virt.cell[k] == nodes[0]][0]
+        parts.insert(0, virt.points[j][:-1])
+    if virt.has_end:
+        j = [k for k in range(virt.nvs, len(virt.cell)) if virt.cell[k] == nodes[-1]][0]
+        parts.append(virt.points[j][1:])
+    return np.vstack(parts) if len(parts) > 1 else points
 
 
 @checked_options
@@ -625,7 +692,7 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
           max_time_s: float | None = None) -> ReachMap:
     """Earliest arrival time and its speed at every cell reachable from ``start``.
 
-    ``start`` snaps to the nearest cell centre.  The speed is that of the earliest label
+    Lines start exactly at ``start`` (module notes).  The speed is that of the earliest label
     (a later, faster arrival may exist).
 
     Parameters
@@ -674,11 +741,11 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
     domain = _domain_mask(terrain, allowed)
-    s = _snap(terrain, start, "start")
-    _check_points(terrain, keep, domain, [s], ["start"])
     prob = _Problem(terrain, mover, opts.neighbours, limits, keep, domain)
-    res = prob.run(s, [], heuristic=False, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
-                   label_cap=opts.label_cap, max_time_s=max_time_s)
+    sp = resolve_point(terrain, start, "start", prob.blocked)
+    res = prob.run(sp.cell, [], heuristic=False, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
+                   label_cap=opts.label_cap, max_time_s=max_time_s,
+                   virtual=virtual_edges(terrain, prob.stencil, sp, None), z_start=sp.z)
     shape = terrain.shape
     tt = res["best_t"].reshape(shape)
     vv = np.sqrt(res["best_v2"]).reshape(shape)
@@ -686,8 +753,9 @@ def reach(terrain, start, mover: Mover, *, limits: Limits | None = None, keepout
     stats["cells_reached"] = int(np.isfinite(tt).sum())
     stats["complete"] = res["status"] != _c.LABEL_BUDGET
     stats["max_time_s"] = None if max_time_s is None else float(max_time_s)
+    _point_stats(stats, sp, "start")
     return ReachMap(time_s=tt, speed_m_s=vv, transform=terrain.transform, crs=terrain.crs,
-                    start=tuple(float(v) for v in _cell_xy(terrain, s)), stats=stats)
+                    start=tuple(float(v) for v in sp.xy), stats=stats)
 
 
 def _check_end_window(mover: Mover, lo: float, hi: float, v2_start: float, drop_m: float, v2_max: float) -> None:
@@ -733,7 +801,8 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     ----------
     terrain : Terrain
     start, end : (x, y)
-        Map coordinates; they snap to the nearest cell centre.
+        Map coordinates; the robust search starts and ends at the nearest cell centres
+        (``stats["start_moved_m"]`` etc. record the distance).
     mover : Mover
         Nominal physics (gravity-normal model on the lattice); ``mu_lo <= mover.mu <= mu_hi``.
     mu_lo, mu_hi : float
@@ -802,13 +871,14 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     limits = Limits() if limits is None else limits
     keep = _keepout_mask(terrain, keepout)
     domain = _domain_mask(terrain, allowed)
-    s = _snap(terrain, start, "start")
-    e = _snap(terrain, end, "end")
-    _check_points(terrain, keep, domain, [s, e], ["start", "end"])
-    if s == e:
-        raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
     nb = opts.neighbours
     prob = _Problem(terrain, mover, nb, limits, keep, domain)
+    centres = "the robust search starts and ends at cell centres"
+    sp = _at_cell_centre(terrain, resolve_point(terrain, start, "start", prob.blocked), centres)
+    ep = _at_cell_centre(terrain, resolve_point(terrain, end, "end", prob.blocked), centres)
+    s, e = sp.cell, ep.cell
+    if s == e:
+        raise ParameterError("start and end snap to the same cell; give points at least one cell apart")
     _check_end_window(mover, lo, hi, mover.v0 * mover.v0, float(prob.z[s] - prob.z[e]), prob.v2_max)
     run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
                   label_cap=opts.label_cap, resolution=resolution)
@@ -837,6 +907,8 @@ def robust_lattice_line(terrain, start, end, mover: Mover, mu_lo: float, mu_hi: 
     stats["simple"] = len(set(nodes)) == len(nodes)
     stats["start_cell"] = [int(cells[0, 0]), int(cells[0, 1])]
     stats["end_cell"] = [int(cells[-1, 0]), int(cells[-1, 1])]
+    _point_stats(stats, sp, "start")
+    _point_stats(stats, ep, "end")
     en = res["e"][final]
     stats["exit_speed_lo_m_s"] = float(math.sqrt(en[0]))
     stats["exit_speed_m_s"] = float(math.sqrt(en[1]))

@@ -44,7 +44,7 @@ import numpy as np
 
 from ..errors import ParameterError
 
-__all__ = ["Stencil", "make_stencil", "STENCIL_SIZES"]
+__all__ = ["Stencil", "make_stencil", "STENCIL_SIZES", "touched_cells"]
 
 STENCIL_SIZES = (8, 16, 32)
 
@@ -90,25 +90,33 @@ def _crossings(dr: int, dc: int):
     return [(float(u), a, b, float(w)) for u, (a, b, w) in sorted(pts.items())]
 
 
-def _touched_cells(dr: int, dc: int) -> list[tuple[int, int]]:
-    """Cells whose closed square meets the segment (0,0)->(dr,dc) (L-inf distance <= 1/2)."""
+def touched_cells(r0: float, c0: float, r1: float, c1: float) -> list[tuple[int, int]]:
+    """Cells whose closed square meets the segment (r0, c0)->(r1, c1) in fractional cell
+    units (centre of cell (i, j) at (i, j)): L-inf distance <= 1/2 (1e-12 slack)."""
+    dr, dc = r1 - r0, c1 - c0
     cells = []
-    for i in range(min(0, dr) - 1, max(0, dr) + 2):
-        for j in range(min(0, dc) - 1, max(0, dc) + 2):
-            # f(u) = max(|u dr - i|, |u dc - j|) is convex piecewise linear in u:
+    for i in range(math.floor(min(r0, r1)) - 1, math.ceil(max(r0, r1)) + 2):
+        for j in range(math.floor(min(c0, c1)) - 1, math.ceil(max(c0, c1)) + 2):
+            # f(u) = max(|r0 + u dr - i|, |c0 + u dc - j|) is convex piecewise linear in u:
             # its minimum is at 0, 1 or a breakpoint of one of the pieces.
+            a, b = r0 - i, c0 - j
             cand = [0.0, 1.0]
-            for d, k in ((dr, i), (dc, j)):
+            for d, k in ((dr, a), (dc, b)):
                 if d:
-                    cand += [(k + 0.5) / d, (k - 0.5) / d, k / d]
+                    cand += [(0.5 - k) / d, (-0.5 - k) / d, -k / d]
             if dr != dc:
-                cand.append((i - j) / (dr - dc))
+                cand.append((b - a) / (dr - dc))
             if dr != -dc:
-                cand.append((i + j) / (dr + dc))
-            fmin = min(max(abs(u * dr - i), abs(u * dc - j)) for u in cand if 0.0 <= u <= 1.0)
+                cand.append(-(a + b) / (dr + dc))
+            fmin = min(max(abs(a + u * dr), abs(b + u * dc)) for u in cand if 0.0 <= u <= 1.0)
             if fmin <= 0.5 + 1e-12:
                 cells.append((i, j))
     return cells
+
+
+def _touched_cells(dr: int, dc: int) -> list[tuple[int, int]]:
+    """Cells whose closed square meets the stencil edge (0,0)->(dr,dc)."""
+    return touched_cells(0.0, 0.0, float(dr), float(dc))
 
 
 @dataclass(frozen=True, eq=False)
