@@ -23,7 +23,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from rasterio.crs import CRS
 
-from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
+from fallway.errors import FallwayIOError, InputWarning, NoFeasibleLine, ParameterError
 from fallway.evaluate import COMPARISON_COLUMNS, ENVELOPE_COLUMNS, drape, envelope, evaluate_line
 from fallway.geometry import min_radius_m
 from fallway.params import SearchOptions
@@ -518,6 +518,87 @@ def test_compare_adds_computed_optimum_on_plane():
     assert rows["drawn"].travel_time_s == pytest.approx(t_ref, rel=1e-6)
     assert rows["computed optimum"].travel_time_s == pytest.approx(t_ref, rel=1e-6)
     assert cmp.route is not None
+
+
+def test_compare_refines_its_optimum_past_a_drawn_straight_line():
+    # mu = 0 on a 30 % plane: a line lying on the plane feels g sin(alpha) along the fall
+    # line, so the fastest line is Bernoulli's cycloid in plane coordinates and the drawn
+    # chord's time is the incline's closed form (CHECKS.md, "On an inclined plane" and
+    # "Incline with Coulomb friction").  The 8-neighbour lattice line is slower than the
+    # chord (metrication); refined, the optimum beats it and lands on the cycloid.
+    from references import cycloid
+
+    slope = 0.3
+    t = plane_terrain(0.0, slope)
+    s0, e0 = t.cell_center(2, 4), t.cell_center(36, 12)
+    mover = Mover(mu=0.0, normal="gravity")
+    search = SearchOptions(neighbours=8)
+    across, down_plan = e0[0] - s0[0], s0[1] - e0[1]
+    alpha = math.atan(slope)
+    g_plane = G0 * math.sin(alpha)
+    drop = slope * down_plan
+    s3 = math.sqrt(across ** 2 + down_plan ** 2 + drop ** 2)
+    t_chord, _ = incline_time(0.0, s3, drop / s3, math.hypot(across, down_plan) / s3, 0.0)
+    t_cycloid = cycloid(across, down_plan / math.cos(alpha), g=g_plane).time_s
+    lines = [("straight", [s0, e0])]
+    lattice = compare(t, lines, mover, search=search, refine=False)
+    assert [r.name for r in lattice.rows] == ["straight", "computed optimum"]
+    assert lattice.rows[0].travel_time_s == pytest.approx(t_chord, rel=1e-6)
+    assert lattice.rows[1].travel_time_s > t_chord * (1 + 1e-3)
+    refined = compare(t, lines, mover, search=search)  # refining is the default
+    assert [r.name for r in refined.rows] == ["computed optimum", "straight"]
+    opt = refined.rows[0]
+    assert opt.status == "ok" and refined.route.summary.refined
+    # measured 3e-6 above the cycloid (39 vertices)
+    assert t_cycloid * (1 - 1e-6) < opt.travel_time_s < t_cycloid * (1 + 1e-4) < t_chord
+    # the computed optimum runs between the drawn line's own end points
+    np.testing.assert_allclose(opt.points[[0, -1], :2], [s0, e0], atol=1e-9)
+
+
+def test_overspeeding_line_ranks_after_every_line_that_meets_the_limits():
+    # gravity-normal friction does work mu g x plan length (CHECKS.md), so from rest the
+    # exit speed is v = sqrt(2 g (drop - mu plan)): the straight line exits faster than a
+    # dogleg to the same point and is faster; a speed cap between the two exit speeds
+    # makes the straight line overspeed.  It must rank after the slower, feasible dogleg.
+    t = plane_terrain(0.0, 0.4, rows=30, cols=30)
+    s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
+    mid = t.cell_center(14, 4)
+    mu = 0.1
+    drop = 0.4 * (s0[1] - e0[1])
+
+    def exit_speed(plan):
+        return math.sqrt(2 * G0 * (drop - mu * plan))
+
+    v_straight = exit_speed(s0[1] - e0[1])
+    v_dogleg = exit_speed(math.dist(s0, mid) + math.dist(mid, e0))
+    assert v_dogleg < v_straight - 1.0
+    mover = Mover(mu=mu, normal="gravity", max_speed=0.5 * (v_straight + v_dogleg))
+    lines = [("straight", [s0, e0]), ("dogleg", [s0, mid, e0])]
+    cmp = compare(t, lines, mover, optimum=False)
+    rows = {r.name: r for r in cmp.rows}
+    assert rows["straight"].exit_speed_m_s == pytest.approx(v_straight, rel=1e-6)
+    assert rows["dogleg"].exit_speed_m_s == pytest.approx(v_dogleg, rel=1e-6)
+    assert rows["straight"].travel_time_s < rows["dogleg"].travel_time_s
+    assert rows["straight"].status == "overspeed" and rows["dogleg"].status == "ok"
+    assert [r.name for r in cmp.rows] == ["dogleg", "straight"]
+    assert cmp.best.name == "dogleg"
+    # with the computed optimum (held under the cap by the search and the refinement): every
+    # row that meets the limits comes before every row that does not
+    full = compare(t, lines, mover, refine=False)
+    ok = [r.status == "ok" for r in full.rows]
+    assert ok == sorted(ok, reverse=True) and full.rows[-1].name == "straight"
+    # the route's own verdict and its row's status are the same check
+    assert full.route.summary.violated_limits == list(
+        next(r for r in full.rows if r.computed).issues)
+
+
+def test_lines_with_other_end_points_are_named():
+    t = plane_terrain(0.0, 0.4, rows=30, cols=30)
+    s0, e0 = t.cell_center(1, 15), t.cell_center(27, 15)
+    other = t.cell_center(27, 18)
+    with pytest.warns(InputWarning, match=r"'elsewhere' \(0.00 m at the start, 15.00 m at the end\)"):
+        compare(t, [("drawn", [s0, e0]), ("elsewhere", [s0, other])], Mover(mu=0.1, normal="gravity"),
+                refine=False)
 
 
 def test_no_feasible_optimum_gets_a_row():

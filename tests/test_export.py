@@ -73,7 +73,7 @@ def make_route(terrain=None, mover=None, *, raised=0.0, n=31):
     s = np.linspace(0.0, 1.0, n)
     x = X0 + 100.0 + 25.0 * np.sin(np.pi * s)
     y = Y0 - 12.0 - 200.0 * s
-    z = terrain.sample_linear(x, y) + raised * np.sin(np.pi * s)
+    z = terrain.sample(x, y) + raised * np.sin(np.pi * s)  # on (or above) the smooth surface, as a refined line
     line = np.column_stack([x, y, z])
     prof = make_profile(line, mover)
     rows = np.rint(np.linspace(2, 41, 12)).astype(int)
@@ -333,15 +333,24 @@ def test_profile_csv_retimed_independently(terrain, tmp_path, raised):
     np.testing.assert_allclose(col, times, rtol=1e-6, atol=2e-6)
     speeds = np.array([float(row["speed_m_s"]) for row in rows])
     assert speeds[-1] == pytest.approx(v, rel=1e-6)
-    # ground: bilinear between cell centres, recomputed with scipy
-    from scipy.interpolate import RegularGridInterpolator
+    # ground: the smooth surface the line lies on, recomputed with scipy's interpolating
+    # bicubic spline (FITPACK, RectBivariateSpline kx = ky = 3, s = 0; the grid is within
+    # one tile of the surface, so it is one spline: test_terrain.py)
+    from scipy.interpolate import RectBivariateSpline, RegularGridInterpolator
 
     tr = terrain.transform  # cell centres from the affine transform (GDAL's corner convention)
+    spline = RectBivariateSpline(np.arange(terrain.shape[0], dtype=float), np.arange(terrain.shape[1], dtype=float),
+                                 terrain.z, kx=3, ky=3, s=0)
+    rr = (xyz[:, 1] - tr.f) / tr.e - 0.5
+    cc = (xyz[:, 0] - tr.c) / tr.a - 0.5
+    zg = spline.ev(rr, cc)
+    np.testing.assert_allclose([float(row["z_ground"]) for row in rows], zg, rtol=0, atol=1e-6)
+    # not the bilinear heights of the lattice (they differ here by centimetres: the ground
+    # is curved across the slope), so the check above tells the two surfaces apart
     rows_y = (tr.f + (np.arange(terrain.shape[0]) + 0.5) * tr.e)[::-1]
     cols_x = tr.c + (np.arange(terrain.shape[1]) + 0.5) * tr.a
-    interp = RegularGridInterpolator((rows_y, cols_x), terrain.z[::-1], method="linear")
-    zg = interp(np.column_stack([xyz[:, 1], xyz[:, 0]]))
-    np.testing.assert_allclose([float(row["z_ground"]) for row in rows], zg, atol=2e-6)
+    bilinear = RegularGridInterpolator((rows_y, cols_x), terrain.z[::-1], method="linear")
+    assert np.max(np.abs(bilinear(np.column_stack([xyz[:, 1], xyz[:, 0]])) - zg)) > 1e-3
     clearance = xyz[:, 2] - zg
     assert clearance.max() == pytest.approx(raised, abs=0.02)
     # station is the 3D length along the written vertices

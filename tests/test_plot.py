@@ -113,7 +113,15 @@ def test_profile_plot_ground_line_speed_time_and_flags(terrain):
     np.testing.assert_array_equal(line.get_xdata(), p.station_m)
     np.testing.assert_array_equal(line.get_ydata(), r.line[:, 2])
     (ground,) = by_gid(ax.lines, "fallway-ground")
-    np.testing.assert_allclose(ground.get_ydata(), terrain.sample_linear(r.line[:, 0], r.line[:, 1]))
+    # the ground is the smooth surface, as in profile.csv: scipy's interpolating bicubic
+    # spline (RectBivariateSpline kx = ky = 3, s = 0) of the one-tile grid
+    from scipy.interpolate import RectBivariateSpline
+
+    tr = terrain.transform
+    spline = RectBivariateSpline(np.arange(terrain.shape[0], dtype=float), np.arange(terrain.shape[1], dtype=float),
+                                 terrain.z, s=0)
+    zg = spline.ev((r.line[:, 1] - tr.f) / tr.e - 0.5, (r.line[:, 0] - tr.c) / tr.a - 0.5)
+    np.testing.assert_allclose(ground.get_ydata(), zg, rtol=0, atol=1e-6)
     speed = [ln for a in fig.axes for ln in by_gid(a.lines, "fallway-speed")]
     time = [ln for a in fig.axes for ln in by_gid(a.lines, "fallway-time")]
     assert len(speed) == 1 and len(time) == 1

@@ -210,3 +210,40 @@ def test_when_the_full_model_stages_gain_nothing_the_gravity_runs_line_is_a_cand
     assert res.chosen == "start" and res.time_after_s == res.time_before_s
     fb = cand["gravity optimum, full-model timed"]
     assert fb.meets_limits and fb.time_s == pytest.approx(res.time_before_s, rel=1e-12)
+
+
+def test_converged_only_when_the_returned_lines_own_solver_passed_its_stationarity_test(monkeypatch):
+    # refine_converged means the solver that made the returned line stopped on its
+    # stationarity test (scipy's L-BFGS-B tolerance or the time-stationarity window), not
+    # on an iteration cap.  The gravity stage converges here; the polish, capped at 3
+    # iterations per continuation stage, cannot: when its line is returned, the result
+    # must not say converged (it once reported the gravity stage's status).
+    import warnings as _w
+
+    import fallway.refine.stages as stages
+    from fallway.errors import RefinementWarning
+
+    t = plane_terrain(30.0)
+    pts = on_ground(t, zigzag((5.5, 45.5), (25.5, 5.5), 20))
+    mover = Mover(mu=0.1, normal="full")
+    with _w.catch_warnings():
+        _w.simplefilter("error", RefinementWarning)
+        free = refine_line(t, pts, mover, n_vertices=41)
+    assert free.converged and free.chosen.startswith("full polish")
+    assert free.residual < 1.0  # s/m, of the returned line's own solver
+    real = stages.polish
+    seen = []
+
+    def capped(opt, P, max_iter, gtol, stages=(0.1, 0.01, 0.0)):
+        out = real(opt, P, 3, gtol, stages)
+        seen.append(out[3])
+        return out
+
+    monkeypatch.setattr(stages, "polish", capped)
+    with pytest.warns(RefinementWarning, match="did not converge"):
+        res = refine_line(t, pts, mover, n_vertices=41)
+    assert seen and not any(seen)  # every polish level stopped at the cap
+    assert res.chosen.startswith("full polish") and res.time_after_s < res.time_before_s
+    assert not res.converged
+    names = [c.name for c in res.candidates]
+    assert "gravity optimum" in names  # converged on its own, but not the line returned

@@ -27,7 +27,7 @@ if TYPE_CHECKING:  # the same names, for type checkers and editors
     from .keepout import Keepout
     from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
     from .refine import refine_line
-    from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line
+    from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line, limit_issues
     from .vector import read_lines
     from .routing import compare, find_route, reach
     from .scenario import Scenario, load_scenario
@@ -79,6 +79,7 @@ _EXPORTS = {
     "drape": "evaluate",
     "envelope": "evaluate",
     "evaluate_line": "evaluate",
+    "limit_issues": "evaluate",
     "read_lines": "vector",
     "find_route": "routing",
     "reach": "routing",
@@ -110,7 +111,7 @@ __all__ = [
     "Keepout",
     "LatticeLine", "ReachMap", "RefineCandidate", "RefineResult", "Route", "RouteSummary",
     "refine_line",
-    "Comparison", "Envelope", "LineResult", "drape", "envelope", "evaluate_line", "read_lines",
+    "Comparison", "Envelope", "LineResult", "drape", "envelope", "evaluate_line", "limit_issues", "read_lines",
     "find_route", "reach", "compare",
     "Scenario", "load_scenario",
     "OutputSet", "write_profile_csv", "write_reach_geotiff", "write_route_geojson", "write_route_gpkg",

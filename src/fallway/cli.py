@@ -424,7 +424,9 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
 @click.argument("lines", type=click.Path(dir_okay=False))
 @_common_options
 @click.option("--mu-range", type=(float, float), metavar="LO HI", help="Evaluate every line at LO, nominal and HI friction.")
-@click.option("--refine/--no-refine", default=False, show_default=True, help="Refine the computed optimum.")
+@click.option("--refine/--no-refine", default=None,
+              help="Refine the computed optimum with the same limits (default; the scenario's search.refine "
+                   "when it says false).")
 @click.option("--optimum/--no-optimum", default=True, show_default=True, help="Add the tool's own optimum as a row.")
 @click.option("--lines-layer", "lines_layers", multiple=True, metavar="NAME",
               help="Read only this layer of LINES (repeatable; default every line layer, needed when the file "
@@ -438,8 +440,8 @@ def compare(dem, lines, out_dir, overwrite, scenario_path, quiet, verbose, refin
     from .app import run_compare
 
     sc = _resolve(scenario_path, _overrides(dem=dem, start=None, end=None, via=(), **opts))
-    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=refine, optimum=optimum,
-                      lines_layers=lines_layers)
+    cmp = run_compare(sc, lines, out_dir, overwrite=overwrite, refine=sc.refine if refine is None else refine,
+                      optimum=optimum, lines_layers=lines_layers)
     if not quiet:
         _print_rows(cmp)
         click.echo(f"wrote comparison.csv, comparison.png, comparison.svg, report.html in {out_dir}")

@@ -18,10 +18,12 @@ Conventions
 - Stations, lengths and heights in metres, along the 3D line.  Grades are descent grades
   (drop / plan length, positive downhill), as in :class:`fallway.physics.Profile`.
 - A row's ``travel_time_s`` and ``exit_speed_m_s`` are None when the mover stalls.
-- Ranking: lines that reach the end first, fastest first (whatever their status: a line
+- Ranking: lines that meet every limit (status ``"ok"``, :func:`limit_issues`) first,
+  fastest first; then lines that reach the end but break a limit, fastest first (a line
   over the speed limit still shows its time, and its status says why it is not
   acceptable); then lines that stall, the furthest stall first; then searches that found
-  no feasible line.
+  no feasible line.  The friction envelope does not change the order (it is in each row,
+  and :attr:`Comparison.best` asks for it).
 """
 
 from __future__ import annotations
@@ -56,13 +58,15 @@ __all__ = [
     "enters_keepout",
     "envelope",
     "evaluate_line",
+    "limit_issues",
+    "LIMIT_CHECKS",
     "row_for_line",
 ]
 
 #: Columns of ``comparison.csv``, in order.
 COMPARISON_COLUMNS = ("name", "travel_time_s", "length_m", "drop_m", "exit_speed_m_s",
                       "max_speed_m_s", "min_speed_m_s", "max_grade", "min_radius_m",
-                      "stalled_at_m", "overspeed_m", "liftoff_m", "status")
+                      "min_radius_3d_m", "stalled_at_m", "overspeed_m", "liftoff_m", "status")
 #: Extra columns written when a friction range is given.
 ENVELOPE_COLUMNS = ("exit_speed_lo_mu_m_s", "exit_speed_hi_mu_m_s", "travel_time_lo_mu_s",
                     "travel_time_hi_mu_s", "max_speed_lo_mu_m_s", "stalled_at_hi_mu_m",
@@ -72,7 +76,7 @@ COMPUTED_NAME = "computed optimum"
 
 # decimals of each numeric CSV column (fixed formatting, byte-stable files)
 _DECIMALS = {"travel_time_s": 3, "length_m": 2, "drop_m": 2, "exit_speed_m_s": 3,
-             "max_speed_m_s": 3, "min_speed_m_s": 3, "max_grade": 4, "min_radius_m": 2,
+             "max_speed_m_s": 3, "min_speed_m_s": 3, "max_grade": 4, "min_radius_m": 2, "min_radius_3d_m": 2,
              "stalled_at_m": 2, "overspeed_m": 2, "liftoff_m": 2,
              "exit_speed_lo_mu_m_s": 3, "exit_speed_hi_mu_m_s": 3, "travel_time_lo_mu_s": 3,
              "travel_time_hi_mu_s": 3, "max_speed_lo_mu_m_s": 3, "stalled_at_hi_mu_m": 2}
@@ -185,14 +189,20 @@ class LineResult:
     max_grade : float
         Steepest descent grade of any segment (drop / plan).
     min_radius_m : float
-        Smallest plan bend radius (:func:`fallway.geometry.min_radius_m`), inf if straight.
+        Smallest plan bend radius (:func:`fallway.geometry.min_radius_m`) of the line as
+        drawn, inf if straight.
+    min_radius_3d_m : float
+        Smallest bend radius in 3D of the line as timed (draped: the ground's own
+        curvature counts); the one ``Limits.min_radius_m`` is checked against, as for a
+        route.
     stalled_at_m, overspeed_m, liftoff_m : float or None
         Station of the stall, of the first vertex over ``Mover.max_speed`` and of the
         first lift-off vertex; None when there is none.
     status : str
-        ``"ok"`` or the first failed check in this order: ``"stalls"``, ``"keepout"``
-        (the line enters a no-go area), ``"overspeed"``, ``"liftoff"``, ``"grade"`` (a
-        segment outside the grade window of the limits), ``"radius"`` (a bend tighter
+        ``"ok"`` or the first broken limit, from :func:`limit_issues` (the same check as
+        a route's ``violated_limits``), in this order: ``"stalls"``, ``"keepout"`` (the
+        line enters a no-go area), ``"overspeed"``, ``"liftoff"``, ``"grade"`` (a segment
+        outside the grade window of the limits), ``"min_radius"`` (a 3D bend tighter
         than ``Limits.min_radius_m``); ``"no feasible line"`` when the search found none.
     profile : Profile or None
         The motion along ``points`` (None for a search without result).
@@ -217,6 +227,7 @@ class LineResult:
     min_speed_m_s: float
     max_grade: float
     min_radius_m: float
+    min_radius_3d_m: float
     stalled_at_m: float | None
     overspeed_m: float | None
     liftoff_m: float | None
@@ -266,6 +277,72 @@ def enters_keepout(terrain, p: np.ndarray, keepout) -> bool:
         raise ParameterError(f"keepout must be a Keepout, a shapely geometry or a mask; got {type(keepout).__name__}")
     line = shapely.LineString(p[:, :2])
     return bool(line.intersects(geom) and not line.touches(geom))
+
+
+#: The checks of :func:`limit_issues`, in the order they are reported.
+LIMIT_CHECKS = ("stalls", "keepout", "overspeed", "liftoff", "grade", "min_radius")
+
+
+def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, *,
+                 liftoff: bool = True) -> list[str]:
+    """The limits a timed line breaks: the one check behind a route's ``feasible`` and a row's status.
+
+    :func:`fallway.routing.find_route` (``RouteSummary.violated_limits``) and
+    :func:`evaluate_line` (a comparison row's ``status`` and ``issues``) both call this, so
+    a line is judged the same way whether the tool found it or an engineer drew it.
+
+    Parameters
+    ----------
+    terrain : Terrain or None
+        For a keep-out mask (cells); not needed for polygon keep-outs.
+    line : array_like (N, 3)
+        The line as timed (x, y, z).
+    profile : Profile
+        Its motion (:func:`fallway.physics.traverse`), with the mover's speed window.
+    limits : Limits
+        Grade window and bend radius (``min_radius_m``, measured in 3D on ``line``).
+    keepout : Keepout, shapely geometry or bool mask, optional
+    liftoff : bool
+        Count a lift-off vertex as a broken limit (an open chute; not when
+        ``limits.allow_liftoff``).  With False it is only flagged in the profile.
+
+    Returns
+    -------
+    list of str
+        In the order of :data:`LIMIT_CHECKS`: ``"stalls"`` (the mover does not reach the
+        end), ``"keepout"``, ``"overspeed"`` (over ``Mover.max_speed``), ``"liftoff"``,
+        ``"grade"`` (a segment outside the grade window), ``"min_radius"`` (a 3D bend
+        radius below ``Limits.min_radius_m``); empty when the line meets every limit.
+
+    Examples
+    --------
+    A straight 30 % descent at mu = 0.1 under a 10 m/s cap: it reaches 10 m/s after
+    v²/(2a) = 100/(2 g (sin - mu cos)) = 26.6 m of its 104.4 m (any mechanics text):
+
+    >>> from fallway.physics import Mover, traverse
+    >>> line = np.array([(0.0, 0.0, 30.0), (100.0, 0.0, 0.0)])
+    >>> mv = Mover(mu=0.1, max_speed=10.0, normal="gravity")
+    >>> limit_issues(None, line, traverse(line, mv), Limits(max_grade=0.25))
+    ['overspeed', 'grade']
+    """
+    p = np.asarray(line, dtype=float)
+    out = []
+    if not profile.feasible:
+        out.append("stalls")
+    if keepout is not None and enters_keepout(terrain, p, keepout):
+        out.append("keepout")
+    if len(profile.overspeed):
+        out.append("overspeed")
+    if liftoff and not limits.allow_liftoff and len(profile.liftoff):
+        out.append("liftoff")
+    d = np.diff(p, axis=0)
+    moving = np.linalg.norm(d, axis=1) > 0
+    g = np.asarray(profile.grade[:-1], dtype=float)[moving]
+    if g.size and (np.any(g < limits.min_grade - 1e-12) or np.any(g > limits.max_grade + 1e-12)):
+        out.append("grade")
+    if limits.min_radius_m is not None and min_radius_m(drop_repeats(p), dims=3) < limits.min_radius_m * (1 - 1e-9):
+        out.append("min_radius")
+    return out
 
 
 def _first(a) -> float | None:
@@ -355,14 +432,7 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     radius = min_radius_m(p if radius_xy is None else radius_xy, dims=2, spacing_m=radius_spacing_m)
     overspeed = _first(prof.overspeed)
     liftoff = _first(prof.liftoff)
-    checks = (("stalls", stalled is not None),
-              ("keepout", keepout is not None and enters_keepout(terrain, p, keepout)),
-              ("overspeed", overspeed is not None),
-              ("liftoff", liftoff is not None),
-              ("grade", bool(g.size) and bool(np.any(g < limits.min_grade - 1e-12)
-                                              or np.any(g > limits.max_grade + 1e-12))),
-              ("radius", limits.min_radius_m is not None and radius < limits.min_radius_m))
-    issues = tuple(k for k, failed in checks if failed)
+    issues = tuple(limit_issues(terrain, p, prof, limits, keepout))
     status = issues[0] if issues else "ok"
     return LineResult(
         name=name,
@@ -374,6 +444,7 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
         min_speed_m_s=min_speed,
         max_grade=max_grade,
         min_radius_m=radius,
+        min_radius_3d_m=min_radius_m(drop_repeats(p), dims=3),
         stalled_at_m=None if stalled is None else float(stalled),
         overspeed_m=overspeed,
         liftoff_m=liftoff,
@@ -505,10 +576,10 @@ def envelope(terrain, points, mover: Mover, mu_lo: float, mu_hi: float, *, limit
 
 def _rank_key(r: LineResult):
     if r.travel_time_s is not None:
-        return (0, r.travel_time_s, r.name)
+        return (0 if r.status == "ok" else 1, r.travel_time_s, r.name)
     if r.stalled_at_m is not None:
-        return (1, -r.stalled_at_m, r.name)
-    return (2, 0.0, r.name)
+        return (2, -r.stalled_at_m, r.name)
+    return (3, 0.0, r.name)
 
 
 # a cell holding numbers only (a point "-120.5 35.2"): nothing a spreadsheet could run
@@ -555,8 +626,9 @@ class Comparison:
     Attributes
     ----------
     rows : tuple of LineResult
-        Ranked: lines that reach the end, fastest first; then lines that stall, the
-        furthest stall first; then searches that found no line.
+        Ranked: lines that meet every limit, fastest first; then lines that reach the
+        end but break a limit, fastest first; then lines that stall, the furthest stall
+        first; then searches that found no line.
     mover : Mover
         The nominal physics.
     limits : Limits

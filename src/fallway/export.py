@@ -988,7 +988,9 @@ def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
     ----------
     route : Route
     terrain : Terrain
-        Gives ``z_ground`` (bilinear, the lattice's own interpolation).
+        Gives ``z_ground``: the smooth (bicubic) surface, :meth:`Terrain.sample`, the
+        surface the refined line and every draped line lie on (empty where it is
+        undefined: within a cell of nodata or of the grid's edge).
     path : path-like
 
     Returns
@@ -1006,7 +1008,7 @@ def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
     """
     p = route.profile
     pts = _route_points(route)
-    z_ground = np.atleast_1d(terrain.sample_linear(pts[:, 0], pts[:, 1]))
+    z_ground = np.atleast_1d(terrain.sample(pts[:, 0], pts[:, 1]))
     flags = profile_flags(p, route.mover)
     cols = [np.asarray(p.station_m, float), pts[:, 0], pts[:, 1], z_ground, pts[:, 2],
             np.asarray(p.grade, float), np.asarray(p.speed_m_s, float), np.asarray(p.time_s, float),

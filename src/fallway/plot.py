@@ -271,7 +271,8 @@ def plot_profile(route, terrain, *, ax=None):
     ----------
     route : Route
     terrain : Terrain
-        Ground heights under the line (bilinear).
+        Ground heights under the line (the smooth surface, :meth:`Terrain.sample`, as in
+        ``profile.csv``).
     ax : matplotlib Axes, optional
         Heights go on this axes; speed and time on twin axes to its right.
 
@@ -296,7 +297,7 @@ def plot_profile(route, terrain, *, ax=None):
     p = route.profile
     pts = np.asarray(p.points, dtype=float)
     s = np.asarray(p.station_m, dtype=float)
-    zg = np.atleast_1d(terrain.sample_linear(pts[:, 0], pts[:, 1]))
+    zg = np.atleast_1d(terrain.sample(pts[:, 0], pts[:, 1]))
     zl = pts[:, 2]
     finite_g = np.isfinite(zg)
     base = float(np.nanmin(np.concatenate([zg[finite_g], zl]))) if finite_g.any() else float(np.min(zl))

@@ -312,7 +312,8 @@ _COMPARISON_COLS = (
     ("exit_speed_m_s", "exit speed (m/s)", 2),
     ("max_speed_m_s", "max speed (m/s)", 2),
     ("max_grade", "max grade", 3),
-    ("min_radius_m", "min radius (m)", 1),
+    ("min_radius_m", "min radius in plan (m)", 1),
+    ("min_radius_3d_m", "min radius 3D (m)", 1),
     ("stalled_at_m", "stalls at (m)", 1),
     ("envelope_status", "friction range", None),
 )

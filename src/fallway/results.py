@@ -117,9 +117,19 @@ class RefineResult:
     iterations : int
         Quasi-Newton iterations over all refinement levels.
     residual : float
-        Final projected gradient norm (largest component, s/m) of the travel time.
+        The returned line's solver residual, s/m: the largest component of the projected
+        gradient of its objective (the travel time, s, plus the limits' exterior
+        penalties, also in s) with respect to the vertex coordinates it moves (plan x and
+        y, and height for a raised line, in m); ``inf`` when no solver made the line.
     converged : bool
-        True when the optimiser met its tolerance on the final level.
+        True only when the returned line is a refined line whose own solver stopped on
+        its stationarity test (the time fell by less than a relative 1e-9, 1e-8 in the polish, over 25
+        iterations, L-BFGS-B met its own tolerance, or the residual is at most
+        ``max(100 gtol, 1e-7)`` s/m) and that meets the limits: False when an iteration
+        cap (``max_iter``, the polish's budget) stopped it, when its bends were repaired
+        after the solver, or when the start or rounded line is returned.  For a gravity
+        stage's line the test is on the gravity-normal time, for a polished line on the
+        full-model time.
     time_before_s, time_after_s : float
         Travel time of the start line and of ``line`` (same model).
     message : str
@@ -208,10 +218,13 @@ class RouteSummary:
     refine_choice : str or None
         Which candidate the refinement returned (:class:`RefineCandidate`).
     refine_converged : bool or None
-        The stationarity test passed on the final level.
+        The returned line passed its solver's stationarity test
+        (:attr:`RefineResult.converged`): False when an iteration cap stopped it.
     refine_iterations : int or None
     refine_residual_s_per_m : float or None
-        Final projected gradient norm of the travel time, seconds per metre of vertex motion.
+        The returned line's solver residual: the largest component of the projected
+        gradient of the (penalised) travel time, seconds per metre of vertex motion
+        (:attr:`RefineResult.residual`).
     refine_message : str or None
     refine_limits : dict or None
         Per limit ``"inactive"``, ``"active"`` or ``"violated"``.

@@ -38,8 +38,8 @@ import warnings
 import numpy as np
 
 from .caution import CAUTION
-from .errors import NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
-from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, enters_keepout, envelope, row_for_line
+from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
+from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, limit_issues, row_for_line
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
 from .loads import Loads, line_loads, load_status
 from .keepout import Keepout
@@ -589,24 +589,12 @@ def _load_fields(loads: Loads, profile) -> dict:
 
 
 def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None) -> list[str]:
-    """The limits a reported line breaks, checked on the line itself; the speed-dependent
-    ones (lateral g, normal g, lift-off of an open line) on ``loads``, its smooth reading."""
-    out = []
-    if not profile.feasible:
-        out.append("stalls")
-    if keepout is not None and enters_keepout(terrain, line, keepout):
-        out.append("keepout")
-    if len(profile.overspeed):
-        out.append("overspeed")
-    d = np.diff(line, axis=0)
-    moving = np.linalg.norm(d, axis=1) > 0
-    g = np.asarray(profile.grade[:-1], dtype=float)[moving]
-    if g.size and (np.any(g < limits.min_grade - 1e-12) or np.any(g > limits.max_grade + 1e-12)):
-        out.append("grade")
-    if limits.min_radius_m is not None and min_radius_m(line, dims=3) < limits.min_radius_m * (1 - 1e-9):
-        out.append("min_radius")
+    """The limits a reported line breaks: :func:`fallway.evaluate.limit_issues` (the check
+    every comparison row gets too), and the speed-dependent ones (lateral g, normal g,
+    lift-off of an open line) on ``loads``, the line's smooth reading."""
+    out = limit_issues(terrain, line, profile, limits, keepout, liftoff=False)
     if loads is not None:
-        out += load_status(loads, limits, broken_only=True)
+        out += [k for k in load_status(loads, limits, broken_only=True) if k not in out]
     return out
 
 
@@ -924,12 +912,15 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         No-go areas: given to the search, and a line that enters one gets the status
         ``"keepout"``.
     optimum : bool
-        Add the tool's own optimum between the first line's end points
-        (:func:`find_route`, a ground line), marked ``computed``; when no line is found
-        the row has status ``"no feasible line"``.
+        Add the tool's own optimum, marked ``computed``: :func:`find_route` (a ground
+        line, the same mover, limits and keep-out) between the first line's end points,
+        passed on exactly as drawn; when no line is found the row has status
+        ``"no feasible line"``.  A line whose ends lie more than 1 % of a cell from
+        those points is named in an :class:`~fallway.errors.InputWarning` (its time is
+        not for the same task).
     search : SearchOptions, optional
     refine : bool
-        Refine the computed optimum (default).
+        Refine the computed optimum (default), with the same limits.
     mu_range : (float, float), optional
         Friction range: every row carries an :class:`~fallway.evaluate.Envelope`.
     route : Route, optional
@@ -938,6 +929,8 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
     Returns
     -------
     Comparison
+        Rows ranked: lines that meet every limit fastest first, then the others with
+        their status (:class:`~fallway.evaluate.Comparison`).
 
     Examples
     --------
@@ -962,10 +955,12 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
         while name in taken:
             name = f"{COMPUTED_NAME}-{j}"
             j += 1
+        ends = (items[0][1][0, :2], items[0][1][-1, :2]) if route is None else (route.line[0, :2],
+                                                                               route.line[-1, :2])
+        _warn_other_ends(items, ends, float(terrain.cell_size))
         if route is None:
-            first = items[0][1]
             try:
-                route = find_route(terrain, tuple(first[0, :2]), tuple(first[-1, :2]), mover, limits=limits,
+                route = find_route(terrain, tuple(ends[0]), tuple(ends[1]), mover, limits=limits,
                                    keepout=keepout, search=search, refine=refine, workable=False)
             except NoFeasibleLine as err:
                 if err.route is None:
@@ -977,12 +972,27 @@ def compare(terrain, lines, mover: Mover, *, limits: Limits | None = None, keepo
     return Comparison.ranked(rows, mover, limits, mu_range, route)
 
 
+def _warn_other_ends(items, ends, cell_m: float) -> None:
+    """Name the candidate lines that do not run between the computed optimum's end points."""
+    tol = 0.01 * cell_m
+    off = []
+    for name, pts in items:
+        d0 = float(np.hypot(*(pts[0, :2] - ends[0])))
+        d1 = float(np.hypot(*(pts[-1, :2] - ends[1])))
+        if max(d0, d1) > tol:
+            off.append(f"'{name}' ({d0:.2f} m at the start, {d1:.2f} m at the end)")
+    if off:
+        warnings.warn(f"the computed optimum runs from ({ends[0][0]:.2f}, {ends[0][1]:.2f}) to "
+                      f"({ends[1][0]:.2f}, {ends[1][1]:.2f}); these lines have other end points, so their times "
+                      f"are not for the same task: {', '.join(off)}", InputWarning, stacklevel=3)
+
+
 def _failed_row(name: str, message: str):
     from .evaluate import LineResult
 
     return LineResult(name=name, travel_time_s=None, length_m=math.nan, drop_m=math.nan, exit_speed_m_s=None,
                       max_speed_m_s=math.nan, min_speed_m_s=math.nan, max_grade=math.nan, min_radius_m=math.nan,
-                      stalled_at_m=None, overspeed_m=None, liftoff_m=None, status="no feasible line",
+                      min_radius_3d_m=math.nan, stalled_at_m=None, overspeed_m=None, liftoff_m=None, status="no feasible line",
                       computed=True, message=message)
 
 

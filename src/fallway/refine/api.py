@@ -146,17 +146,20 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     pol = None
     if mover.normal == "full" and grav.line is not None and len(grav.line) >= 3:
         pol = polish_stage(prob, grav.line, P_start, plan)
-    cands.append(Candidate("gravity optimum", repair_radius(prob, grav.line, P_start), grav.error, True, grav))
+    cands.append(Candidate.refined_line("gravity optimum", grav.line, repair_radius(prob, grav.line, P_start),
+                                        grav.converged, grav.residual, grav, grav.error))
     if pol is not None:
-        cands += [Candidate(nm, repair_radius(prob, L, P_start), refined=True, run=grav) for nm, L in pol.lines]
+        cands += [Candidate.refined_line(nm, L, repair_radius(prob, L, P_start), ok, res, grav)
+                  for nm, L, ok, res in pol.lines]
     if mover.normal == "full" and grav.line is not None:
         judge(prob, cands, mover)
         if not improves(cands):
             # the full-model stages gained nothing: the optimum of a gravity-normal run
             # (first level distributed and limits checked with gravity-normal speeds)
             alt = gravity_stage(problem(), seed, P_start, plan, "gravity")
-            cands.append(Candidate("gravity optimum, full-model timed", repair_radius(prob, alt.line, P_start),
-                                   alt.error, True, alt))
+            cands.append(Candidate.refined_line("gravity optimum, full-model timed", alt.line,
+                                                repair_radius(prob, alt.line, P_start), alt.converged,
+                                                alt.residual, alt, alt.error))
     return choose(prob, cands, mover, pol)
 
 

@@ -35,7 +35,11 @@ class Candidate:
 
     ``refined``: made by the optimiser (a gravity optimum or a polished line), as opposed
     to the start line and its rounded version; ``run``: the gravity stage it comes from.
-    ``judge`` fills ``profile``, ``status`` and ``meets``.
+    ``converged``: the solver that made this line stopped on its stationarity test (not on
+    an iteration cap); ``repaired``: its bends were eased after the solver (so the line is
+    no stationary point); ``residual``: that solver's largest projected-gradient
+    component, s/m.  ``judge`` fills ``profile``,
+    ``status`` and ``meets``.
     """
 
     name: str
@@ -43,10 +47,20 @@ class Candidate:
     error: str | None = None
     refined: bool = False
     run: GravityRun | None = None
+    converged: bool = False
+    residual: float = math.inf
+    repaired: bool = False
     profile: Profile | None = field(default=None, init=False)
     status: dict = field(default_factory=dict, init=False)
     meets: bool = field(default=False, init=False)
     judged: bool = field(default=False, init=False)
+
+    @classmethod
+    def refined_line(cls, name: str, solved, line, converged: bool, residual: float, run, error=None) -> "Candidate":
+        """A line made by a solver (``solved``) and then perhaps repaired (``line``): a
+        repaired line is not the solver's stationary point, so it is not converged."""
+        repaired = line is not None and solved is not None and line is not solved
+        return cls(name, line, error, True, run, bool(converged), float(residual), repaired)
 
     def judge(self, prob: Problem, mover: Mover) -> None:
         """Time and limit status with the route's model (``profile``, ``status``, ``meets``)."""
@@ -103,17 +117,22 @@ def choose(prob: Problem, cands: list, mover: Mover, pol: PolishRun | None) -> R
     notes = list(run.notes) + _polish_notes(cands, pol)
     if good:
         msg = _message(best, start, cands, iters, notes)
-        if best.refined and not run.converged:
-            warnings.warn(f"refinement did not converge (residual {run.residual:.3g} s/m); returning the best "
-                          "line found", RefinementWarning, stacklevel=3)
+        if best.refined and best.repaired:
+            # the bends were eased to the radius limit after the solver (repair_radius): a
+            # line that meets the limits, but no stationary point
+            msg += "; not converged: bends eased to the radius limit after the solver"
+        if best.refined and not best.converged:
+            warnings.warn(f"refinement did not converge (stopped before its stationarity test passed, residual "
+                          f"{best.residual:.3g} s/m); returning the best line found", RefinementWarning, stacklevel=3)
     else:
         bad = best.broken() or (["speed window / stall"] if not best.profile.feasible else [])
         msg = (f"no line meeting the limits was found; returning the {best.name} line, which breaks "
                f"{', '.join(bad)} ({start.time:.6f} s -> {best.time:.6f} s)")
         warnings.warn(msg, RefinementWarning, stacklevel=3)
     polish_note = next((n for n in notes if n.startswith("full-model polish")), "")
-    converged = bool(best.refined and good and run.converged)
-    return RefineResult(best.line.copy(), best.profile, iters, run.residual, converged, start.time, best.time, msg,
+    converged = bool(best.refined and good and best.converged and not best.repaired)
+    residual = best.residual if best.refined else run.residual
+    return RefineResult(best.line.copy(), best.profile, iters, residual, converged, start.time, best.time, msg,
                         best.status, polish_note, best.name, tuple(c.record() for c in cands))
 
 

@@ -65,8 +65,10 @@ class GravityRun:
 
 @dataclass
 class PolishRun:
-    """The polished lines, finest first: ``(name, line)``; iterations; the finest level's
-    optimiser status; the full-model time of the gravity optimum it started from."""
+    """The polished lines, finest first: ``(name, line, converged, residual)`` with each
+    level's own optimiser status (its stationarity test passed) and projected-gradient
+    residual (s/m); iterations; the finest level's status and residual; the full-model
+    time of the gravity optimum it started from."""
 
     lines: list
     iterations: int
@@ -239,7 +241,7 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
             prob.update_bends(P, "full")
             Pf, it, res, ok, _ = polish(prob, P, cap, plan.gtol, (0.0,))
             iters += it
-            levels.append((len(sizes) - 1, Pf))
+            levels.append((len(sizes) - 1, Pf, ok, res))
             break
         Pn = prob.project(refine_density(P if Pf is None else Pf, n, True), P_start)
         if Pf is None and n == len(P):
@@ -255,14 +257,14 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
             gain0 = (t0 - t1) / t0 if math.isfinite(t0) and math.isfinite(t1) else 1.0
         iters += it
         Pf = Pn
-        levels.append((li, Pn))
+        levels.append((li, Pn, ok, res))
     finest = len(levels) - 1
     lines = []
-    for i, (li, L) in enumerate(levels):
+    for i, (li, L, ok_i, res_i) in enumerate(levels):
         if i == finest:
-            lines.append(("full polish", L))
+            lines.append(("full polish", L, ok_i, res_i))
             continue
         spacing = float(np.sum(np.hypot(*np.diff(L[:, :2], axis=0).T))) / max(len(L) - 1, 1)
         if prob.line != "ground" or spacing <= 2.0 * prob.cell:
-            lines.append((f"full polish, level {li + 1} of {len(sizes)} ({len(L)} vertices)", L))
+            lines.append((f"full polish, level {li + 1} of {len(sizes)} ({len(L)} vertices)", L, ok_i, res_i))
     return PolishRun(lines[::-1], iters, ok, res, t_grav)
