@@ -108,6 +108,20 @@ def test_broken_toml_is_one_clear_error(tmp_path):
 def test_writer_escapes_strings():
     text = dumps_toml({"dem": 'a "quoted" \\ path'})
     assert tomllib.loads(text)["dem"] == 'a "quoted" \\ path'
+    # control characters (found by tests/test_fuzz_cli.py: "\x1f" was written raw, and the
+    # written scenario.toml did not read back); TOML 1.0 "String" lists the escapes
+    odd = "tab\t nl\n nul\x00 us\x1f del\x7f caf\u00e9"
+    assert tomllib.loads(dumps_toml({"dem": odd}))["dem"] == odd
+
+
+def test_a_file_that_is_not_utf8_is_one_clear_error(tmp_path):
+    p = tmp_path / "latin1.toml"
+    p.write_bytes("[mover]\nmu = 0.1  # caf\u00e9\n".encode("latin-1"))
+    with pytest.raises(ScenarioError, match=r"latin1.toml is not UTF-8 text \(byte 0xe9 on line 2\); save it as UTF-8"):
+        load_scenario(p)
+    bom = tmp_path / "bom.toml"  # a byte-order mark, as some editors write: read as UTF-8
+    bom.write_bytes(b"\xef\xbb\xbf[mover]\nmu = 0.1\n")
+    assert load_scenario(bom).mover.mu == 0.1
 
 
 # one rule for every value (issue 19.12): mu = "0.2" was read as a number while

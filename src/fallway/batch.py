@@ -52,7 +52,6 @@ import itertools
 import math
 import os
 import re
-import tomllib
 from pathlib import Path
 
 from .errors import FallwayIOError, ScenarioError
@@ -235,21 +234,21 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
     Raises
     ------
     FallwayIOError
-        The batch file is missing or not valid TOML.
+        The batch file is missing.
+    ScenarioError
+        The batch file cannot be read, is not UTF-8 or not valid TOML.
     OutputExistsError
         ``out_dir`` holds results of an earlier batch and ``overwrite`` is False.
     ScenarioError
         A run's scenario does not validate (nothing is run).
     """
     from .export import OutputSet
+    from .scenario import read_toml
 
     p = Path(os.fspath(scenarios_path))
     if not p.is_file():
         raise FallwayIOError(f"batch file not found: {p}; check the path")
-    try:
-        data = tomllib.loads(p.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as err:
-        raise ScenarioError(f"{p} is not valid TOML: {err}") from None
+    data = read_toml(p, "batch file")
     base_dir = str(p.resolve().parent)
     runs, options = expand_batch(data, base_dir=base_dir)
     n = (os.cpu_count() or 1) if workers is None else int(workers)

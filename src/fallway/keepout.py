@@ -14,6 +14,8 @@ __all__ = ["Keepout"]
 
 
 _POLYGONAL = ("Polygon", "MultiPolygon")
+# what a polygon without area is, in the messages
+_FLAT = "empty, or its corners repeat or lie on one line"
 
 
 def _to_pyproj(crs):
@@ -71,15 +73,21 @@ class Keepout:
             bad = sorted({p.geom_type for p in parts if p.geom_type not in _POLYGONAL})
             if bad:
                 raise ParameterError(f"keep-out areas must be polygons, got {', '.join(bad)}; buffer lines or points first")
-            g = shapely.union_all(parts)
+            g = shapely.union_all(parts) if parts else shapely.Polygon()
         if g.geom_type not in _POLYGONAL:
             raise ParameterError(f"keep-out areas must be polygons, got {g.geom_type}; buffer lines or points first")
         if g.is_empty:
             raise ParameterError("keep-out geometry is empty; give at least one polygon")
+        if not np.all(np.isfinite(shapely.get_coordinates(g))):
+            raise ParameterError("keep-out polygons have non-finite coordinates; fix the geometry")
         if not g.is_valid:
             g = shapely.make_valid(g)
             polys = [p for p in shapely.get_parts(g) if p.geom_type in _POLYGONAL]
-            g = shapely.union_all(polys)
+            g = shapely.union_all(polys) if polys else shapely.Polygon()
+        with np.errstate(over="ignore", invalid="ignore"):  # polygons of 1e308 m: area inf or NaN, not zero
+            flat = g.area == 0.0
+        if flat:
+            raise ParameterError(f"keep-out polygons enclose no area ({_FLAT}); give polygons with an area")
         object.__setattr__(self, "geometry", g)
         object.__setattr__(self, "crs", _to_pyproj(self.crs))
 
@@ -137,11 +145,21 @@ class Keepout:
             except shapely.errors.GEOSException as err:
                 raise ParameterError(f"keep-out {where} holds a geometry that cannot be decoded: "
                                      f"{first_line(err)}") from err
-            got = got[~shapely.is_missing(got)]
+            number = np.flatnonzero(~shapely.is_missing(got)) + 1  # feature numbers, from 1
+            got = got[number - 1]
             kinds = sorted({g.geom_type for g in got if g.geom_type not in _POLYGONAL})
             if kinds:
                 raise ParameterError(f"keep-out {where} holds {', '.join(kinds)}; only polygons can be keep-out "
                                      "areas (buffer lines or points first)")
+            finite = np.array([np.all(np.isfinite(shapely.get_coordinates(g))) for g in got], dtype=bool)
+            if not finite.all():
+                raise ParameterError(f"keep-out {where}: feature {number[~finite][0]} has non-finite coordinates; "
+                                     "fix or delete it")
+            with np.errstate(over="ignore", invalid="ignore"):  # as in __post_init__
+                flat = shapely.area(shapely.make_valid(got)) == 0.0 if len(got) else np.zeros(0, dtype=bool)
+            if flat.any():
+                raise ParameterError(f"keep-out {where}: feature {number[flat][0]} is a polygon without area "
+                                     f"({_FLAT}); fix or delete it")
             layer_crs = meta.get("crs")
             if layer_crs is None and p.lower().endswith((".geojson", ".json")):
                 layer_crs = "EPSG:4326"

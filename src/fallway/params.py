@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 from .errors import ParameterError
 
-__all__ = ["STANDARD_GRAVITY", "Mover", "Limits", "LineSpec", "SearchOptions", "LINE_KINDS", "NEIGHBOURHOODS",
+__all__ = ["STANDARD_GRAVITY", "RANGES", "check_param", "Mover", "Limits", "LineSpec", "SearchOptions", "LINE_KINDS", "NEIGHBOURHOODS",
            "PLANS", "checked_options"]
 
 #: Standard acceleration of gravity, m/s² (3rd CGPM, 1901).
@@ -38,17 +38,67 @@ NEIGHBOURHOODS = (8, 16, 32)
 PLANS = ("auto", "full", "corridor")
 
 
+#: Plausible range of every physical parameter of a run: name -> (low, high, unit).  One
+#: rule wherever a value enters - these dataclasses, so scenario files, batch runs and the
+#: command line alike: a value must be finite and within its range, and the message names
+#: the parameter and the range.  ``low`` itself is allowed except for the names in
+#: :data:`ABOVE_LOW`.  The upper bounds are a judgment, not a standard: each lies far
+#: beyond any real chute, conveyor, slide or cable line, so only a slip (a missing decimal
+#: point, a unit mix-up) meets it, and each keeps the arithmetic clear of floating-point
+#: overflow (speeds enter squared, heights as energies g h).  Speeds: a free fall from
+#: 8.8 km (the highest mountain) ends near 415 m/s (v = sqrt(2 g h)); 1e4 m/s is 24 times
+#: that.  Gravity: the Sun's surface gravity is 274 m/s², more than any planet's.  Heights
+#: of a raised line: no structure stands 10 km above the ground.  Friction and drag have
+#: no upper bound: a high value makes the mover stall or crawl, which a run reports.
+RANGES: dict[str, tuple[float, float, str]] = {
+    "mu": (0.0, math.inf, ""),
+    "drag": (0.0, math.inf, "1/m"),
+    "v0": (0.0, 1e4, "m/s"),
+    "g": (0.0, 1e3, "m/s²"),
+    "stall_speed": (0.0, 1e4, "m/s"),
+    "max_speed": (0.0, 1e4, "m/s"),
+    "clearance_m": (0.0, 1e4, "m"),
+    "start_height_m": (0.0, 1e4, "m"),
+    "end_height_m": (0.0, 1e4, "m"),
+    "min_radius_m": (0.0, math.inf, "m"),
+    "corridor_m": (0.0, math.inf, "m"),
+}
+#: The most labels a search can hold: the kernel counts them in int32 (the bound of
+#: ``label_cap`` and ``max_labels``).
+MAX_LABELS = 2 ** 31 - 1
+#: Parameters whose range excludes its lower end.
+ABOVE_LOW = frozenset({"g", "max_speed", "min_radius_m", "corridor_m"})
+
+
 def check_number(name: str, value, *, low: float = 0.0, allow_none: bool = False,
-                  strictly_positive: bool = False) -> None:
+                  strictly_positive: bool = False, high: float = math.inf, unit: str = "") -> None:
     if value is None and allow_none:
         return
     try:
         v = float(value)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         raise ParameterError(f"{name} must be a number, got {value!r}") from None
-    if not math.isfinite(v) or v < low or (strictly_positive and v <= low):
+    if not math.isfinite(v) or v < low or (strictly_positive and v <= low) or v > high:
         rng = f"> {low:g}" if strictly_positive else f">= {low:g}"
-        raise ParameterError(f"{name} must be a finite number {rng}, got {value!r}")
+        if math.isfinite(high):
+            rng += f" and <= {high:g}"
+        raise ParameterError(f"{name} must be a finite number {rng}{' ' + unit if unit else ''}, got {value!r}")
+
+
+def check_param(name: str, value, *, allow_none: bool = False) -> None:
+    """``value`` checked against the plausible range of parameter ``name`` (:data:`RANGES`).
+
+    Examples
+    --------
+    >>> check_param("v0", 12.0)
+    >>> check_param("v0", 1e308)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: v0 must be a finite number >= 0 and <= 10000 m/s, got 1e+308
+    """
+    low, high, unit = RANGES[name]
+    check_number(name, value, low=low, high=high, unit=unit, allow_none=allow_none,
+                 strictly_positive=name in ABOVE_LOW)
 
 
 @dataclass(frozen=True)
@@ -95,12 +145,9 @@ class Mover:
     max_speed: float | None = None
 
     def __post_init__(self) -> None:
-        check_number("mu", self.mu)
-        check_number("drag", self.drag)
-        check_number("v0", self.v0)
-        check_number("g", self.g, strictly_positive=True)
-        check_number("stall_speed", self.stall_speed)
-        check_number("max_speed", self.max_speed, allow_none=True, strictly_positive=True)
+        for name in ("mu", "drag", "v0", "g", "stall_speed"):
+            check_param(name, getattr(self, name))
+        check_param("max_speed", self.max_speed, allow_none=True)
         if self.normal not in _NORMAL_MODELS:
             raise ParameterError(f"normal must be one of {', '.join(_NORMAL_MODELS)}; got {self.normal!r}")
         for name in ("mu", "drag", "v0", "g", "stall_speed"):
@@ -206,10 +253,8 @@ class Limits:
                 raise ParameterError(f"max_step_turn_deg must be in (0, 180], got {self.max_step_turn_deg!r}")
             object.__setattr__(self, "max_step_turn_deg", v)
         if self.min_radius_m is not None:
-            v = float(self.min_radius_m)
-            if not (math.isfinite(v) and v > 0.0):
-                raise ParameterError(f"min_radius_m must be a finite number > 0, got {self.min_radius_m!r}")
-            object.__setattr__(self, "min_radius_m", v)
+            check_param("min_radius_m", self.min_radius_m)
+            object.__setattr__(self, "min_radius_m", float(self.min_radius_m))
         for name in ("max_lateral_g", "max_normal_g"):
             check_number(name, getattr(self, name), allow_none=True, strictly_positive=True)
             if getattr(self, name) is not None:
@@ -273,11 +318,12 @@ class LineSpec:
             raise ParameterError(f"clearance_m must be a pair (min, max) of metres, got {self.clearance_m!r}") from None
         if not (math.isfinite(lo) and math.isfinite(hi) and 0.0 <= lo <= hi):
             raise ParameterError(f"clearance_m must be (min, max) with 0 <= min <= max, got ({lo:g}, {hi:g})")
+        check_param("clearance_m", hi)
         object.__setattr__(self, "clearance_m", (lo, hi))
         for name in ("start_height_m", "end_height_m"):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, lo if self.kind == "raised" else 0.0)
-            check_number(name, getattr(self, name))
+            check_param(name, getattr(self, name))
             h = float(getattr(self, name))
             object.__setattr__(self, name, h)
             if self.kind == "raised" and not (lo - 1e-9 <= h <= hi + 1e-9):
@@ -345,6 +391,11 @@ class SearchOptions:
             v = getattr(self, name)
             if v is not None and (isinstance(v, bool) or not isinstance(v, int) or v < 1):
                 raise ParameterError(f"{name} must be a whole number >= 1 or None; got {v!r}")
+        for name in ("label_cap", "max_labels"):
+            v = getattr(self, name)
+            if v is not None and v > MAX_LABELS:
+                raise ParameterError(f"{name} must be a whole number from 1 to {MAX_LABELS} (the labels a search can "
+                                     f"count) or None; got {v!r}")
         if self.energy_tol is not None:
             check_number("energy_tol", self.energy_tol)
             object.__setattr__(self, "energy_tol", float(self.energy_tol))
@@ -353,7 +404,7 @@ class SearchOptions:
         if self.plan not in PLANS:
             raise ParameterError(f"plan must be one of {', '.join(PLANS)}; got {self.plan!r}")
         if self.corridor_m is not None:
-            check_number("corridor_m", self.corridor_m, strictly_positive=True)
+            check_param("corridor_m", self.corridor_m)
             object.__setattr__(self, "corridor_m", float(self.corridor_m))
         if isinstance(self.max_widen, bool) or not isinstance(self.max_widen, int) or self.max_widen < 0:
             raise ParameterError(f"max_widen must be a whole number >= 0; got {self.max_widen!r}")

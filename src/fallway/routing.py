@@ -52,7 +52,7 @@ from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, Route, RouteSummary
 from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside, lowest_within,
                     search_memory_bytes, terrain_source)
-from .terrain import DEFAULT_MARGIN_M, Terrain
+from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
 __all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
            "WORKABLE_BUDGET_FACTOR", "WORKABLE_MAX_CELLS"]
@@ -364,6 +364,11 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
     cell = src.cell
     mem_kw = _memory_kw(job, cell, memory_limit_bytes)
     factor = s.coarse_factor or max(1, math.ceil(math.sqrt(_cells(area, cell) / DEFAULT_COARSE_CELLS)))
+    most = max(1, int(min(area[2] - area[0], area[3] - area[1]) // (cell * MIN_GRID_CELLS)))
+    if factor > most:  # only a given factor can: the default keeps about DEFAULT_COARSE_CELLS
+        raise ParameterError(f"coarse_factor {factor} leaves fewer than {MIN_GRID_CELLS} x {MIN_GRID_CELLS} coarse "
+                             f"cells over the {area[2] - area[0]:.0f} x {area[3] - area[1]:.0f} m search area; give "
+                             f"at most {most} (--coarse), or leave it to the default")
     compute: dict = {}
     if factor == 1:  # a small area: the corridor would be the whole grid
         found = _plan_full(src, points, job, memory_limit_bytes)

@@ -64,9 +64,10 @@ from what the kernel and its Python front allocate:
   written cost no memory (measured: 3 overestimated the peak by about half).
 
 The number of labels is not known in advance: the estimate takes ``labels_per_cell``
-labels per state (default ``max_per_cell`` when given, else 4 - measured 1 to 3 on the
-benchmark DEMs with a small cap; the exact Pareto search on rough terrain can need far
-more).  ``tests/test_scale.py`` checks the estimate against the peak resident memory of
+labels per state (default 4 - measured 1 to 3 on the benchmark DEMs with a small cap;
+the exact Pareto search on rough terrain can need far more - or ``max_per_cell`` when that
+is smaller: a cap only removes labels, so a cap above the default never raises the
+estimate over the uncapped search's).  ``tests/test_scale.py`` checks the estimate against the peak resident memory of
 a search in a fresh process (with the label count of that search).
 
 Reach cut-off (:func:`fallway.routing.reach`)
@@ -128,7 +129,7 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
     turn_limit : bool
         A turn limit multiplies the states by ``neighbours + 1`` (one per heading).
     max_per_cell, labels_per_cell
-        Label cap; expected labels per state (default the cap, else 4).
+        Label cap; expected labels per state (default 4, or the cap when it is smaller).
     reach : bool
         Reach mode (adds the best-time and best-speed grids).
 
@@ -143,7 +144,7 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
     active = cells if active_cells is None else min(int(active_cells), cells)
     nh = neighbours + 1 if turn_limit else 1
     states = active * max(int(legs), 1) * nh
-    lpc = float(labels_per_cell if labels_per_cell is not None else (max_per_cell or 4))
+    lpc = float(labels_per_cell if labels_per_cell is not None else min(max_per_cell or 4, 4))
     b = cells * _B_CELL + states * (_B_STATE + (4 if max_per_cell else 0))
     if reach:
         b += _B_REACH_ACTIVE * active + _B_REACH_CELL * cells

@@ -64,7 +64,7 @@ from typing import Any
 from .errors import FallwayError, ParameterError, ScenarioError
 from .params import Limits, LineSpec, Mover, SearchOptions
 
-__all__ = ["Scenario", "load_scenario", "check_value", "kind_of"]
+__all__ = ["Scenario", "load_scenario", "read_toml", "check_value", "kind_of"]
 
 _SCHEMA: dict[str, Any] = {
     "dem": str,
@@ -329,24 +329,40 @@ def _build(cls, section: str, values: dict):
         raise ScenarioError(f"{section}.{err}") from err
 
 
+def read_toml(path: str | Path, what: str = "scenario file") -> dict:
+    """The mapping a TOML file holds; one clear :class:`ScenarioError` naming the file otherwise.
+
+    The file must be readable, UTF-8 text (TOML's own encoding; a leading byte-order mark
+    is allowed) and valid TOML.  ``what`` names the file in messages ("batch file").
+    """
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except OSError as err:
+        raise ScenarioError(f"cannot read {what} {p}: {err.strerror or err}") from err
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as err:
+        line = raw[:err.start].count(b"\n") + 1
+        raise ScenarioError(f"{what} {p} is not UTF-8 text (byte 0x{raw[err.start]:02x} on line {line}); "
+                            "save it as UTF-8, the encoding TOML files use") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ScenarioError(f"{what} {p} is not valid TOML: {err}") from err
+
+
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a TOML scenario file.
 
     Raises
     ------
     ScenarioError
-        For a file that is not valid TOML, an unknown key or an out-of-range value.
+        For a file that cannot be read, is not UTF-8 or not valid TOML, an unknown key or
+        an out-of-range value.
     """
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except OSError as err:
-        raise ScenarioError(f"cannot read scenario file {p}: {err.strerror or err}") from err
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ScenarioError(f"scenario file {p} is not valid TOML: {err}") from err
-    return Scenario.from_dict(data, base_dir=p.parent)
+    return Scenario.from_dict(read_toml(p), base_dir=p.parent)
 
 
 def dumps_toml(data: dict) -> str:
@@ -372,6 +388,13 @@ def dumps_toml(data: dict) -> str:
     return "\n\n".join(parts) + "\n"
 
 
+_TOML_ESCAPES = {"\\": "\\\\", '"': '\\"'}
+
+
+def _control(ch: str) -> bool:
+    return (ch < " " and ch != "\t") or ch == "\x7f"
+
+
 def _value(v) -> str:
     if isinstance(v, bool):
         return "true" if v else "false"
@@ -382,7 +405,9 @@ def _value(v) -> str:
             return "inf" if v > 0 else "-inf"
         return repr(v)
     if isinstance(v, str):
-        return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
+        # a TOML basic string: backslash and quote escaped, and every control character
+        # but tab as \uXXXX (TOML 1.0, "String"), so any path or name reads back
+        return '"' + "".join(_TOML_ESCAPES.get(ch) or (f"\\u{ord(ch):04X}" if _control(ch) else ch) for ch in v) + '"'
     if isinstance(v, (list, tuple)):
         return "[" + ", ".join(_value(x) for x in v) + "]"
     raise FallwayError(f"cannot write {type(v).__name__} to a scenario file")

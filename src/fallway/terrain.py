@@ -37,11 +37,15 @@ from affine import Affine
 from ._surface import SmoothSurface
 from .errors import FallwayIOError, ParameterError, TerrainError
 
-__all__ = ["Terrain", "load_terrain", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS"]
+__all__ = ["Terrain", "load_terrain", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS", "MIN_GRID_CELLS"]
 
 #: Margin (m) added around ``bounds`` when reading a window, so that lines that bulge a
 #: little beyond the start/end box still lie on data.
 DEFAULT_MARGIN_M = 200.0
+#: The smallest grid the tool accepts: this many cells along each side (bilinear
+#: interpolation and the lattice need two cell centres per axis; a 1 x N raster is refused
+#: when it is read, and a resampling that would leave less is refused too).
+MIN_GRID_CELLS = 2
 #: Upper limit on the cells of a loaded grid unless memory is tighter (200 M cells is
 #: 1.6 GB of float64 heights before working arrays).
 DEFAULT_MAX_CELLS = 200_000_000
@@ -85,8 +89,9 @@ class Terrain:
 
     def __post_init__(self) -> None:
         z = np.array(self.z, dtype=np.float64, copy=True)
-        if z.ndim != 2 or min(z.shape) < 2:
-            raise TerrainError(f"elevation grid must be 2D with at least 2x2 cells, got shape {z.shape}")
+        if z.ndim != 2 or min(z.shape) < MIN_GRID_CELLS:
+            raise TerrainError(f"elevation grid must be 2D with at least {MIN_GRID_CELLS} x {MIN_GRID_CELLS} cells, "
+                               f"got shape {z.shape}")
         z.setflags(write=False)
         object.__setattr__(self, "z", z)
         t = self.transform
@@ -454,8 +459,9 @@ def _load_open(src, p, bounds, margin_m, resolution_m, z_scale, band, max_cells)
         raise TerrainError(f"{p} has no raster bands; give a single-band elevation raster")
     if band > src.count:
         raise ParameterError(f"{p} has {src.count} band{'s' if src.count > 1 else ''}; there is no band {band}")
-    if src.width < 2 or src.height < 2:
-        raise TerrainError(f"{p} is {src.height} x {src.width} cells; a DEM needs at least 2 x 2 cells")
+    if min(src.width, src.height) < MIN_GRID_CELLS:
+        raise TerrainError(f"{p} is {src.height} x {src.width} cells; a DEM needs at least {MIN_GRID_CELLS} x "
+                           f"{MIN_GRID_CELLS} cells")
     scale, offset, to_m = _height_units(src, p, band, z_scale)
     if src.crs is None:
         raise TerrainError(f"{p} has no CRS; assign the right one first "
@@ -691,8 +697,9 @@ def _warp(z, rt, src_crs, dst_crs, res, average: bool):
     else:
         dt, dw, dh = calculate_default_transform(src_crs, dst_crs, cols, rows, left, bottom, right, top,
                                                  resolution=(res, res))
-    if dw < 2 or dh < 2:
-        raise TerrainError(f"resolution {res:g} leaves fewer than 2 x 2 cells; choose a finer resolution_m")
+    if min(dw, dh) < MIN_GRID_CELLS:
+        raise TerrainError(f"resolution {res:g} leaves fewer than {MIN_GRID_CELLS} x {MIN_GRID_CELLS} cells; "
+                           "choose a finer resolution_m")
     dst = np.full((dh, dw), np.nan)
     reproject(z, dst, src_transform=rt, src_crs=src_crs, src_nodata=np.nan,
               dst_transform=dt, dst_crs=dst_crs, dst_nodata=np.nan,
