@@ -13,12 +13,14 @@ from affine import Affine
 from rasterio.crs import CRS
 
 from fallway.errors import ParameterError
-from fallway.params import LineSpec, SearchOptions
+from fallway.params import Limits, LineSpec, SearchOptions
 from fallway.physics import Mover, traverse
 from fallway.results import RouteSummary
 from fallway.routing import find_route, reach
 from fallway.terrain import Terrain
 
+#: Lift-off is not the subject here (tests/test_loads.py checks it): an enclosed line.
+ENCLOSED = Limits(allow_liftoff=True)
 
 
 def valley(rows=16, cols=18, cell=5.0):
@@ -31,7 +33,7 @@ def valley(rows=16, cols=18, cell=5.0):
 def test_lattice_route_summary_and_profile():
     t = valley()
     mover = Mover(mu=0.15, drag=0.005, v0=0.5)  # full normal model for the report
-    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), mover, refine=False)
+    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), mover, refine=False, limits=ENCLOSED)
     json.dumps(r.summary.to_dict())  # JSON-ready
     assert r.summary.refined is False
     np.testing.assert_array_equal(r.line, r.lattice.points)
@@ -46,14 +48,14 @@ def test_lattice_route_summary_and_profile():
     assert r.summary.start_xyz[:2] == list(t.cell_center(1, 1))
     # gravity-normal mover: the route's time is the lattice's own
     g = Mover(mu=0.15, drag=0.005, v0=0.5, normal="gravity")
-    rg = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), g, refine=False)
+    rg = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), g, refine=False, limits=ENCLOSED)
     assert rg.summary.travel_time_s == pytest.approx(rg.summary.lattice_time_s, rel=1e-9)
 
 
 def test_refined_route_is_not_slower():
     t = valley()
     mover = Mover(mu=0.15, normal="gravity")
-    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), mover, search=SearchOptions(neighbours=8))
+    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), mover, search=SearchOptions(neighbours=8), limits=ENCLOSED)
     assert r.summary.refined is True and r.refinement is not None
     assert r.summary.travel_time_s <= r.summary.lattice_time_s * (1 + 1e-9)
     assert r.summary.travel_time_s == pytest.approx(traverse(r.line, mover).travel_time_s, rel=1e-12)
@@ -62,15 +64,15 @@ def test_refined_route_is_not_slower():
 def test_bad_line_kind():
     t = valley()
     with pytest.raises(ParameterError, match="ground, raised"):
-        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line=LineSpec("floating"))
+        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line=LineSpec("floating"), limits=ENCLOSED)
     with pytest.raises(ParameterError, match="must be a fallway.LineSpec"):
-        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line="raised")
+        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line="raised", limits=ENCLOSED)
 
 
 def test_unknown_option_is_a_parameter_error():
     t = valley()
     with pytest.raises(ParameterError, match="unknown option bogus_option"):
-        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), refine=False, bogus_option=1)
+        find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), refine=False, bogus_option=1, limits=ENCLOSED)
 
 
 def test_raised_line_without_refinement_is_raised():
@@ -78,7 +80,7 @@ def test_raised_line_without_refinement_is_raised():
     # heights linear in plan distance between the end heights (not a ground line)
     t = valley()
     spec = LineSpec("raised", (2.0, 15.0), 8.0, 3.0)
-    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line=spec, refine=False)
+    r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line=spec, refine=False, limits=ENCLOSED)
     h = r.line[:, 2] - t.sample(r.line[:, 0], r.line[:, 1])
     assert r.summary.line_kind == "raised" and r.line_spec == spec
     assert h[0] == pytest.approx(8.0) and h[-1] == pytest.approx(3.0)
@@ -88,8 +90,8 @@ def test_raised_line_without_refinement_is_raised():
 def test_summary_fields_are_fixed():
     # the same fields, in the same order, whatever the options (absent values None)
     t = valley()
-    a = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), refine=False)
-    b = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1, max_speed=40.0),
+    a = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), refine=False, limits=ENCLOSED)
+    b = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1, max_speed=40.0), limits=ENCLOSED,
                    search=SearchOptions(plan="corridor", coarse_factor=2), mu_range=(0.05, 0.15))
     names = [f for f in RouteSummary.__dataclass_fields__]
     assert list(a.summary.to_dict()) == names == list(b.summary.to_dict())
@@ -110,7 +112,7 @@ def test_corridor_search_is_not_repeated(monkeypatch):
 
     monkeypatch.setattr(routing, "lattice_line", counting)
     t = valley(40, 44)
-    r = find_route(t, t.cell_center(2, 2), t.cell_center(36, 40), Mover(mu=0.1), refine=False,
+    r = find_route(t, t.cell_center(2, 2), t.cell_center(36, 40), Mover(mu=0.1), refine=False, limits=ENCLOSED,
                    search=SearchOptions(plan="corridor", coarse_factor=2))
     steps = r.summary.corridor["steps"]
     assert calls[0] is False and calls[1:] == [True] * len(steps)  # one coarse search, one per step

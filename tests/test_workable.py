@@ -160,7 +160,7 @@ def test_bisection_finds_a_known_threshold_on_the_three_figure_grid():
 
 
 def test_every_relaxation_lifts_and_sets_its_own_parameter():
-    m, lim = Mover(mu=0.2, max_speed=20.0), Limits(min_grade=0.1, max_grade=0.5, max_step_turn_deg=30.0,
+    m, lim = Mover(mu=0.2, max_speed=20.0), Limits(min_grade=0.1, max_grade=0.5, max_step_turn_deg=30.0, max_lateral_g=0.5, max_normal_g=2.0,
                                                        min_radius_m=12.0)
     for rel in RELAXATIONS:
         before = rel.get(m, lim)
