@@ -256,8 +256,11 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     # plan length of the straight run before / after each corner (collinear vertices do
     # not end a run): the crest relief's bound
     unit = d / np.linalg.norm(d, axis=1)[:, None]
-    bend = [j > 0 and float(unit[j - 1] @ unit[j]) < 1.0 - 1e-15 and
-            np.linalg.norm(np.cross(unit[j - 1], unit[j])) > 1e-12 for j in range(len(d))]
+    def angle(a, b):
+        return math.atan2(float(np.linalg.norm(np.cross(a, b))), float(a @ b))
+
+    # a turn below 1e-8 rad is rounding noise of collinear points (as in fallway)
+    bend = [j > 0 and angle(unit[j - 1], unit[j]) > 1e-8 for j in range(len(d))]
     plan = np.hypot(d[:, 0], d[:, 1])
     before, after = np.zeros(len(d)), np.zeros(len(d))
     for j in range(1, len(d)):
@@ -277,7 +280,8 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     for j, seg in enumerate(d):
         if j:
             a, b = d[j - 1] / np.linalg.norm(d[j - 1]), seg / np.linalg.norm(seg)
-            phi = math.atan2(np.linalg.norm(np.cross(a, b)), float(a @ b))
+            phi = angle(a, b)
+            phi = phi if phi > 1e-8 else 0.0
             if channel and phi > 0.0:
                 # the turn's component across the bed (up: the upward normal in the
                 # vertical plane of the bisector); a crest relieves the bed

@@ -180,7 +180,11 @@ def test_real_dem_end_to_end(tmp_path):
     lon0, lat0 = t @ (c0 + 0.5, r0 + 0.5)
     lon1, lat1 = t @ (c1 + 0.5, r1 + 0.5)
     out = tmp_path / "run"
+    # an open line lifts off over the real ridges: the run fails, says so and names the switch
     res = _run(["route", dem, "--start", lon0, lat0, "--end", lon1, lat1, "--mu", 0.05, "--out", out])
+    assert res.exit_code == 3 and "lifts off" in res.output and "--allow-liftoff" in res.output, res.output
+    res = _run(["route", dem, "--start", lon0, lat0, "--end", lon1, lat1, "--mu", 0.05, "--allow-liftoff",
+                "--out", out])
     assert res.exit_code in (0, 3), res.output
     if res.exit_code == 3:
         pytest.fail(f"no line on the real DEM: {res.output}")

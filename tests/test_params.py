@@ -13,7 +13,7 @@ from affine import Affine
 from rasterio import features
 from rasterio.crs import CRS
 
-from fallway.errors import FallwayIOError, NoFeasibleLine, ParameterError
+from fallway.errors import FallwayIOError, ParameterError
 from fallway.lattice.search import lattice_line
 from fallway.keepout import Keepout
 from fallway.params import Limits
@@ -86,9 +86,15 @@ def test_geopackage_and_route_avoids_the_area(tmp_path):
 def test_keepout_covering_the_end():
     t = slope_terrain()
     k = Keepout(utm_polygon(), UTM)
-    with pytest.raises(NoFeasibleLine) as ei:
-        lattice_line(t, t.cell_center(15, 0), t.cell_center(15, 20), Mover(mu=0.1), keepout=k)
-    assert ei.value.reason == "keepout"
+    # an end inside a no-go area moves to the nearest free cell centre, and says so
+    end = t.cell_center(15, 20)
+    assert utm_polygon().contains(shapely.Point(end))
+    line = lattice_line(t, t.cell_center(15, 0), end, Mover(mu=0.1), keepout=k)
+    moved = line.stats["end_moved_m"]
+    assert moved > 0 and "keep-out" in line.stats["end_moved_why"]
+    new_end = shapely.Point(line.points[-1, :2])
+    assert not utm_polygon().contains(new_end)
+    assert new_end.distance(shapely.Point(end)) == pytest.approx(moved, rel=1e-9)
 
 
 def test_signed_distance_against_geometry():

@@ -155,6 +155,10 @@ def test_full_model_adjoint_matches_differences_of_traverse(u0, mu, k):
 # the polished line
 
 
+# the polish of the sharp-corner time is not smooth where a vertex is straight (the turn
+# angle has a kink at 0): it can stop on its iteration cap with a small residual (6.9e-5 s/m
+# here) and says so; what this test checks is the time against the reference
+@pytest.mark.filterwarnings("ignore:refinement did not converge:fallway.errors.RefinementWarning")
 def test_polished_raised_line_matches_the_optimal_control_reference(reference_mu02):
     t_ref, end, min_n = reference_mu02
     assert end == pytest.approx((120.0, 45.0), abs=0.02)

@@ -136,3 +136,14 @@ def test_reach_geotiff_round_trip(tmp_path):
         np.testing.assert_array_equal(src.read(2), rm.speed_m_s.astype(np.float32))
 
 
+
+
+def test_refined_line_passes_its_via_points():
+    # a via point is a fixed point of the line (the user's requirement): the refined line
+    # must pass through it, not only the lattice line
+    t = valley(24, 26)
+    via = t.cell_center(4, 18)
+    r = find_route(t, t.cell_center(1, 1), t.cell_center(21, 23), Mover(mu=0.1), via=[via], limits=ENCLOSED)
+    assert r.summary.refined
+    assert np.hypot(r.line[:, 0] - via[0], r.line[:, 1] - via[1]).min() < 1e-9
+    assert r.summary.travel_time_s == pytest.approx(traverse(r.line, Mover(mu=0.1)).travel_time_s, rel=1e-12)

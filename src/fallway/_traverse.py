@@ -54,7 +54,7 @@ from ._segment import segment_law
 #: Target stiffness (change of ln u) per RK4 substep.
 _STEP_STIFFNESS = 0.1
 #: Turning angles up to this (rad) are rounding noise of collinear points: straight.
-_STRAIGHT_RAD = 1e-12
+_STRAIGHT_RAD = 1e-8
 #: Upper bound on RK4 substeps per half-segment.
 _MAX_SUBSTEPS = 256
 

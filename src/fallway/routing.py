@@ -49,7 +49,7 @@ from .params import Limits, LineSpec, Mover, SearchOptions, checked_options
 from .physics import check_mu_range, traverse
 from .refine import refine_line
 from .relax import describe, find_workable, relaxations_for
-from .results import LatticeLine, ReachMap, Route, RouteSummary
+from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
 from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside, lowest_within,
                     search_memory_bytes, terrain_source)
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
@@ -231,6 +231,11 @@ def _explained(err: NoFeasibleLine, src, points, job: _Job, memory_limit_bytes, 
     findings, stats = find_workable(probe, job.mover, job.limits, cands, budget_s=budget,
                                     max_probes=WORKABLE_MAX_PROBES)
     clause = describe(findings, stats, candidates=cands, estimated_on=estimated)
+    if "liftoff" in violated and not findings:
+        s = route.summary
+        clause = (f"an open line lifts off over a crest (bed force {s.min_liftoff_margin_g:.2f} g at "
+                  f"{s.min_liftoff_margin_station_m:.0f} m); for an enclosed chute or pipe give --allow-liftoff "
+                  "(limits.allow_liftoff)" + ("" if not cands else "; " + clause))
     msg = f"{str(err).rstrip('; ')}: {clause}" if clause else str(err)
     return NoFeasibleLine(msg, reason=err.reason, closest=err.closest, route=route if route is not None else err.route,
                           binding=tuple(f.name for f in findings),
@@ -455,9 +460,53 @@ def _num(v) -> float | None:
 
 
 def _refine(found: _Found, job: _Job, mover: Mover):
-    """Run the refinement on a plan's lattice line (polygon keep-outs only: a cell mask has no distance)."""
+    """Run the refinement on a plan's lattice line (polygon keep-outs only: a cell mask has no distance).
+
+    With via points the line is refined leg by leg between its fixed points: each leg
+    starts with the speed the refined leg before it delivers (arriving at the via point),
+    and the legs are joined there.  The joint optimum could trade a slower earlier leg for
+    a faster later one; leg by leg is the stated approximation.
+    """
     ko = found.keepout if isinstance(found.keepout, Keepout) else None
-    return refine_line(found.terrain, found.lattice.points, mover, limits=job.limits, keepout=ko, line=job.line)
+    pts = np.asarray(found.lattice.points, dtype=float)
+    if not job.via:
+        return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line)
+    cuts = [0] + [int(np.argmin(np.hypot(pts[:, 0] - x, pts[:, 1] - y))) for x, y in job.via] + [len(pts) - 1]
+    spec = job.line
+    if spec.kind == "raised":
+        above = raised_heights_m(pts, spec.start_height_m, spec.end_height_m, spec.clearance_m)
+    legs, v0 = [], mover.v0
+    for i, (a, b) in enumerate(zip(cuts[:-1], cuts[1:])):
+        leg_spec = spec if spec.kind != "raised" else dataclasses.replace(
+            spec, start_height_m=float(above[a]), end_height_m=float(above[b]))
+        rr = refine_line(found.terrain, pts[a:b + 1], dataclasses.replace(mover, v0=v0), limits=job.limits,
+                         keepout=ko, line=leg_spec)
+        legs.append(rr)
+        v_end = float(rr.profile.speed_m_s[-1])
+        v0 = v_end if math.isfinite(v_end) else 0.0
+    return _joined(legs, pts, mover)
+
+
+def _joined(legs, start_line: np.ndarray, mover: Mover) -> RefineResult:
+    """One :class:`RefineResult` of a line refined leg by leg (``legs`` in order)."""
+    line = np.vstack([legs[0].line] + [np.asarray(r.line)[1:] for r in legs[1:]])
+    profile = traverse(line, mover)
+    rank = {"inactive": 0, "active": 1, "violated": 2}
+    limits: dict = {}
+    for r in legs:
+        for k, v in (r.limits or {}).items():
+            if rank.get(v, 0) >= rank.get(limits.get(k, "inactive"), 0):
+                limits[k] = v
+    tag = [f"leg {i + 1}" for i in range(len(legs))]
+    return RefineResult(
+        line=line, profile=profile, iterations=int(sum(r.iterations for r in legs)),
+        residual=float(max(r.residual for r in legs)), converged=all(r.converged for r in legs),
+        time_before_s=float(traverse(start_line, mover).travel_time_s), time_after_s=float(profile.travel_time_s),
+        message="; ".join(f"{t}: {r.message}" for t, r in zip(tag, legs)), limits=limits,
+        polish="; ".join(f"{t}: {r.polish}" for t, r in zip(tag, legs) if r.polish),
+        chosen="; ".join(f"{t}: {r.chosen}" for t, r in zip(tag, legs)),
+        candidates=tuple(dataclasses.replace(c, name=f"{t}: {c.name}") for t, r in zip(tag, legs)
+                         for c in r.candidates))
 
 
 def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
