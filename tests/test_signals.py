@@ -46,7 +46,7 @@ def dems(tmp_path_factory):
     # subject: rough ground has crests)
     slow = ["route", d / "rough150.tif", *_rough(d / "rough150.tif", 150), "--neighbours", "32", "--mu", "0.1",
             "--no-refine", "--allow-liftoff"]
-    quick = ["route", d / "rough60.tif", *_rough(d / "rough60.tif", 60), "--mu", "0.1", "--no-refine",
+    quick = ["route", d / "rough60.tif", *_rough(d / "rough60.tif", 60), "--mu", "0.05", "--no-refine",
              "--allow-liftoff"]
     return {"slow": slow, "quick": quick}
 
