@@ -113,7 +113,7 @@ def rounded_start(prob: Problem, P_start: np.ndarray, r_min: float, h0: float, h
 
 
 def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, sweeps: int = 400,
-                  rounds: int = 4) -> np.ndarray | None:
+                  rounds: int = 4, model: str | None = None) -> np.ndarray | None:
     """A refined line whose bends are too tight, repaired: the penalty leaves a few tight
     triples, smoothed out locally.  Each vertex needs the radius of
     :func:`fallway.loads.required_radius_m` at its speed (the bend radius limit, and the
@@ -123,10 +123,11 @@ def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, swee
     midpoint of their neighbours, which spreads the bend over more vertices; ends stay
     fixed, heights follow the ground (or the clearance band).  Speeds change with the
     line, so the required radii are measured again after each round of sweeps (at most
-    ``rounds``).  A line that breaks no bend limit (or None) is returned as it is."""
+    ``rounds``).  Speeds with ``model`` (default the mover's own).  A line that breaks no
+    bend limit (or None) is returned as it is."""
     lim = prob.limits
     bend = ("min_radius", "lateral_g", "normal_g", "liftoff")
-    model = prob.mover.normal
+    model = prob.mover.normal if model is None else model
     if P is None or (lim.min_radius_m is None and not lim.speed_aware):
         return P
     for _ in range(rounds):
@@ -221,7 +222,7 @@ def _resolve_repaired(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: P
     for _ in range(_REPAIR_ROUNDS):
         if not any(prob.violations(P, model).get(k) == "violated" for k in _BENDS):
             break
-        Q = repair_radius(prob, P, P_start)
+        Q = repair_radius(prob, P, P_start, model=model)
         if Q is P or not np.all(np.isfinite(Q)):
             break
         prob.w_pen = w0
