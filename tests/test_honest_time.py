@@ -156,3 +156,25 @@ def test_exported_route_re_times_to_the_reported_figure(tmp_path):
     dense = np.vstack([np.linspace(a, b, 4)[:-1] for a, b in zip(P[:-1], P[1:])] + [P[-1:]])
     p = traverse(dense, Mover(mu=mu, drag=k))
     assert p.travel_time_s == pytest.approx(s["travel_time_s"], rel=1e-9)
+
+
+def test_round_corners_can_hold_the_three_point_circumradius():
+    # legs of 20 m and 30 m meeting at 60° of turn: the circle through the three vertices has
+    # R = abc / (4 area) (any geometry text); the half-shorter-leg arc, t = 10 m, has radius
+    # t / tan(30°) = 17.3 m, tighter; the arc tangent at R tan(30°) = 14.5 m holds R
+    A, B = np.array([0.0, 0, 0]), np.array([20.0, 0, 0])
+    C = B + 30.0 * np.array([np.cos(np.pi / 3), np.sin(np.pi / 3), 0.0])
+    a, b, c = np.linalg.norm(B - C), np.linalg.norm(A - C), np.linalg.norm(A - B)
+    R = a * b * c / (4 * 0.5 * np.linalg.norm(np.cross(B - A, C - A)))
+    P = np.array([A, B, C])
+
+    def radii(L):
+        return np.array([np.linalg.norm(L[i] - L[i + 1]) * np.linalg.norm(L[i] - L[i - 1])
+                         * np.linalg.norm(L[i + 1] - L[i - 1])
+                         / (2 * np.linalg.norm(np.cross(L[i] - L[i - 1], L[i + 1] - L[i - 1])))
+                         for i in range(1, len(L) - 1)])
+
+    assert radii(round_corners(P)).min() == pytest.approx(10.0 / np.tan(np.pi / 6), rel=1e-9)
+    held = round_corners(P, hold_circumradius=True)
+    assert radii(held).min() >= R * (1 - 1e-9)
+    assert _turns_deg(held).max() <= MAX_VERTEX_TURN_DEG + 1e-9

@@ -179,7 +179,7 @@ MIN_EXPORT_SEGMENT_M = 0.05
 
 
 def round_corners(points, max_turn_deg: float = MAX_VERTEX_TURN_DEG, *, fixed_xy=(),
-                  min_segment_m: float = 0.0) -> np.ndarray:
+                  min_segment_m: float = 0.0, hold_circumradius: bool = False) -> np.ndarray:
     """The 3D polyline with every corner sharper than ``max_turn_deg`` replaced by an arc.
 
     First, with ``min_segment_m`` > 0, vertices closer than that to the previous kept
@@ -195,6 +195,16 @@ def round_corners(points, max_turn_deg: float = MAX_VERTEX_TURN_DEG, *, fixed_xy
     sharp-corner reading (:func:`fallway.traverse`) then agrees with its smooth reading,
     and bend radius, lateral acceleration and lift-off read off consecutive vertices.
     End vertices and vertices at ``fixed_xy`` (via points, within 1 mm in plan) stay.
+
+    With ``hold_circumradius`` the tangent length grows, where the segments leave room,
+    until the arc's radius is the corner's 3D circumradius (the circle through the vertex
+    and its two neighbours, the smooth reading the bend limits are judged on): ``t =
+    max(t_half, min(R3 tan(phi / 2), room))``, ``room`` the part of each adjoining segment
+    the corner at its other end leaves (its own tangent length when it is rounded, none when
+    it is not, the whole segment at an end).  Half the shorter segment gives a radius of
+    ``R3 cos(phi / 2)`` at best (equal segments) and about ``R3 s_short / s_long`` between
+    unequal ones.  A vertex left as it is next to a rounded corner sees a shorter chord and
+    a tighter circumradius: a caller holding a bend limit re-checks the result.
 
     Examples
     --------
@@ -224,13 +234,27 @@ def round_corners(points, max_turn_deg: float = MAX_VERTEX_TURN_DEG, *, fixed_xy
     d = np.diff(P, axis=0)
     s = np.linalg.norm(d, axis=1)
     T = d / s[:, None]
+    n_in = len(P) - 2
+    phis = np.array([math.atan2(float(np.linalg.norm(np.cross(T[i - 1], T[i]))), float(T[i - 1] @ T[i]))
+                     for i in range(1, len(P) - 1)])
+    half = 0.5 * np.minimum(s[:-1], s[1:])
+    pins = np.array([bool(len(fixed) and np.min(np.hypot(*(fixed - P[i, :2]).T)) < 1e-3)
+                     for i in range(1, len(P) - 1)])
+    rounded = (phis > lim) & ~pins & (half > SAME_POINT_M) & (phis < math.pi - 1e-9)
+    tan_len = np.where(rounded, half, 0.0)
+    if hold_circumradius:
+        need = circumradii(P, dims=3) * np.tan(0.5 * phis)
+        for k in np.nonzero(rounded)[0]:
+            # the previous corner's final tangent length, the next one's half-segment share
+            room_prev = s[k] - (tan_len[k - 1] if k > 0 else 0.0)
+            room_next = s[k + 1] - (tan_len[k + 1] if k + 1 < n_in else 0.0)
+            tan_len[k] = max(half[k], min(need[k], room_prev, room_next))
     out = [P[0]]
     for i in range(1, len(P) - 1):
         a, b = T[i - 1], T[i]
-        phi = math.atan2(float(np.linalg.norm(np.cross(a, b))), float(a @ b))
-        t = 0.5 * min(s[i - 1], s[i])
-        pinned = len(fixed) and np.min(np.hypot(*(fixed - P[i, :2]).T)) < 1e-3
-        if phi <= lim or pinned or t <= SAME_POINT_M or phi >= math.pi - 1e-9:
+        phi = float(phis[i - 1])
+        t = float(tan_len[i - 1])
+        if not rounded[i - 1]:
             out.append(P[i])
             continue
         n = b - (a @ b) * a

@@ -74,6 +74,41 @@ def _fractions(P) -> np.ndarray:
     return s / s[-1] if s[-1] > 0 else np.linspace(0.0, 1.0, len(P))
 
 
+def _interp_slope(x, xp, fp) -> np.ndarray:
+    """d/dx of ``np.interp(x, xp, fp)``: the slope of the piece holding each x (0 outside
+    ``xp``, on a piece of zero width and where a node's value is not finite)."""
+    xp = np.asarray(xp, float)
+    fp = np.asarray(fp, float)
+    if len(xp) < 2:
+        return np.zeros_like(x)
+    k = np.clip(np.searchsorted(xp, x, side="right") - 1, 0, len(xp) - 2)
+    dx = xp[k + 1] - xp[k]
+    df = fp[k + 1] - fp[k]
+    inside = (x >= xp[0]) & (x <= xp[-1]) & (dx > 0) & np.isfinite(df)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(inside, df / np.where(dx > 0, dx, 1.0), 0.0)
+
+
+def _fraction_grad(P, c) -> np.ndarray:
+    """Gradient (N, 3) of ``sum(c * f)`` with ``f`` the station fractions of the interior
+    vertices (:func:`_fractions`) and ``c`` fixed: f_i = s_i / S, each segment's length
+    enters the stations after it and the total."""
+    d = np.diff(P, axis=0)
+    seg = np.linalg.norm(d, axis=1)
+    S = float(seg.sum())
+    G = np.zeros_like(P)
+    if not S > 0 or not np.any(c):
+        return G
+    s = np.concatenate([[0.0], np.cumsum(seg)])[1:-1]
+    # segment j lies before interior vertices j+1 .. N-2: weight sum_{i > j} c_i
+    after = np.concatenate([np.cumsum(c[::-1])[::-1], [0.0]])
+    W = after / S - float(np.dot(c, s)) / S ** 2
+    u = d / np.maximum(seg, 1e-300)[:, None]
+    G[1:] += W[:, None] * u
+    G[:-1] -= W[:, None] * u
+    return G
+
+
 class Problem:
     """The optimisation problem: variables <-> vertices, objective, bounds, checks.
 
@@ -243,9 +278,17 @@ class Problem:
             v, gg = grade_penalty(P, lim.min_grade, lim.max_grade, self.w_pen, 1e-3, self.eps_plan)
             f += v
             G += gg
-        radii = self.bend_radii(P) if self.bends is not None else lim.min_radius_m
-        if radii is not None:
-            v, gg = radius_penalty(P, radii, self.w_pen, 2e-3)
+        if self.bends is not None:
+            # the frozen radii follow the station fraction, which every vertex moves: the
+            # penalty's derivative in the radius is chained through the fractions (without
+            # it the gradient misses a term as large as the penalty's own where the
+            # required radius changes fast along the line, and the solver stalls)
+            fr = _fractions(P)[1:-1]
+            v, gg, dr = radius_penalty(P, np.interp(fr, *self.bends), self.w_pen, 2e-3, radius_grad=True)
+            f += v
+            G += gg + _fraction_grad(P, dr * _interp_slope(fr, *self.bends))
+        elif lim.min_radius_m is not None:
+            v, gg = radius_penalty(P, lim.min_radius_m, self.w_pen, 2e-3)
             f += v
             G += gg
         for fld, marg in ((self.keep, self.margin), (self.nodata, 1.5 * self.cell)):

@@ -113,7 +113,7 @@ def rounded_start(prob: Problem, P_start: np.ndarray, r_min: float, h0: float, h
 
 
 def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, sweeps: int = 400,
-                  rounds: int = 4) -> np.ndarray | None:
+                  rounds: int = 4, model: str | None = None) -> np.ndarray | None:
     """A refined line whose bends are too tight, repaired: the penalty leaves a few tight
     triples, smoothed out locally.  Each vertex needs the radius of
     :func:`fallway.loads.required_radius_m` at its speed (the bend radius limit, and the
@@ -123,10 +123,11 @@ def repair_radius(prob: Problem, P: np.ndarray | None, P_start: np.ndarray, swee
     midpoint of their neighbours, which spreads the bend over more vertices; ends stay
     fixed, heights follow the ground (or the clearance band).  Speeds change with the
     line, so the required radii are measured again after each round of sweeps (at most
-    ``rounds``).  A line that breaks no bend limit (or None) is returned as it is."""
+    ``rounds``).  Speeds with ``model`` (default the mover's own).  A line that breaks no
+    bend limit (or None) is returned as it is."""
     lim = prob.limits
     bend = ("min_radius", "lateral_g", "normal_g", "liftoff")
-    model = prob.mover.normal
+    model = prob.mover.normal if model is None else model
     if P is None or (lim.min_radius_m is None and not lim.speed_aware):
         return P
     for _ in range(rounds):
@@ -197,8 +198,40 @@ def gravity_stage(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: 
         run.converged, run.residual = ok, res
         if not ok and last:
             run.notes.append(f"level {li + 1} ({n} vertices): {msg}")
-    run.line = _strengthen(prob, P, plan, run, model)
+    w0 = prob.w_pen
+    P = _strengthen(prob, P, plan, run, model)
+    run.line = _resolve_repaired(prob, P, P_start, plan, run, model, w0)
     return run
+
+
+#: rounds of repair and re-solve after the strengthened penalties (gravity stage)
+_REPAIR_ROUNDS = 3
+_BENDS = ("min_radius", "lateral_g", "normal_g", "liftoff")
+
+
+def _resolve_repaired(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan, run: GravityRun, model: str,
+                      w0: float) -> np.ndarray:
+    """While the line still breaks a bend limit: repair it (:func:`repair_radius`), freeze
+    the required radii of the repaired line and solve again from it at the stage's own
+    penalty weight (then stronger ones).  The curvature penalty is a barrier the solver
+    cannot cross: a loop (the lattice's detour to a via point, or a fold left by a level)
+    must tighten before it can shrink, so the solver stays on it; the repair's smoothing
+    crosses it, and the re-solve makes the repaired line stationary again with the limits
+    held at the new speeds (a repaired line alone often misses them: straightening a bend
+    raises its speed).  The line comes from the solver unless no round ran."""
+    for _ in range(_REPAIR_ROUNDS):
+        if not any(prob.violations(P, model).get(k) == "violated" for k in _BENDS):
+            break
+        Q = repair_radius(prob, P, P_start, model=model)
+        if Q is P or not np.all(np.isfinite(Q)):
+            break
+        prob.w_pen = w0
+        prob.update_bends(Q, model)
+        P, it, res, ok, _ = solve(prob, Q, plan.max_iter, plan.gtol)
+        run.iterations += it
+        run.converged, run.residual = ok, res
+        P = _strengthen(prob, P, plan, run, model)
+    return P
 
 
 def _strengthen(prob: Problem, P: np.ndarray, plan: Plan, run: GravityRun, model: str) -> np.ndarray:
