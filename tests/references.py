@@ -245,9 +245,10 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     in the vertical plane of the bisector) and the walls (√(1 − c²)), each with Coulomb
     friction: the angle becomes φ(√(1 − c²) + c), φ for a plan turn or a sag; a crest
     (c < 0) relieves the bed (the sharp limit of a convex arc whose
-    normal force is g cos θ − v²κ; A. W. Roberts' curved-chute equation, CHECKS), a gain
-    of v² bounded by the gravity-normal friction μg·(plan length) of the two
-    half-segments beside the corner (where that bound binds the mover would lift off).
+    normal force is g cos θ − v²κ; A. W. Roberts' curved-chute equation, CHECKS): the
+    bed friction over the corner is μ|G − v²φ| instead of μG, G the gravity-normal part
+    of half the straight runs either side up to the neighbouring corners (past G the
+    mover would lift off an open bed; an enclosed line's cover presses).
     Returns ``(time_s, exit_speed_m_s)`` (``inf``, ``nan`` when the mover stops).
     """
     P = np.asarray(points, dtype=float)
@@ -259,8 +260,8 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     def angle(a, b):
         return math.atan2(float(np.linalg.norm(np.cross(a, b))), float(a @ b))
 
-    # a turn below 1e-8 rad is rounding noise of collinear points (as in fallway)
-    bend = [j > 0 and angle(unit[j - 1], unit[j]) > 1e-8 for j in range(len(d))]
+    # a turn below 1e-6 rad is rounding noise of collinear points (as in fallway)
+    bend = [j > 0 and angle(unit[j - 1], unit[j]) > 1e-6 for j in range(len(d))]
     plan = np.hypot(d[:, 0], d[:, 1])
     before, after = np.zeros(len(d)), np.zeros(len(d))
     for j in range(1, len(d)):
@@ -281,7 +282,7 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
         if j:
             a, b = d[j - 1] / np.linalg.norm(d[j - 1]), seg / np.linalg.norm(seg)
             phi = angle(a, b)
-            phi = phi if phi > 1e-8 else 0.0
+            phi = phi if phi > 1e-6 else 0.0
             if channel and phi > 0.0:
                 # the turn's component across the bed (up: the upward normal in the
                 # vertical plane of the bisector); a crest relieves the bed
@@ -294,9 +295,12 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
                     phi = phi * (float(np.linalg.norm(n - c * up)) + c)
             if phi >= 0.0:
                 v *= math.exp(-mu * phi)
-            else:  # relief, at most the gravity-normal friction of the two half-segments
-                relief = mu * g * (before[j] + after[j])
-                v = math.sqrt(min(v * v * math.exp(-2.0 * mu * phi), v * v + relief))
+            else:  # a crest: bed friction μ|G − v²φ| instead of μG over the corner (G the
+                # gravity-normal impulse of half the runs either side): a gain 2μv²φ up to
+                # 2μG, past that the cover of an enclosed line presses again
+                cap = mu * g * (before[j] + after[j])
+                gain = v * v * (math.exp(-2.0 * mu * phi) - 1.0)
+                v = math.sqrt(max(v * v + min(gain, 2.0 * cap - gain), 0.0))
         v, dt = incline_step(v, -float(seg[2]), float(math.hypot(seg[0], seg[1])), mu, k, g)
         if not math.isfinite(dt):
             return math.inf, math.nan
@@ -318,8 +322,8 @@ def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float 
 
     ``law="separate"``: the bed carries gravity's normal part plus the bend's part across
     the bed (c = n·up, signed: a sag presses, a crest relieves), the walls the rest:
-    |N| = |g_perp| + v²κ(c + √(1 − c²)) (the continuous limit of the sharp-corner
-    reading);
+    |N| = ||g_perp| + v²κc| + v²κ√(1 − c²) (past lift-off an enclosed line's cover
+    presses; the continuous limit of the sharp-corner reading);
     ``law="vector"``: |N| = |v²κ n − g_perp| (a point mass on one smooth surface;
     CHECKS "Level bend").  Integrated half-segment by half-segment with ``solve_ivp``
     (DOP853).  Returns ``(time_s, exit_speed_m_s)``.
@@ -348,16 +352,18 @@ def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float 
             # the bend's parts across the bed (signed: a sag presses, a crest relieves) and
             # against the walls; up: the upward normal in the vertical plane of the chord
             up = np.array([0.0, 0.0, 1.0]) - T[j][2] * T[j]
-            shares = 1.0
+            c_bed, c_wall = 0.0, 1.0
             if np.linalg.norm(up) > 1e-12 and kv > 0.0:
                 up = up / np.linalg.norm(up)
-                c = float(nv @ up)
-                shares = float(np.linalg.norm(nv - c * up)) + c
+                c_bed = float(nv @ up)
+                c_wall = float(np.linalg.norm(nv - c_bed * up))
 
-            def rhs(_s, y, kv=kv, nv=nv, gt=gt, gp=gp, shares=shares):
+            def rhs(_s, y, kv=kv, nv=nv, gt=gt, gp=gp, c_bed=c_bed, c_wall=c_wall):
                 w = max(y[0], 0.0)
                 if law == "separate":
-                    nmag = np.linalg.norm(gp) + w * kv * shares
+                    # past lift-off the bed force changes sign: an enclosed line's cover
+                    # presses (an open line would fly; that is judged apart)
+                    nmag = abs(np.linalg.norm(gp) + w * kv * c_bed) + w * kv * c_wall
                 else:
                     nmag = np.linalg.norm(w * kv * nv - gp)
                 v = math.sqrt(w) if w > 0 else 1e-12

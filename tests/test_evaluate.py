@@ -822,3 +822,28 @@ def test_exact_robust_route_takes_a_robust_nominal_optimum_at_once():
     assert rr.travel_time_s == pytest.approx(plain.travel_time_s, rel=1e-12)
     again = evaluate_line(t, np.asarray(rr.line), Mover(mu=0.2, drag=0.01, normal="gravity"))
     assert again.status == "ok"
+
+
+def test_lay_on_ground_keeps_every_segment_near_the_ground():
+    # the ground: scipy's interpolating bicubic spline through the cell centres (the surface
+    # Terrain.sample reproduces, tests/test_terrain.py); a chord across a wavy slope must be
+    # given vertices until no point of it, sampled at a tenth of a cell, strays more than the
+    # tolerance (+0.05 m between the half-cell checks) from that spline
+    from scipy.interpolate import RectBivariateSpline
+
+    from fallway.evaluate import GROUND_TOLERANCE_M, lay_on_ground
+    from fallway.terrain import Terrain
+
+    n, cell = 40, 5.0
+    r, c = np.mgrid[0:n, 0:n]
+    z = 300.0 - 1.5 * cell * c + 6.0 * np.sin(c / 3.0) * np.cos(r / 4.0)
+    t = Terrain.from_array(z, (cell, 0, 0.0, 0, -cell, n * cell))
+    spline = RectBivariateSpline(np.arange(n) * cell + cell / 2, np.arange(n) * cell + cell / 2, z[::-1],
+                                 kx=3, ky=3, s=0)
+    line = lay_on_ground(t, [(12.0, 150.0, 0.0), (180.0, 20.0, 0.0)])
+    assert len(line) > 2
+    for a, b in zip(line[:-1], line[1:]):
+        f = np.linspace(0.0, 1.0, max(2, int(np.hypot(*(b[:2] - a[:2])) / (cell / 10)) + 1))
+        x, y = a[0] + f * (b[0] - a[0]), a[1] + f * (b[1] - a[1])
+        ground = spline.ev(y, x)
+        assert np.max(np.abs(a[2] + f * (b[2] - a[2]) - ground)) <= GROUND_TOLERANCE_M + 0.05

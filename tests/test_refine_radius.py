@@ -117,6 +117,9 @@ def test_no_line_meeting_the_limits_is_said_loudly():
         assert "no line meeting the limits" in res.message
 
 
+# what is checked here is the radius; a full-model polish may stop on its iteration cap
+# (its time has kinks where a vertex is straight) and says so with a RefinementWarning
+@pytest.mark.filterwarnings("ignore:refinement did not converge:fallway.errors.RefinementWarning")
 def test_a_lattice_start_that_breaks_the_radius_gives_a_line_that_meets_it():
     # an 8-neighbour staircase (diagonal, then straight steps of one cell) has a corner of
     # circumradius ~1.6 m; with a 12 m limit the returned line must meet it, and a slower

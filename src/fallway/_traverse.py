@@ -54,7 +54,7 @@ from ._segment import segment_law
 #: Target stiffness (change of ln u) per RK4 substep.
 _STEP_STIFFNESS = 0.1
 #: Turning angles up to this (rad) are rounding noise of collinear points: straight.
-_STRAIGHT_RAD = 1e-8
+_STRAIGHT_RAD = 1e-6
 #: Upper bound on RK4 substeps per half-segment.
 _MAX_SUBSTEPS = 256
 
@@ -231,17 +231,22 @@ def corner_v2(u, phi, mu, g, plan_a, plan_b):
     """Squared speed after a sharp corner of friction angle ``phi`` (:func:`turn_angle`).
 
     ``phi >= 0``: the capstan law, ``u e^(-2 mu phi)``.  ``phi < 0`` (a crest relieves
-    the bed): ``u e^(2 mu |phi|)``, but never more than the gravity-normal friction of
-    half the straight runs either side, ``mu g (plan_a + plan_b)`` of ``v²`` (``plan_a``,
-    ``plan_b``: plan lengths of the runs to the neighbouring corners, so collinear
-    vertices change nothing): the relief of a convex arc is bounded by the normal force
-    it relieves, and the bound binds only where the mover would lift off (``v² kappa > g
-    cos θ``).  :func:`window_step` (the refinement's four-vertex window) takes the two
+    the bed): a gain ``u (e^(2 mu |phi|) - 1)`` of ``v²`` up to ``cap``, the gravity-normal
+    friction of half the straight runs either side, ``mu g (plan_a + plan_b)``
+    (``plan_a``, ``plan_b``: plan lengths of the runs to the neighbouring corners, so
+    collinear vertices change nothing); past the cap the bed force would change sign (the
+    mover would lift off an open bed, ``v² kappa > g cos θ``), and an enclosed line's
+    cover takes the excess with friction: ``u + min(gain, 2 cap - gain)``, the sharp
+    limit of friction ``mu |g cos θ - v² kappa|`` over the crest.  :func:`window_step` (the refinement's four-vertex window) takes the two
     adjoining segments as the runs.
     """
     if phi >= 0.0:
         return u * math.exp(-2.0 * mu * phi)
-    return min(u * math.exp(-2.0 * mu * phi), u + mu * g * (plan_a + plan_b))
+    gain = u * (math.exp(-2.0 * mu * phi) - 1.0)
+    cap = mu * g * (plan_a + plan_b)
+    # beyond the cap the bed force changes sign: an enclosed line's cover then presses
+    # and takes friction again, |g cos θ - v² kappa| (an open line lifts off: judged apart)
+    return max(u + min(gain, 2.0 * cap - gain), 0.0)
 
 
 @njit(cache=True, nogil=True, inline="always")

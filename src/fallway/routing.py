@@ -39,7 +39,8 @@ import numpy as np
 
 from .caution import CAUTION
 from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
-from .evaluate import COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, limit_issues, row_for_line
+from .evaluate import (COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, lay_on_ground, limit_issues,
+                       row_for_line)
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
 from .loads import Loads, line_loads, load_status
 from .keepout import Keepout
@@ -459,6 +460,19 @@ def _num(v) -> float | None:
     return None if not math.isfinite(v) else v
 
 
+def _exported(terrain, line, job: _Job) -> np.ndarray:
+    """A line as a route exports it: corners sampled as arcs (<= 5° of turn per vertex,
+    detail under 5 cm dropped); a ground line then kept within
+    :data:`~fallway.evaluate.GROUND_TOLERANCE_M` of the ground along every segment (a
+    straight chord between far-apart vertices would cut through a convex slope:
+    :func:`~fallway.evaluate.lay_on_ground`) and its new bends sampled the same way.  Its
+    time is the reported one."""
+    P = round_corners(np.asarray(line, dtype=float), fixed_xy=job.via, min_segment_m=MIN_EXPORT_SEGMENT_M)
+    if job.line.kind == "ground":
+        P = round_corners(lay_on_ground(terrain, P), fixed_xy=job.via)
+    return P
+
+
 def _refine(found: _Found, job: _Job, mover: Mover):
     """Run the refinement on a plan's lattice line (polygon keep-outs only: a cell mask has no distance).
 
@@ -525,14 +539,26 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         t0 = time.perf_counter()
         rr = _refine(found, job, mover)
         compute["refine"] = time.perf_counter() - t0
-        # the chosen line with its corners sampled as arcs (<= 5° of turn per vertex): the
-        # exported line, and its time is the reported one
-        final = round_corners(np.asarray(rr.line, dtype=float), fixed_xy=job.via, min_segment_m=MIN_EXPORT_SEGMENT_M)
+        final = _exported(terrain, rr.line, job)
+    on_ground = None  # (time of the refined line on the ground, of the lattice line) when the lattice line wins
+    if rr is not None and job.line.kind == "ground":
+        # the refinement sees the ground only at its vertices: laid on the ground, its line
+        # can be slower than the lattice line laid the same way; the faster one that meets
+        # the limits is reported
+        alt = _exported(terrain, lat.points, job)
+        judged = []
+        for P in (final, alt):
+            prof = _timed(terrain, P, mover, "ground")
+            bad = _violated(terrain, P, prof, job.limits, found.keepout, _loads(terrain, P, prof, mover, "ground"))
+            judged.append((len(bad), prof.travel_time_s if prof.feasible else math.inf))
+        if judged[1] < judged[0]:
+            on_ground = (judged[0][1], judged[1][1])
+            final = alt
     profile = _timed(terrain, final, mover, job.line.kind)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
     loads = _loads(terrain, final, profile, mover, job.line.kind)
     violated = _violated(terrain, final, profile, job.limits, found.keepout, loads)
-    if rr is not None:
+    if rr is not None and on_ground is None:
         violated += [k for k, v in (rr.limits or {}).items() if v == "violated" and k not in violated]
     d = np.diff(final, axis=0)
     plan = np.hypot(d[:, 0], d[:, 1])
@@ -563,11 +589,13 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         labels_settled=int(st.get("labels_settled", 0)),
         corridor=found.corridor,
         refined=rr is not None,
-        refine_choice=None if rr is None else (rr.chosen or None),
+        refine_choice=None if rr is None else ("lattice line, on the ground" if on_ground else (rr.chosen or None)),
         refine_converged=None if rr is None else bool(rr.converged),
         refine_iterations=None if rr is None else int(rr.iterations),
         refine_residual_s_per_m=None if rr is None else _num(rr.residual),
-        refine_message=None if rr is None else str(rr.message),
+        refine_message=None if rr is None else str(rr.message) + (
+            "" if on_ground is None else f"; laid on the ground the refined line takes {on_ground[0]:.3f} s, the "
+                                         f"lattice line {on_ground[1]:.3f} s: the lattice line is reported"),
         refine_limits=None if rr is None else dict(rr.limits or {}),
         refine_candidates=None if rr is None else [dataclasses.asdict(c) for c in rr.candidates],
         robust_method=None,
