@@ -406,12 +406,17 @@ vector_texts = st.one_of(
 )
 
 
+def _vector_file(path: Path, text: str) -> Path:
+    """``text`` written to ``path`` (non-ASCII text as Latin-1 bytes, to reach the decoder)."""
+    path.write_bytes(text.encode("latin-1", "replace") if not text.isascii() else text.encode())
+    return path
+
+
 @fuzz(25)
 @given(text=vector_texts)
 def test_keepout_files(site, text):
     with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "keepout.geojson"
-        path.write_bytes(text.encode("latin-1", "replace") if not text.isascii() else text.encode())
+        path = _vector_file(Path(tmp) / "keepout.geojson", text)
         code, err, exc = invoke(["route", site, "--start", *_xy(START), "--end", *_xy(END), "--no-refine",
                                  "--keepout", path])
     check_contract(code, err, exc, (str(path), "keep-out", "keepout"))
@@ -421,8 +426,7 @@ def test_keepout_files(site, text):
 @given(text=vector_texts)
 def test_candidate_line_files(site, text):
     with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "lines.geojson"
-        path.write_bytes(text.encode("latin-1", "replace") if not text.isascii() else text.encode())
+        path = _vector_file(Path(tmp) / "lines.geojson", text)
         code, err, exc = invoke(["compare", site, path, "--no-optimum"])
     check_contract(code, err, exc, (str(path), "line"))
 

@@ -13,8 +13,8 @@ the same exact straight-segment law on every segment, and at every interior vert
 belt-friction (capstan) law of Euler–Eytelwein, ``v_out = v_in exp(-mu phi)``, ``phi``
 the turn's friction angle (:func:`turn_angle`: the turning angle of a plan turn or a sag;
 for a mixed turn the bed and the walls each take their part; a crest relieves the bed
-instead, bounded in :func:`corner_v2`).  The bed carries gravity's normal part, the walls the centripetal
-force, each with Coulomb friction: the continuous limit is ``|N| = |g_perp| + v²|kappa|``
+instead, bounded in :func:`corner_v2`).  The bed carries gravity's normal part, the
+walls the centripetal force, each with Coulomb friction: the continuous limit is ``|N| = |g_perp| + v²|kappa|``
 (exact for a channel with a bed and side walls; a point mass on one banked surface would
 see the smaller ``|v² kappa n - g_perp|``: this reading is the conservative one).  The
 time is a property of the line's shape: a collinear vertex turns by 0 and changes
@@ -26,20 +26,17 @@ The normal force ratio and lift-off outputs are read on the smooth reading of th
 vertices: a discrete curvature vector at each interior vertex with turning angle
 ``phi_i`` between ``T_{i-1}`` and ``T_i``, ``|kappa_i| = phi_i / l_i``, ``l_i =
 (s_{i-1} + s_i) / 2``, ``n_i`` along ``T_i - T_{i-1}`` (:func:`vertex_turn`); the load
-is the resultant ``|v² kappa n - g_perp|`` of bed and wall forces.  The curved-segment
-integrator (:func:`curved_step`, :func:`half_step`, :func:`full_segment_step`: RK4 on
-half-segments carrying the spread curvature) is kept for that smooth reading.
+is the resultant ``|v² kappa n - g_perp|`` of bed and wall forces.
 
 Ends: the line starts along its first segment and ends along its last (no turn at the
 end vertices).  The speed at a vertex is the speed arriving there (before its corner).
 
 Building blocks (all ``@njit(cache=True, nogil=True)``, scalars and flat arrays):
-:func:`vertex_turn` (the discrete curvature at one vertex), :func:`vertex_geometry`
-(directions, lengths, curvature per vertex), :func:`bend_kdg`, :func:`half_step`,
-:func:`full_segment_step` (one segment of the full model), :func:`window_step` (one
-segment from its four-vertex window, for the refinement's adjoint),
-:func:`curved_step` and :func:`normal_rate` (the ODE), and :func:`traverse_kernel` (a
-whole line).  Functions return status codes, never raise: callers translate them.
+:func:`turn_angle` and :func:`corner_v2` (a corner's friction angle and its law),
+:func:`vertex_turn` (the discrete curvature at one vertex, smooth reading),
+:func:`vertex_geometry` (directions, lengths, curvature per vertex), :func:`window_step`
+(one segment from its window of vertices, for the refinement's adjoint) and
+:func:`traverse_kernel` (a whole line).  Functions return status codes, never raise: callers translate them.
 """
 
 from __future__ import annotations
@@ -51,110 +48,8 @@ from numba import njit
 
 from ._segment import segment_law
 
-#: Target stiffness (change of ln u) per RK4 substep.
-_STEP_STIFFNESS = 0.1
 #: Turning angles up to this (rad) are rounding noise of collinear points: straight.
 _STRAIGHT_RAD = 1e-6
-#: Upper bound on RK4 substeps per half-segment.
-_MAX_SUBSTEPS = 256
-
-
-@njit(cache=True, nogil=True)
-def normal_rate(u, b, kappa2, kdg, gperp2, mu, k):
-    """d(v²)/dσ on a half-segment of the full model at squared speed ``u``.
-
-    ``|N|² = u² kappa2 - 2 u kdg + gperp2`` with ``kdg = kappa * n . g_perp``.
-    """
-    if u < 0.0:
-        u = 0.0
-    n2 = u * u * kappa2 - 2.0 * u * kdg + gperp2
-    if n2 < 0.0:
-        n2 = 0.0
-    return 2.0 * b - 2.0 * mu * math.sqrt(n2) - 2.0 * k * u
-
-
-@njit(cache=True, nogil=True)
-def _rk4(u, h, b, kappa2, kdg, gperp2, mu, k):
-    k1 = normal_rate(u, b, kappa2, kdg, gperp2, mu, k)
-    k2 = normal_rate(u + 0.5 * h * k1, b, kappa2, kdg, gperp2, mu, k)
-    k3 = normal_rate(u + 0.5 * h * k2, b, kappa2, kdg, gperp2, mu, k)
-    k4 = normal_rate(u + h * k3, b, kappa2, kdg, gperp2, mu, k)
-    return u + h * (k1 + 2.0 * k2 + 2.0 * k3 + k4) / 6.0
-
-
-@njit(cache=True, nogil=True)
-def curved_step(v2_in, length_m, b, kappa2, kdg, gperp2, mu, k, v2_stall):
-    """Squared exit speed, time and stall position on one curved half-segment.
-
-    Parameters are per unit mass: ``b = g * drop / length`` (gravity along the path,
-    m/s²), ``kappa2 = kappa²`` (1/m²), ``kdg = kappa * n . g_perp`` (m/s² per m),
-    ``gperp2 = |g_perp|²``; ``mu`` Coulomb coefficient, ``k`` drag (1/m),
-    ``v2_stall`` the squared stall speed.
-
-    Returns
-    -------
-    (v2_out, time_s, stall_at_m)
-        As :func:`fallway._segment.segment_law`: ``stall_at_m < 0`` when the mover gets
-        through, otherwise the distance where it stalls, ``v2_out = 0``, ``time_s = inf``.
-    """
-    if length_m <= 0.0:
-        return v2_in, 0.0, -1.0
-    u = v2_in if v2_in > 0.0 else 0.0
-    f0 = normal_rate(u, b, kappa2, kdg, gperp2, mu, k)
-    if u <= 0.0 and f0 <= 0.0:
-        return 0.0, math.inf, 0.0
-    if f0 < 0.0 and u <= v2_stall:
-        return 0.0, math.inf, 0.0
-    stiff = (2.0 * mu * math.sqrt(kappa2) + 2.0 * k) * length_m
-    n = 1 + int(stiff / _STEP_STIFFNESS)
-    if n > _MAX_SUBSTEPS:
-        n = _MAX_SUBSTEPS
-    h = length_m / n
-    t = 0.0
-    fa = f0
-    for i in range(n):
-        un = _rk4(u, h, b, kappa2, kdg, gperp2, mu, k)
-        if un < u and un < v2_stall:
-            # stall inside this substep: bisect on the RK4 step length
-            lo = 0.0
-            hi = h
-            for _ in range(60):
-                mid = 0.5 * (lo + hi)
-                if _rk4(u, mid, b, kappa2, kdg, gperp2, mu, k) < v2_stall:
-                    hi = mid
-                else:
-                    lo = mid
-            return 0.0, math.inf, i * h + 0.5 * (lo + hi)
-        if un < 0.0:
-            un = 0.0
-        fb = normal_rate(un, b, kappa2, kdg, gperp2, mu, k)
-        # time: 2h/(va + vb) is exact for constant acceleration; Richardson with the two
-        # halves split at the Hermite midpoint raises it to fourth order
-        va = math.sqrt(u)
-        vb = math.sqrt(un)
-        um = 0.5 * (u + un) + 0.125 * h * (fa - fb)
-        vm = math.sqrt(um) if um > 0.0 else 0.0
-        t1 = 2.0 * h / (va + vb)
-        t2 = h / (va + vm) + h / (vm + vb)
-        t += (4.0 * t2 - t1) / 3.0
-        u = un
-        fa = fb
-    return u, t, -1.0
-
-
-@njit(cache=True, nogil=True)
-def half_step(v2_in, length_m, drop_m, plan_m, kappa2, kdg, g, mu, k, v2_stall):
-    """One half-segment of the full model: exact law when straight, RK4 when curved.
-
-    ``length_m``, ``drop_m`` and ``plan_m`` are the half-segment's own (half the
-    segment's); ``kappa2`` and ``kdg`` as in :func:`curved_step`.  Same return as
-    :func:`curved_step`.  This is the per-step building block the refinement reuses.
-    """
-    if kappa2 <= 0.0:
-        return segment_law(v2_in, drop_m, plan_m, length_m, g, mu, k, v2_stall)
-    b = g * drop_m / length_m
-    gperp2 = (g * plan_m / length_m) ** 2
-    return curved_step(v2_in, length_m, b, kappa2, kdg, gperp2, mu, k, v2_stall)
 
 
 @njit(cache=True, nogil=True)
@@ -237,8 +132,8 @@ def corner_v2(u, phi, mu, g, plan_a, plan_b):
     collinear vertices change nothing); past the cap the bed force would change sign (the
     mover would lift off an open bed, ``v² kappa > g cos θ``), and an enclosed line's
     cover takes the excess with friction: ``u + min(gain, 2 cap - gain)``, the sharp
-    limit of friction ``mu |g cos θ - v² kappa|`` over the crest.  :func:`window_step` (the refinement's four-vertex window) takes the two
-    adjoining segments as the runs.
+    limit of friction ``mu |g cos θ - v² kappa|`` over the crest.  :func:`window_step`
+    (the refinement's window of vertices) takes the two adjoining segments as the runs.
     """
     if phi >= 0.0:
         return u * math.exp(-2.0 * mu * phi)
@@ -270,58 +165,17 @@ def vertex_turn(ax, ay, az, bx, by, bz, mean_len):
     return phi / mean_len, nx / nn, ny / nn, nz / nn
 
 
-@njit(cache=True, nogil=True)
-def bend_kdg(kappa, nx, ny, nz, tx, ty, tz, g):
-    """``kappa * n . g_perp`` for curvature ``kappa`` along unit ``n`` on a segment of unit
-    direction ``t``; gravity ``(0, 0, -g)``, ``g_perp = g_vec - (g_vec . t) t``."""
-    gpx = g * tz * tx
-    gpy = g * tz * ty
-    gpz = -g + g * tz * tz
-    return kappa * (nx * gpx + ny * gpy + nz * gpz)
-
-
-@njit(cache=True, nogil=True)
-def full_segment_step(v2_in, drop_m, plan_m, length_m, kappa_a, kdg_a, kappa_b, kdg_b, g, mu, k,
-                      v2_stall):
-    """One whole segment of the full model: two half-steps with the curvature of the
-    vertex at each end.
-
-    ``kappa_a``/``kappa_b`` are the discrete curvatures of the start/end vertex
-    (``phi / l``, see :func:`vertex_geometry`), ``kdg_a``/``kdg_b`` their
-    :func:`bend_kdg` with this segment's direction.  This is the per-segment step the
-    refinement reuses (e.g. for finite-difference or adjoint gradients).
-
-    Returns
-    -------
-    (v2_out, time_s, stall_at_m, v2_mid)
-        As :func:`fallway._segment.segment_law`, plus the squared speed at the
-        segment's midpoint (0 when the mover stalls in the first half).
-    """
-    h = 0.5 * length_m
-    u, t1, at = half_step(v2_in, h, 0.5 * drop_m, 0.5 * plan_m, kappa_a * kappa_a, kdg_a, g, mu, k,
-                          v2_stall)
-    if at >= 0.0:
-        return 0.0, math.inf, at, 0.0
-    um = u
-    u, t2, at = half_step(um, h, 0.5 * drop_m, 0.5 * plan_m, kappa_b * kappa_b, kdg_b, g, mu, k,
-                          v2_stall)
-    if at >= 0.0:
-        return 0.0, math.inf, h + at, um
-    return u, t1 + t2, -1.0, um
-
-
 @njit(cache=True, nogil=True, inline="always")
-def window_step(v2_in, Q, has_a, has_b, g, mu, k, eps_plan, v2_stall):
+def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
     """One segment of the full model (sharp-corner reading) from its window of vertices.
 
-    ``Q`` (4, 3): vertices j-1, j, j+1, j+2 relative to vertex j; the segment runs from
-    row 1 to row 2.  When ``has_a`` (vertex j is interior) the capstan factor of the
-    turn at vertex j (from row 0-1 to row 1-2) applies first, as in
-    :func:`traverse_kernel`; row 3 and ``has_b`` do not enter (kept so the window of
-    every segment has one shape for the refinement's adjoint).  ``eps_plan`` > 0
-    smooths the plan length, ``sqrt(plan² + eps²)``.  Returns ``(v2_out, time_s,
-    stall_at_m)`` as :func:`fallway._segment.segment_law`; a repeated vertex (no
-    segment) returns ``(v2_in, 0, -1)``.
+    ``Q`` (4, 3): vertices j-1, j, j+1, j+2 relative to vertex j (the refinement gathers
+    one window shape for every segment); the segment runs from row 1 to row 2.  When
+    ``has_a`` (vertex j is interior) the corner law of the turn at vertex j (from row 0-1
+    to row 1-2) applies first, as in :func:`traverse_kernel`; row 3 does not enter.
+    ``eps_plan`` > 0 smooths the plan length, ``sqrt(plan² + eps²)``.  Returns
+    ``(v2_out, time_s, stall_at_m)`` as :func:`fallway._segment.segment_law`; a repeated
+    vertex (no segment) returns ``(v2_in, 0, -1)``.
     """
     dx = Q[2, 0] - Q[1, 0]
     dy = Q[2, 1] - Q[1, 1]

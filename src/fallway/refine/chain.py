@@ -14,9 +14,9 @@ with the local partials of each segment in closed form.
 
 Full normal-force model (:func:`full_chain`): the segment recursion of
 :func:`fallway._traverse.traverse_kernel` forward, its adjoint in reverse; each segment
-step (:func:`fallway._traverse.window_step`) depends on four vertices (its ends and,
-through the discrete curvature at its ends, their outer neighbours); the local partials
-of one step are central differences in the segment's frame, the chain is exact.
+step (:func:`fallway._traverse.window_step`) depends on three vertices (its ends and,
+through the corner at its start, the vertex before it); the local partials of one step
+are central differences in the segment's frame, the chain is exact.
 
 Both extend the motion continuously past a stall (the exit speed clamped to a floor and
 the shortfall penalised), so a line search can step back from it.  :func:`ground_fg` is
@@ -178,13 +178,13 @@ def gravity_chain(P, u0, g, mu, k, eps_plan, u_floor, w_pen, u_max, u_stall):
 
 
 @njit(cache=True, nogil=True)
-def full_step(u, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall):
-    """One segment of the full model from its four-vertex window
+def full_step(u, Q, has_a, g, mu, k, eps_plan, u_floor, w_stall):
+    """One segment of the full model from its window of vertices
     (:func:`fallway._traverse.window_step`), with a continuous extension past a stall
     for the optimiser: the exit speed clamped to ``u_floor``, the time of a constant
     deceleration, and a penalty on the part of the segment not reached, so a line search
     can step back from it.  Returns ``(v2_out, time_s, stall_at_m)``."""
-    un, t, at = window_step(u, Q, has_a, has_b, g, mu, k, eps_plan, 0.0)
+    un, t, at = window_step(u, Q, has_a, g, mu, k, eps_plan, 0.0)
     if at >= 0.0 and u_floor > 0.0:
         dx = Q[2, 0] - Q[1, 0]
         dy = Q[2, 1] - Q[1, 1]
@@ -213,9 +213,9 @@ def full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, 
 
     Forward: the segment recursion of ``traverse_kernel`` (full model).  Reverse: the
     adjoint of that recursion, ``λ_j = ∂t_j/∂u_j + λ_{j+1} ∂u_{j+1}/∂u_j`` and
-    ``∂T/∂P += ∂t_j/∂P + λ_{j+1} ∂u_{j+1}/∂P`` over the four vertices each segment
-    depends on (its ends and, through the curvature at its ends, their outer
-    neighbours); the local partials of one segment step are central differences in
+    ``∂T/∂P += ∂t_j/∂P + λ_{j+1} ∂u_{j+1}/∂P`` over the three vertices each segment
+    depends on (its ends and, through the corner at its start, the vertex before it;
+    the window's fourth row does not enter); the local partials of one segment step are central differences in
     the segment's own frame (steps of 1e-6 of its length / of v²), the chain itself is
     exact.  ``eps_plan`` > 0 smooths the plan length, sqrt(plan² + eps²), as in
     :func:`_chain` (the friction of a vertical segment is otherwise a kink).  Returns
@@ -234,9 +234,8 @@ def full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, 
     stalled = False
     for j in range(m):
         has_a = j >= 1
-        has_b = j + 1 <= n - 2
         gather(P, j, Q)
-        un, t, at = full_step(u[j], Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+        un, t, at = full_step(u[j], Q, has_a, g, mu, k, eps_plan, u_floor, w_stall)
         if not math.isfinite(t):
             return math.inf, 0.0, grad, u, False
         if at >= 0.0:
@@ -255,7 +254,6 @@ def full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, 
     Qp = np.zeros((4, 3))
     for j in range(m - 1, -1, -1):
         has_a = j >= 1
-        has_b = j + 1 <= n - 2
         gather(P, j, Q)
         s = math.sqrt((Q[2, 0] - Q[1, 0]) ** 2 + (Q[2, 1] - Q[1, 1]) ** 2 + (Q[2, 2] - Q[1, 2]) ** 2)
         if s <= 1e-12:
@@ -263,16 +261,16 @@ def full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, 
             continue
         h = 1e-6 * s
         for r in range(4):
-            if (r == 0 and not has_a) or (r == 3 and not has_b):
+            if (r == 0 and not has_a) or r == 3:  # row 3 does not enter a sharp-corner step
                 continue
             for c in range(3):
                 for q in range(4):
                     for cc in range(3):
                         Qp[q, cc] = Q[q, cc]
                 Qp[r, c] = Q[r, c] + h
-                up, tp, ap = full_step(u[j], Qp, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                up, tp, ap = full_step(u[j], Qp, has_a, g, mu, k, eps_plan, u_floor, w_stall)
                 Qp[r, c] = Q[r, c] - h
-                um, tm, am = full_step(u[j], Qp, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                um, tm, am = full_step(u[j], Qp, has_a, g, mu, k, eps_plan, u_floor, w_stall)
                 if (ap >= 0.0 or am >= 0.0) and u_floor <= 0.0:
                     continue
                 grad[j - 1 + r, c] += ((tp - tm) + lam * (up - um)) / (2.0 * h)
@@ -280,8 +278,8 @@ def full_chain(P, u0, g, mu, k, w_pen, u_max, u_stall, want_grad, eps_plan=0.0, 
         if j >= 1:
             hu = 1e-6 * u[j]
             if hu > 0.0:
-                up, tp, ap = full_step(u[j] + hu, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
-                um, tm, am = full_step(u[j] - hu, Q, has_a, has_b, g, mu, k, eps_plan, u_floor, w_stall)
+                up, tp, ap = full_step(u[j] + hu, Q, has_a, g, mu, k, eps_plan, u_floor, w_stall)
+                um, tm, am = full_step(u[j] - hu, Q, has_a, g, mu, k, eps_plan, u_floor, w_stall)
                 if (ap < 0.0 and am < 0.0) or u_floor > 0.0:
                     gu = ((tp - tm) + lam * (up - um)) / (2.0 * hu)
         lam = gu + du_dpen[j]
