@@ -42,6 +42,7 @@ import numpy as np
 
 from .errors import FallwayIOError, ParameterError
 from .geometry import drop_repeats, min_radius_m
+from .loads import Loads, line_loads, load_status
 from .params import Limits
 from .physics import Mover, Profile, traverse
 from .physics import check_mu_range as _check_mu_range
@@ -341,11 +342,11 @@ def enters_keepout(terrain, p: np.ndarray, keepout) -> bool:
 
 
 #: The checks of :func:`limit_issues`, in the order they are reported.
-LIMIT_CHECKS = ("stalls", "keepout", "overspeed", "liftoff", "grade", "min_radius")
+LIMIT_CHECKS = ("stalls", "keepout", "overspeed", "liftoff", "lateral_g", "normal_g", "grade", "min_radius")
 
 
 def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, *,
-                 liftoff: bool = True) -> list[str]:
+                 loads: Loads | None = None) -> list[str]:
     """The limits a timed line breaks: the one check behind a route's ``feasible`` and a row's status.
 
     :func:`fallway.routing.find_route` (``RouteSummary.violated_limits``) and
@@ -361,18 +362,20 @@ def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, 
     profile : Profile
         Its motion (:func:`fallway.physics.traverse`), with the mover's speed window.
     limits : Limits
-        Grade window and bend radius (``min_radius_m``, measured in 3D on ``line``).
+        Grade window, bend radius (``min_radius_m``, measured in 3D on ``line``) and the
+        speed-dependent limits (lateral g, normal g, lift-off of an open line).
     keepout : Keepout, shapely geometry or bool mask, optional
-    liftoff : bool
-        Count a lift-off vertex as a broken limit (an open chute; not when
-        ``limits.allow_liftoff``).  With False it is only flagged in the profile.
+    loads : Loads, optional
+        The line's loads at its speeds (:func:`fallway.loads.line_loads`), on which the
+        speed-dependent limits are judged (:func:`fallway.loads.load_status`); without
+        them those limits are not judged.
 
     Returns
     -------
     list of str
         In the order of :data:`LIMIT_CHECKS`: ``"stalls"`` (the mover does not reach the
         end), ``"keepout"``, ``"overspeed"`` (over ``Mover.max_speed``), ``"liftoff"``,
-        ``"grade"`` (a segment outside the grade window), ``"min_radius"`` (a 3D bend
+        ``"lateral_g"``, ``"normal_g"``, ``"grade"`` (a segment outside the grade window), ``"min_radius"`` (a 3D bend
         radius below ``Limits.min_radius_m``); empty when the line meets every limit.
 
     Examples
@@ -394,8 +397,9 @@ def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, 
         out.append("keepout")
     if len(profile.overspeed):
         out.append("overspeed")
-    if liftoff and not limits.allow_liftoff and len(profile.liftoff):
-        out.append("liftoff")
+    if loads is not None:
+        broken = set(load_status(loads, limits, broken_only=True))
+        out += [k for k in ("liftoff", "lateral_g", "normal_g") if k in broken]
     d = np.diff(p, axis=0)
     moving = np.linalg.norm(d, axis=1) > 0
     g = np.asarray(profile.grade[:-1], dtype=float)[moving]
@@ -493,7 +497,8 @@ def evaluate_line(terrain, points, mover: Mover, *, limits: Limits | None = None
     radius = min_radius_m(p if radius_xy is None else radius_xy, dims=2, spacing_m=radius_spacing_m)
     overspeed = _first(prof.overspeed)
     liftoff = _first(prof.liftoff)
-    issues = tuple(limit_issues(terrain, p, prof, limits, keepout))
+    loads = line_loads(p, prof.speed_m_s, g=mover.g, surface_normal=normals)
+    issues = tuple(limit_issues(terrain, p, prof, limits, keepout, loads=loads))
     status = issues[0] if issues else "ok"
     return LineResult(
         name=name,

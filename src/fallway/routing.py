@@ -42,7 +42,7 @@ from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarn
 from .evaluate import (COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, lay_on_ground, limit_issues,
                        row_for_line)
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
-from .loads import Loads, line_loads, load_status
+from .loads import Loads, line_loads
 from .keepout import Keepout
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
@@ -671,13 +671,10 @@ def _load_fields(loads: Loads, profile) -> dict:
 
 
 def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None) -> list[str]:
-    """The limits a reported line breaks: :func:`fallway.evaluate.limit_issues` (the check
-    every comparison row gets too), and the speed-dependent ones (lateral g, normal g,
-    lift-off of an open line) on ``loads``, the line's smooth reading."""
-    out = limit_issues(terrain, line, profile, limits, keepout, liftoff=False)
-    if loads is not None:
-        out += [k for k in load_status(loads, limits, broken_only=True) if k not in out]
-    return out
+    """The limits a reported line breaks: :func:`fallway.evaluate.limit_issues`, the check
+    every comparison row gets too (the speed-dependent ones on ``loads``, the line's
+    smooth reading)."""
+    return limit_issues(terrain, line, profile, limits, keepout, loads=loads)
 
 
 
