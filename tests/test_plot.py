@@ -164,8 +164,9 @@ def test_save_figure_png_and_svg(terrain, tmp_path):
     svg = (tmp_path / "map.svg").read_text(encoding="utf-8")
     assert svg.lstrip().startswith("<?xml") and "<svg" in svg
     assert sorted(p.name for p in tmp_path.iterdir()) == ["map.png", "map.svg"]  # no temp files left
-    save_figure(ax.figure, tmp_path / "again")
-    assert (tmp_path / "again.png").read_bytes() == png  # no timestamps: same figure, same bytes
+    # no timestamps: the same inputs drawn again give the same bytes (an Axes is accepted too)
+    save_figure(plot_map(terrain, make_route(terrain)), tmp_path / "again")
+    assert (tmp_path / "again.png").read_bytes() == png
 
 
 @given(st.floats(1e-3, 1e7))
@@ -217,3 +218,99 @@ def test_keepout_in_lonlat_is_drawn_in_map_coordinates(terrain):
     verts = patch.get_path().vertices
     for x, y in ring:
         assert np.min(np.hypot(verts[:, 0] - x, verts[:, 1] - y)) < 0.01  # within 1 cm
+
+
+# --------------------------------------------------------------------------------------
+# the site map on real open data: the SRTM 3" tile shipped with matplotlib
+# --------------------------------------------------------------------------------------
+
+def _dms(label):
+    """``84°13'30"W`` -> -84.225 (degrees, minutes, seconds; W and S negative)."""
+    import re
+
+    m = re.fullmatch(r"(\d+)°(?:(\d+)')?(?:(\d+)\")?([NSEW])", label)
+    assert m, label
+    v = int(m.group(1)) + int(m.group(2) or 0) / 60 + int(m.group(3) or 0) / 3600
+    return -v if m.group(4) in "WS" else v
+
+
+@pytest.fixture(scope="module")
+def srtm_route(tmp_path_factory):
+    from affine import Affine
+    from matplotlib import cbook
+    import pyproj
+
+    from conftest import write_geotiff
+    from fallway.routing import find_route
+    from fallway.terrain import load_terrain
+
+    d = np.load(cbook.get_sample_data("jacksboro_fault_dem.npz", asfileobj=False))
+    z = np.asarray(d["elevation"], dtype=np.float32)
+    t = Affine(float(d["dx"]), 0, float(d["xmin"]), 0, -float(d["dy"]), float(d["ymin"]))  # row 0 north
+    path = write_geotiff(tmp_path_factory.mktemp("srtm") / "srtm.tif", z, t, "EPSG:4326")
+    terrain = load_terrain(path)  # reprojected to its UTM zone (16N)
+    # the highest cell and one 15-22 cells away at least 150 m lower (as tests/test_cli.py)
+    r0, c0 = np.unravel_index(np.argmax(z), z.shape)
+    rr, cc = np.mgrid[0:z.shape[0], 0:z.shape[1]]
+    dist = np.hypot(rr - r0, cc - c0)
+    r1, c1 = np.argwhere((dist > 15) & (dist < 22) & (z < z[r0, c0] - 150))[0]
+    to_xy = pyproj.Transformer.from_crs("EPSG:4326", terrain.crs, always_xy=True)
+    a = to_xy.transform(*(t @ (c0 + 0.5, r0 + 0.5)))
+    b = to_xy.transform(*(t @ (c1 + 0.5, r1 + 0.5)))
+    return terrain, find_route(terrain, a, b, Mover(mu=0.05), refine=False)
+
+
+def test_site_map_zooms_to_the_line_on_a_real_tile(srtm_route, tmp_path):
+    import pyproj
+
+    terrain, route = srtm_route
+    ax = plot_map(terrain, route)
+    (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
+    line = route.line
+    lx0, ly0 = line[:, :2].min(axis=0)
+    lx1, ly1 = line[:, :2].max(axis=0)
+    margin = 0.2 * max(lx1 - lx0, ly1 - ly0)  # the documented margin: a fifth of the larger side
+    assert x0 <= lx0 - margin + 1e-6 and x1 >= lx1 + margin - 1e-6
+    assert y0 <= ly0 - margin + 1e-6 and y1 >= ly1 + margin - 1e-6
+    left, bottom, right, top = terrain.bounds
+    assert (x1 - x0) * (y1 - y0) < 0.02 * (right - left) * (top - bottom)  # a 2 km line on a 30 km tile
+    # the hillshade is drawn at the view, at the DEM's own resolution (not thinned)
+    (img,) = by_gid(ax.images, "fallway-hillshade")
+    e = img.get_extent()
+    assert e[0] <= x0 and e[1] >= x1 and e[2] <= y0 and e[3] >= y1
+    assert (e[1] - e[0]) / img.get_array().shape[1] == pytest.approx(terrain.cell_size)
+    # the overview inset holds the whole DEM and outlines the view
+    (inset,) = [a for a in ax.child_axes if a.get_gid() == "fallway-overview"]
+    assert inset.get_xlim() == pytest.approx((left, right)) and inset.get_ylim() == pytest.approx((bottom, top))
+    (box,) = by_gid(inset.patches, "fallway-overview-view")
+    assert (box.get_x(), box.get_y()) == pytest.approx((x0, y0))
+    # contours: one 1-2-5 interval, 8 to 20 of them over the view's relief (common practice: 10-20)
+    (minor,) = by_gid(ax.collections, "fallway-contours")
+    (major,) = by_gid(ax.collections, "fallway-contours-index")
+    levels = np.sort(np.concatenate([minor.levels, major.levels]))
+    step = float(np.diff(levels).min())
+    assert np.allclose(np.diff(levels), step) and nice_step(step, 1) == step
+    assert 8 <= (levels[-1] - levels[0]) / step + 1 <= 21
+    assert np.allclose(np.mod(major.levels, 5 * step), 0)
+    # graticule labels are lon/lat: pyproj puts each tick's map position on the labelled value
+    to_ll = pyproj.Transformer.from_crs(terrain.crs, "EPSG:4326", always_xy=True)
+    secs = [a for a in ax.child_axes if a.get_gid() == "fallway-graticule-labels"]
+    top_ax, right_ax = secs
+    lons = [(_dms(lab.get_text()), x) for lab, x in zip(top_ax.xaxis.get_ticklabels(), top_ax.get_xticks())]
+    lats = [(_dms(lab.get_text()), y) for lab, y in zip(right_ax.yaxis.get_ticklabels(), right_ax.get_yticks())]
+    assert len(lons) >= 2 and len(lats) >= 2
+    for lon, x in lons:
+        assert -85 < lon < -84  # the tile lies at 84-85 W, 36-37 N (its own xmin/ymin)
+        assert to_ll.transform(x, y1)[0] == pytest.approx(lon, abs=0.1 / 3600)
+    for lat, y in lats:
+        assert 36 < lat < 37
+        assert to_ll.transform(x1, y)[1] == pytest.approx(lat, abs=0.1 / 3600)
+    # true north: meridian convergence in UTM, gamma = atan(tan(lon - lon0) sin(lat)) (Snyder 1987,
+    # Map Projections - A Working Manual, eq. 8-19 to first order), lon0 = -87 in zone 16
+    (arrow,) = by_gid(ax.texts, "fallway-north")
+    (tx, ty), (sx, sy) = arrow.xy, arrow.xyann
+    lon_c, lat_c = to_ll.transform(0.5 * (x0 + x1), 0.5 * (y0 + y1))
+    gamma = math.degrees(math.atan(math.tan(math.radians(lon_c + 87.0)) * math.sin(math.radians(lat_c))))
+    assert math.degrees(math.atan2(-(tx - sx), ty - sy)) == pytest.approx(gamma, abs=0.05)
+    # save_figure takes the Axes plot_map returns
+    assert [p.name for p in save_figure(ax, tmp_path / "site.png", formats=("png",))] == ["site.png"]

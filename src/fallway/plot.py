@@ -16,7 +16,7 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["plot_map", "plot_profile", "comparison_figure", "save_figure", "nice_step"]
+__all__ = ["plot_map", "plot_profile", "comparison_figure", "save_figure", "nice_step", "contour_step"]
 
 _LINE_COLOUR = "#c0392b"
 _LATTICE_COLOUR = "#1f4e79"
@@ -57,13 +57,14 @@ def nice_step(span: float, target: int = 5) -> float:
 _MAX_SHADE_PX = 1600
 
 
-def _hillshade_rgb(terrain):
-    """Tinted hillshade RGBA and the step (cells per pixel) it was thinned by."""
+def _hillshade_rgb(terrain, rs=slice(0, None), cs=slice(0, None), max_px=_MAX_SHADE_PX):
+    """Tinted hillshade RGBA of the window (rs, cs) and the step (cells per pixel) it was thinned by."""
     from matplotlib.colors import LightSource, Normalize
     import matplotlib
 
-    step = max(1, math.ceil(max(terrain.shape) / _MAX_SHADE_PX))
-    z = np.array(terrain.z[::step, ::step], dtype=float)
+    win = terrain.z[rs, cs]
+    step = max(1, math.ceil(max(win.shape) / max_px))
+    z = np.array(win[::step, ::step], dtype=float)
     nodata = ~np.isfinite(z)
     if nodata.all():
         raise ParameterError("the terrain has no valid heights to draw")
@@ -109,7 +110,7 @@ def _polygon_path(poly):
     return MplPath.make_compound_path(*[MplPath(r, closed=True) for r in rings])
 
 
-def _scale_bar(ax, width_m):
+def _scale_bar(ax, width_m, note=None):
     from matplotlib.offsetbox import AnchoredOffsetbox, AuxTransformBox, HPacker, TextArea, VPacker
     from matplotlib.patches import Rectangle
 
@@ -117,6 +118,8 @@ def _scale_bar(ax, width_m):
     box = AuxTransformBox(ax.transData)
     box.add_artist(Rectangle((0, 0), length, 0, edgecolor="black", linewidth=3))
     label = f"{length:g} m" if length < 1000 else f"{length / 1000:g} km"
+    if note:
+        label += "\n" + note
     packed = VPacker(children=[box, TextArea(label, textprops={"size": 8})], align="center", pad=0, sep=3)
     bar = AnchoredOffsetbox("lower left", child=HPacker(children=[packed], pad=0, sep=0), pad=0.4,
                             borderpad=0.6, frameon=True)
@@ -126,22 +129,264 @@ def _scale_bar(ax, width_m):
     return bar, length
 
 
-def _north_arrow(ax):
-    arrow = ax.annotate("N", xy=(0.94, 0.95), xytext=(0.94, 0.83), xycoords="axes fraction",
+def _north_arrow(ax, angle_deg=0.0):
+    """An arrow to true north, ``angle_deg`` anticlockwise from grid north (up)."""
+    a = math.radians(angle_deg)
+    tip = (0.94 - 0.06 * math.sin(a), 0.89 + 0.06 * math.cos(a))
+    tail = (0.94 + 0.06 * math.sin(a), 0.89 - 0.06 * math.cos(a))
+    arrow = ax.annotate("N", xy=tip, xytext=tail, xycoords="axes fraction",
                         textcoords="axes fraction", ha="center", va="top", fontsize=10, fontweight="bold",
                         arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.5})
     arrow.set_gid("fallway-north")
     return arrow
 
 
-def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
-    """Plan map: hillshade, the line, keep-out areas, reach isochrones.
+#: Margin round the drawn items of a site map: this fraction of their larger side, at
+#: least ``_MARGIN_CELLS`` cells (common practice: room for labels and the approach).
+_MARGIN_FRACTION = 0.2
+_MARGIN_CELLS = 10
+#: The shorter side of a site map is at least this fraction of the longer (a straight
+#: line running east-west still shows the ground either side of it).
+_MIN_ASPECT = 0.6
+
+
+def _map_view(terrain, route, reach, keepout_polys):
+    """(left, bottom, right, top) of a site map: the items drawn, a margin, inside the DEM.
+
+    With nothing to draw but the terrain the view is the whole DEM.
+    """
+    left, bottom, right, top = (float(v) for v in terrain.bounds)
+    boxes = []
+    if route is not None:
+        line = np.asarray(route.line, dtype=float)
+        lat = np.asarray(route.lattice.points, dtype=float)
+        pts = np.concatenate([line[:, :2], lat[:, :2]])
+        boxes.append((pts[:, 0].min(), pts[:, 1].min(), pts[:, 0].max(), pts[:, 1].max()))
+    if reach is not None:
+        t = np.asarray(reach.time_s, dtype=float)
+        rr, cc = np.nonzero(np.isfinite(t))
+        tr = reach.transform
+        sx, sy = float(reach.start[0]), float(reach.start[1])
+        if rr.size:
+            xs = tr.c + (np.array([cc.min(), cc.max() + 1.0])) * tr.a
+            ys = tr.f + (np.array([rr.min(), rr.max() + 1.0])) * tr.e
+            boxes.append((min(xs.min(), sx), min(ys.min(), sy), max(xs.max(), sx), max(ys.max(), sy)))
+        else:
+            boxes.append((sx, sy, sx, sy))
+    if not boxes:
+        return left, bottom, right, top
+    for poly in keepout_polys:  # the keep-outs near the items: those touching their box widened
+        b0 = np.array(boxes[0], dtype=float)
+        a, b, c, d = poly.bounds
+        span = max(b0[2] - b0[0], b0[3] - b0[1], 1.0)
+        if a <= b0[2] + span and c >= b0[0] - span and b <= b0[3] + span and d >= b0[1] - span:
+            boxes.append((a, b, c, d))
+    box = np.array(boxes, dtype=float)
+    x0, y0 = box[:, 0].min(), box[:, 1].min()
+    x1, y1 = box[:, 2].max(), box[:, 3].max()
+    margin = max(_MARGIN_FRACTION * max(x1 - x0, y1 - y0), _MARGIN_CELLS * terrain.cell_size)
+    x0, x1, y0, y1 = x0 - margin, x1 + margin, y0 - margin, y1 + margin
+    w, h = x1 - x0, y1 - y0
+    if w < _MIN_ASPECT * h:
+        x0, x1 = x0 - 0.5 * (_MIN_ASPECT * h - w), x1 + 0.5 * (_MIN_ASPECT * h - w)
+    elif h < _MIN_ASPECT * w:
+        y0, y1 = y0 - 0.5 * (_MIN_ASPECT * w - h), y1 + 0.5 * (_MIN_ASPECT * w - h)
+    return max(x0, left), max(y0, bottom), min(x1, right), min(y1, top)
+
+
+def _window(terrain, view):
+    """Row and column slices of the cells whose centres lie in ``view`` (one cell of slack)."""
+    tr = terrain.transform
+    rows, cols = terrain.shape
+    x0, y0, x1, y1 = view
+    c0 = int(np.clip(math.floor((x0 - tr.c) / tr.a) - 1, 0, cols - 1))
+    c1 = int(np.clip(math.ceil((x1 - tr.c) / tr.a) + 1, c0 + 1, cols))
+    r0 = int(np.clip(math.floor((y1 - tr.f) / tr.e) - 1, 0, rows - 1))
+    r1 = int(np.clip(math.ceil((y0 - tr.f) / tr.e) + 1, r0 + 1, rows))
+    return slice(r0, r1), slice(c0, c1)
+
+
+def contour_step(relief_m: float) -> float:
+    """Contour interval for a view: a 1-2-5 step giving at most 20 contours over its relief.
+
+    Successive 1-2-5 steps differ by at most 2.5 times, so the view gets 8 to 20
+    contours (common practice for a legible site map: 10 to 20).
+
+    Examples
+    --------
+    >>> contour_step(340.0), contour_step(37.0), contour_step(3000.0)
+    (20.0, 2.0, 200.0)
+    """
+    return nice_step(relief_m, 20)
+
+
+def _draw_contours(ax, terrain, rs, cs, step):
+    """Contours of the window at ``step`` m, every fifth (index contour) bold and labelled."""
+    z = np.array(terrain.z[rs, cs], dtype=float)
+    if np.count_nonzero(np.isfinite(z)) < 4 or min(z.shape) < 2:
+        return None, None
+    thin = max(1, math.ceil(max(z.shape) / 800))
+    z = z[::thin, ::thin]
+    tr = terrain.transform
+    xs = tr.c + (cs.start + np.arange(0, cs.stop - cs.start, thin) + 0.5) * tr.a
+    ys = tr.f + (rs.start + np.arange(0, rs.stop - rs.start, thin) + 0.5) * tr.e
+    lo, hi = np.nanmin(z), np.nanmax(z)
+    levels = np.arange(math.ceil(lo / step) * step, hi + 1e-9, step)
+    if levels.size == 0:
+        return None, None
+    zm = np.ma.masked_invalid(z)
+    index = np.rint(levels / step).astype(np.int64) % 5 == 0
+    minor = ax.contour(xs, ys, zm, levels=levels[~index] if (~index).any() else [lo - 1.0],
+                       colors="#5d4e37", linewidths=0.35, alpha=0.7, zorder=2)
+    minor.set_gid("fallway-contours")
+    minor.set_in_layout(False)
+    major = None
+    if index.any():
+        major = ax.contour(xs, ys, zm, levels=levels[index], colors="#5d4e37", linewidths=0.9, alpha=0.85,
+                           zorder=2)
+        major.set_gid("fallway-contours-index")
+        major.set_in_layout(False)
+        for label in ax.clabel(major, fmt=lambda v: f"{v:g}", fontsize=6, inline=True):
+            label.set_in_layout(False)  # inside the axes: kept out of the layout, which then repeats exactly
+    return minor, major
+
+
+#: Graticule steps in degrees: 1-2-5 down to whole degrees, then minutes and seconds of arc.
+_DEG_STEPS = (1 / 3600, 2 / 3600, 5 / 3600, 10 / 3600, 15 / 3600, 30 / 3600, 1 / 60, 2 / 60, 5 / 60, 10 / 60,
+              15 / 60, 30 / 60, 1.0, 2.0, 5.0, 10.0, 15.0, 30.0)
+
+
+def _deg_label(value: float, step: float, pos: str, neg: str) -> str:
+    """``36°16'30"N``: degrees, minutes and seconds as fine as the step needs."""
+    hemi = pos if value >= 0 else neg
+    total = round(abs(value) * 3600.0)
+    d, rem = divmod(total, 3600)
+    m, s = divmod(rem, 60)
+    if step >= 1.0 - 1e-9:
+        return f"{d}°{hemi}"
+    if step >= 1 / 60 - 1e-12:
+        return f"{d}°{m:02d}'{hemi}"
+    return f"{d}°{m:02d}'{s:02d}\"{hemi}"
+
+
+def _graticule(ax, crs, view):
+    """Meridians and parallels over the view (pyproj from the map's CRS to WGS 84).
+
+    Each meridian is labelled where it meets the top edge, each parallel where it meets
+    the right edge (as ticks of secondary axes, so labels never sit on the map).
+    Returns the secondary axes (top, right), or None when the map has no CRS.
+    """
+    import pyproj
+
+    if crs is None:
+        return None
+    to_ll = pyproj.Transformer.from_crs(pyproj.CRS.from_user_input(crs), "EPSG:4326", always_xy=True)
+    to_xy = pyproj.Transformer.from_crs("EPSG:4326", pyproj.CRS.from_user_input(crs), always_xy=True)
+    x0, y0, x1, y1 = view
+    t = np.linspace(0.0, 1.0, 41)
+    bx = np.concatenate([x0 + (x1 - x0) * t, np.full_like(t, x1), x1 - (x1 - x0) * t, np.full_like(t, x0)])
+    by = np.concatenate([np.full_like(t, y0), y0 + (y1 - y0) * t, np.full_like(t, y1), y1 - (y1 - y0) * t])
+    lon, lat = (np.asarray(v) for v in to_ll.transform(bx, by))
+    if not (np.all(np.isfinite(lon)) and np.all(np.isfinite(lat))):
+        return None
+    ticks = ([], [])  # (position, label) on the top edge (meridians) and the right edge (parallels)
+    for k, (vals, other) in enumerate(((lon, lat), (lat, lon))):
+        span = float(vals.max() - vals.min())
+        step = next((s for s in _DEG_STEPS if span / s <= 4.0), _DEG_STEPS[-1])
+        first = math.ceil(vals.min() / step - 1e-9)
+        last = math.floor(vals.max() / step + 1e-9)
+        o = np.linspace(other.min(), other.max(), 60)
+        for i in range(first, last + 1):
+            v = i * step
+            gx, gy = to_xy.transform(np.full_like(o, v), o) if k == 0 else to_xy.transform(o, np.full_like(o, v))
+            gx, gy = np.asarray(gx), np.asarray(gy)
+            ax.plot(gx, gy, color="#1a5276", linewidth=0.6, linestyle=(0, (4, 3)), alpha=0.8, zorder=3,
+                    gid="fallway-graticule")
+            if k == 0:
+                order = np.argsort(gy)
+                at = float(np.interp(y1, gy[order], gx[order]))
+                if x0 < at < x1:
+                    ticks[0].append((at, _deg_label(v, step, "E", "W")))
+            else:
+                order = np.argsort(gx)
+                at = float(np.interp(x1, gx[order], gy[order]))
+                if y0 < at < y1:
+                    ticks[1].append((at, _deg_label(v, step, "N", "S")))
+    same = (lambda u: u, lambda u: u)
+    top = ax.secondary_xaxis("top", functions=same)
+    top.set_xticks([p for p, _ in ticks[0]], labels=[lab for _, lab in ticks[0]], fontsize=7, color="#1a5276")
+    right = ax.secondary_yaxis("right", functions=same)
+    right.set_yticks([p for p, _ in ticks[1]], labels=[lab for _, lab in ticks[1]], fontsize=7, color="#1a5276",
+                     rotation=90, va="center")
+    for sec in (top, right):
+        sec.set_gid("fallway-graticule-labels")
+    return top, right
+
+
+def _true_north_deg(crs, view):
+    """Angle (degrees, anticlockwise from grid north) of true north at the view's centre."""
+    import pyproj
+
+    if crs is None:
+        return 0.0
+    c = pyproj.CRS.from_user_input(crs)
+    to_ll = pyproj.Transformer.from_crs(c, "EPSG:4326", always_xy=True)
+    to_xy = pyproj.Transformer.from_crs("EPSG:4326", c, always_xy=True)
+    cx, cy = 0.5 * (view[0] + view[2]), 0.5 * (view[1] + view[3])
+    lon, lat = to_ll.transform(cx, cy)
+    dlat = min(1e-3, 89.9 - abs(lat)) if abs(lat) < 89.9 else 0.0
+    if not (math.isfinite(lon) and math.isfinite(lat)) or dlat <= 0:
+        return 0.0
+    nx, ny = to_xy.transform(lon, lat + dlat)
+    return math.degrees(math.atan2(-(nx - cx), ny - cy))
+
+
+def _overview_inset(ax, terrain, view, route):
+    """The whole DEM, small, in the lower right corner, with the view's outline."""
+    from matplotlib.patches import Rectangle
+
+    left, bottom, right, top = (float(v) for v in terrain.bounds)
+    w, h = right - left, top - bottom
+    size = 0.28
+    iw, ih = (size, size * h / w) if w >= h else (size * w / h, size)
+    ins = ax.inset_axes([0.99 - iw, 0.01, iw, ih], zorder=9)
+    rgba, step = _hillshade_rgb(terrain, max_px=300)
+    ins.imshow(rgba, extent=_raster_extent(terrain, rgba, step, slice(0, None), slice(0, None)), origin="upper",
+               interpolation="bilinear")
+    ins.add_patch(Rectangle((view[0], view[1]), view[2] - view[0], view[3] - view[1], fill=False,
+                            edgecolor=_LINE_COLOUR, linewidth=1.2, gid="fallway-overview-view"))
+    if route is not None:
+        line = np.asarray(route.line, dtype=float)
+        ins.plot(line[:, 0], line[:, 1], color=_LINE_COLOUR, linewidth=1.0)
+    ins.set_xlim(left, right)
+    ins.set_ylim(bottom, top)
+    ins.set_aspect("equal")
+    ins.set_xticks([])
+    ins.set_yticks([])
+    ins.set_gid("fallway-overview")
+    return ins
+
+
+def _raster_extent(terrain, rgba, step, rs, cs):
+    """imshow extent of a hillshade of the window (rs, cs) thinned by ``step``."""
+    tr = terrain.transform
+    size = terrain.cell_size * step
+    x_first = tr.c + (cs.start + 0.5) * tr.a  # centre of the first drawn cell
+    y_first = tr.f + (rs.start + 0.5) * tr.e
+    px_left = x_first - 0.5 * size
+    px_top = y_first + 0.5 * size
+    return (px_left, px_left + rgba.shape[1] * size, px_top - rgba.shape[0] * size, px_top)
+
+
+def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None, view="auto", contours=True,
+             graticule=True, overview=True):
+    """Site map: hillshade, contours, the line, keep-out areas, reach isochrones, graticule.
 
     Parameters
     ----------
     terrain : Terrain
         Drawn as a tinted hillshade (matplotlib ``LightSource``, sun from the north-west)
-        in map coordinates.
+        in map coordinates, with contours.
     route : Route, optional
         Its reported line (solid) and its lattice line (dashed), start and end markers.
     reach : ReachMap, optional
@@ -151,12 +396,25 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
         No-go polygons, hatched: a :class:`fallway.limits.Keepout` (reprojected to the
         terrain CRS with ``Keepout.in_crs``) or shapely polygons in the terrain CRS.
     ax : matplotlib Axes, optional
+    view : {"auto", "dem"} or (left, bottom, right, top)
+        ``"auto"``: zoomed to the line, the reachable area and the keep-outs near them,
+        with a margin (a fifth of their larger side, at least ten cells), inside the DEM;
+        the whole DEM when there is nothing else to draw.  ``"dem"``: the whole DEM.
+    contours : bool
+        Contours at :func:`contour_step` of the view's relief (every fifth bold, labelled).
+    graticule : bool
+        Meridians and parallels (pyproj, from the terrain's CRS to WGS 84) labelled in
+        degrees, minutes and seconds; none for a terrain without a CRS.
+    overview : bool
+        The whole DEM as a small inset (lower right) with the view outlined, when the view
+        is less than half the DEM's width or height.
 
     Returns
     -------
     matplotlib.axes.Axes
-        With a scale bar and a north arrow; the arrow points to grid north (up), which
-        differs from true north by the meridian convergence of the projection.
+        With a scale bar and a north arrow pointing to true north (grid north turned by the
+        meridian convergence at the view's centre).  ``ax.figure`` is what
+        :func:`save_figure` writes (it also takes the axes itself).
 
     Examples
     --------
@@ -169,24 +427,41 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
     ([0.0, 60.0], 'fallway-hillshade')
     """
     ax = _new_axes(ax, (8.0, 7.0))
-    left, bottom, right, top = (float(v) for v in terrain.bounds)
-    rgba, step = _hillshade_rgb(terrain)
-    # a thinned raster: each pixel is a block of step x step cells, sampled at its first cell
-    size = terrain.cell_size * step
-    px_left = left + 0.5 * terrain.cell_size - 0.5 * size
-    px_top = top - 0.5 * terrain.cell_size + 0.5 * size
-    extent = (px_left, px_left + rgba.shape[1] * size, px_top - rgba.shape[0] * size, px_top)
-    img = ax.imshow(rgba, extent=extent, origin="upper",
-                    interpolation="bilinear", zorder=0)
-    img.set_gid("fallway-hillshade")
-
+    polys = []
     if keepout is not None:
-        from matplotlib.patches import PathPatch
-
         if hasattr(keepout, "in_crs") and terrain.crs is not None:
             keepout = keepout.in_crs(terrain.crs)  # a Keepout read from lon/lat GeoJSON
+        polys = _geometries(keepout)
+    if isinstance(view, str):
+        if view not in ("auto", "dem"):
+            raise ParameterError(f"view must be 'auto', 'dem' or (left, bottom, right, top), got {view!r}")
+        bounds = _map_view(terrain, route, reach, polys) if view == "auto" else tuple(
+            float(v) for v in terrain.bounds)
+    else:
+        bounds = tuple(float(v) for v in view)
+        if len(bounds) != 4 or not (bounds[0] < bounds[2] and bounds[1] < bounds[3]):
+            raise ParameterError(f"view must be (left, bottom, right, top) with left < right and bottom < top, "
+                                 f"got {view!r}")
+    left, bottom, right, top = bounds
+    rs, cs = _window(terrain, bounds)
+    rgba, step = _hillshade_rgb(terrain, rs, cs)
+    img = ax.imshow(rgba, extent=_raster_extent(terrain, rgba, step, rs, cs), origin="upper",
+                    interpolation="bilinear", zorder=0)
+    img.set_gid("fallway-hillshade")
+    note = None
+    if contours:
+        zwin = terrain.z[rs, cs]
+        if np.isfinite(zwin).any():
+            relief = float(np.nanmax(zwin) - np.nanmin(zwin))
+            if relief > 0:
+                step_m = contour_step(relief)
+                if _draw_contours(ax, terrain, rs, cs, step_m)[0] is not None:
+                    note = f"contours every {step_m:g} m"
 
-        for i, poly in enumerate(_geometries(keepout)):
+    if polys:
+        from matplotlib.patches import PathPatch
+
+        for i, poly in enumerate(polys):
             patch = PathPatch(_polygon_path(poly), facecolor=_KEEPOUT_COLOUR, alpha=0.25,
                               edgecolor=_KEEPOUT_COLOUR, hatch="//", linewidth=1.2, zorder=3,
                               label="keep-out" if i == 0 else None)
@@ -238,8 +513,13 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None):
     ax.set_ylabel("northing (m)")
     ax.ticklabel_format(useOffset=False, style="plain")
     ax.tick_params(labelsize=7)
-    _scale_bar(ax, right - left)
-    _north_arrow(ax)
+    if graticule:
+        _graticule(ax, terrain.crs, bounds)
+    _scale_bar(ax, right - left, note)
+    _north_arrow(ax, _true_north_deg(terrain.crs, bounds))
+    dl, db, dr, dt = (float(v) for v in terrain.bounds)
+    if overview and ((right - left) < 0.5 * (dr - dl) or (top - bottom) < 0.5 * (dt - db)):
+        _overview_inset(ax, terrain, bounds, route)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(loc="upper left", fontsize=8, framealpha=0.85)
     return ax
@@ -367,7 +647,8 @@ def save_figure(fig, path: str | os.PathLike, *, formats=("png", "svg"), dpi: in
 
     Parameters
     ----------
-    fig : matplotlib Figure
+    fig : matplotlib Figure or Axes
+        An Axes (as :func:`plot_map` returns) is written as its whole figure.
     path : path-like
         Base name; a ``.png``/``.svg`` suffix is replaced by each format's.
     formats : sequence of str
@@ -390,6 +671,10 @@ def save_figure(fig, path: str | os.PathLike, *, formats=("png", "svg"), dpi: in
     """
     from .export import atomic_path
 
+    if not hasattr(fig, "savefig"):  # the Axes plot_map and plot_profile return
+        fig = getattr(fig, "figure", None)
+        if fig is None or not hasattr(fig, "savefig"):
+            raise ParameterError("save_figure takes a matplotlib Figure or Axes")
     path = Path(path)
     base = path.with_suffix("") if path.suffix.lower() in (".png", ".svg") else path
     out = []
