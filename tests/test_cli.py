@@ -119,6 +119,9 @@ def test_reach_geotiff_two_bands_match_the_incline_formula(tmp_path, ramp):
     assert v[r, c] == pytest.approx(math.sqrt(2 * a * s), rel=1e-5)
     # uphill of the start (west) nothing is reachable from rest
     assert np.isnan(t[15, 0])
+    # the isochrone map beside it (PNG spec, ISO/IEC 15948 section 5.2: the signature)
+    assert (tmp_path / "reach.png").read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
+    assert "reach.png" in res.output
     # a second run refuses to replace the file without --overwrite
     res = _run(["reach", dem, "--start", *start, "--mu", 0.1, "--out", out])
     assert res.exit_code == 1 and "--overwrite" in res.output
@@ -238,8 +241,9 @@ def test_reach_with_a_time_cut_off(tmp_path, ramp):
     assert _run(["reach", dem, "--start", *start, "--mu", 0.1, "--normal", "gravity", "--neighbours", 8,
                  "--out", full]).exit_code == 0
     res = _run(["reach", dem, "--start", *start, "--mu", 0.1, "--normal", "gravity", "--neighbours", 8,
-                "--max-time", 4.0, "--out", cut])
+                "--max-time", 4.0, "--out", cut, "--no-plot"])
     assert res.exit_code == 0, res.output
+    assert (tmp_path / "full.png").is_file() and not (tmp_path / "cut.png").exists()  # --no-plot
     with rasterio.open(full) as a, rasterio.open(cut) as b:
         tf = a.read(1)
         tc = b.read(1)

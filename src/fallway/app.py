@@ -348,21 +348,46 @@ def run_compare(sc, lines_path, out_dir, *, overwrite: bool = False, refine: boo
 
 @checked_options
 def run_reach(sc, out_path, *, overwrite: bool = False, max_time_s: float | None = None,
-              max_distance_m: float | None = None):
-    """Map arrival time and speed from the scenario's start; writes one GeoTIFF and returns the ReachMap."""
+              max_distance_m: float | None = None, plot: bool = True):
+    """Map arrival time and speed from the scenario's start; returns the ReachMap.
+
+    Writes the GeoTIFF and, with ``plot``, its site map beside it (same name, ``.png``):
+    the isochrones on the hillshade, zoomed to the reachable area.
+    """
     from .export import OutputSet, write_reach_geotiff
     from .routing import reach
 
     out = Path(out_path)
     if out.suffix.lower() not in (".tif", ".tiff"):
         raise ParameterError(f"the reach map is a GeoTIFF: give --out a .tif name, not {out.name!r}")
-    # a one-file output set: the raster appears complete or not at all, also on Ctrl-C
-    with OutputSet(out.parent, overwrite=overwrite, result_names=(out.name,)) as outs:
+    names = (out.name, out.with_suffix(".png").name) if plot else (out.name,)
+    # one output set: the raster (and its map) appear complete or not at all, also on Ctrl-C
+    with OutputSet(out.parent, overwrite=overwrite, result_names=names) as outs:
         site = resolve_site(sc, need_end=False, load=max_time_s is None and max_distance_m is None)
         rm = reach(site.terrain, site.start, sc.mover, limits=sc.limits, keepout=site.keepout, search=sc.search,
                    max_time_s=max_time_s, max_distance_m=max_distance_m, points_crs=site.given_crs)
         write_reach_geotiff(rm, outs.path(out.name))
+        if plot:
+            _write_reach_map(sc, site, rm, outs.path(names[1]))
     return rm
+
+
+def _write_reach_map(sc, site, rm, path):
+    """The reach map's PNG: isochrones on the terrain under the reach map's own grid."""
+    from . import plot
+    from .export import reproducible_figures
+    from .terrain import Terrain
+
+    terrain = site.terrain
+    if not isinstance(terrain, Terrain):  # a windowed search read only the area it reached
+        rows, cols = rm.time_s.shape
+        tr = rm.transform
+        xs = sorted((tr.c, tr.c + cols * tr.a))
+        ys = sorted((tr.f, tr.f + rows * tr.e))
+        terrain = load_area(sc.dem, (xs[0], ys[0], xs[1], ys[1]), band=sc.band, z_scale=sc.z_scale)
+    with reproducible_figures():
+        ax = plot.plot_map(terrain, reach=rm, keepout=site.keepout)
+        plot.save_figure(ax, path, formats=("png",))
 
 
 @checked_options

@@ -403,20 +403,24 @@ def _print_route(r, out_dir, written) -> None:
 @click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), callback=_tif_name,
               help="Output GeoTIFF, a .tif name (2 bands: time s, speed m/s).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing output file.")
+@click.option("--plot/--no-plot", "plot", default=True, show_default=True,
+              help="Also write the isochrone map beside the GeoTIFF (same name, .png).")
 @_guard
-def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, **opts):
+def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_distance_m, plot, **opts):
     """Map the arrival time and speed from --start to every reachable cell of DEM."""
     _setup_logging(quiet, verbose)
     from .app import run_reach
 
     sc = _resolve(scenario_path, _overrides(end=None, via=(), **opts))
-    rm = run_reach(sc, out_path, overwrite=overwrite, max_time_s=max_time_s, max_distance_m=max_distance_m)
+    rm = run_reach(sc, out_path, overwrite=overwrite, max_time_s=max_time_s, max_distance_m=max_distance_m,
+                   plot=plot)
     if not quiet:
         import numpy as np
 
         n = int(np.isfinite(rm.time_s).sum())
+        png = f" and {Path(out_path).with_suffix('.png')}" if plot else ""
         click.echo(f"{n} of {rm.time_s.size} cells reachable; latest arrival {np.nanmax(rm.time_s):.1f} s; "
-                   f"wrote {out_path}")
+                   f"wrote {out_path}{png}")
 
 
 @main.command()
