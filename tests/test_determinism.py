@@ -125,7 +125,7 @@ def test_compare_and_reach_byte_identical(tmp_path):
         _cli("compare", dem, lines, "--mu", "0.1", "--out", tmp_path / name)
         _cli("reach", dem, "--start", X0 + 2.5, Y0 - 40.0, "--mu", "0.1", "--out", tmp_path / name / "r" / "reach.tif")
         time.sleep(1.1)
-    _same_files(tmp_path / "a", tmp_path / "b", [*COMPARE_FILES, "r/reach.tif"])
+    _same_files(tmp_path / "a", tmp_path / "b", [*COMPARE_FILES, "r/reach.tif", "r/reach.png"])
 
 
 @pytest.mark.slow

@@ -25,7 +25,8 @@ __all__ = ["Site", "resolve_site", "run_scenario", "write_scenario", "run_compar
 
 #: The files a route run writes (``outputs="full"``).
 ROUTE_FILES = ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "map.png", "map.svg",
-               "profile.png", "profile.svg", "report.html")
+               "profile.png", "profile.svg", "report.html",
+               "profile.pdf")
 #: The files of a batch run (``outputs="core"``).
 CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
 #: The files ``compare`` writes.
@@ -296,6 +297,10 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     ax = plot.plot_profile(route, terrain)
     plot.save_figure(ax.figure, outs.path("profile.png"))
     outs.path("profile.svg")
+    from .longsection import write_profile_pdf
+
+    write_profile_pdf(route, terrain, outs.path("profile.pdf"), name=_run_name(sc), dem=sc.dem,
+                      mu_range=sc.mu_range)
     cmp_png = None
     if comparison is not None:
         comparison.to_csv(outs.path("comparison.csv"))
@@ -310,6 +315,11 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
                              profile_png=outs.path("profile.png"), parameters=params,
                              comparison=comparison, comparison_png=cmp_png)
     return sorted(outs._names)
+
+
+def _run_name(sc) -> str:
+    """The run's name on its sheets and report (a scenario has no name field: its DEM names it)."""
+    return f"Route on {Path(sc.dem).name}" if sc.dem else "fallway route"
 
 
 @checked_options
