@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import base64
+import dataclasses
+import re
 import html
 import html.parser
 import shutil
@@ -91,12 +93,99 @@ def test_report_has_numbers_parameters_and_caution(site, report):
     assert cells[i + 1] == f"{route.summary.travel_time_s:.2f} s"
     i = cells.index("Drop")
     assert cells[i + 1] == f"{route.summary.drop_m:.1f} m"
-    assert cells[cells.index("mu") + 1] == "0.1000"
-    assert cells[cells.index("max_grade") + 1] == "no limit"  # Limits default: inf
-    assert cells[cells.index("search.neighbours") + 1] == "16"
-    assert cells[cells.index("labels_created") + 1] == "1234"
+    assert cells[cells.index("Friction coefficient μ") + 1] == "0.1"
+    assert cells[cells.index("Steepest descent grade allowed") + 1] == "none"  # Limits default: inf, in words
+    # the least grade limit 0.05 with its percent and angle: atan(0.05) = 2.862° (arithmetic)
+    assert cells[cells.index("Least descent grade allowed") + 1] == "0.05 (5 %, 2.9°)"
+    assert cells[cells.index("Search / neighbours") + 1] == "16"
     assert "synthetic slope" in cells
-    assert cells[cells.index("refine_residual_s_per_m") + 1] == "1.5e-07"  # small numbers keep their digits
+    assert "labels_created" not in text and "refine_residual" not in text  # internals stay in summary.json
+
+
+def _visible_text(page: str) -> str:
+    """The page's text as a reader sees it (tags, styles and data URIs dropped)."""
+    class Text(html.parser.HTMLParser):
+        def __init__(self):
+            super().__init__()
+            self.parts, self._skip = [], 0
+
+        def handle_starttag(self, tag, attrs):
+            self._skip += tag in ("style", "script", "title")
+
+        def handle_endtag(self, tag):
+            self._skip -= tag in ("style", "script", "title")
+
+        def handle_data(self, data):
+            if not self._skip:
+                self.parts.append(data)
+
+    t = Text()
+    t.feed(page)
+    return " ".join(t.parts)
+
+
+#: What must not reach a reader: unfinished values and internal keys (snake_case words).
+_RAW = re.compile(r"\b(?:[Ii]nf|INF|[Nn]a[Nn]|NAN|None|[Ii]nfinity)\b|\b[a-z]+(?:_[a-z0-9]+)+\b")
+
+
+def test_report_states_inputs_points_stations_and_provenance(site):
+    terrain, route = site
+    # the points as given in lon/lat: the report shows them, the map coordinates, and lon/lat
+    # recomputed with pyproj (the reference) from the map coordinates
+    import pyproj
+
+    to_ll = pyproj.Transformer.from_crs(terrain.crs, "EPSG:4326", always_xy=True)
+    lon, lat = to_ll.transform(*route.summary.start_xyz[:2])
+    params = {"dem": "/data/site.tif", "points": {"lonlat": True, "start": [lon, lat], "end": [0.0, 0.0]}}
+    page = report_html(route, terrain, parameters=params, map_png=PNG_SIGNATURE, profile_png=PNG_SIGNATURE,
+                       date="2026-12-02")
+    p = _Collect()
+    p.feed(page)
+    cells = [c.strip() for c in p.cells]
+    i = cells.index("start")
+    assert cells[i + 1] == f"{lon:.6f}, {lat:.6f} (lon, lat)"
+    assert cells[i + 2] == f"{route.summary.start_xyz[0]:.2f}, {route.summary.start_xyz[1]:.2f}"
+    assert cells[i + 3] == f"{abs(lat):.6f}° N, {abs(lon):.6f}° E"
+    from importlib.metadata import version
+
+    text = _visible_text(page)
+    assert "2026-12-02" in text and f"fallway {version('fallway')}" in text
+    assert "site.tif" in text and "EPSG:32633 (WGS 84 / UTM zone 33N)" in text
+    assert 'class="verdict ok"' in page and "Meets every limit" in text
+    # the station table: collapsible, one row per vertex, stations and speeds as the profile has them
+    assert page.count("<details") == 1 and "<summary>" in page
+    body = page[page.index("<details"):page.index("</details>")]
+    q = _Collect()
+    q.feed(body)
+    n = len(route.profile.station_m)
+    rows = [q.cells[k:k + 11] for k in range(11, len(q.cells), 11)]
+    assert len(rows) == n
+    np.testing.assert_allclose([float(r[0]) for r in rows], route.profile.station_m, atol=0.05)
+    np.testing.assert_allclose([float(r[8]) for r in rows], route.profile.speed_m_s, atol=0.005)
+    assert not _RAW.findall(text), _RAW.findall(text)
+
+
+def test_report_headline_over_a_friction_range(site):
+    from fallway.evaluate import envelope
+
+    terrain, route = site
+    # the same line at mu 0.05 / 0.1 / 0.6: at 0.6 the 45 % slope (tan 24°) cannot carry it
+    env = envelope(terrain, route.line, route.mover, 0.05, 0.6, limits=route.limits)
+    assert env.high.stalled_at_m is not None  # the reference: evaluate's own traverse
+    r = dataclasses.replace(route, envelope=env)
+    page = report_html(r, terrain, map_png=PNG_SIGNATURE, profile_png=PNG_SIGNATURE)
+    text = _visible_text(page)
+    assert 'class="verdict bad"' in page
+    assert "over the friction range 0.05 to 0.6: stalls at high friction" in text
+    p = _Collect()
+    p.feed(page)
+    cells = [c.strip() for c in p.cells]
+    i = cells.index("high friction")
+    assert cells[i + 1] == "0.6" and cells[i + 3] == "does not arrive"
+    assert cells[i + 6] == f"{env.high.stalled_at_m:.1f} m"
+    i = cells.index("low friction")
+    assert cells[i + 3] == f"{env.low.travel_time_s:.2f} s"
+    assert not _RAW.findall(text), _RAW.findall(text)
 
 
 def test_report_draws_its_own_plots_and_escapes_text(site, tmp_path):
@@ -129,10 +218,10 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     from matplotlib.image import imread
 
     shot = tmp_path / "shot.png"
-    cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+    cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--disable-background-networking",
            "--disable-component-update", "--disable-sync", "--no-first-run", "--hide-scrollbars",
            f"--user-data-dir={tmp_path / 'profile'}", f"--screenshot={shot}", "--window-size=1200,2000",
-           report.resolve().as_uri()]
+           "--dump-dom", report.resolve().as_uri()]
     res = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
     assert shot.exists(), f"chromium wrote no screenshot (exit {res.returncode}): {res.stderr[-500:]}"
     assert shot.read_bytes().startswith(PNG_SIGNATURE)
@@ -148,3 +237,9 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     assert _colour_fraction(img, (0xEF, 0xE8, 0xDA)) > 1e-4
     # the embedded map is drawn: its line colour (#c0392b) appears in the image
     assert _colour_fraction(img, (0xC0, 0x39, 0x2B), tol=0.03) > 1e-4
+    # the page as the browser parsed it: a reader sees no unfinished values and no internal keys
+    dom = res.stdout
+    assert "<details" in dom and "Station table" in dom, dom[:300]
+    text = _visible_text(dom)
+    assert "Travel time" in text and "Meets every limit" in text
+    assert not _RAW.findall(text), _RAW.findall(text)

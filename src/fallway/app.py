@@ -308,9 +308,7 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
                          outs.path("comparison.png"))
         outs.path("comparison.svg")
         cmp_png = outs.path("comparison.png")
-    params = sc.to_dict()
-    if route.envelope is not None:
-        params = {**params, "friction envelope": route.envelope.columns()}
+    params = sc.to_dict()  # the friction envelope is the report's headline (and in summary.json)
     report.write_report_html(route, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
                              profile_png=outs.path("profile.png"), parameters=params,
                              comparison=comparison, comparison_png=cmp_png)

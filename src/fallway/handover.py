@@ -121,13 +121,13 @@ def limit_rows(limits) -> list[tuple[str, str]]:
     Examples
     --------
     >>> from fallway.params import Limits
-    >>> dict(limit_rows(Limits(min_grade=0.05)))["Least descent grade"]
+    >>> dict(limit_rows(Limits(min_grade=0.05)))["Least descent grade allowed"]
     '0.05 (5 %, 2.9°)'
     """
     lo = limits.min_grade
     return [
-        ("Least descent grade", _grade(None if lo is None or math.isinf(lo) else lo)),
-        ("Steepest descent grade", _grade(limits.max_grade)),
+        ("Least descent grade allowed", _grade(None if lo is None or math.isinf(lo) else lo)),
+        ("Steepest descent grade allowed", _grade(limits.max_grade)),
         ("Turn per lattice step", reading(limits.max_step_turn_deg, 1, "°")),
         ("Smallest bend radius", reading(limits.min_radius_m, 1, "m")),
         ("Largest lateral acceleration", reading(limits.max_lateral_g, 2, "g")),

@@ -15,24 +15,12 @@ import os
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from .caution import CAUTION
+from .handover import crs_text, fallway_version, limit_rows, line_rows, mover_rows, reading, run_date
 
 __all__ = ["write_report_html", "report_html", "comparison_html", "write_comparison_html"]
-
-#: (summary key, label, unit, decimals) of the main table, in this order; other summary
-#: entries follow in a second table.
-_MAIN_ROWS = (
-    ("travel_time_s", "Travel time", "s", 2),
-    ("lattice_time_s", "Lattice line time", "s", 2),
-    ("length_m", "Length along the line", "m", 1),
-    ("plan_length_m", "Plan length", "m", 1),
-    ("drop_m", "Drop", "m", 1),
-    ("exit_speed_m_s", "Speed at the end", "m/s", 2),
-    ("max_speed_m_s", "Highest speed", "m/s", 2),
-    ("min_radius_plan_m", "Tightest bend radius in plan", "m", 1),
-    ("min_radius_3d_m", "Tightest bend radius along the line (3D)", "m", 1),
-    ("max_grade", "Steepest descent grade", "", 3),
-)
 
 _CSS = """
 body { font-family: "DejaVu Sans", Helvetica, Arial, sans-serif; margin: 0; background: #f4f1ea;
@@ -45,6 +33,11 @@ h3 { font-size: 15px; margin: 16px 0 6px; }
 .caution { border: 3px solid #b03a2e; background: #fdecea; padding: 12px 16px; margin: 16px 0;
            font-size: 15px; line-height: 1.4; }
 .caution strong { color: #922b21; text-transform: uppercase; letter-spacing: 0.05em; }
+.verdict { font-size: 19px; font-weight: 600; padding: 10px 16px; margin: 12px 0; border-radius: 4px; }
+.verdict.ok { background: #e8f6ec; border: 2px solid #1e8449; color: #145a32; }
+.verdict.bad { background: #fdecea; border: 2px solid #b03a2e; color: #922b21; }
+details { margin: 12px 0; }
+summary { cursor: pointer; font-weight: 600; }
 .flag { background: #fff4d6; border-left: 5px solid #d68910; padding: 8px 12px; margin: 8px 0; }
 table { border-collapse: collapse; margin: 6px 0 12px; font-size: 14px; }
 th, td { border: 1px solid #c9c2b4; padding: 4px 10px; text-align: left; vertical-align: top; }
@@ -60,16 +53,16 @@ footer { margin-top: 32px; font-size: 12px; color: #666; }
 
 def _fmt(value: Any, decimals: int = 4) -> str:
     if value is None:
-        return "—"
+        return "none"
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, int):
         return f"{value:d}"
     if isinstance(value, float):
         if math.isnan(value):
-            return "—"
+            return "none"
         if math.isinf(value):
-            return "no limit"
+            return "unbounded"
         if value != 0.0 and abs(value) < 10.0 ** (-decimals):
             return f"{value:.3g}"
         return f"{value:.{decimals}f}"
@@ -116,14 +109,6 @@ def _flatten(d: dict) -> list[tuple[str, Any]]:
     return list(flatten(d, ".").items())
 
 
-def _as_dict(obj) -> dict:
-    if obj is None:
-        return {}
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return dataclasses.asdict(obj)
-    return dict(obj)
-
-
 def _png_bytes(source) -> bytes | None:
     """PNG bytes from a path, bytes or a matplotlib Figure."""
     if source is None:
@@ -149,9 +134,209 @@ def _img(data: bytes, alt: str, caption: str) -> str:
             f"<figcaption>{_e(caption)}</figcaption></figure>")
 
 
+#: Limit names of ``RouteSummary.violated_limits`` and a row's status, in words.
+_LIMIT_WORDS = {
+    "stalls": "the mover stops before the end", "stall": "the mover stops before the end",
+    "keepout": "enters a keep-out area", "overspeed": "exceeds the speed limit", "liftoff": "lifts off on a crest",
+    "lateral_g": "lateral acceleration over its limit", "normal_g": "normal load over its limit",
+    "grade": "a grade outside the grade window", "min_radius": "a bend tighter than the smallest radius",
+    "extent": "leaves the DEM's data", "nodata": "crosses cells without data",
+}
+
+
+def _limit_words(names) -> str:
+    return "; ".join(_LIMIT_WORDS.get(n, str(n).replace("_", " ")) for n in names)
+
+
+def _lonlat(crs, x, y):
+    """(lon, lat) of a map point, or None without a CRS."""
+    if crs is None:
+        return None
+    import pyproj
+
+    tr = pyproj.Transformer.from_crs(pyproj.CRS.from_user_input(crs), "EPSG:4326", always_xy=True)
+    lon, lat = tr.transform(float(x), float(y))
+    return float(lon), float(lat)
+
+
+def _ll_text(ll) -> str:
+    if ll is None:
+        return "none (the DEM has no CRS)"
+    lon, lat = ll
+    return f"{abs(lat):.6f}° {'N' if lat >= 0 else 'S'}, {abs(lon):.6f}° {'E' if lon >= 0 else 'W'}"
+
+
+def _verdict_html(route) -> list[str]:
+    """The headline: does the line meet every limit (at each friction of the range)?"""
+    s = route.summary
+    ok = bool(s.feasible)
+    head = "Meets every limit" if ok else "Breaks a limit: " + _limit_words(s.violated_limits or ["a limit"])
+    head += f" at friction μ = {route.mover.mu:g}"
+    env = route.envelope
+    if env is not None:
+        head += f"; over the friction range {env.mu_lo:g} to {env.mu_hi:g}: " + (
+            "gets through at every friction" if env.robust else env.verdict)
+        ok = ok and env.robust
+    out = [f'<div class="verdict {"ok" if ok else "bad"}" id="verdict">{_e(head)}.</div>']
+    if env is not None:
+        rows = []
+        for case, mu, r in (("low", env.mu_lo, env.low), ("nominal", env.mu_nominal, env.nominal),
+                            ("high", env.mu_hi, env.high)):
+            status = "meets every limit" if r.status == "ok" else _limit_words(r.issues or [r.status])
+            rows.append((f"{case} friction", f"{mu:g}", status, reading(r.travel_time_s, 2, "s", none="does not arrive"),
+                         reading(r.exit_speed_m_s, 2, "m/s", none="does not arrive"),
+                         reading(r.max_speed_m_s, 2, "m/s"),
+                         reading(r.stalled_at_m, 1, "m", none="does not stop")))
+        out.append(_table(rows, head=("case", "μ", "verdict", "travel time", "speed at the end", "highest speed",
+                                      "stops at station")))
+    return out
+
+
+def _result_rows(route) -> list[tuple[str, str]]:
+    s = route.summary
+    rows = [
+        ("Travel time", reading(s.travel_time_s, 2, "s", none="does not reach the end")),
+        ("Length along the line", reading(s.length_m, 1, "m")),
+        ("Plan length", reading(s.plan_length_m, 1, "m")),
+        ("Drop", reading(s.drop_m, 1, "m")),
+        ("Speed at the end", reading(s.exit_speed_m_s, 2, "m/s", none="does not reach the end")),
+        ("Highest speed", reading(s.max_speed_m_s, 2, "m/s")),
+        ("Tightest bend radius in plan", reading(s.min_radius_plan_m, 1, "m", inf="straight")),
+        ("Tightest bend radius along the line (3D)", reading(s.min_radius_3d_m, 1, "m", inf="straight")),
+        ("Steepest descent grade", _grade_text(s.max_grade)),
+        ("Least descent grade", _grade_text(s.min_grade)),
+    ]
+    if s.max_lateral_g is not None:
+        rows += [
+            ("Largest lateral acceleration", f"{reading(s.max_lateral_g, 2, 'g')} at station "
+                                             f"{reading(s.max_lateral_g_station_m, 0, 'm')}"),
+            ("Largest normal load", f"{reading(s.max_normal_g, 2, 'g')} at station "
+                                    f"{reading(s.max_normal_g_station_m, 0, 'm')}"),
+            ("Smallest lift-off margin", f"{reading(s.min_liftoff_margin_g, 2, 'g')} at station "
+                                         f"{reading(s.min_liftoff_margin_station_m, 0, 'm')}"),
+        ]
+    rows.append(("Time of the lattice line (before refinement)", reading(s.lattice_time_s, 2, "s",
+                                                                           none="does not reach the end")))
+    return rows
+
+
+def _grade_text(g) -> str:
+    if g is None or (isinstance(g, float) and not math.isfinite(g)):
+        return "none"
+    return f"{g:.3f} ({100 * g:.1f} %, {math.degrees(math.atan(g)):.1f}°)"
+
+
+def _point_rows(route, terrain, parameters) -> list[tuple]:
+    """Start, via points and end: as given, in map coordinates, in lon/lat, and how far they moved."""
+    s = route.summary
+    pts = dict((parameters or {}).get("points") or {})
+    lonlat = bool(pts.get("lonlat"))
+    crs = terrain.crs
+    given_label = "lon, lat" if lonlat else "DEM's CRS"
+    rows = []
+    items = [("start", s.start_xyz[:2], pts.get("start"), s.start_moved_m, s.start_moved_why)]
+    for i, v in enumerate(s.via_xy or []):
+        vias = pts.get("via") or []
+        items.append((f"via point {i + 1}", v, vias[i] if i < len(vias) else None, None, None))
+    items.append(("end", s.end_xyz[:2], pts.get("end"), s.end_moved_m, s.end_moved_why))
+    for name, xy, given, moved, why in items:
+        given_text = ", ".join(f"{float(v):.6f}" if lonlat else f"{float(v):.2f}" for v in given) if given else "none"
+        moved_text = "not moved" if not moved else f"{reading(moved, 2, 'm')}" + (f" ({why})" if why else "")
+        rows.append((name, f"{given_text} ({given_label})" if given else given_text,
+                     f"{float(xy[0]):.2f}, {float(xy[1]):.2f}", _ll_text(_lonlat(crs, xy[0], xy[1])), moved_text))
+    return rows
+
+
+_SEARCH_WORDS = {"full": "the whole area at once", "corridor": "coarse to fine, in a corridor", "auto": "chosen by size",
+                 "robust": "robust over the friction range"}
+
+
+def _method_rows(route) -> list[tuple[str, str]]:
+    s = route.summary
+    rows = [
+        ("Search plan", _SEARCH_WORDS.get(s.search_plan, str(s.search_plan).replace("_", " "))),
+        ("Lattice directions per cell", f"{s.neighbours}"),
+        ("Lattice search exact", reading(s.search_exact)),
+        ("Refined", reading(s.refined)),
+    ]
+    if s.refined:
+        rows += [("Line reported", str(s.refine_choice or "none").replace("_", " ")),
+                 ("Refinement converged", reading(s.refine_converged, none="not run"))]
+    return rows
+
+
+def _station_table(route, terrain) -> str:
+    """Every vertex of the reported line, collapsible (``<details>``)."""
+    from .export import profile_flags
+
+    p = route.profile
+    pts = np.asarray(p.points, dtype=float)
+    zg = np.atleast_1d(terrain.sample(pts[:, 0], pts[:, 1]))
+    flags = profile_flags(p, route.mover)
+    words = {"stall": "stopped", "overspeed": "over the speed limit", "liftoff": "lift-off"}
+    head = ("station (m)", "x (m)", "y (m)", "ground (m)", "line (m)", "clearance (m)", "grade", "grade (°)",
+            "speed (m/s)", "time (s)", "flags")
+    out = [f'<details id="stations"><summary>Station table: {len(pts)} vertices of the line</summary>', "<table>",
+           "<tr>" + "".join(f"<th>{_e(h)}</th>" for h in head) + "</tr>"]
+    grade = np.asarray(p.grade, dtype=float)
+    for i in range(len(pts)):
+        g = float(grade[i]) if i < grade.size else float("nan")
+        cells = [reading(float(p.station_m[i]), 1), reading(pts[i, 0], 2), reading(pts[i, 1], 2),
+                 reading(float(zg[i]), 2, none="no data"), reading(pts[i, 2], 2),
+                 reading(float(pts[i, 2] - zg[i]), 2, none="no data"), reading(g, 3),
+                 reading(math.degrees(math.atan(g)) if math.isfinite(g) else None, 1),
+                 reading(float(p.speed_m_s[i]), 2, none="stopped"), reading(float(p.time_s[i]), 2, none="stopped"),
+                 ", ".join(words.get(f, f) for f in flags[i].split(";") if f) or "none"]
+        out.append("<tr>" + "".join(f'<td class="num">{_e(c)}</td>' for c in cells[:-1])
+                   + f"<td>{_e(cells[-1])}</td></tr>")
+    out += ["</table>", "</details>"]
+    return "\n".join(out)
+
+
+def _inputs_html(route, terrain, parameters) -> list[str]:
+    parts = ['<h2 id="inputs">Inputs</h2>', "<h3>Points</h3>",
+             _table(_point_rows(route, terrain, parameters),
+                    head=("point", "as given", f"map coordinates, {crs_text(terrain.crs)} (m)", "latitude, longitude",
+                          "moved to the lattice"))]
+    env = route.envelope
+    mu_range = (env.mu_lo, env.mu_hi) if env is not None else None
+    parts.append('<div class="cols">')
+    parts.append("<div><h3>Mover</h3>" + _table(mover_rows(route.mover, mu_range), head=("input", "value")) + "</div>")
+    parts.append("<div><h3>Limits</h3>" + _table(limit_rows(route.limits), head=("limit", "value")) + "</div>")
+    parts.append("<div><h3>Line</h3>" + _table(line_rows(route.line_spec), head=("input", "value")) + "</div>")
+    parts.append("</div>")
+    other = _other_settings(parameters)
+    if other:
+        parts.append("<h3>Other settings</h3>" + _table(other, head=("setting", "value")))
+    return parts
+
+
+#: Scenario sections shown elsewhere in the report (points, mover, limits, line, the DEM).
+_SHOWN = ("points", "mover", "limits", "line", "envelope", "dem")
+
+
+def _other_settings(parameters) -> list[tuple[str, str]]:
+    """The scenario's remaining settings, their keys put into words."""
+    if not parameters:
+        return []
+    rows = []
+    for key, value in _flatten({k: v for k, v in dict(parameters).items() if k not in _SHOWN}):
+        label = " / ".join(part.replace("_", " ") for part in str(key).split("."))
+        rows.append((label[:1].upper() + label[1:], _words_value(value)))
+    return rows
+
+
+def _words_value(value) -> str:
+    if isinstance(value, (list, tuple)):
+        return ", ".join(_words_value(v) for v in value) or "none"
+    if isinstance(value, float):
+        return reading(value, 4).rstrip("0").rstrip(".") if math.isfinite(value) else reading(value)
+    return reading(value)
+
+
 def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: dict | None = None,
                 title: str = "fallway: minimum-time descent line", reach=None, keepout=None,
-                comparison=None, comparison_png=None) -> str:
+                comparison=None, comparison_png=None, dem=None, date: str | None = None) -> str:
     """The report page as a string (see :func:`write_report_html`).
 
     Examples
@@ -164,7 +349,6 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     """
     from .export import profile_flags
 
-    summary = route.summary.to_dict()
     if map_png is None or profile_png is None:
         from .plot import plot_map, plot_profile
 
@@ -174,15 +358,17 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
             profile_png = plot_profile(route, terrain).figure
     map_data = _png_bytes(map_png)
     prof_data = _png_bytes(profile_png)
+    dem = dem if dem is not None else (parameters or {}).get("dem")
+    dem_text = Path(str(dem)).name if dem else "given in memory"
+    date = date or run_date()
 
     parts = ["<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
              '<meta name="viewport" content="width=device-width, initial-scale=1">',
              f"<title>{_e(title)}</title>", f"<style>{_CSS}</style>", "</head>", "<body>", "<main>"]
     parts.append(f"<h1>{_e(title)}</h1>")
-    pts = route.profile.points
-    parts.append(f'<p class="sub">From ({pts[0][0]:.1f}, {pts[0][1]:.1f}) at {pts[0][2]:.1f} m '
-                 f"to ({pts[-1][0]:.1f}, {pts[-1][1]:.1f}) at {pts[-1][2]:.1f} m, "
-                 f"{len(pts)} vertices.</p>")
+    parts.append(f'<p class="sub">Run of {_e(date)} · fallway {_e(fallway_version())} · DEM {_e(dem_text)}, '
+                 f"{_e(crs_text(terrain.crs))} · {_e(route.summary.line_kind)} line</p>")
+    parts += _verdict_html(route)
     parts.append(f'<div class="caution" id="caution"><strong>Caution</strong> — {_e(CAUTION)}</div>')
 
     # flagged stretches, stated in words
@@ -197,50 +383,33 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     n_lift = sum("liftoff" in f for f in flags)
     if n_lift:
         notes.append(f"{n_lift} places where an open chute would need the load held down (lift-off on a crest).")
-    for k in ("refine_converged",):
-        if summary.get(k) is False:
-            notes.append("The refinement stopped before it converged; the best line found is shown.")
-            break
+    if route.summary.refined and route.summary.refine_converged is False:
+        notes.append("The refinement stopped before it converged; the best line found is shown.")
     for n in notes:
         parts.append(f'<div class="flag">{_e(n)}</div>')
 
-    parts.append('<h2 id="numbers">Numbers</h2>')
-    rows = []
-    used = set()
-    for key, label, unit, dec in _MAIN_ROWS:
-        if key in summary:
-            used.add(key)
-            val = _fmt(summary[key], dec)
-            rows.append((label, f"{val} {unit}".strip() if val != "—" else val))
-    parts.append(_table(rows, head=("quantity", "value")))
-    others = [(k, v) for k, v in _flatten({k: v for k, v in summary.items() if k not in used})]
-    if others:
-        parts.append("<h3>Search and refinement</h3>")
-        parts.append(_table([(k, _fmt(v)) for k, v in others], head=("entry", "value")))
+    parts.append('<h2 id="numbers">Results</h2>')
+    parts.append(_table(_result_rows(route), head=("quantity", "value")))
 
     parts.append('<h2 id="plots">Plan and long-section</h2>')
     if map_data is not None:
-        parts.append(_img(map_data, "plan map of the line",
-                          "Plan: tinted hillshade, the line (solid), the lattice line (dashed), start (triangle) "
-                          "and end (square); grid north up."))
+        parts.append(_img(map_data, "site map of the line",
+                          "Site map: hillshade and contours, the line (solid), the lattice line (dashed), start "
+                          "(triangle) and end (square); the whole DEM in the inset; north arrow to true north."))
     if prof_data is not None:
         parts.append(_img(prof_data, "long-section of the line",
                           "Long-section: ground and line heights, speed and time along the line; "
-                          "flagged stretches shaded."))
+                          "flagged stretches shaded. profile.pdf holds the printable sheets at true scale."))
+    parts.append(_station_table(route, terrain))
 
     if comparison is not None:
         parts += _comparison_section(comparison, comparison_png)
 
-    parts.append('<h2 id="parameters">Parameters</h2>')
-    parts.append('<div class="cols">')
-    parts.append("<div><h3>Mover</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(route.mover))],
-                                                head=("parameter", "value")) + "</div>")
-    parts.append("<div><h3>Limits</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(route.limits))],
-                                                 head=("limit", "value")) + "</div>")
-    if parameters:
-        parts.append("<div><h3>Scenario</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(dict(parameters))],
-                                                       head=("setting", "value")) + "</div>")
-    parts.append("</div>")
+    parts += _inputs_html(route, terrain, parameters)
+    parts.append('<h2 id="method">How the line was found</h2>')
+    parts.append(_table(_method_rows(route), head=("step", "value")))
+    parts.append('<p class="sub">Every figure of the run, under its machine-readable name, is in summary.json '
+                 "beside this page.</p>")
 
     parts.append('<h2 id="cautions">Cautions</h2>')
     parts.append("<ul>")
@@ -250,7 +419,8 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     parts.append("<li>The friction coefficient is one number for the whole line; try the range of values "
                  "the material may show (wet, dry, worn) before relying on a time or a speed.</li>")
     parts.append("</ul>")
-    parts.append("<footer>Written by fallway. Times and speeds are those of a point mass on the exported "
+    parts.append(f"<footer>Written by fallway {_e(fallway_version())} on {_e(date)} from {_e(dem_text)} "
+                 f"({_e(crs_text(terrain.crs))}). Times and speeds are those of a point mass on the exported "
                  "vertices.</footer>")
     parts += ["</main>", "</body>", "</html>"]
     return "\n".join(parts) + "\n"
@@ -258,7 +428,8 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
 
 def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, profile_png=None,
                       parameters: dict | None = None, title: str = "fallway: minimum-time descent line",
-                      reach=None, keepout=None, comparison=None, comparison_png=None) -> Path:
+                      reach=None, keepout=None, comparison=None, comparison_png=None, dem=None,
+                      date: str | None = None) -> Path:
     """Write one self-contained HTML page for a route.
 
     Parameters
@@ -275,6 +446,12 @@ def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, 
     title : str
     reach, keepout : optional
         Passed to :func:`fallway.plot.plot_map` when the map is drawn here.
+    comparison, comparison_png : optional
+        A :class:`Comparison` of candidate lines and its figure, shown as a section.
+    dem : path, optional
+        The DEM file named on the page (default: ``parameters["dem"]``).
+    date : str, optional
+        The date of the run (default :func:`fallway.handover.run_date`).
 
     Returns
     -------
@@ -288,14 +465,14 @@ def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, 
     >>> route, terrain = _example_route()
     >>> p = write_report_html(route, terrain, pathlib.Path(tempfile.mkdtemp()) / "report.html",
     ...                       parameters={"scenario": "incline"})
-    >>> "Travel time" in p.read_text()
+    >>> "Travel time" in p.read_text() and "travel_time_s" not in p.read_text()
     True
     """
     from .export import atomic_write
 
     text = report_html(route, terrain, map_png=map_png, profile_png=profile_png, parameters=parameters,
                        title=title, reach=reach, keepout=keepout, comparison=comparison,
-                       comparison_png=comparison_png)
+                       comparison_png=comparison_png, dem=dem, date=date)
     path = Path(path)
     with atomic_write(path) as f:
         f.write(text)
@@ -338,7 +515,9 @@ def _comparison_section(comparison, comparison_png=None) -> list[str]:
             v = rec.get(key)
             if key == "name" and rec.get("computed"):
                 v = f"{v} *"
-            cells.append(_fmt(v, dec) if dec is not None else ("—" if v is None else str(v)))
+            if key == "status":
+                v = "meets every limit" if v == "ok" else _limit_words([v])
+            cells.append(_fmt(v, dec) if dec is not None else ("none" if v is None else str(v)))
         rows.append(cells)
     out = ["<table>", "<tr>" + "".join(f"<th>{_e(c[1])}</th>" for c in cols) + "</tr>"]
     num = ' class="num"'
@@ -373,15 +552,15 @@ def comparison_html(comparison, *, comparison_png=None, parameters: dict | None 
              f"<h1>{_e(title)}</h1>",
              f'<div class="caution" id="caution"><strong>Caution</strong> — {_e(CAUTION)}</div>']
     parts += _comparison_section(comparison, comparison_png)
-    parts.append('<h2 id="parameters">Parameters</h2>')
+    parts.append('<h2 id="parameters">Inputs</h2>')
     parts.append("<div class=\"cols\"><div><h3>Mover</h3>"
-                 + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(comparison.mover))], head=("parameter", "value"))
+                 + _table(mover_rows(comparison.mover, comparison.mu_range), head=("input", "value"))
                  + "</div><div><h3>Limits</h3>"
-                 + _table([(k, _fmt(v)) for k, v in _flatten(_as_dict(comparison.limits))], head=("limit", "value"))
+                 + _table(limit_rows(comparison.limits), head=("limit", "value"))
                  + "</div>")
-    if parameters:
-        parts.append("<div><h3>Scenario</h3>" + _table([(k, _fmt(v)) for k, v in _flatten(dict(parameters))],
-                                                       head=("setting", "value")) + "</div>")
+    other = _other_settings(parameters)
+    if other:
+        parts.append("<div><h3>Other settings</h3>" + _table(other, head=("setting", "value")) + "</div>")
     parts.append("</div>")
     parts.append("<footer>Written by fallway. Times and speeds are those of a point mass on each line's "
                  "vertices.</footer>")
