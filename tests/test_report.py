@@ -176,7 +176,7 @@ def test_report_headline_over_a_friction_range(site):
     page = report_html(r, terrain, map_png=PNG_SIGNATURE, profile_png=PNG_SIGNATURE)
     text = _visible_text(page)
     assert 'class="verdict bad"' in page
-    assert "over the friction range 0.05 to 0.6: stalls at high friction" in text
+    assert "at high friction μ = 0.6: the mover stops before the end" in text
     p = _Collect()
     p.feed(page)
     cells = [c.strip() for c in p.cells]

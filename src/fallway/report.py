@@ -82,12 +82,13 @@ def _e(text: Any) -> str:
     return html.escape(str(text), quote=True)
 
 
-def _table(rows, head=("quantity", "value")) -> str:
+def _table(rows, head=("quantity", "value"), *, numeric: bool = True) -> str:
+    """A table; with ``numeric`` a last cell that reads as a number is right-aligned."""
     out = ["<table>", "<tr>" + "".join(f"<th>{_e(h)}</th>" for h in head) + "</tr>"]
     for cells in rows:
         tds = []
         for j, c in enumerate(cells):
-            cls = ' class="num"' if j == len(cells) - 1 and _looks_numeric(c) else ""
+            cls = ' class="num"' if numeric and j == len(cells) - 1 and _looks_numeric(c) else ""
             tds.append(f"<td{cls}>{_e(c)}</td>")
         out.append("<tr>" + "".join(tds) + "</tr>")
     out.append("</table>")
@@ -174,9 +175,16 @@ def _verdict_html(route) -> list[str]:
     head += f" at friction μ = {route.mover.mu:g}"
     env = route.envelope
     if env is not None:
-        head += f"; over the friction range {env.mu_lo:g} to {env.mu_hi:g}: " + (
-            "gets through at every friction" if env.robust else env.verdict)
-        ok = ok and env.robust
+        # each friction of the range judged by the route's own limit check (lift-off counts only when the
+        # limits forbid it); the envelope's verdict names every lift-off and overspeed, allowed or not
+        bad = [(case, r) for case, r in (("low", env.low), ("high", env.high)) if r.status != "ok"]
+        if bad:
+            head += "; " + "; ".join(f"at {case} friction μ = {r_mu:g}: {_limit_words(r.issues or [r.status])}"
+                                     for (case, r), r_mu in zip(bad, [env.mu_lo if c == "low" else env.mu_hi
+                                                                        for c, _ in bad]))
+        else:
+            head += f", and at every friction from {env.mu_lo:g} to {env.mu_hi:g}"
+        ok = ok and not bad
     out = [f'<div class="verdict {"ok" if ok else "bad"}" id="verdict">{_e(head)}.</div>']
     if env is not None:
         rows = []
@@ -297,17 +305,17 @@ def _inputs_html(route, terrain, parameters) -> list[str]:
     parts = ['<h2 id="inputs">Inputs</h2>', "<h3>Points</h3>",
              _table(_point_rows(route, terrain, parameters),
                     head=("point", "as given", f"map coordinates, {crs_text(terrain.crs)} (m)", "latitude, longitude",
-                          "moved to the lattice"))]
+                          "moved by"))]
     env = route.envelope
     mu_range = (env.mu_lo, env.mu_hi) if env is not None else None
     parts.append('<div class="cols">')
-    parts.append("<div><h3>Mover</h3>" + _table(mover_rows(route.mover, mu_range), head=("input", "value")) + "</div>")
-    parts.append("<div><h3>Limits</h3>" + _table(limit_rows(route.limits), head=("limit", "value")) + "</div>")
-    parts.append("<div><h3>Line</h3>" + _table(line_rows(route.line_spec), head=("input", "value")) + "</div>")
+    for name, rows, head in (("Mover", mover_rows(route.mover, mu_range), "input"),
+                             ("Limits", limit_rows(route.limits), "limit"), ("Line", line_rows(route.line_spec), "input")):
+        parts.append(f"<div><h3>{name}</h3>" + _table(rows, head=(head, "value"), numeric=False) + "</div>")
     parts.append("</div>")
     other = _other_settings(parameters)
     if other:
-        parts.append("<h3>Other settings</h3>" + _table(other, head=("setting", "value")))
+        parts.append("<h3>Other settings</h3>" + _table(other, head=("setting", "value"), numeric=False))
     return parts
 
 
