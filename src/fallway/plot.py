@@ -150,13 +150,17 @@ _MARGIN_CELLS = 10
 _MIN_ASPECT = 0.6
 
 
-def _map_view(terrain, route, reach, keepout_polys):
+def _map_view(terrain, route, reach, keepout_polys, points=None):
     """(left, bottom, right, top) of a site map: the items drawn, a margin, inside the DEM.
 
-    With nothing to draw but the terrain the view is the whole DEM.
+    ``points``: more (x, y) to show (candidate lines).  With nothing to draw but the
+    terrain the view is the whole DEM.
     """
     left, bottom, right, top = (float(v) for v in terrain.bounds)
     boxes = []
+    if points is not None and len(points):
+        xy = np.asarray(points, dtype=float)[:, :2]
+        boxes.append((xy[:, 0].min(), xy[:, 1].min(), xy[:, 0].max(), xy[:, 1].max()))
     if route is not None:
         line = np.asarray(route.line, dtype=float)
         lat = np.asarray(route.lattice.points, dtype=float)
@@ -175,8 +179,9 @@ def _map_view(terrain, route, reach, keepout_polys):
             boxes.append((sx, sy, sx, sy))
     if not boxes:
         return left, bottom, right, top
-    for poly in keepout_polys:  # the keep-outs near the items: those touching their box widened
-        b0 = np.array(boxes[0], dtype=float)
+    items = np.array(boxes, dtype=float)
+    b0 = (items[:, 0].min(), items[:, 1].min(), items[:, 2].max(), items[:, 3].max())
+    for poly in keepout_polys:  # the keep-outs near the items: those touching their box widened by its size
         a, b, c, d = poly.bounds
         span = max(b0[2] - b0[0], b0[3] - b0[1], 1.0)
         if a <= b0[2] + span and c >= b0[0] - span and b <= b0[3] + span and d >= b0[1] - span:
@@ -481,14 +486,22 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None, view="au
             levels = np.arange(step, tmax + 0.5 * step, step) if tmax > 0 else []
             levels = [lv for lv in levels if lv < tmax] or ([tmax / 2] if tmax > 0 else [])
             if len(levels) and np.count_nonzero(ok) >= 4:
+                from matplotlib import patheffects
+
                 iso = ax.contour(xs, ys, np.ma.masked_invalid(t), levels=levels, colors=_ISO_COLOUR,
-                                 linewidths=0.8, zorder=4)
+                                 linewidths=1.3, zorder=4)
                 iso.set_gid("fallway-isochrones")
-                ax.clabel(iso, fmt=lambda v: f"{v:g} s", fontsize=7)
+                iso.set_path_effects([patheffects.withStroke(linewidth=3.0, foreground="white", alpha=0.7)])
+                for label in ax.clabel(iso, fmt=lambda v: f"{v:g} s", fontsize=7):
+                    label.set_in_layout(False)
+                ax.plot([], [], color=_ISO_COLOUR, linewidth=1.3, label=f"isochrones every {levels[0]:g} s"
+                        if len(levels) > 1 else f"isochrone {levels[0]:g} s")
             if not ok.all():
                 frontier = ax.contour(xs, ys, ok.astype(float), levels=[0.5], colors=_FRONTIER_COLOUR,
                                       linewidths=1.6, linestyles="--", zorder=4)
                 frontier.set_gid("fallway-frontier")
+                ax.plot([], [], color=_FRONTIER_COLOUR, linewidth=1.6, linestyle="--",
+                        label="edge of the reachable area")
         ax.plot([reach.start[0]], [reach.start[1]], marker="o", color=_ISO_COLOUR, markeredgecolor="white",
                 markersize=8, linestyle="none", zorder=6, label="reach start", gid="fallway-reach-start")
 
@@ -725,7 +738,9 @@ def comparison_figure(terrain, comparison, *, keepout=None, figsize=(14.0, 6.0))
 
     fig = Figure(figsize=figsize, layout="constrained")
     ax_map, ax_z = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.0, 1.3]})
-    plot_map(terrain, keepout=keepout, ax=ax_map)
+    drawn = [r.points[:, :2] for r in comparison.rows if r.points is not None]
+    view = _map_view(terrain, None, None, [], points=np.concatenate(drawn)) if drawn else "auto"
+    plot_map(terrain, keepout=keepout, ax=ax_map, view=view)
     ax_v = ax_z.twinx()
     colours = matplotlib.colormaps["tab10"]
     for rank, r in enumerate(comparison.rows, start=1):
