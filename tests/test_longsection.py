@@ -97,10 +97,16 @@ def test_raised_line_shows_its_clearance(tmp_path):
     assert len(reader.pages) == 1
     text = reader.pages[0].extract_text()
     assert "clearance (line above ground)" in text and "0 to 5 m" in text
-    # a 0.2 km line: the smallest round scale at which 240 mm holds it
+    # a 0.23 km line dropping 90 m: 240 mm hold it at 1:1000, but its relief needs 1:2000 to fill at
+    # most 80 % of the 76 mm height panel, and the exaggeration is never below 1 (the documented rule)
     length = float(route.profile.station_m[-1])
-    h = next(s for s in (100, 200, 250, 500, 1000, 2000) if 240.0 * s / 1000 >= length)
-    assert f"horizontal 1:{h}," in text
+    zg = terrain.sample(route.line[:, 0], route.line[:, 1])
+    relief = max(route.line[:, 2].max(), zg.max()) - min(route.line[:, 2].min(), zg.min())
+    series = (100, 200, 250, 500, 1000, 2000, 2500, 5000)
+    by_length = next(s for s in series if 240.0 * s / 1000 >= length)
+    by_relief = next(s for s in series if 0.8 * 76.0 * s / 1000 >= relief)
+    assert (by_length, by_relief) == (1000, 2000)
+    assert f"horizontal 1:{max(by_length, by_relief)}, vertical 1:{by_relief} (vertical exaggeration 1×)" in text
 
 
 def test_same_route_same_bytes(tmp_path):

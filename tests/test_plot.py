@@ -96,6 +96,8 @@ def test_isochrones_are_circles_around_the_start(terrain):
     (front,) = by_gid(ax.collections, "fallway-frontier")
     r = np.hypot(*(_contour_xy(front) - np.array(start)).T)
     assert np.all(np.abs(r - 80.0) <= terrain.cell_size)
+    labels = ax.get_legend_handles_labels()[1]
+    assert "isochrones every 2 s" in labels and "edge of the reachable area" in labels
 
 
 def test_profile_plot_ground_line_speed_time_and_flags(terrain):

@@ -34,8 +34,8 @@ PAGE_MM = (297.0, 210.0)
 PLOT_WIDTH_MM = 240.0
 _LEFT_MM = 30.0
 #: Heights panel and speed/time panel: (bottom, height) in mm from the sheet's bottom edge.
-_HEIGHTS_MM = (106.0, 80.0)
-_MOTION_MM = (64.0, 30.0)
+_HEIGHTS_MM = (110.0, 76.0)
+_MOTION_MM = (70.0, 28.0)
 _MM = 1.0 / 25.4
 
 
@@ -63,7 +63,9 @@ def sheet_layout(length_m: float, relief_m: float, *, max_scale: int = 5000) -> 
     length_m : float
         Along the line (station of the end).
     relief_m : float
-        The largest height range of ground and line on any one sheet.
+        The largest height range of ground and line on any one sheet.  When it does
+        not fit the panel at the horizontal scale, the horizontal scale is made smaller
+        (the exaggeration is never below 1).
     max_scale : int
         The smallest scale allowed (denominator); a line longer than one sheet at it
         runs over several.
@@ -80,11 +82,11 @@ def sheet_layout(length_m: float, relief_m: float, *, max_scale: int = 5000) -> 
         raise ParameterError(f"the line has no length to draw ({length_m!r} m)")
     h = _scale_at_least(length_m * 1000.0 / PLOT_WIDTH_MM)
     h = min(h, max(int(max_scale), SCALES[0]))
-    per_sheet = PLOT_WIDTH_MM * h / 1000.0
-    sheets = max(1, math.ceil(length_m / per_sheet - 1e-9))
     # the tallest stretch fills at most 80 % of the panel, with room above and below
     v = _scale_at_least(max(relief_m, 1.0) * 1000.0 / (0.8 * _HEIGHTS_MM[1]))
-    v = min(v, h)  # never squashed: exaggeration at least 1
+    h = max(h, v)  # never squashed (exaggeration at least 1): a steep line is drawn smaller instead
+    per_sheet = PLOT_WIDTH_MM * h / 1000.0
+    sheets = max(1, math.ceil(length_m / per_sheet - 1e-9))
     return {"horizontal": h, "vertical": v, "exaggeration": h / v, "sheets": sheets, "metres_per_sheet": per_sheet}
 
 
@@ -107,20 +109,25 @@ def _axes_mm(fig, left, bottom, width, height):
 
 
 def _title_block(fig, rows, y_top_mm):
-    """Two columns of labelled values, boxed, bottom right."""
+    """Labelled values, boxed, bottom right; a long value wraps onto more lines."""
     from matplotlib.patches import Rectangle
 
     w, h = PAGE_MM
     x0, width = 150.0, 135.0
-    line_mm = 3.1
-    height = line_mm * len(rows) + 3.0
+    line_mm = 2.9
+    wrapped = [(label, textwrap.wrap(value, 62) or [""]) for label, value in rows]
+    n_lines = sum(len(v) for _, v in wrapped)
+    height = line_mm * n_lines + 3.0
     y0 = y_top_mm - height
     fig.add_artist(Rectangle((x0 / w, y0 / h), width / w, height / h, transform=fig.transFigure, fill=False,
                              linewidth=0.8, gid="fallway-titleblock"))
-    for i, (label, value) in enumerate(rows):
-        y = (y_top_mm - 2.0 - (i + 0.8) * line_mm) / h
-        fig.text((x0 + 2.0) / w, y, label, fontsize=6.5, color="#444444")
-        fig.text((x0 + 42.0) / w, y, value, fontsize=6.5, weight="bold" if i == 0 else "normal")
+    k = 0
+    for i, (label, lines) in enumerate(wrapped):
+        fig.text((x0 + 2.0) / w, (y_top_mm - 2.0 - (k + 0.8) * line_mm) / h, label, fontsize=6.3, color="#444444")
+        for text in lines:
+            fig.text((x0 + 42.0) / w, (y_top_mm - 2.0 - (k + 0.8) * line_mm) / h, text, fontsize=6.3,
+                     weight="bold" if i == 0 else "normal")
+            k += 1
 
 
 def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
@@ -155,6 +162,11 @@ def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
     if p.stalled_at_m is not None and s0 <= float(p.stalled_at_m) <= s1:
         ax.axvline(float(p.stalled_at_m), color="black", linewidth=1.2, gid="fallway-stall-at")
         ax.text(float(p.stalled_at_m), zlim[1], " the mover stops here", fontsize=7, va="top")
+    lift = np.asarray(p.liftoff, dtype=float)
+    lift = lift[np.isfinite(lift) & (lift >= s0) & (lift <= s1)]
+    if lift.size:
+        ax.plot(lift, np.interp(lift, st, zl), linestyle="none", marker="v", color="#d35400", markersize=5,
+                zorder=6, label="lift-off", gid="fallway-liftoff")
     ax.legend(loc="upper right", fontsize=7, framealpha=0.85)
 
     ax_v = _axes_mm(fig, _LEFT_MM, _MOTION_MM[0], PLOT_WIDTH_MM, _MOTION_MM[1])
@@ -200,9 +212,9 @@ def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
               f"(vertical exaggeration {layout['exaggeration']:g}×)")
     fig.text(_LEFT_MM / w, 191.0 / h, f"Long-section, sheet {sheet} of {sheets}: stations {chainage(s0)} to "
              f"{chainage(min(s1, s[-1]))}; {scales}; on A4 at 100 %", fontsize=8)
-    _title_block(fig, rows + [("Scales", scales)], 50.0)
+    _title_block(fig, rows + [("Scales", scales)], 57.0)
     caution = "\n".join(textwrap.wrap("CAUTION: " + CAUTION, 78))
-    fig.text(12.0 / w, 48.0 / h, caution, fontsize=6.5, va="top", color="#922b21", gid="fallway-caution")
+    fig.text(12.0 / w, 55.0 / h, caution, fontsize=6.5, va="top", color="#922b21", gid="fallway-caution")
 
 
 def _title_rows(route, terrain, *, name, dem, mu_range, date):
@@ -277,18 +289,23 @@ def write_profile_pdf(route, terrain, path: str | os.PathLike, *, name: str | No
     from .export import atomic_path
 
     s_end = float(route.profile.station_m[-1])
-    first = sheet_layout(s_end, 1.0, max_scale=max_scale)
-    # heights every 1 mm of paper (and at every vertex)
-    st, zg, zl = _dense(route, terrain, max(first["horizontal"] / 1000.0, 0.01))
-    per = first["metres_per_sheet"]
-    bounds = [(k * per, min((k + 1) * per, s_end)) for k in range(first["sheets"])]
-    ranges = []
-    for a, b in bounds:
-        on = (st >= a - 1e-9) & (st <= b + 1e-9)
-        z = np.concatenate([zg[on][np.isfinite(zg[on])], zl[on]])
-        ranges.append((float(z.min()), float(z.max())))
-    relief = max(hi - lo for lo, hi in ranges)
-    layout = sheet_layout(s_end, relief, max_scale=max_scale)
+    layout = sheet_layout(s_end, 1.0, max_scale=max_scale)
+    # heights every 1 mm of paper at the largest scale the line could get (and at every vertex)
+    st, zg, zl = _dense(route, terrain, max(layout["horizontal"] / 1000.0, 0.01))
+    relief = 1.0
+    for _ in range(len(SCALES)):  # a smaller scale puts more of the line, so more relief, on a sheet
+        per = layout["metres_per_sheet"]
+        bounds = [(k * per, min((k + 1) * per, s_end)) for k in range(layout["sheets"])]
+        ranges = []
+        for a, b in bounds:
+            on = (st >= a - 1e-9) & (st <= b + 1e-9)
+            z = np.concatenate([zg[on][np.isfinite(zg[on])], zl[on]])
+            ranges.append((float(z.min()), float(z.max())))
+        worst = max(hi - lo for lo, hi in ranges)
+        if worst <= relief:
+            break
+        relief = worst
+        layout = sheet_layout(s_end, relief, max_scale=max_scale)
     span = _HEIGHTS_MM[1] * layout["vertical"] / 1000.0
     rows = _title_rows(route, terrain, name=name, dem=dem, mu_range=mu_range, date=date)
     path = Path(path)
