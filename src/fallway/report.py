@@ -231,7 +231,8 @@ def _result_rows(route) -> list[tuple[str, str]]:
 def _grade_text(g) -> str:
     if g is None or (isinstance(g, float) and not math.isfinite(g)):
         return "none"
-    return f"{g:.3f} ({100 * g:.1f} %, {math.degrees(math.atan(g)):.1f}°)"
+    text = f"{g:.3f} ({100 * g:.1f} %, {math.degrees(math.atan(g)):.1f}°)"
+    return text + ", climbing" if g < 0 else text
 
 
 def _point_rows(route, terrain, parameters) -> list[tuple]:
