@@ -35,6 +35,7 @@ if TYPE_CHECKING:  # the same names, for type checkers and editors
                          write_summary_json)
     from .plot import comparison_figure, plot_map, plot_profile, save_figure
     from .report import write_report_html
+    from .longsection import write_profile_pdf
     from .app import run_scenario
     from .batch import run_batch
 
@@ -97,6 +98,7 @@ _EXPORTS = {
     "plot_profile": "plot",
     "save_figure": "plot",
     "write_report_html": "report",
+    "write_profile_pdf": "longsection",
     "run_scenario": "app",
     "run_batch": "batch",
 }
@@ -117,6 +119,7 @@ __all__ = [
     "OutputSet", "write_profile_csv", "write_reach_geotiff", "write_route_geojson", "write_route_gpkg",
     "write_summary_json",
     "comparison_figure", "plot_map", "plot_profile", "save_figure", "write_report_html",
+    "write_profile_pdf",
     "run_scenario", "run_batch",
 ]
 
