@@ -57,6 +57,9 @@ def reading(value: Any, decimals: int = 2, unit: str = "", *, none: str = "none"
     ('12.3 m', 'none', 'unbounded', 'none')
     >>> reading(-float("inf")), reading(True), reading(3, unit="cells"), reading(0.000012, 2, "s/m")
     ('unbounded', 'yes', '3 cells', '1.2e-05 s/m')
+    >>> reading(4.877e150, 2, "s")
+    '4.88e+150 s'
+
     """
     if value is None:
         return none
@@ -76,8 +79,8 @@ def reading(value: Any, decimals: int = 2, unit: str = "", *, none: str = "none"
             return none
         if math.isinf(value):
             return inf
-        if value != 0.0 and abs(value) < 0.5 * 10.0 ** (-decimals):
-            text = f"{value:.2g}"
+        if (value != 0.0 and abs(value) < 0.5 * 10.0 ** (-decimals)) or abs(value) >= 1e9:
+            text = f"{value:.3g}" if abs(value) >= 1e9 else f"{value:.2g}"
         else:
             text = f"{value:.{decimals}f}"
     else:

@@ -282,11 +282,7 @@ def write_profile_pdf(route, terrain, path: str | os.PathLike, *, name: str | No
     >>> p.read_bytes()[:5]
     b'%PDF-'
     """
-    import matplotlib
-    from matplotlib.backends.backend_pdf import PdfPages
-    from matplotlib.figure import Figure
-
-    from .export import atomic_path
+    import logging
 
     s_end = float(route.profile.station_m[-1])
     layout = sheet_layout(s_end, 1.0, max_scale=max_scale)
@@ -309,6 +305,23 @@ def write_profile_pdf(route, terrain, path: str | os.PathLike, *, name: str | No
     span = _HEIGHTS_MM[1] * layout["vertical"] / 1000.0
     rows = _title_rows(route, terrain, name=name, dem=dem, mu_range=mu_range, date=date)
     path = Path(path)
+    font_log = logging.getLogger("fontTools")  # its font subsetting talks at INFO level on every sheet
+    level = font_log.level
+    font_log.setLevel(max(level, logging.WARNING))
+    try:
+        _write_sheets(path, route, st, zg, zl, bounds, ranges, layout, span, rows)
+    finally:
+        font_log.setLevel(level)
+    return path
+
+
+def _write_sheets(path, route, st, zg, zl, bounds, ranges, layout, span, rows):
+    import matplotlib
+    from matplotlib.backends.backend_pdf import PdfPages
+    from matplotlib.figure import Figure
+
+    from .export import atomic_path
+
     with matplotlib.rc_context({"pdf.fonttype": 42, "svg.hashsalt": "fallway"}), atomic_path(path) as tmp:
         # no creation date: the same run gives the same bytes
         with PdfPages(tmp, metadata={"CreationDate": None, "Title": f"Long-section: {rows[0][1]}",
@@ -321,4 +334,3 @@ def write_profile_pdf(route, terrain, path: str | os.PathLike, *, name: str | No
                 fig = Figure(figsize=(PAGE_MM[0] * _MM, PAGE_MM[1] * _MM))
                 _sheet(fig, route, st, zg, zl, a, b, layout, (base, base + span), rows, k, len(bounds))
                 pdf.savefig(fig)
-    return path

@@ -235,10 +235,11 @@ def _draw_contours(ax, terrain, rs, cs, step):
     tr = terrain.transform
     xs = tr.c + (cs.start + np.arange(0, cs.stop - cs.start, thin) + 0.5) * tr.a
     ys = tr.f + (rs.start + np.arange(0, rs.stop - rs.start, thin) + 0.5) * tr.e
-    lo, hi = np.nanmin(z), np.nanmax(z)
-    levels = np.arange(math.ceil(lo / step) * step, hi + 1e-9, step)
-    if levels.size == 0:
+    lo, hi = float(np.nanmin(z)), float(np.nanmax(z))
+    k0, k1 = math.ceil(lo / step), math.floor(hi / step)
+    if not 0 <= k1 - k0 <= 100:  # no level in the view (or a step lost in the heights' rounding)
         return None, None
+    levels = np.arange(k0, k1 + 1) * step
     zm = np.ma.masked_invalid(z)
     index = np.rint(levels / step).astype(np.int64) % 5 == 0
     minor = ax.contour(xs, ys, zm, levels=levels[~index] if (~index).any() else [lo - 1.0],
@@ -458,7 +459,7 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None, view="au
         zwin = terrain.z[rs, cs]
         if np.isfinite(zwin).any():
             relief = float(np.nanmax(zwin) - np.nanmin(zwin))
-            if relief > 0:
+            if relief >= 0.01:  # below a centimetre contours say nothing
                 step_m = contour_step(relief)
                 if _draw_contours(ax, terrain, rs, cs, step_m)[0] is not None:
                     note = f"contours every {step_m:g} m"
@@ -634,6 +635,7 @@ def plot_profile(route, terrain, *, ax=None):
     vmax = getattr(route.mover, "max_speed", None)
     if vmax is not None:
         ax_v.axhline(vmax, color="#2471a3", linestyle=":", linewidth=1.0, gid="fallway-max-speed")
+        ax_v.set_ylim(0, max(ax_v.get_ylim()[1], 1.08 * float(vmax)))  # the speed limit stays in view
     if p.stalled_at_m is not None:
         st = float(p.stalled_at_m)
         sp = ax.axvspan(st, s[-1], color="#7f8c8d", alpha=0.3, zorder=0, label="stall: mover stops")
