@@ -276,6 +276,8 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
             d["line"][key] = list(extra[key]) if key == "clearance" else extra[key]
     if extra.get("mu_range") is not None:
         d["envelope"]["mu_range"] = list(extra["mu_range"])
+    if extra.get("station_step") is not None:
+        d["outputs"] = {"station_step": float(extra["station_step"])}
     return d
 
 
@@ -350,6 +352,8 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
               help="Corridor plan: coarsening factor (default: about 250 k coarse cells).")
 @click.option("--corridor", "corridor_m", type=click.FloatRange(min=0.0, min_open=True),
               help="Corridor plan: first corridor half-width, m (doubled until the time stops improving).")
+@click.option("--station-step", "station_step", type=float, metavar="M",
+              help="Interval of the chainage table stations.csv, m along the line (default 10).")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @click.option("--timings", is_flag=True,
@@ -359,7 +363,7 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **opts):
     """Find the minimum-time line from --start to --end on DEM and write it to --out.
 
-    Writes route.geojson, route.gpkg, profile.csv, summary.json, scenario.toml, map and
+    Writes route.geojson, route.gpkg, profile.csv, stations.csv, summary.json, scenario.toml, map and
     profile figures and report.html; all appear together or not at all (also on Ctrl-C).
     """
     _setup_logging(quiet, verbose)

@@ -49,6 +49,7 @@ __all__ = [
     "summary_document",
     "to_jsonable",
     "write_profile_csv",
+    "write_stations_csv",
     "write_route_geojson",
     "write_route_gpkg",
     "write_summary_json",
@@ -62,6 +63,7 @@ RESULT_FILES = (
     "route.geojson",
     "route.gpkg",
     "profile.csv",
+    "stations.csv",
     "summary.json",
     "map.png",
     "map.svg",
@@ -1020,6 +1022,45 @@ def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
     for i in range(n):
         row = [_fmt(c[i], 6) for c in cols]
         row.append(flags[i])
+        lines.append(",".join(row))
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write("\n".join(lines) + "\n")
+    return path
+
+
+#: Decimal places per column of ``stations.csv`` (lon/lat: 1e-7 degree, about 1 cm).
+_STATION_DECIMALS = {"station_m": 3, "x_m": 3, "y_m": 3, "lon_deg": 7, "lat_deg": 7, "ground_z_m": 3,
+                     "line_z_m": 3, "clearance_m": 3, "grade": 6, "grade_deg": 4, "speed_m_s": 4, "time_s": 4,
+                     "normal_load_ratio": 4}
+
+
+def write_stations_csv(table, path: str | os.PathLike) -> Path:
+    """Write the chainage table (:class:`fallway.stations.StationTable`) as CSV.
+
+    Columns, units in their names: ``station_m, x_m, y_m, lon_deg, lat_deg, ground_z_m,
+    line_z_m, clearance_m, grade, grade_deg, speed_m_s, time_s, normal_load_ratio,
+    flags`` (``grade`` a fraction, 0.3 = 30 %).  Fixed decimals: millimetres for lengths
+    and heights, 7 for degrees of lon/lat (about 1 cm), 6 for the grade, 4 for
+    grade degrees, speed, time and load; empty cells for values that do not exist
+    (after a stall, ground outside the DEM).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from fallway.stations import station_table
+    >>> route, _ = _example_route()
+    >>> p = write_stations_csv(station_table(route, 25.0), pathlib.Path(tempfile.mkdtemp()) / "stations.csv")
+    >>> print(p.read_text().splitlines()[2])
+    25.000,500024.151,4499992.500,15.0002857,40.6507889,87.500,87.500,0.000,0.577350,30.0000,12.6585,3.9499,0.8660,
+    """
+    cols = table.columns()
+    names = list(cols)
+    n = len(table)
+    lines = [",".join(names)]
+    for i in range(n):
+        row = [_fmt(cols[k][i], _STATION_DECIMALS[k]) for k in names[:-1]]
+        row.append(cols["flags"][i])
         lines.append(",".join(row))
     path = Path(path)
     with atomic_write(path) as f:
