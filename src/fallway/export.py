@@ -62,6 +62,7 @@ __all__ = [
 RESULT_FILES = (
     "route.geojson",
     "route.gpkg",
+    "route.dxf",
     "profile.csv",
     "stations.csv",
     "summary.json",
