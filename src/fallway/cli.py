@@ -466,9 +466,11 @@ def _print_rows(cmp, indent: str = "") -> None:
 @click.option("--workers", type=click.IntRange(min=1), help="Local worker processes (default: one per core).")
 @click.option("--scheduler", help="Address of a Dask scheduler (needs the 'cluster' extra: dask[distributed]).")
 @click.option("--overwrite", is_flag=True, help="Replace the results of an earlier batch in the output folder.")
+@click.option("--timings", is_flag=True, help="Fill batch.csv's run_s column (seconds of computing per run); "
+              "without it the same batch gives byte-identical files.")
 @click.option("-q", "--quiet", is_flag=True, help="Print errors only.")
 @_guard
-def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
+def batch(scenarios, out_dir, workers, scheduler, overwrite, timings, quiet):
     """Run every scenario of a batch file (base x variations) and collect batch.csv.
 
     The run folders and batch.csv appear together when every run has ended, or not at all.
@@ -476,7 +478,7 @@ def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
     _setup_logging(quiet, 0)
     from .batch import run_batch
 
-    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler, overwrite=overwrite)
+    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler, overwrite=overwrite, timings=timings)
     bad = [r for r in rows if r.get("status") == "error"]
     if not quiet:
         click.echo(f"{len(rows) - len(bad)} of {len(rows)} runs done; wrote {Path(out_dir) / 'batch.csv'}")
