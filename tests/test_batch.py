@@ -129,7 +129,11 @@ def test_dask_in_process_cluster_gives_the_same_rows(site, tmp_path):
         rows = run_batch(d / "batch.toml", tmp_path / "dask", scheduler=client)
     check_rows(rows, terrain)
     local = run_batch(d / "batch.toml", tmp_path / "one", workers=1)
-    assert rows == local
+
+    def results(rs):  # everything but the seconds of computing
+        return [{k: v for k, v in r.items() if k != "run_s"} for r in rs]
+
+    assert results(rows) == results(local)
 
 
 def test_expansion_order_names_and_errors():
