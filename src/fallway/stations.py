@@ -32,7 +32,7 @@ import numpy as np
 
 from .errors import ParameterError
 
-__all__ = ["DEFAULT_STATION_STEP_M", "MIN_STATION_STEP_M", "StationTable", "station_table"]
+__all__ = ["DEFAULT_STATION_STEP_M", "MIN_STATION_STEP_M", "StationTable", "check_station_step", "station_table"]
 
 #: Default interval of the chainage table, metres along the line.
 DEFAULT_STATION_STEP_M = 10.0
@@ -115,7 +115,17 @@ class StationTable:
 
 
 def check_station_step(step_m) -> float:
-    """The station step as a float, at least :data:`MIN_STATION_STEP_M`; ParameterError otherwise."""
+    """The station step as a float, at least :data:`MIN_STATION_STEP_M`; ParameterError otherwise.
+
+    Examples
+    --------
+    >>> check_station_step(10)
+    10.0
+    >>> check_station_step(0)
+    Traceback (most recent call last):
+    ...
+    fallway.errors.ParameterError: the station step must be a finite number of metres >= 0.01, got 0; e.g. --station-step 10
+    """
     try:
         step = float(step_m)
     except (TypeError, ValueError):
