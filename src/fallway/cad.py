@@ -133,6 +133,7 @@ def write_route_dxf(route, path: str | os.PathLike, table, *, keepout=None, supp
     tick = min(max(0.1 * step, 0.5), 5.0)  # half-length of a station tick, m
     height = min(max(0.15 * step, 0.3), 4.0)  # text height, m
     xy = pts[:, :2]
+    last_left = -math.inf  # station of the last label on the left-hand side
     for s, x, y, z, flags in zip(table.station_m, table.x_m, table.y_m, table.line_z_m, table.flags):
         # the plan direction of the line at the station (the segment it lies on)
         j = min(int(np.searchsorted(route.profile.station_m, s, side="right")) - 1, len(pts) - 2)
@@ -146,7 +147,13 @@ def write_route_dxf(route, path: str | os.PathLike, table, *, keepout=None, supp
         label = chainage_label(s) + (f" {flags.replace(';', ', ')}" if flags else "")
         angle = math.degrees(math.atan2(py, px))
         txt = msp.add_text(label, height=height, rotation=angle, dxfattribs={"layer": "STATION_TEXT"})
-        txt.set_placement((b[0] + 0.2 * tick * px, b[1] + 0.2 * tick * py, z), align=TextEntityAlignment.MIDDLE_LEFT)
+        if s - last_left >= 0.5 * step:  # left of the line, reading away from it
+            txt.set_placement((b[0] + 0.2 * tick * px, b[1] + 0.2 * tick * py, z),
+                              align=TextEntityAlignment.MIDDLE_LEFT)
+            last_left = s
+        else:  # close to the label before it: on the right-hand side instead
+            txt.set_placement((a[0] - 0.2 * tick * px, a[1] - 0.2 * tick * py, z),
+                              align=TextEntityAlignment.MIDDLE_RIGHT)
     if keepout is not None:
         for ring in _outlines(keepout.geometry):
             msp.add_polyline2d([tuple(map(float, p)) for p in ring], close=True, dxfattribs={"layer": "KEEPOUT"})
@@ -157,7 +164,8 @@ def write_route_dxf(route, path: str | os.PathLike, table, *, keepout=None, supp
     crs = route.terrain.crs
     notes = [f"CRS {crs_label(crs) if crs is not None else 'not given'}; units metres; heights as in the DEM",
              *CAUTION.split("\n")]
-    x0, y0 = float(xy[:, 0].min()), float(xy[:, 1].min()) - 4.0 * height
+    # beside the drawing, clear of the line and its labels (about 30 characters long)
+    x0, y0 = float(xy[:, 0].max()) + tick + 30.0 * height, float(xy[:, 1].max())
     for k, text in enumerate(notes):
         msp.add_text(text, height=height, dxfattribs={"layer": "NOTES"}).set_placement(
             (x0, y0 - 1.5 * height * k), align=TextEntityAlignment.LEFT)
