@@ -189,6 +189,7 @@ def test_stations_csv_reads_back(tmp_path):
     assert rows[0]["flags"] == "start" and "end" in rows[-1]["flags"].split(";")
 
 
+@pytest.mark.slow
 def test_route_command_writes_stations_at_the_step_given(tmp_path):
     # a plane falling 0.3 m per metre east: the fall line, timed by the incline law at every station
     from click.testing import CliRunner
