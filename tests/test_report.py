@@ -142,7 +142,8 @@ def test_report_states_inputs_points_stations_and_provenance(site):
     p = _Collect()
     p.feed(page)
     cells = [c.strip() for c in p.cells]
-    i = cells.index("start")
+    i = cells.index("moved by") + 1  # the points table: its first row is the start
+    assert cells[i] == "start"
     assert cells[i + 1] == f"{lon:.6f}, {lat:.6f} (lon, lat)"
     assert cells[i + 2] == f"{route.summary.start_xyz[0]:.2f}, {route.summary.start_xyz[1]:.2f}"
     assert cells[i + 3] == f"{abs(lat):.6f}° N, {abs(lon):.6f}° E"
@@ -152,16 +153,25 @@ def test_report_states_inputs_points_stations_and_provenance(site):
     assert "2026-12-02" in text and f"fallway {version('fallway')}" in text
     assert "site.tif" in text and "EPSG:32633 (WGS 84 / UTM zone 33N)" in text
     assert 'class="verdict ok"' in page and "Meets every limit" in text
-    # the station table: collapsible, one row per vertex, stations and speeds as the profile has them
+    # the station table: collapsible, one row per station of the chainage table; at the line's
+    # vertices its speeds are the profile's own (traverse, the reference of tests/test_stations.py)
+    from fallway.stations import station_table
+
+    table = station_table(route)
     assert page.count("<details") == 1 and "<summary>" in page
     body = page[page.index("<details"):page.index("</details>")]
     q = _Collect()
     q.feed(body)
-    n = len(route.profile.station_m)
-    rows = [q.cells[k:k + 11] for k in range(11, len(q.cells), 11)]
-    assert len(rows) == n
-    np.testing.assert_allclose([float(r[0]) for r in rows], route.profile.station_m, atol=0.05)
-    np.testing.assert_allclose([float(r[8]) for r in rows], route.profile.speed_m_s, atol=0.005)
+    rows = [q.cells[k:k + 13] for k in range(13, len(q.cells), 13)]
+    assert len(rows) == len(table.station_m) == 24  # 0 to 220 m every 10 m, and the end at 226.4 m
+    shown = np.array([float(r[0].split("(")[1].split()[0]) for r in rows])
+    np.testing.assert_allclose(shown, table.station_m, atol=0.05)
+    speed = np.array([float(r[9]) for r in rows])
+    np.testing.assert_allclose(speed, table.speed_m_s, atol=0.005)  # as rounded on the page
+    at_vertex = np.flatnonzero(table.is_vertex)
+    np.testing.assert_allclose(speed[at_vertex], np.interp(table.station_m[at_vertex], route.profile.station_m,
+                                                           route.profile.speed_m_s), atol=0.005)
+    assert rows[0][0].startswith("0+000") and rows[0][12] == "start" and "end" in rows[-1][12]
     assert not _RAW.findall(text), _RAW.findall(text)
 
 

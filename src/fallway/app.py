@@ -316,7 +316,7 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
         cmp_png = outs.path("comparison.png")
     params = sc.to_dict()  # the friction envelope is the report's headline (and in summary.json)
     report.write_report_html(route, terrain, outs.path("report.html"), map_png=outs.path("map.png"),
-                             profile_png=outs.path("profile.png"), parameters=params,
+                             profile_png=outs.path("profile.png"), parameters=params, stations=stations,
                              comparison=comparison, comparison_png=cmp_png)
     return sorted(outs._names)
 

@@ -274,28 +274,38 @@ def _method_rows(route) -> list[tuple[str, str]]:
     return rows
 
 
-def _station_table(route, terrain) -> str:
-    """Every vertex of the reported line, collapsible (``<details>``)."""
-    from .export import profile_flags
+#: The chainage table's point-of-interest flags, in words.
+_FLAG_WORDS = {"start": "start", "end": "end", "max_speed": "highest speed",
+               "max_lateral_g": "largest lateral acceleration", "max_normal_g": "largest normal load",
+               "min_liftoff_margin": "smallest lift-off margin", "stall": "stopped",
+               "overspeed": "over the speed limit", "liftoff": "lift-off"}
 
-    p = route.profile
-    pts = np.asarray(p.points, dtype=float)
-    zg = np.atleast_1d(terrain.sample(pts[:, 0], pts[:, 1]))
-    flags = profile_flags(p, route.mover)
-    words = {"stall": "stopped", "overspeed": "over the speed limit", "liftoff": "lift-off"}
-    head = ("station (m)", "x (m)", "y (m)", "ground (m)", "line (m)", "clearance (m)", "grade", "grade (°)",
-            "speed (m/s)", "time (s)", "flags")
-    out = [f'<details id="stations"><summary>Station table: {len(pts)} vertices of the line</summary>', "<table>",
+
+def _station_table(route, stations=None) -> str:
+    """The chainage table (:func:`fallway.stations.station_table`), collapsible (``<details>``)."""
+    from .longsection import chainage
+
+    if stations is None:
+        from .stations import station_table
+
+        stations = station_table(route)
+    t = stations
+    head = ("station", "x (m)", "y (m)", "latitude, longitude", "ground (m)", "line (m)", "clearance (m)",
+            "grade", "grade (°)", "speed (m/s)", "time (s)", "normal load (g)", "notes")
+    n = len(t.station_m)
+    out = [f'<details id="stations"><summary>Station table: {n} stations, every {t.step_m:g} m and at the '
+           "points of interest</summary>", "<table>",
            "<tr>" + "".join(f"<th>{_e(h)}</th>" for h in head) + "</tr>"]
-    grade = np.asarray(p.grade, dtype=float)
-    for i in range(len(pts)):
-        g = float(grade[i]) if i < grade.size else float("nan")
-        cells = [reading(float(p.station_m[i]), 1), reading(pts[i, 0], 2), reading(pts[i, 1], 2),
-                 reading(float(zg[i]), 2, none="no data"), reading(pts[i, 2], 2),
-                 reading(float(pts[i, 2] - zg[i]), 2, none="no data"), reading(g, 3),
-                 reading(math.degrees(math.atan(g)) if math.isfinite(g) else None, 1),
-                 reading(float(p.speed_m_s[i]), 2, none="stopped"), reading(float(p.time_s[i]), 2, none="stopped"),
-                 ", ".join(words.get(f, f) for f in flags[i].split(";") if f) or "none"]
+    for i in range(n):
+        lat, lon = float(t.lat_deg[i]), float(t.lon_deg[i])
+        ll = _ll_text((lon, lat)) if math.isfinite(lat) and math.isfinite(lon) else "none"
+        cells = [f"{chainage(float(t.station_m[i]))} ({float(t.station_m[i]):.1f} m)", reading(t.x_m[i], 2),
+                 reading(t.y_m[i], 2), ll, reading(float(t.ground_z_m[i]), 2, none="no data"),
+                 reading(t.line_z_m[i], 2), reading(float(t.clearance_m[i]), 2, none="no data"),
+                 reading(float(t.grade[i]), 3), reading(float(t.grade_deg[i]), 1),
+                 reading(float(t.speed_m_s[i]), 2, none="stopped"), reading(float(t.time_s[i]), 2, none="stopped"),
+                 reading(float(t.normal_load_ratio[i]), 2),
+                 ", ".join(_FLAG_WORDS.get(f, f.replace("_", " ")) for f in t.flags[i].split(";") if f)]
         out.append("<tr>" + "".join(f'<td class="num">{_e(c)}</td>' for c in cells[:-1])
                    + f"<td>{_e(cells[-1])}</td></tr>")
     out += ["</table>", "</details>"]
@@ -345,7 +355,8 @@ def _words_value(value) -> str:
 
 def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: dict | None = None,
                 title: str = "fallway: minimum-time descent line", reach=None, keepout=None,
-                comparison=None, comparison_png=None, dem=None, date: str | None = None) -> str:
+                comparison=None, comparison_png=None, dem=None, date: str | None = None,
+                stations=None) -> str:
     """The report page as a string (see :func:`write_report_html`).
 
     Examples
@@ -409,7 +420,7 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
         parts.append(_img(prof_data, "long-section of the line",
                           "Long-section: ground and line heights, speed and time along the line; "
                           "flagged stretches shaded. profile.pdf holds the printable sheets at true scale."))
-    parts.append(_station_table(route, terrain))
+    parts.append(_station_table(route, stations))
 
     if comparison is not None:
         parts += _comparison_section(comparison, comparison_png)
@@ -438,7 +449,7 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
 def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, profile_png=None,
                       parameters: dict | None = None, title: str = "fallway: minimum-time descent line",
                       reach=None, keepout=None, comparison=None, comparison_png=None, dem=None,
-                      date: str | None = None) -> Path:
+                      date: str | None = None, stations=None) -> Path:
     """Write one self-contained HTML page for a route.
 
     Parameters
@@ -461,6 +472,9 @@ def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, 
         The DEM file named on the page (default: ``parameters["dem"]``).
     date : str, optional
         The date of the run (default :func:`fallway.handover.run_date`).
+    stations : StationTable, optional
+        The chainage table shown (collapsed); :func:`fallway.stations.station_table` at its
+        default step when omitted.
 
     Returns
     -------
@@ -481,7 +495,7 @@ def write_report_html(route, terrain, path: str | os.PathLike, *, map_png=None, 
 
     text = report_html(route, terrain, map_png=map_png, profile_png=profile_png, parameters=parameters,
                        title=title, reach=reach, keepout=keepout, comparison=comparison,
-                       comparison_png=comparison_png, dem=dem, date=date)
+                       comparison_png=comparison_png, dem=dem, date=date, stations=stations)
     path = Path(path)
     with atomic_write(path) as f:
         f.write(text)
