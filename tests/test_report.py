@@ -164,14 +164,14 @@ def test_report_states_inputs_points_stations_and_provenance(site):
     q.feed(body)
     rows = [q.cells[k:k + 13] for k in range(13, len(q.cells), 13)]
     assert len(rows) == len(table.station_m) == 24  # 0 to 220 m every 10 m, and the end at 226.4 m
-    shown = np.array([float(r[0].split("(")[1].split()[0]) for r in rows])
+    shown = np.array([int(r[0].split("+")[0]) * 1000 + float(r[0].split("+")[1]) for r in rows])  # km+m
     np.testing.assert_allclose(shown, table.station_m, atol=0.05)
     speed = np.array([float(r[9]) for r in rows])
     np.testing.assert_allclose(speed, table.speed_m_s, atol=0.005)  # as rounded on the page
     at_vertex = np.flatnonzero(table.is_vertex)
     np.testing.assert_allclose(speed[at_vertex], np.interp(table.station_m[at_vertex], route.profile.station_m,
                                                            route.profile.speed_m_s), atol=0.005)
-    assert rows[0][0].startswith("0+000") and rows[0][12] == "start" and "end" in rows[-1][12]
+    assert rows[0][0] == "0+000.0" and rows[0][12] == "start" and "end" in rows[-1][12]
     assert not _RAW.findall(text), _RAW.findall(text)
 
 

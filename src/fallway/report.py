@@ -43,6 +43,8 @@ table { border-collapse: collapse; margin: 6px 0 12px; font-size: 14px; }
 th, td { border: 1px solid #c9c2b4; padding: 4px 10px; text-align: left; vertical-align: top; }
 th { background: #efe8da; font-weight: 600; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; }
+table.stations { font-size: 12px; }
+table.stations td { white-space: nowrap; padding: 2px 6px; }
 figure { margin: 12px 0; }
 figure img { max-width: 100%; border: 1px solid #ccc; }
 figcaption { font-size: 13px; color: #444; }
@@ -274,6 +276,27 @@ def _method_rows(route) -> list[tuple[str, str]]:
     return rows
 
 
+def _fixed(value, decimals: int, missing: str = "none") -> str:
+    """A table number at fixed decimals (a column reads alike); ``missing`` for NaN."""
+    v = float(value)
+    if not math.isfinite(v):
+        return missing if math.isnan(v) else reading(v)
+    text = f"{v:.{decimals}f}"
+    return text[1:] if text.startswith("-") and float(text) == 0 else text  # no "-0.00"
+
+
+def _chainage_1(station_m: float) -> str:
+    """``1+250.4``: kilometres + metres to a decimetre.
+
+    Examples
+    --------
+    >>> _chainage_1(1250.44), _chainage_1(9.96), _chainage_1(0.0)
+    ('1+250.4', '0+010.0', '0+000.0')
+    """
+    dm = int(round(station_m * 10))
+    return f"{dm // 10000}+{(dm % 10000) // 10:03d}.{dm % 10}"
+
+
 #: The chainage table's point-of-interest flags, in words.
 _FLAG_WORDS = {"start": "start", "end": "end", "max_speed": "highest speed",
                "max_lateral_g": "largest lateral acceleration", "max_normal_g": "largest normal load",
@@ -283,28 +306,26 @@ _FLAG_WORDS = {"start": "start", "end": "end", "max_speed": "highest speed",
 
 def _station_table(route, stations=None) -> str:
     """The chainage table (:func:`fallway.stations.station_table`), collapsible (``<details>``)."""
-    from .longsection import chainage
-
     if stations is None:
         from .stations import station_table
 
         stations = station_table(route)
     t = stations
-    head = ("station", "x (m)", "y (m)", "latitude, longitude", "ground (m)", "line (m)", "clearance (m)",
+    head = ("station (km+m)", "x (m)", "y (m)", "latitude, longitude", "ground (m)", "line (m)", "clearance (m)",
             "grade", "grade (°)", "speed (m/s)", "time (s)", "normal load (g)", "notes")
     n = len(t.station_m)
     out = [f'<details id="stations"><summary>Station table: {n} stations, every {t.step_m:g} m and at the '
-           "points of interest</summary>", "<table>",
+           "points of interest</summary>", '<table class="stations">',
            "<tr>" + "".join(f"<th>{_e(h)}</th>" for h in head) + "</tr>"]
     for i in range(n):
         lat, lon = float(t.lat_deg[i]), float(t.lon_deg[i])
         ll = _ll_text((lon, lat)) if math.isfinite(lat) and math.isfinite(lon) else "none"
-        cells = [f"{chainage(float(t.station_m[i]))} ({float(t.station_m[i]):.1f} m)", reading(t.x_m[i], 2),
-                 reading(t.y_m[i], 2), ll, reading(float(t.ground_z_m[i]), 2, none="no data"),
-                 reading(t.line_z_m[i], 2), reading(float(t.clearance_m[i]), 2, none="no data"),
-                 reading(float(t.grade[i]), 3), reading(float(t.grade_deg[i]), 1),
-                 reading(float(t.speed_m_s[i]), 2, none="stopped"), reading(float(t.time_s[i]), 2, none="stopped"),
-                 reading(float(t.normal_load_ratio[i]), 2),
+        st = float(t.station_m[i])
+        cells = [_chainage_1(st), _fixed(t.x_m[i], 2), _fixed(t.y_m[i], 2), ll,
+                 _fixed(t.ground_z_m[i], 2, "no data"), _fixed(t.line_z_m[i], 2),
+                 _fixed(t.clearance_m[i], 2, "no data"), _fixed(t.grade[i], 3), _fixed(t.grade_deg[i], 1),
+                 _fixed(t.speed_m_s[i], 2, "stopped"), _fixed(t.time_s[i], 2, "stopped"),
+                 _fixed(t.normal_load_ratio[i], 2),
                  ", ".join(_FLAG_WORDS.get(f, f.replace("_", " ")) for f in t.flags[i].split(";") if f)]
         out.append("<tr>" + "".join(f'<td class="num">{_e(c)}</td>' for c in cells[:-1])
                    + f"<td>{_e(cells[-1])}</td></tr>")
