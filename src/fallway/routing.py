@@ -605,6 +605,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         caution=CAUTION,
         **_load_fields(loads, profile),
         **_point_fields(st, final),
+        optimality_gap=st.get("optimality_gap") if found.plan == "full" else None,
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,

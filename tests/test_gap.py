@@ -1,0 +1,158 @@
+"""The certified optimality gap (fallway.lattice.gap) checked against exact references.
+
+References (independent code in tests/test_lattice.py):
+- ``pareto_ref``: a plain-Python exhaustive Pareto label search on the 8-neighbour lattice
+  (label-correcting, FIFO, exact dominance, no tolerance, no heuristic), segment law from
+  CHECKS.md "Motion along a line" (incline with Coulomb friction and drag);
+- the same reference with a turn limit (the heading in the state), and chained through a
+  via point (the whole Pareto set at the via point seeds the second leg);
+- ``brute_force_capped``: exhaustive depth-first enumeration of simple paths under a speed
+  cap (no dominance at all), for the speed cap, where "more energy is better" fails.
+
+The relaxed searches run whenever the exact search does not finish on its first budget;
+here that budget is set to one label so every case goes through them.  Each case checks
+    exact <= reported lattice time <= exact * (1 + gap)   and   T_LB <= exact
+(the definition of a certified gap; the tolerance 1e-9 relative covers rounding).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from test_lattice import MOVER, best_time, brute_force_capped, pareto_ref, rough_dem, terrain_of, xy
+
+import fallway.lattice.search as lsearch
+from fallway.errors import NoFeasibleLine
+from fallway.lattice.gap import certify
+from fallway.lattice.search import lattice_line
+from fallway.params import Limits, SearchOptions
+from fallway.physics import Mover
+
+REL = 1e-9
+SEEDS = range(12)
+NO_DRAG = Mover(mu=0.25, drag=0.0, v0=1.0, normal="gravity")
+
+
+@pytest.fixture
+def relaxed_only(monkeypatch):
+    """Make the exact first search give up at once, so the relaxed searches run."""
+    monkeypatch.setattr(lsearch, "EXACT_FIRST_LABELS", 1)
+    monkeypatch.setattr(lsearch, "EXACT_FIRST_PER_STATE", 0)
+
+
+def check_bracket(ln, exact, target):
+    gap = ln.stats["optimality_gap"]
+    lb = ln.stats["lower_bound_s"]
+    assert gap is not None and gap <= target
+    assert ln.time_s >= exact * (1 - REL)  # a lattice line is never faster than the optimum
+    assert ln.time_s <= exact * (1 + gap) * (1 + REL)
+    assert lb <= exact * (1 + REL)
+    for rnd in ln.stats["gap_rounds"]:  # every relaxed optimum is a lower bound
+        if rnd["lower_s"] is not None:
+            assert rnd["lower_s"] <= exact * (1 + REL)
+    # the reported time is the line's own exact time (the traverse of its points)
+    assert ln.time_s == pytest.approx(ln.profile.travel_time_s, rel=1e-12)
+
+
+@pytest.mark.parametrize("mover", [MOVER, NO_DRAG], ids=["drag", "no-drag"])
+@pytest.mark.parametrize("target", [0.05, 1e-3])
+def test_gap_brackets_the_exact_optimum(relaxed_only, mover, target):
+    for seed in SEEDS:
+        z = rough_dem(seed)
+        t = terrain_of(z)
+        exact = best_time(pareto_ref(z, 10.0, mover, (0, 0)), (6, 7))
+        if not math.isfinite(exact):
+            continue
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), mover, options=SearchOptions(neighbours=8, gap=target))
+        check_bracket(ln, exact, target)
+
+
+def test_gap_with_a_turn_limit(relaxed_only):
+    for seed in SEEDS:
+        z = rough_dem(seed)
+        t = terrain_of(z)
+        exact = best_time(pareto_ref(z, 10.0, MOVER, (0, 0), max_turn=45.0), (6, 7))
+        if not math.isfinite(exact):
+            continue
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, limits=Limits(max_step_turn_deg=45.0),
+                          options=SearchOptions(neighbours=8, gap=0.01))
+        check_bracket(ln, exact, 0.01)
+
+
+def test_gap_through_a_via_point(relaxed_only):
+    for seed in SEEDS:
+        z = rough_dem(seed)
+        t = terrain_of(z)
+        leg1 = pareto_ref(z, 10.0, MOVER, (0, 0))
+        if (4, 2) not in leg1:
+            continue
+        seeds = [(a, b, None) for a, b, _ in leg1[(4, 2)]]
+        exact = best_time(pareto_ref(z, 10.0, MOVER, (4, 2), seeds=seeds), (6, 7))
+        if not math.isfinite(exact):
+            continue
+        ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, via=[xy(t, 4, 2)],
+                          options=SearchOptions(neighbours=8, gap=0.01))
+        check_bracket(ln, exact, 0.01)
+        assert [4, 2] in ln.cells.tolist()
+
+
+@pytest.mark.parametrize("seed", [3, 30, 1, 68, 23])
+def test_gap_under_a_binding_speed_cap(seed):
+    # A binding cap makes the exact kernel's dominance a heuristic; the gap must still
+    # bracket the true capped optimum (exhaustive enumeration of simple paths).  The
+    # lattice optimum may revisit a cell in principle; on these 4 x 5 grids the
+    # enumeration's optimum is the reference.
+    z = rough_dem(seed, rows=4, cols=5)
+    t = terrain_of(z)
+    free = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), MOVER, options=SearchOptions(neighbours=8, gap=0))
+    vmax = float(np.nanmax(free.profile.speed_m_s))
+    tight = Mover(mu=MOVER.mu, drag=MOVER.drag, v0=MOVER.v0, normal="gravity", max_speed=vmax * 0.9)
+    exact = brute_force_capped(z, 10.0, tight, (0, 0), (3, 4))
+    if not math.isfinite(exact):  # no simple line under the cap: none is reported either
+        with pytest.raises(NoFeasibleLine):
+            lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), tight, options=SearchOptions(neighbours=8, gap=1e-3))
+        return
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 3, 4), tight, options=SearchOptions(neighbours=8, gap=1e-3))
+    assert ln.stats["speed_cap_binding"] is True
+    assert np.nanmax(ln.profile.speed_m_s) <= tight.max_speed * (1 + 1e-12)
+    gap = ln.stats["optimality_gap"]
+    assert ln.time_s >= exact * (1 - REL)
+    assert ln.time_s <= exact * (1 + gap) * (1 + REL)
+    assert ln.stats["lower_bound_s"] <= exact * (1 + REL)
+
+
+def test_exact_search_reports_zero_and_a_label_cap_none():
+    z = rough_dem(30)
+    t = terrain_of(z)
+    exact = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8))
+    assert ln.stats["optimality_gap"] == 0.0 and ln.stats["exact"] is True
+    assert ln.time_s == pytest.approx(exact, rel=1e-9)
+    capped = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, options=SearchOptions(neighbours=8, label_cap=1))
+    assert capped.stats["optimality_gap"] is None
+
+
+def test_relaxed_labels_per_state_are_bounded(relaxed_only):
+    # the relaxed search settles at most V²/δ + 1 labels per state (one per grid step plus
+    # the ceiling): counted on a 30 x 30 rough slope
+    z = rough_dem(7, rows=30, cols=30)
+    t = terrain_of(z)
+    prob = lsearch._Problem(t, MOVER, 8, None, np.zeros(z.shape, bool))
+    v2_top = prob.v2_top(float(z[0, 0]))
+    for frac in (1 / 16, 1 / 256):
+        res = prob.run(0, [z.size - 1], heuristic=True, energy_tol=None, max_labels=None, v2_grid=frac * v2_top)
+        assert res["stats"]["labels_settled"] <= z.size * (1 / frac + 1)
+
+
+def test_certify_stops_on_the_budget_and_reports_it():
+    calls = []
+
+    def run(grid, key_max, max_labels):
+        calls.append(max_labels)
+        return ("ok", 9.0, 600, None) if len(calls) == 1 else ("budget", math.inf, max_labels, None)
+
+    r = certify(run, lambda res: (10.0, "line"), target=1e-3, v2_top=1.0, budget=1000)
+    assert r.exhausted and r.best == "line" and r.gap == pytest.approx(10.0 / 9.0 - 1.0)
+    assert calls == [1000, 400]  # each search gets what is left of the budget
