@@ -17,7 +17,11 @@ here that budget is set to one label so every case goes through them.  Each case
 
 from __future__ import annotations
 
+import json
 import math
+import subprocess
+import sys
+import textwrap
 
 import numpy as np
 import pytest
@@ -156,3 +160,73 @@ def test_certify_stops_on_the_budget_and_reports_it():
     r = certify(run, lambda res: (10.0, "line"), target=1e-3, v2_top=1.0, budget=1000)
     assert r.exhausted and r.best == "line" and r.gap == pytest.approx(10.0 / 9.0 - 1.0)
     assert calls == [1000, 400]  # each search gets what is left of the budget
+
+
+MEMORY_PROBE = textwrap.dedent('''
+    import gc, json, math, sys
+    import numpy as np
+    from fallway.errors import NoFeasibleLine
+    from fallway.params import SearchOptions
+    from fallway.physics import Mover
+    from fallway.routing import find_route
+    from fallway.terrain import Terrain
+
+    def status(key):
+        with open("/proc/self/status") as fh:
+            line = next(ln for ln in fh if ln.startswith(key + ":"))
+        return int(line.split()[1]) * 1024
+
+    n, limit = int(sys.argv[1]), int(sys.argv[2])
+    cell = 10.0
+    mover = Mover(mu=0.15, drag=0.002, v0=2.0, normal="gravity")
+    small = Terrain.from_array(-3.0 * np.add.outer(np.arange(12.0), np.arange(12.0)), (cell, 0, 0, 0, -cell, 120.0))
+    find_route(small, small.cell_center(0, 0), small.cell_center(11, 11), mover, refine=False, workable=False)
+    # fractal relief by spectral synthesis (power spectrum ~ k^-3.6) on a plane falling 0.2
+    # along the diagonal: friction 0.05 below the mean slope
+    m = 1000
+    rng = np.random.default_rng(7)
+    k = np.hypot(np.fft.fftfreq(m)[:, None], np.fft.rfftfreq(m)[None, :])
+    k[0, 0] = 1.0
+    amp = k ** -1.8
+    amp[0, 0] = 0.0
+    f = np.fft.irfft2(amp * (rng.normal(size=amp.shape) + 1j * rng.normal(size=amp.shape)), s=(m, m))
+    f *= 40.0 / (f.max() - f.min())
+    r, c = np.mgrid[0:m, 0:m]
+    z = np.ascontiguousarray((1000.0 + f - 0.2 * cell * (r + c) / math.sqrt(2.0))[:n, :n])
+    del f, r, c, k, amp
+    t = Terrain.from_array(z, (cell, 0, 0, 0, -cell, n * cell))
+    q = n // 20
+    a, b = t.cell_center(q, q), t.cell_center(n - 1 - q, n - 1 - q)
+    gc.collect()
+    with open("/proc/self/clear_refs", "w") as fh:  # reset the peak (VmHWM) to the current RSS
+        fh.write("5")
+    base = status("VmRSS")
+    out = {}
+    try:
+        rt = find_route(t, a, b, mover, refine=False, workable=False, memory_limit_bytes=limit,
+                        search=SearchOptions(neighbours=16, plan="full"))
+        out = {"gap": rt.summary.optimality_gap, "labels": rt.summary.labels_created}
+    except NoFeasibleLine as err:
+        out = {"reason": err.reason}
+    out["peak"] = status("VmHWM") - base
+    print(json.dumps(out))
+''')
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc/self (Linux)")
+def test_memory_budget_holds_on_hard_terrain():
+    # The route's label budget is cut to what the memory limit holds
+    # (fallway.scale.fit_label_budget), so the measured peak of a hard search (fresh
+    # interpreter; peak reset after the kernels are compiled, proc(5) clear_refs "5") stays
+    # under the limit, while the search spends a good part of it: the budget binds.
+    from fallway.scale import label_budget_bytes
+
+    n, limit = 200, 400_000_000
+    res = subprocess.run([sys.executable, "-c", MEMORY_PROBE, str(n), str(limit)], capture_output=True, text=True,
+                         timeout=600, check=True)
+    out = json.loads(res.stdout.strip().splitlines()[-1])
+    assert out["peak"] <= limit
+    assert out["peak"] >= 0.1 * limit  # the budget, not the terrain's ease, kept it there
+    assert out.get("reason") in (None, "label_budget")
+    assert label_budget_bytes(n * n, 1) < limit

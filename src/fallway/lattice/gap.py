@@ -193,6 +193,7 @@ def certify(run: Callable, retime: Callable, *, target: float, v2_top: float, bu
         lb = max(lb, float(lower))
         entry["lower_s"] = float(lower)
         t, payload = retime(res)
+        res = None  # the round's label pool is freed before the next round allocates its own
         entry["upper_s"] = float(t) if math.isfinite(t) else None
         if t < ub:
             ub, best = float(t), payload

@@ -685,13 +685,14 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
         if res["status"] == _c.OK:  # a capped search's line: exact only in principle (lattice_line notes)
             line = _build_line(terrain, prob, mover, virt, sp, ep, res)
             incumbent = (_exact_time(line, mover), line)
+        res = {"status": res["status"], "closest": res["closest"]}  # its label pool is freed
         relaxed = _certify(terrain, prob, mover, virt, sp, ep, targets, run_kw, opts.gap, budget - used, incumbent)
         gap_stats = {"optimality_gap": relaxed.gap, "lower_bound_s": relaxed.lower_s, "gap_rounds": relaxed.rounds}
         if relaxed.best is not None:
             line = relaxed.best
             line.stats.update(gap_stats)
             line.stats["exact"] = relaxed.gap == 0.0
-            line.stats["labels_created"] = int(line.stats["labels_created"] + used + relaxed.labels)
+            line.stats["labels_created"] = int(used + relaxed.labels)  # every search's labels, each counted once
             return line
         if res["status"] == _c.LABEL_BUDGET or relaxed.exhausted:
             raise _budget_error(terrain, budget, res["closest"])
