@@ -230,3 +230,22 @@ def test_memory_budget_holds_on_hard_terrain():
     assert out["peak"] >= 0.1 * limit  # the budget, not the terrain's ease, kept it there
     assert out.get("reason") in (None, "label_budget")
     assert label_budget_bytes(n * n, 1) < limit
+
+
+def test_route_summary_reports_the_gap(relaxed_only):
+    # the summary carries the search's bound: the relaxed searches' (checked against the
+    # exhaustive Pareto reference), 0.0 for an exact search, None with a label cap
+    from fallway.routing import find_route
+
+    z = rough_dem(30)
+    t = terrain_of(z)
+    exact = best_time(pareto_ref(z, 10.0, MOVER, (0, 0)), (6, 7))
+    kw = dict(refine=False, workable=False)
+    rt = find_route(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, search=SearchOptions(neighbours=8, gap=0.01), **kw)
+    gap = rt.summary.optimality_gap
+    assert 0.0 <= gap <= 0.01
+    assert exact * (1 - REL) <= rt.summary.lattice_model_time_s <= exact * (1 + gap) * (1 + REL)
+    capped = find_route(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, search=SearchOptions(neighbours=8, label_cap=2), **kw)
+    assert capped.summary.optimality_gap is None
+    exact_run = find_route(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, search=SearchOptions(neighbours=8, gap=0), **kw)
+    assert exact_run.summary.optimality_gap == 0.0
