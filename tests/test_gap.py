@@ -39,11 +39,13 @@ SEEDS = range(12)
 NO_DRAG = Mover(mu=0.25, drag=0.0, v0=1.0, normal="gravity")
 
 
-@pytest.fixture
-def relaxed_only(monkeypatch):
-    """Make the exact first search give up at once, so the relaxed searches run."""
+@pytest.fixture(params=[2, 0], ids=["incumbent", "relaxed-lines-only"])
+def relaxed_only(monkeypatch, request):
+    """Make the exact first search give up at once, so the relaxed searches run; with and
+    without the capped search's first line (without it every bound comes from the rounds)."""
     monkeypatch.setattr(lsearch, "EXACT_FIRST_LABELS", 1)
     monkeypatch.setattr(lsearch, "EXACT_FIRST_PER_STATE", 0)
+    monkeypatch.setattr(lsearch, "INCUMBENT_LABEL_CAP", request.param)
 
 
 def check_bracket(ln, exact, target):

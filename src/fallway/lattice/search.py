@@ -105,6 +105,9 @@ _DEFAULT_MAX_LABELS = 400_000_000
 #: answer (:mod:`fallway.lattice.gap`).
 EXACT_FIRST_LABELS = 200_000
 EXACT_FIRST_PER_STATE = 2
+#: ... and a search keeping this many labels per state gives the first feasible line (T_UB;
+#: 0: none, the relaxed searches' lines only).
+INCUMBENT_LABEL_CAP = 2
 _ROBUST_INIT_CAP = 1 << 14
 _ROBUST_MAX_LABELS = 50_000_000
 
@@ -686,6 +689,17 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
             line = _build_line(terrain, prob, mover, virt, sp, ep, res)
             incumbent = (_exact_time(line, mover), line)
         res = {"status": res["status"], "closest": res["closest"]}  # its label pool is freed
+        if incumbent is None and INCUMBENT_LABEL_CAP and budget > used:  # a cheap first line (no bound by itself)
+            quick = prob.run(sp.cell, targets,
+                             **(run_kw | dict(label_cap=INCUMBENT_LABEL_CAP, max_labels=budget - used)))
+            used += quick["stats"]["labels_created"]
+            if quick["status"] == _c.OK:
+                line = _build_line(terrain, prob, mover, virt, sp, ep, quick)
+                t_quick = _exact_time(line, mover)
+                line.stats["label_cap"] = None  # the route's search has none; the gap says how good the line is
+                if math.isfinite(t_quick):
+                    incumbent = (t_quick, replace(line, time_s=t_quick))
+            del quick
         relaxed = _certify(terrain, prob, mover, virt, sp, ep, targets, run_kw, opts.gap, budget - used, incumbent)
         gap_stats = {"optimality_gap": relaxed.gap, "lower_bound_s": relaxed.lower_s, "gap_rounds": relaxed.rounds}
         if relaxed.best is not None:
