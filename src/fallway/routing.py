@@ -398,7 +398,7 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
     check_memory(coarse.z.size, "the coarse search", **{**mem_kw, "cell_m": coarse.cell_size})
     try:
         cl = lattice_line(coarse, points[0], points[-1], job.mover, via=job.via, limits=job.limits, keepout=ckeep,
-                          options=s)
+                          options=_memory_budget(job, coarse.z.size, memory_limit_bytes))
     except NoFeasibleLine as err:
         raise NoFeasibleLine(f"coarse grid ({coarse.cell_size:g} m cells): {err}; set a smaller coarse factor "
                              "or plan='full'", reason=err.reason, closest=err.closest) from err
@@ -420,7 +420,7 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
         check_memory(fine.z.size, f"the corridor search ({w:g} m)", active_cells=free, **mem_kw)
         try:
             ln = lattice_line(fine, points[0], points[-1], job.mover, via=job.via, limits=job.limits, keepout=keep,
-                              allowed=~outside, options=s)
+                              allowed=~outside, options=_memory_budget(job, fine.z.size, memory_limit_bytes))
         except NoFeasibleLine as err:  # a wider corridor may have the passage: widen
             steps.append({"corridor_m": w, "time_s": None, "cells": free, "feasible": False, "reason": err.reason})
             last_err = err
