@@ -280,32 +280,45 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     v, t = float(v0), 0.0
     for j, seg in enumerate(d):
         if j:
-            a, b = d[j - 1] / np.linalg.norm(d[j - 1]), seg / np.linalg.norm(seg)
-            phi = angle(a, b)
-            phi = phi if phi > 1e-6 else 0.0
-            if channel and phi > 0.0:
-                # the turn's component across the bed (up: the upward normal in the
-                # vertical plane of the bisector); a crest relieves the bed
-                tb = (a + b) / np.linalg.norm(a + b)
-                up = np.array([0.0, 0.0, 1.0]) - tb[2] * tb
-                n = (b - a) / np.linalg.norm(b - a)
-                if np.linalg.norm(up) > 1e-12:
-                    up = up / np.linalg.norm(up)
-                    c = float(n @ up)
-                    phi = phi * (float(np.linalg.norm(n - c * up)) + c)
-            if phi >= 0.0:
-                v *= math.exp(-mu * phi)
-            else:  # a crest: bed friction μ|G − v²φ| instead of μG over the corner (G the
-                # gravity-normal impulse of half the runs either side): a gain 2μv²φ up to
-                # 2μG, past that the cover of an enclosed line presses again
-                cap = mu * g * (before[j] + after[j])
-                gain = v * v * (math.exp(-2.0 * mu * phi) - 1.0)
-                v = math.sqrt(max(v * v + min(gain, 2.0 * cap - gain), 0.0))
+            v = corner_speed(v, d[j - 1], seg, mu, before[j], after[j], g, channel)
         v, dt = incline_step(v, -float(seg[2]), float(math.hypot(seg[0], seg[1])), mu, k, g)
         if not math.isfinite(dt):
             return math.inf, math.nan
         t += dt
     return t, v
+
+
+def corner_speed(v: float, a, b, mu: float, run_before_m: float, run_after_m: float, g: float = G0,
+                 channel: bool = True) -> float:
+    """Speed after a sharp corner from direction ``a`` to ``b`` (3D vectors, any length).
+
+    The belt-friction (capstan) law of Euler–Eytelwein, v_out = v_in·e^(−μφ), φ the angle
+    between the two directions; with ``channel`` the impulse is shared between bed and
+    walls and a crest relieves the bed up to the gravity-normal friction of half the plan
+    runs either side (``run_before_m``, ``run_after_m``; see :func:`sharp_corner_reading`).
+    """
+    a = np.asarray(a, dtype=float) / np.linalg.norm(a)
+    b = np.asarray(b, dtype=float) / np.linalg.norm(b)
+    phi = math.atan2(float(np.linalg.norm(np.cross(a, b))), float(a @ b))
+    phi = phi if phi > 1e-6 else 0.0
+    if channel and phi > 0.0:
+        # the turn's component across the bed (up: the upward normal in the
+        # vertical plane of the bisector); a crest relieves the bed
+        tb = (a + b) / np.linalg.norm(a + b)
+        up = np.array([0.0, 0.0, 1.0]) - tb[2] * tb
+        n = (b - a) / np.linalg.norm(b - a)
+        if np.linalg.norm(up) > 1e-12:
+            up = up / np.linalg.norm(up)
+            c = float(n @ up)
+            phi = phi * (float(np.linalg.norm(n - c * up)) + c)
+    if phi >= 0.0:
+        return v * math.exp(-mu * phi)
+    # a crest: bed friction μ|G − v²φ| instead of μG over the corner (G the
+    # gravity-normal impulse of half the runs either side): a gain 2μv²φ up to
+    # 2μG, past that the cover of an enclosed line presses again
+    cap = mu * g * (run_before_m + run_after_m)
+    gain = v * v * (math.exp(-2.0 * mu * phi) - 1.0)
+    return math.sqrt(max(v * v + min(gain, 2.0 * cap - gain), 0.0))
 
 
 def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float = G0,

@@ -77,6 +77,9 @@ def check_rows(rows, terrain):
         single = find_route(terrain, tuple(START), end, mover, refine=False, line=LineSpec(r["line.kind"]))
         assert r["travel_time_s"] == pytest.approx(single.summary.travel_time_s, rel=1e-12)
         assert r["exit_speed_m_s"] == pytest.approx(single.summary.exit_speed_m_s, rel=1e-12)
+        for c in ("length_m", "drop_m", "max_speed_m_s"):
+            assert r[c] == pytest.approx(getattr(single.summary, c), rel=1e-12)
+        assert r["run_s"] > 0
         if end == tuple(ENDS[0]):
             # straight down the row: constant acceleration on an incline with Coulomb
             # friction (e.g. Meriam & Kraige, Dynamics), a = g (drop - mu plan) / length
@@ -84,6 +87,9 @@ def check_rows(rows, terrain):
             length = plan * math.hypot(1.0, SLOPE)
             a = G * (SLOPE - r["mover.mu"]) * plan / length
             assert r["travel_time_s"] == pytest.approx(math.sqrt(2 * length / a), rel=1e-9)
+            assert r["length_m"] == pytest.approx(length, rel=1e-9)
+            assert r["drop_m"] == pytest.approx(plan * SLOPE, rel=1e-9)
+            assert r["max_speed_m_s"] == pytest.approx(math.sqrt(2 * a * length), rel=1e-9)
     bad = rows[-1]
     assert bad["name"] == "outside" and bad["status"] == "error"
     assert "outside" in bad["error"] and "\n" not in bad["error"]
@@ -102,7 +108,8 @@ def test_local_processes(site, tmp_path):
     table = read_table(tmp_path / "out" / "batch.csv")
     assert [t["name"] for t in table] == [r["name"] for r in rows]
     assert list(table[0]) == ["name", "points.end", "mover.mu", "line.kind", "travel_time_s", "lattice_time_s",
-                              "exit_speed_m_s", "status", "error"]
+                              "length_m", "drop_m", "max_speed_m_s", "exit_speed_m_s", "status", "run_s", "error"]
+    assert all(t["run_s"] == "" for t in table)  # seconds of computing only with timings=True
     assert float(table[0]["travel_time_s"]) == rows[0]["travel_time_s"]
     assert table[-1]["status"] == "error" and table[-1]["travel_time_s"] == ""
     for r in rows[:-1]:
@@ -122,7 +129,11 @@ def test_dask_in_process_cluster_gives_the_same_rows(site, tmp_path):
         rows = run_batch(d / "batch.toml", tmp_path / "dask", scheduler=client)
     check_rows(rows, terrain)
     local = run_batch(d / "batch.toml", tmp_path / "one", workers=1)
-    assert rows == local
+
+    def results(rs):  # everything but the seconds of computing
+        return [{k: v for k, v in r.items() if k != "run_s"} for r in rs]
+
+    assert results(rows) == results(local)
 
 
 def test_expansion_order_names_and_errors():
@@ -288,3 +299,12 @@ def test_batch_csv_text_cells_are_neutralised(site, tmp_path):
     table = read_table(tmp_path / "out" / "batch.csv")
     assert table[0]["dem"] == "'=cmd|' /C calc'!A0.tif"
     assert table[0]["error"] and not table[0]["error"].startswith(("=", "+", "-", "@"))
+
+
+def test_timings_fill_the_run_seconds(site, tmp_path):
+    d, _ = site
+    (tmp_path / "small.toml").write_text(SMALL.replace('dem = "dem.tif"', f'dem = "{(d / "dem.tif").as_posix()}"'))
+    rows = run_batch(tmp_path / "small.toml", tmp_path / "out", workers=1, timings=True)
+    table = read_table(tmp_path / "out" / "batch.csv")
+    assert [float(t["run_s"]) for t in table] == [r["run_s"] for r in rows]
+    assert all(r["run_s"] > 0 for r in rows)

@@ -26,6 +26,7 @@ import scipy.sparse as sp
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
+from references import corner_speed, sharp_corner_reading
 from scipy.sparse.csgraph import dijkstra
 
 from fallway.errors import NoFeasibleLine, ParameterError
@@ -69,12 +70,18 @@ def seg_ref(v2a, drop, plan, g, mu, k, v2_max=math.inf):
     return v2b, t
 
 
-def pareto_ref(z, cell, mover, start, *, min_grade=-math.inf, max_grade=math.inf, max_turn=None, seeds=None):
-    """Exhaustive Pareto label search on the 8-neighbour lattice: node -> [(t, v2, heading)]."""
+def pareto_ref(z, cell, mover, start, *, min_grade=-math.inf, max_grade=math.inf, max_turn=None, seeds=None,
+               corners=False):
+    """Exhaustive Pareto label search on the 8-neighbour lattice: node -> [(t, v2, heading)].
+
+    ``corners``: every vertex between two steps pays the sharp-corner law of
+    :func:`references.corner_speed` (Euler–Eytelwein, the channel reading); labels then
+    compete per (node, heading), the state the corner needs.
+    """
     rows, cols = z.shape
     sets = defaultdict(list)
     q = deque()
-    same = (lambda a, b: a[2] == b[2]) if max_turn is not None else (lambda a, b: True)
+    same = (lambda a, b: a[2] == b[2]) if (max_turn is not None or corners) else (lambda a, b: True)
 
     def add(node, lab):
         labs = sets[node]
@@ -103,7 +110,14 @@ def pareto_ref(z, cell, mover, start, *, min_grade=-math.inf, max_grade=math.inf
             drop = z[r, c] - z[r2, c2]
             if not (min_grade <= drop / plan <= max_grade):
                 continue
-            out = seg_ref(lab[1], drop, plan, mover.g, mover.mu, mover.drag)
+            v2 = lab[1]
+            if corners and lab[2] is not None:
+                pr, pc = KING[lab[2]]
+                plan0 = cell * math.hypot(pr, pc)
+                a = (pc * cell, -pr * cell, z[r, c] - z[r - pr, c - pc])
+                b = (dc * cell, -dr * cell, z[r2, c2] - z[r, c])
+                v2 = corner_speed(math.sqrt(v2), a, b, mover.mu, plan0, plan, mover.g) ** 2
+            out = seg_ref(v2, drop, plan, mover.g, mover.mu, mover.drag)
             if out is not None:
                 add((r2, c2), (lab[0] + out[1], out[0], h))
     return sets
@@ -350,6 +364,45 @@ def test_turn_limit_matches_reference_and_holds():
     ang = np.degrees(np.arctan2(-steps[:, 0], steps[:, 1]))
     turn = np.abs((np.diff(ang) + 180) % 360 - 180)
     assert turn.max() <= 45.0 + 1e-9
+
+
+FULL = Mover(mu=0.12, drag=0.01, v0=1.0, normal="full")
+
+
+@pytest.mark.parametrize("seed,turn", [(1, 45.0), (2, 90.0), (4, 135.0), (7, 90.0)])
+def test_corner_law_matches_exhaustive_reference(seed, turn):
+    """With the full model and a turn limit every vertex pays the sharp-corner law: the
+    kernel's optimum equals an exhaustive Pareto search over (cell, heading) that charges
+    Euler–Eytelwein's belt-friction law at each vertex (``references.corner_speed``)."""
+    z = rough_dem(seed)
+    t = terrain_of(z)
+    ref = best_time(pareto_ref(z, 10.0, FULL, (0, 0), max_turn=turn, corners=True), (6, 7))
+    no_corners = best_time(pareto_ref(z, 10.0, FULL, (0, 0), max_turn=turn), (6, 7))
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), FULL, limits=Limits(max_step_turn_deg=turn),
+                      options=SearchOptions(neighbours=8, energy_tol=0.0))
+    assert ln.time_s == pytest.approx(ref, rel=1e-9)
+    assert ref > no_corners  # the corners cost time: the check can fail
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("n", [16, 32])
+def test_lattice_time_is_the_sharp_corner_reading_of_its_line(seed, n):
+    """Off-centre end points (virtual edges), a via point, sub-segment kinks: the time the
+    search reports is the sharp-corner reading of the line it returns, re-timed by the
+    independent reference (``references.sharp_corner_reading``: segment law + capstan)."""
+    rng = np.random.default_rng(seed)
+    rows, cols = 24, 26
+    r, c = np.mgrid[0:rows, 0:cols]
+    z = 120.0 - 2.2 * r - 1.9 * c + rng.normal(scale=0.7, size=(rows, cols))
+    t = terrain_of(z, 4.0)
+    x0, y0 = t.cell_center(1, 2)
+    x1, y1 = t.cell_center(21, 23)
+    ln = lattice_line(t, (x0 + 0.9, y0 - 1.3), (x1 - 1.1, y1 + 0.7), FULL, via=[t.cell_center(10, 14)],
+                      limits=Limits(max_step_turn_deg=60.0), options=SearchOptions(neighbours=n))
+    tt, v = sharp_corner_reading(ln.points, FULL.mu, FULL.drag, FULL.v0, FULL.g)
+    assert ln.time_s == pytest.approx(tt, rel=1e-9)
+    assert ln.stats["exit_speed_m_s"] == pytest.approx(v, rel=1e-9)
+    assert ln.profile.travel_time_s == pytest.approx(tt, rel=1e-9)
 
 
 def test_grade_window_matches_reference_and_holds():

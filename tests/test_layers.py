@@ -33,6 +33,8 @@ LAYERS = [
     ["relax"],
     ["routing"],
     ["export"],
+    ["stations"],
+    ["cad"],
     ["plot"],
     ["report"],
     ["scenario"],

@@ -33,6 +33,9 @@ if TYPE_CHECKING:  # the same names, for type checkers and editors
     from .scenario import Scenario, load_scenario
     from .export import (OutputSet, write_profile_csv, write_reach_geotiff, write_route_geojson, write_route_gpkg,
                          write_summary_json)
+    from .export import write_stations_csv
+    from .stations import StationTable, station_table
+    from .cad import write_route_dxf
     from .plot import comparison_figure, plot_map, plot_profile, save_figure
     from .report import write_report_html
     from .app import run_scenario
@@ -92,6 +95,10 @@ _EXPORTS = {
     "write_route_geojson": "export",
     "write_route_gpkg": "export",
     "write_summary_json": "export",
+    "write_stations_csv": "export",
+    "StationTable": "stations",
+    "station_table": "stations",
+    "write_route_dxf": "cad",
     "comparison_figure": "plot",
     "plot_map": "plot",
     "plot_profile": "plot",
@@ -116,6 +123,7 @@ __all__ = [
     "Scenario", "load_scenario",
     "OutputSet", "write_profile_csv", "write_reach_geotiff", "write_route_geojson", "write_route_gpkg",
     "write_summary_json",
+    "write_stations_csv", "StationTable", "station_table", "write_route_dxf",
     "comparison_figure", "plot_map", "plot_profile", "save_figure", "write_report_html",
     "run_scenario", "run_batch",
 ]

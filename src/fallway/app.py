@@ -24,7 +24,8 @@ __all__ = ["Site", "resolve_site", "run_scenario", "write_scenario", "run_compar
            "ROUTE_FILES", "CORE_FILES", "COMPARE_FILES", "DEMO_FILES"]
 
 #: The files a route run writes (``outputs="full"``).
-ROUTE_FILES = ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "scenario.toml", "map.png", "map.svg",
+ROUTE_FILES = ("route.geojson", "route.gpkg", "route.dxf", "profile.csv", "stations.csv", "summary.json",
+               "scenario.toml", "map.png", "map.svg",
                "profile.png", "profile.svg", "report.html")
 #: The files of a batch run (``outputs="core"``).
 CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
@@ -274,6 +275,8 @@ def write_route(outs, sc, route, *, reach=None, comparison=None, timings: bool =
 
 def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     from . import export, plot, report
+    from .cad import write_route_dxf
+    from .stations import station_table
 
     terrain = route.terrain
     if timings:
@@ -288,6 +291,9 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     if core_only:
         return sorted(outs._names)
     export.write_route_gpkg(route, outs.path("route.gpkg"), terrain.crs)
+    stations = station_table(route, sc.station_step_m)
+    export.write_stations_csv(stations, outs.path("stations.csv"))
+    write_route_dxf(route, outs.path("route.dxf"), stations)
     with export.atomic_write(outs.path("scenario.toml")) as fh:
         fh.write(sc.to_toml())
     ax = plot.plot_map(terrain, route, reach=reach, keepout=route.keepout)

@@ -34,7 +34,11 @@ and hold letters, digits, ``.``, ``-``, ``_`` and spaces (no hidden folders, no 
 Each run writes ``summary.json``, ``route.geojson`` and ``profile.csv`` into
 ``out_dir/<name>/``; a run that fails records its one-line error and leaves no folder.
 All runs end up in ``out_dir/batch.csv``: name, the varied parameters, travel_time_s,
-lattice_time_s, exit_speed_m_s, status ("ok" or "error") and error.
+lattice_time_s, length_m, drop_m, max_speed_m_s, exit_speed_m_s, status ("ok" or
+"error"), run_s and error.  ``run_s`` is the run's seconds of computing (search,
+refinement and writing its files); like ``route --timings`` it is filled only with
+``timings=True`` (``batch --timings``), so that by default the same batch gives the same
+bytes.
 
 The whole batch is one :class:`~fallway.export.OutputSet`: the run folders are written
 into its working folder and appear together with ``batch.csv`` when every run has
@@ -59,7 +63,10 @@ from .errors import FallwayIOError, ScenarioError
 __all__ = ["run_batch", "expand_batch", "BATCH_COLUMNS"]
 
 #: Fixed columns of batch.csv (the varied parameters come between name and these).
-BATCH_COLUMNS = ("travel_time_s", "lattice_time_s", "exit_speed_m_s", "status", "error")
+BATCH_COLUMNS = ("travel_time_s", "lattice_time_s", "length_m", "drop_m", "max_speed_m_s", "exit_speed_m_s",
+                 "status", "run_s", "error")
+# the columns of a run's numbers (None in a failed run's row)
+_RESULT_COLUMNS = ("travel_time_s", "lattice_time_s", "length_m", "drop_m", "max_speed_m_s", "exit_speed_m_s")
 
 # a run name: a letter or digit first, then letters, digits, '.', '-', '_' or spaces
 _RUN_NAME = re.compile(r"[^\W_][\w.\- ]{0,99}")
@@ -67,7 +74,7 @@ _RUN_NAME = re.compile(r"[^\W_][\w.\- ]{0,99}")
 BATCH_TABLE = "batch.csv"
 
 _OPTION_KEYS = ("plan", "coarse_factor", "corridor_m", "max_widen", "widen_tol", "label_cap", "energy_tol",
-                "max_labels", "heuristic")
+                "max_labels", "heuristic", "gap")
 
 
 def _flatten(d: dict) -> dict:
@@ -183,7 +190,10 @@ def run_one(spec: dict) -> dict:
     from .export import OutputSet
     from .scenario import Scenario
 
+    import time
+
     row = {"name": spec["name"], **{k: _cell(v) for k, v in spec["params"].items()}}
+    t0 = time.perf_counter()
     try:
         sc = Scenario.from_dict(spec["scenario"], base_dir=spec.get("base_dir"))
         opts = dict(spec.get("options", {}))
@@ -192,12 +202,11 @@ def run_one(spec: dict) -> dict:
         with OutputSet(Path(spec["out_dir"]) / spec["name"], result_names=CORE_FILES, make_parents=False) as outs:
             r, _ = write_scenario(outs, sc, outputs="core")
         s = r.summary
-        row.update(travel_time_s=s.travel_time_s, lattice_time_s=s.lattice_time_s,
-                   exit_speed_m_s=s.exit_speed_m_s, status="ok", error="")
+        row.update({c: getattr(s, c) for c in _RESULT_COLUMNS}, status="ok", error="")
     except Exception as err:  # noqa: BLE001 - a failed run is a row of batch.csv, never the end of the batch
         msg = " ".join(str(err).split()) or type(err).__name__
-        row.update(travel_time_s=None, lattice_time_s=None, exit_speed_m_s=None, status="error",
-                   error=f"{type(err).__name__}: {msg}")
+        row.update(dict.fromkeys(_RESULT_COLUMNS), status="error", error=f"{type(err).__name__}: {msg}")
+    row["run_s"] = time.perf_counter() - t0
     return row
 
 
@@ -208,7 +217,7 @@ def _cell(v):
 
 
 def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=None,
-              overwrite: bool = False) -> list[dict]:
+              overwrite: bool = False, timings: bool = False) -> list[dict]:
     """Run every scenario of a batch file; write per-run outputs and ``batch.csv``.
 
     Parameters
@@ -225,6 +234,9 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
         that cluster (needs ``dask[distributed]``).
     overwrite : bool
         Replace the results of an earlier batch in ``out_dir`` (module notes).
+    timings : bool
+        Fill batch.csv's ``run_s`` column (seconds of computing per run; the returned
+        rows always hold it).
 
     Returns
     -------
@@ -275,7 +287,7 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
             with ProcessPoolExecutor(max_workers=min(n, len(specs)), mp_context=ctx,
                                      initializer=_quiet_worker) as ex:
                 rows = list(ex.map(run_one, specs))
-        _write_table(rows, runs, outs.path(BATCH_TABLE))
+        _write_table(rows if timings else [{**r, "run_s": None} for r in rows], runs, outs.path(BATCH_TABLE))
     return rows
 
 

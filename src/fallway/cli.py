@@ -213,8 +213,9 @@ def _common_options(fn):
         click.option("--neighbours", type=click.Choice(["8", "16", "32"]), help="Lattice stencil (default 16)."),
         click.option("--label-cap", type=click.IntRange(min=1), help="Approximate search: keep at most N labels per "
                      "cell (faster on large rough DEMs; summary search_exact says if it mattered)."),
-        click.option("--min-grade", type=float, help="Smallest descent grade of any segment (0.05 = 5 % falling)."),
-        click.option("--max-grade", type=float, help="Largest descent grade of any segment."),
+        click.option("--min-grade", type=float, help="Smallest descent grade of any segment, a fraction (0.3 = 30 %; "
+                     "0.05: every segment falls at least 5 %)."),
+        click.option("--max-grade", type=float, help="Largest descent grade of any segment, a fraction (0.3 = 30 %)."),
         click.option("--max-speed", type=float, help="Speed limit, m/s."),
         click.option("--stall-speed", type=float, help="The mover stops below this speed, m/s."),
         click.option("--max-step-turn", "max_turn", type=float, help="Largest change of heading from one lattice step to the next, degrees (a search limit; the refined line is held by --min-radius)."),
@@ -276,6 +277,8 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
             d["line"][key] = list(extra[key]) if key == "clearance" else extra[key]
     if extra.get("mu_range") is not None:
         d["envelope"]["mu_range"] = list(extra["mu_range"])
+    if extra.get("station_step") is not None:
+        d["outputs"] = {"station_step": float(extra["station_step"])}
     return d
 
 
@@ -324,7 +327,16 @@ def main() -> None:
 _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 
 
-@main.command()
+def _examples(*lines: str) -> str:
+    """A command's help epilog: its examples, kept as written (click's \\b marks a block not to rewrap)."""
+    return ("Scenario and batch file keys, units and ranges: docs/scenarios.md.\n\n\b\nExamples:\n"
+            + "\n".join(f"  {line}" for line in lines))
+
+
+@main.command(epilog=_examples(
+    "fallway route dem.tif --start 512300 5401200 --end 512800 5400900 --mu 0.15 --out run/",
+    "fallway route dem.tif --scenario design.toml --max-grade 0.8 --min-radius 15 --station-step 5 --out run/",
+    "fallway route dem.tif --scenario design.toml --mu-range 0.1 0.2 --robust --out robust/"))
 @click.argument("dem", required=False, type=click.Path(dir_okay=False))
 @_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
 @_point_opt("--end", help="Discharge point.")
@@ -353,6 +365,8 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
               help="Corridor plan: coarsening factor (default: about 250 k coarse cells).")
 @click.option("--corridor", "corridor_m", type=click.FloatRange(min=0.0, min_open=True),
               help="Corridor plan: first corridor half-width, m (doubled until the time stops improving).")
+@click.option("--station-step", "station_step", type=float, metavar="M",
+              help="Interval of the chainage table stations.csv, m along the line (default 10).")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")
 @click.option("--timings", is_flag=True,
@@ -362,7 +376,7 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **opts):
     """Find the minimum-time line from --start to --end on DEM and write it to --out.
 
-    Writes route.geojson, route.gpkg, profile.csv, summary.json, scenario.toml, map and
+    Writes route.geojson, route.gpkg, profile.csv, stations.csv, summary.json, scenario.toml, map and
     profile figures and report.html; all appear together or not at all (also on Ctrl-C).
     """
     _setup_logging(quiet, verbose)
@@ -394,7 +408,9 @@ def _print_route(r, out_dir, written) -> None:
     click.echo(f"wrote {', '.join(written)} in {out_dir}")
 
 
-@main.command()
+@main.command(epilog=_examples(
+    "fallway reach dem.tif --start 512300 5401200 --mu 0.15 --out reach.tif",
+    "fallway reach srtm.tif --start 11.39 47.27 --lonlat --mu 0.2 --max-time 60 --out reach.tif"))
 @click.argument("dem", required=False, type=click.Path(dir_okay=False))
 @_point_opt("--start", help="Loading point (map coordinates of the DEM, or lon lat with --lonlat).")
 @_common_options
@@ -422,7 +438,9 @@ def reach(out_path, overwrite, scenario_path, quiet, verbose, max_time_s, max_di
                    f"wrote {out_path}")
 
 
-@main.command()
+@main.command(epilog=_examples(
+    "fallway compare dem.tif lines.geojson --mu 0.15 --out cmp/",
+    "fallway compare dem.tif lines.gpkg --scenario design.toml --mu-range 0.1 0.2 --no-optimum --out cmp/"))
 @click.argument("dem", type=click.Path(dir_okay=False))
 @click.argument("lines", type=click.Path(dir_okay=False))
 @_common_options
@@ -459,15 +477,19 @@ def _print_rows(cmp, indent: str = "") -> None:
         click.echo(f"{indent}{rec['name']:<24} {what:>18}  {rec['status']}{env}")
 
 
-@main.command()
+@main.command(epilog=_examples(
+    "fallway batch runs.toml --out batch/",
+    "fallway batch runs.toml --out batch/ --workers 2 --timings --overwrite"))
 @click.argument("scenarios", type=click.Path(dir_okay=False))
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option("--workers", type=click.IntRange(min=1), help="Local worker processes (default: one per core).")
 @click.option("--scheduler", help="Address of a Dask scheduler (needs the 'cluster' extra: dask[distributed]).")
 @click.option("--overwrite", is_flag=True, help="Replace the results of an earlier batch in the output folder.")
+@click.option("--timings", is_flag=True, help="Fill batch.csv's run_s column (seconds of computing per run); "
+              "without it the same batch gives byte-identical files.")
 @click.option("-q", "--quiet", is_flag=True, help="Print errors only.")
 @_guard
-def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
+def batch(scenarios, out_dir, workers, scheduler, overwrite, timings, quiet):
     """Run every scenario of a batch file (base x variations) and collect batch.csv.
 
     The run folders and batch.csv appear together when every run has ended, or not at all.
@@ -475,7 +497,7 @@ def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
     _setup_logging(quiet, 0)
     from .batch import run_batch
 
-    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler, overwrite=overwrite)
+    rows = run_batch(scenarios, out_dir, workers=workers, scheduler=scheduler, overwrite=overwrite, timings=timings)
     bad = [r for r in rows if r.get("status") == "error"]
     if not quiet:
         click.echo(f"{len(rows) - len(bad)} of {len(rows)} runs done; wrote {Path(out_dir) / 'batch.csv'}")
@@ -485,7 +507,7 @@ def batch(scenarios, out_dir, workers, scheduler, overwrite, quiet):
         sys.exit(EXIT_ERROR)
 
 
-@main.command()
+@main.command(epilog=_examples("fallway demo", "fallway demo --out demo/ --overwrite"))
 @click.option("--out", "out_dir", default="fallway-demo", show_default=True, type=click.Path(file_okay=False),
               help="Output folder.")
 @click.option("--overwrite", is_flag=True, help="Replace results already in the output folder.")

@@ -45,10 +45,12 @@ __all__ = [
     "atomic_write",
     "abort_active_outputs",
     "crs_label",
+    "geojson_properties",
     "profile_flags",
     "summary_document",
     "to_jsonable",
     "write_profile_csv",
+    "write_stations_csv",
     "write_route_geojson",
     "write_route_gpkg",
     "write_summary_json",
@@ -61,7 +63,9 @@ __all__ = [
 RESULT_FILES = (
     "route.geojson",
     "route.gpkg",
+    "route.dxf",
     "profile.csv",
+    "stations.csv",
     "summary.json",
     "map.png",
     "map.svg",
@@ -76,8 +80,12 @@ RESULT_FILES = (
     "run.json",
 )
 
-#: Decimal places of longitude/latitude in GeoJSON (1e-9 degree is about 0.1 mm).
-GEOJSON_LONLAT_DECIMALS = 9
+#: Decimal places of longitude/latitude in GeoJSON (1e-7 degree is about 1 cm, the
+#: precision RFC 7946 §11.2 suggests as plenty: 6 decimals are about 10 cm).
+GEOJSON_LONLAT_DECIMALS = 7
+#: Summary fields holding map coordinates, and their names in the WGS 84 GeoJSON.
+_LONLAT_FIELDS = {"start_xyz": "start_lon_lat_z", "end_xyz": "end_lon_lat_z", "via_xy": "via_lon_lat",
+                  "start_given_xy": "start_given_lon_lat", "end_given_xy": "end_given_lon_lat"}
 #: Decimal places of heights in GeoJSON (millimetres).
 GEOJSON_Z_DECIMALS = 3
 
@@ -722,11 +730,65 @@ def _geojson_coords(part: np.ndarray) -> list[list[float]]:
     return out
 
 
+def geojson_properties(route, to_wgs84) -> dict:
+    """The properties of the route's GeoJSON feature: the summary and the inputs, points in lon/lat.
+
+    The summary's fields in order, except that the points it holds in map coordinates
+    (``start_xyz``, ``end_xyz``, ``via_xy``, ``start_given_xy``, ``end_given_xy``) are
+    given in WGS 84 as ``start_lon_lat_z``, ``end_lon_lat_z``, ``via_lon_lat``,
+    ``start_given_lon_lat`` and ``end_given_lon_lat`` (7 decimals); then the inputs,
+    one property each, named by their group: ``mover_mu``, ``mover_drag``,
+    ``mover_max_speed``, ``limits_min_grade``, ``limits_max_grade``,
+    ``line_spec_kind``, ``search_neighbours``, ... (``null`` for "no limit"); and
+    ``height_reference``.
+
+    Parameters
+    ----------
+    route : Route
+    to_wgs84 : pyproj.Transformer
+        From the route's CRS to EPSG:4326, ``always_xy``.
+
+    Examples
+    --------
+    >>> import pyproj
+    >>> route, terrain = _example_route()
+    >>> tr = pyproj.Transformer.from_crs(terrain.crs, "EPSG:4326", always_xy=True)
+    >>> p = geojson_properties(route, tr)
+    >>> p["start_lon_lat_z"], p["mover_mu"], p["limits_max_grade"], "start_xyz" in p
+    ([15.0000296, 40.6507889, 100.0], 0.2, None, False)
+    """
+    props: dict[str, Any] = {}
+    for key, value in to_jsonable(route.summary.to_dict()).items():
+        if key not in _LONLAT_FIELDS:
+            props[key] = value
+            continue
+        pts = [] if value is None else ([value] if value and not isinstance(value[0], list) else value)
+        out = []
+        for p in pts:
+            if any(c is None for c in p):  # a point that does not exist (NaN in the summary)
+                out.append(None)
+                continue
+            lon, lat = to_wgs84.transform(float(p[0]), float(p[1]), errcheck=True)
+            q = [round(float(lon), GEOJSON_LONLAT_DECIMALS) + 0.0, round(float(lat), GEOJSON_LONLAT_DECIMALS) + 0.0]
+            if len(p) > 2:
+                q.append(round(float(p[2]), GEOJSON_Z_DECIMALS) + 0.0)
+            out.append(q)
+        single = key != "via_xy"
+        props[_LONLAT_FIELDS[key]] = (out[0] if out else None) if single else out
+    for name in ("mover", "limits", "line_spec", "search"):
+        group = getattr(route, name, None)
+        if group is not None:
+            props.update(flatten(to_jsonable(dataclasses.asdict(group)), "_", f"{name}_"))
+    props["height_reference"] = "heights as in the DEM (not converted to WGS 84 ellipsoidal heights)"
+    return props
+
+
 def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
     """Write the route as RFC 7946 GeoJSON: WGS 84 lon/lat, a LineString with z.
 
-    A FeatureCollection with one Feature whose properties are the route summary; no
-    ``crs`` member.  The reprojection is pyproj's (``always_xy``); heights are the
+    A FeatureCollection with one Feature whose properties are the route summary, its
+    points in lon/lat, and the inputs (:func:`geojson_properties`), plus ``source_crs``;
+    no ``crs`` member.  Coordinates to 7 decimals (about 1 cm), heights to millimetres.  The reprojection is pyproj's (``always_xy``); heights are the
     DEM's, unchanged (RFC 7946 asks for ellipsoidal heights: a DEM's orthometric
     heights differ by the geoid undulation; the ``height_reference`` property says
     so).  A line crossing the antimeridian becomes a MultiLineString (RFC 7946 §3.1.9).
@@ -770,8 +832,8 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
         geometry = {"type": "LineString", "coordinates": _geojson_coords(parts[0])}
     else:
         geometry = {"type": "MultiLineString", "coordinates": [_geojson_coords(p) for p in parts]}
-    props = to_jsonable(route.summary.to_dict())
-    props.setdefault("height_reference", "heights as in the DEM (not converted to WGS 84 ellipsoidal heights)")
+    props = geojson_properties(route, tr)
+    props["source_crs"] = crs_label(src)
     all_coords = np.concatenate(parts)
     bbox = [round(float(all_coords[:, 0].min()), GEOJSON_LONLAT_DECIMALS),
             round(float(all_coords[:, 1].min()), GEOJSON_LONLAT_DECIMALS),
@@ -1020,6 +1082,45 @@ def write_profile_csv(route, terrain, path: str | os.PathLike) -> Path:
     for i in range(n):
         row = [_fmt(c[i], 6) for c in cols]
         row.append(flags[i])
+        lines.append(",".join(row))
+    path = Path(path)
+    with atomic_write(path) as f:
+        f.write("\n".join(lines) + "\n")
+    return path
+
+
+#: Decimal places per column of ``stations.csv`` (lon/lat: 1e-7 degree, about 1 cm).
+_STATION_DECIMALS = {"station_m": 3, "x_m": 3, "y_m": 3, "lon_deg": 7, "lat_deg": 7, "ground_z_m": 3,
+                     "line_z_m": 3, "clearance_m": 3, "grade": 6, "grade_deg": 4, "speed_m_s": 4, "time_s": 4,
+                     "normal_load_ratio": 4}
+
+
+def write_stations_csv(table, path: str | os.PathLike) -> Path:
+    """Write the chainage table (:class:`fallway.stations.StationTable`) as CSV.
+
+    Columns, units in their names: ``station_m, x_m, y_m, lon_deg, lat_deg, ground_z_m,
+    line_z_m, clearance_m, grade, grade_deg, speed_m_s, time_s, normal_load_ratio,
+    flags`` (``grade`` a fraction, 0.3 = 30 %).  Fixed decimals: millimetres for lengths
+    and heights, 7 for degrees of lon/lat (about 1 cm), 6 for the grade, 4 for
+    grade degrees, speed, time and load; empty cells for values that do not exist
+    (after a stall, ground outside the DEM).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from fallway.stations import station_table
+    >>> route, _ = _example_route()
+    >>> p = write_stations_csv(station_table(route, 25.0), pathlib.Path(tempfile.mkdtemp()) / "stations.csv")
+    >>> print(p.read_text().splitlines()[2])
+    25.000,500024.151,4499992.500,15.0002857,40.6507889,87.500,87.500,0.000,0.577350,30.0000,12.6585,3.9499,0.8660,
+    """
+    cols = table.columns()
+    names = list(cols)
+    n = len(table)
+    lines = [",".join(names)]
+    for i in range(n):
+        row = [_fmt(cols[k][i], _STATION_DECIMALS[k]) for k in names[:-1]]
+        row.append(cols["flags"][i])
         lines.append(",".join(row))
     path = Path(path)
     with atomic_write(path) as f:

@@ -52,6 +52,9 @@ Layout (every section and key optional; unknown keys are rejected)::
 
     [envelope]
     mu_range = [0.1, 0.2]
+
+    [outputs]
+    station_step = 10.0              # interval of the chainage table stations.csv, m
 """
 
 from __future__ import annotations
@@ -80,6 +83,7 @@ _SCHEMA: dict[str, Any] = {
                "corridor_m": float, "gap": float},
     "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
     "envelope": {"mu_range": "pair"},
+    "outputs": {"station_step": float},
 }
 
 
@@ -183,6 +187,7 @@ class Scenario:
     search: SearchOptions = field(default_factory=SearchOptions)
     refine: bool = True
     mu_range: tuple[float, float] | None = None
+    station_step_m: float = 10.0
 
     def __post_init__(self) -> None:
         if self.mu_range is not None:
@@ -257,6 +262,14 @@ class Scenario:
         env = data.get("envelope", {})
         if "mu_range" in env:
             kw["mu_range"] = tuple(_number("envelope.mu_range", v) for v in _pair("envelope.mu_range", env["mu_range"]))
+        outputs = data.get("outputs", {})
+        if "station_step" in outputs:
+            from .stations import check_station_step
+
+            try:
+                kw["station_step_m"] = check_station_step(_number("outputs.station_step", outputs["station_step"]))
+            except ParameterError as err:
+                raise ScenarioError(f"outputs.station_step: {err}") from err
         return cls(**kw)
 
     def to_dict(self) -> dict:
@@ -294,6 +307,8 @@ class Scenario:
                      "start_height": self.line.start_height_m, "end_height": self.line.end_height_m}
         if self.mu_range is not None:
             d["envelope"] = {"mu_range": list(self.mu_range)}
+        if self.station_step_m != 10.0:
+            d["outputs"] = {"station_step": self.station_step_m}
         return d
 
     def to_toml(self) -> str:

@@ -99,12 +99,13 @@ import numpy as np
 from numba import njit
 
 from .._segment import segment_law
+from .._traverse import corner_v2, turn_angle
 
 __all__ = ["OK", "NOT_REACHED", "LABEL_BUDGET", "NODATA", "KEEPOUT", "OUTSIDE", "LAW_OK", "LAW_STALL",
            "LAW_SPEED", "LAW_GRADE", "N_COUNTERS", "heap_push", "heap_pop", "grow", "grow_rows", "new_pool",
            "push_label", "passable", "count_blocked", "sub_count", "sub_segment", "law_step", "state_of",
            "astar_bound", "count_law", "heading_slot", "turn_deg", "virtual_passable", "virtual_walk",
-           "virtual_edge"]
+           "virtual_edge", "corner_step", "edge_tail"]
 
 # -- search status ------------------------------------------------------------------------
 #: The last target was settled.
@@ -364,10 +365,15 @@ def virtual_passable(blocked, j, vcode, vtch_start, vtch):
 
 
 @njit(cache=True, nogil=True, inline="always")
-def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade):
+def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
+                 corners, ux, uy, ax, ay, az, plan_a):
     """Walk virtual edge ``j`` (an exact end point joined to a cell centre) sub-segment by
     sub-segment: the grade window, then the law, as on a stencil edge.
 
+    With ``corners`` every vertex pays the corner law (:func:`corner_step`): the first
+    from the incoming unit direction ``(ax, ay, az)`` (``plan_a`` its run; ``plan_a < 0``:
+    none, the edge starts the line), the others between the edge's sub-segments;
+    ``(ux, uy)`` is the edge's plan unit direction.
     Returns ``(v2_out, time, outcome)`` (outcome as :func:`law_step`, or :data:`LAW_GRADE`).
     """
     te = 0.0
@@ -377,7 +383,13 @@ def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max
         grade = d / p
         if grade < min_grade or grade > max_grade:
             return v2, te, LAW_GRADE
-        v2, dt, law = law_step(v2, d, p, math.sqrt(p * p + d * d), g, mu, kdrag, v2_stall, v2_max)
+        length = math.sqrt(p * p + d * d)
+        if corners:
+            bx, by, bz = ux * p / length, uy * p / length, -d / length
+            if plan_a >= 0.0:
+                v2 = corner_step(v2, ax, ay, az, plan_a, bx, by, bz, p, mu, g)
+            ax, ay, az, plan_a = bx, by, bz, p
+        v2, dt, law = law_step(v2, d, p, length, g, mu, kdrag, v2_stall, v2_max)
         if law != LAW_OK:
             return v2, te, law
         te += dt
@@ -385,8 +397,38 @@ def virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max
 
 
 @njit(cache=True, nogil=True, inline="always")
+def corner_step(v2, ax, ay, az, plan_a, bx, by, bz, plan_b, mu, g):
+    """v² after the sharp corner from unit direction ``a`` to ``b`` (runs ``plan_a``,
+    ``plan_b`` in plan, metres): the reporting model's corner law
+    (:func:`fallway._traverse.corner_v2` of :func:`fallway._traverse.turn_angle`), so that a
+    lattice line costs in the search what :func:`fallway.physics.traverse` charges it."""
+    phi = turn_angle(ax, ay, az, bx, by, bz)
+    if phi == 0.0:
+        return v2
+    return corner_v2(v2, phi, mu, g, plan_a, plan_b)
+
+
+@njit(cache=True, nogil=True)
+def edge_tail(z, n, hd, cols, off_dr, off_dc, ucos, usin, brk_start, brk_fa, brk_fb, brk_w, sub_plan):
+    """The last sub-segment of stencil edge ``hd`` that ends at cell ``n``: its unit
+    direction and plan length ``(ax, ay, az, plan)`` (the incoming side of the corner at
+    ``n``; heights as :func:`sub_segment` reads them)."""
+    p = n - (off_dr[hd] * cols + off_dc[hd])
+    last = sub_count(brk_start, hd) - 1
+    if last == 0:
+        z0 = z[p]
+    else:
+        q = brk_start[hd] + last - 1
+        z0 = brk_w[q] * z[p + brk_fa[q]] + (1.0 - brk_w[q]) * z[p + brk_fb[q]]
+    plan = sub_plan[brk_start[hd] + last + hd]
+    d = z0 - z[n]
+    length = math.sqrt(plan * plan + d * d)
+    return ucos[hd] * plan / length, usin[hd] * plan / length, -d / length, plan
+
+
+@njit(cache=True, nogil=True, inline="always")
 def virtual_edge(counters, blocked, j, v2, vcode, vtch_start, vtch, vsub_start, vdrop, vplan, g, mu, kdrag,
-                 v2_stall, v2_max, min_grade, max_grade):
+                 v2_stall, v2_max, min_grade, max_grade, corners, ux, uy, ax, ay, az, plan_a):
     """Virtual edge ``j`` from entry energy ``v2``: its cells (:func:`virtual_passable`), then
     its walk (:func:`virtual_walk`); a stopped edge is counted as a stencil edge is.
 
@@ -397,7 +439,7 @@ def virtual_edge(counters, blocked, j, v2, vcode, vtch_start, vtch, vsub_start, 
         count_blocked(counters, code)
         return v2, 0.0, False
     v2o, te, law = virtual_walk(j, v2, vsub_start, vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade,
-                                max_grade)
+                                max_grade, corners, ux, uy, ax, ay, az, plan_a)
     if law != LAW_OK:
         count_law(counters, law, mu, kdrag)
         return v2, te, False

@@ -20,7 +20,8 @@ keyed by t (+ the A* bound).
 Dominance: label 1 dominates label 2 at the same (leg, node [, heading]) when
 ``t1 <= t2`` and ``v2_1 >= v2_2 - tol``.  It is sound because on every segment the exit
 speed rises and the time falls with the entry speed (gravity, Coulomb friction and drag
-losses are monotone), so whatever label 2 can still do, label 1 does no later.  Labels
+losses are monotone; so is the corner law, see "Corners"), so whatever label 2 can still
+do, label 1 does no later.  Labels
 settle at a state in order of t, so the settled Pareto set of a state is summarised by
 its highest settled v² (``emax``): a label is dominated by a settled one exactly when
 ``emax >= v² - tol`` - an O(1) test, no per-cell lists.  Newcomers are also dropped when
@@ -29,6 +30,24 @@ the earliest label still queued at their state is no later and no slower.  ``tol
 alone from keeping twin labels; it may drop a label better by less than ``tol`` in v².
 With ``max_speed`` set dominance is no longer exact in principle (more speed can
 overspeed later where less would not); overspeeding labels are pruned.
+
+Corners
+-------
+With ``corners`` (the full normal-force model with a turn limit: the front's choice)
+every vertex of a line pays the corner law of the reporting model
+(:func:`fallway.lattice.core.corner_step`): at a popped label the incoming side is the
+last sub-segment of the step that led to it (:func:`fallway.lattice.core.edge_tail`, or
+of its virtual start edge), and each outgoing sub-segment turns from the one before.  The
+corner's cost depends only on the two directions and their plan runs, and the incoming
+direction is fixed by (node, heading) -- the dominance state -- so dominance stays exact
+wherever the corner law is monotone in the entry v²: always at a sag or plan turn
+(v² e^(-2 mu phi)); at a crest whose relief exceeds its cap (an enclosed line past
+lift-off) the law ``u + 2 cap - gain`` still rises with u while ``mu |phi| < ln 2 / 2``.
+The crest cap takes the adjoining sub-segments as the runs either side (the sharp-corner
+reading takes the runs to the neighbouring corners): identical on rough ground, and on a
+plane the lattice then charges a crest no less than the reading does.  The result: the
+time of a lattice line equals :func:`fallway.physics.traverse` of its points (checked
+against an independent sharp-corner reading and an exhaustive Pareto search in the tests).
 
 A* bound
 --------
@@ -115,8 +134,8 @@ from numba import njit
 
 from .core import (C_CAPPED, C_CREATED, C_CUTOFF, C_DOMINATED, C_GRID, C_SETTLED, C_TURN, LABEL_BUDGET, LAW_GRADE,
                    LAW_OK, N_COUNTERS, NOT_REACHED, OK, astar_bound, count_blocked, count_law, grow, grow_rows,
-                   heading_slot, heap_pop, law_step, new_pool, passable, push_label, state_of, sub_count, sub_segment,
-                   turn_deg, virtual_edge)
+                   corner_step, edge_tail, heading_slot, heap_pop, law_step, new_pool, passable, push_label, state_of,
+                   sub_count, sub_segment, turn_deg, virtual_edge)
 
 __all__ = ["search", "OK", "NOT_REACHED", "LABEL_BUDGET"]
 
@@ -126,7 +145,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            off_dr, off_dc,
            brk_start, brk_fa, brk_fb, brk_w, sub_plan,
            tch_start, tch_flat,
-           turn_ok, use_heading,
+           turn_ok, use_heading, corners,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
            tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max,
@@ -161,6 +180,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     virtual node ``rows * cols`` (``targets[-1]`` is then ignored) and ``end_rcz`` is the
     end point's fractional (row, col) and height, for the A* bound.  ``max_turn`` is the
     turn limit in degrees (used for virtual edges; ``turn_ok`` for stencil steps).
+    ``corners`` (needs ``use_heading``): every vertex of a line pays the corner law of the
+    reporting model ("Corners" in the module notes).
 
     ``v2_grid`` > 0 runs the *relaxed* search (module notes, "Relaxed search"): v² rounded
     up to multiples of ``v2_grid`` at every node and clamped to the energy ceiling
@@ -186,6 +207,11 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     relaxed = v2_grid > 0.0
     v2_lim = math.inf if relaxed else v2_max  # the relaxed search never rejects for speed
     two_g = 2.0 * g
+    # plan unit directions of the stencil steps and the virtual edges (for the corner law)
+    ucos = np.cos(np.radians(sdir))
+    usin = np.sin(np.radians(sdir))
+    vcos = np.cos(np.radians(vdir))
+    vsin = np.sin(np.radians(vdir))
 
     nve = vcell.shape[0] - nvs
     vend = nve > 0 and not reach_mode  # the last leg ends at the virtual end node
@@ -255,7 +281,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             hidx = grow(hidx, 2 * nvs + 2)
         for j in range(nvs):
             v2, te, ok = virtual_edge(counters, blocked, j, v2_start, vcode, vtch_start, vtch, vsub_start, vdrop,
-                                      vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade)
+                                      vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade,
+                                      corners, vcos[j], vsin[j], 0.0, 0.0, 0.0, -1.0)
             if not ok:
                 continue
             m = vcell[j]
@@ -321,6 +348,22 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
         counters[C_SETTLED] += 1
         r = n // cols
         c = n - r * cols
+        # the incoming side of the corner at n: the last sub-segment of the label's step
+        ax = 0.0
+        ay = 0.0
+        az = 0.0
+        pa = -1.0
+        if corners and hd >= 0:
+            if hd < nk:
+                ax, ay, az, pa = edge_tail(z, n, hd, cols, off_dr, off_dc, ucos, usin, brk_start, brk_fa, brk_fb,
+                                           brk_w, sub_plan)
+            else:
+                q = vsub_start[hd - nk + 1] - 1
+                pa = vplan[q]
+                ln = math.sqrt(pa * pa + vdrop[q] * vdrop[q])
+                ax = vcos[hd - nk] * pa / ln
+                ay = vsin[hd - nk] * pa / ln
+                az = -vdrop[q] / ln
 
         if reach_mode:
             if math.isnan(best_t[cn]):
@@ -344,7 +387,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                             counters[C_TURN] += 1
                             continue
                     v2, te, ok = virtual_edge(counters, blocked, j, v20, vcode, vtch_start, vtch, vsub_start,
-                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade)
+                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade,
+                                              corners, vcos[j], vsin[j], ax, ay, az, pa)
                     if not ok:
                         continue
                     if relaxed:
@@ -406,6 +450,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             te = 0.0
             zprev = zn
             law = LAW_OK
+            bx_, by_, bz_, pb_ = ax, ay, az, pa
             for i in range(sub_count(brk_start, kk)):
                 za = zprev
                 zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
@@ -413,6 +458,13 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 if not ok:
                     law = LAW_GRADE
                     break
+                if corners:
+                    tx = ucos[kk] * plan / length
+                    ty = usin[kk] * plan / length
+                    tz = -drop / length
+                    if pb_ >= 0.0:
+                        v2 = corner_step(v2, bx_, by_, bz_, pb_, tx, ty, tz, plan, mu, g)
+                    bx_, by_, bz_, pb_ = tx, ty, tz, plan
                 v2, dt, law = law_step(v2, drop, plan, length, g, mu, kdrag, v2_stall, v2_lim)
                 if law != LAW_OK:
                     break

@@ -24,10 +24,17 @@ records that as a move).  A point outside the grid raises
 keep-out cell raises :class:`~fallway.errors.NoFeasibleLine`.
 
 Physics on the lattice: the search times every sub-segment with the closed-form
-gravity-normal segment law (friction work mu * g * plan length, drag k v²) even when
-``mover.normal == "full"``: the centripetal part of the normal force needs the curvature
-of a smooth line, which a polyline of lattice steps does not have.  Refinement and the
-final :func:`fallway.physics.traverse` of the route apply the full model.
+segment law (friction work mu * g * plan length, drag k v²).  With the full normal-force
+model (``mover.normal == "full"``) and a turn limit (``limits.max_step_turn_deg``, which
+gives the search its heading state) every vertex of a lattice line -- the corner between
+two steps and the vertical kinks between an edge's sub-segments -- also pays the corner
+law of the reporting model (:func:`fallway._traverse.corner_v2`, the belt-friction law
+of a sharp turn), so a lattice line costs in the search what
+:func:`fallway.physics.traverse` charges it, and the search steers away from zig-zags
+that would stall.  Without a turn limit the search has no heading state, cannot charge a
+corner (its cost depends on the step that led to the cell) and times the line with the
+gravity-normal law only; refinement and the final :func:`fallway.physics.traverse` of
+the route apply the full model in every case.  The robust search never charges corners.
 
 Energy tolerance: two labels at a cell whose squared speeds differ by less than
 ``energy_tol * v²`` (plus a floor of 1e-12 of the largest possible v²) count as equal for
@@ -260,6 +267,8 @@ class _Problem:
         self.tch_flat = np.ascontiguousarray(st.touch[:, 0] * cols + st.touch[:, 1])
         turn = limits.max_step_turn_deg if use_limits else None
         self.use_heading = turn is not None
+        # the corner law needs the incoming step, i.e. the heading state (module notes)
+        self.corners = bool(self.use_heading and mover.normal == "full")
         self.turn_ok = np.ascontiguousarray(st.turn_ok(turn))
         self.max_turn = 360.0 if turn is None else float(turn)
         self.sdir = np.ascontiguousarray(st.direction_deg, dtype=np.float64)
@@ -385,7 +394,7 @@ class _Problem:
         out = _search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
                       self.off_dr, self.off_dc,
                       self.brk_start, self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan,
-                      self.tch_start, self.tch_flat, self.turn_ok, self.use_heading,
+                      self.tch_start, self.tch_flat, self.turn_ok, self.use_heading, self.corners,
                       m.g, m.mu, m.drag, m.stall_speed ** 2, self.v2_max, self.min_grade, self.max_grade,
                       int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
                       int(label_cap or 0), t_max,
@@ -745,7 +754,7 @@ def _build_line(terrain, prob, mover, virt, sp, ep, res) -> LatticeLine:
     _point_stats(stats, sp, "start")
     _point_stats(stats, ep, "end")
     stats["exit_speed_m_s"] = float(math.sqrt(res["v2"][res["final"]]))
-    profile = traverse(points, replace(mover, normal="gravity"))
+    profile = traverse(points, mover if prob.corners else replace(mover, normal="gravity"))
     return LatticeLine(cells=cells, points=points, profile=profile, time_s=t_final, stats=stats)
 
 

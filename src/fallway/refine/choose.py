@@ -127,13 +127,18 @@ def choose(prob: Problem, cands: list, mover: Mover, pol: PolishRun | None) -> R
     else:
         bad = best.broken() or (["speed window / stall"] if not best.profile.feasible else [])
         msg = (f"no line meeting the limits was found; returning the {best.name} line, which breaks "
-               f"{', '.join(bad)} ({start.time:.6f} s -> {best.time:.6f} s)")
+               f"{', '.join(bad)} ({_time_text(start.time)} -> {_time_text(best.time)})")
         warnings.warn(msg, RefinementWarning, stacklevel=3)
     polish_note = next((n for n in notes if n.startswith("full-model polish")), "")
     converged = bool(best.refined and good and best.converged and not best.repaired)
     residual = best.residual if best.refined else run.residual
     return RefineResult(best.line.copy(), best.profile, iters, residual, converged, start.time, best.time, msg,
                         best.status, polish_note, best.name, tuple(c.record() for c in cands))
+
+
+def _time_text(time_s: float) -> str:
+    """A line's time for a message: seconds, or "stalls" for a line the mover does not finish."""
+    return f"{time_s:.6f} s" if np.isfinite(time_s) else "stalls"
 
 
 def _message(best: Candidate, start: Candidate, cands: list, iters: int, notes: list) -> str:
