@@ -25,7 +25,7 @@ import textwrap
 
 import numpy as np
 import pytest
-from test_lattice import MOVER, best_time, brute_force_capped, pareto_ref, rough_dem, terrain_of, xy
+from test_lattice import FULL, MOVER, best_time, brute_force_capped, pareto_ref, rough_dem, terrain_of, xy
 
 import fallway.lattice.search as lsearch
 from fallway.errors import NoFeasibleLine
@@ -85,6 +85,18 @@ def test_gap_with_a_turn_limit(relaxed_only):
         ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), MOVER, limits=Limits(max_step_turn_deg=45.0),
                           options=SearchOptions(neighbours=8, gap=0.01))
         check_bracket(ln, exact, 0.01)
+
+
+@pytest.mark.parametrize("seed,turn", [(1, 45.0), (2, 90.0), (4, 135.0), (7, 90.0)])
+def test_gap_with_the_corner_law(relaxed_only, seed, turn):
+    # the full model with a turn limit: every vertex pays the sharp-corner law (exhaustive
+    # Pareto reference over (cell, heading) with Euler-Eytelwein's law at each vertex)
+    z = rough_dem(seed)
+    t = terrain_of(z)
+    exact = best_time(pareto_ref(z, 10.0, FULL, (0, 0), max_turn=turn, corners=True), (6, 7))
+    ln = lattice_line(t, xy(t, 0, 0), xy(t, 6, 7), FULL, limits=Limits(max_step_turn_deg=turn),
+                      options=SearchOptions(neighbours=8, gap=0.01))
+    check_bracket(ln, exact, 0.01)
 
 
 def test_gap_through_a_via_point(relaxed_only):

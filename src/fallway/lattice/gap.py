@@ -28,6 +28,11 @@ and the relaxed time ``τᵢ <= tᵢ``:
    falls with the entry v² (gravity, Coulomb friction with the gravity normal and drag
    are all monotone), so from ``w² >= v²`` the relaxed exit is no lower and its time no
    longer.  A stall needs a low entry, so when L does not stall the relaxed line does not.
+   With the full model and a turn limit every vertex also pays the corner law (kernel
+   notes, "Corners"): monotone in the entry v² wherever the exact search's dominance is
+   exact, so the relaxation holds exactly where the exact search does.  The corner law
+   never returns more than the friction the adjoining runs were charged, so step 3's
+   energy ceiling still holds.
 2. *Rounding up* keeps ``w² >= v²``.
 3. *Clamping* to ``min(V_c², e_top - 2 g z)`` keeps ``w² >= v²`` because every true energy
    lies under it: mechanical energy never grows (``v² <= v0² + 2 g (z_start - z)`` =
