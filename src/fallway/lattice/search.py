@@ -491,8 +491,9 @@ class _Problem:
 # ----------------------------------------------------------------------------- failures
 
 def _budget_error(terrain, budget, closest) -> NoFeasibleLine:
-    return NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end; raise "
-                          "SearchOptions.max_labels, set a label_cap or coarsen the grid", reason="label_budget",
+    return NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end (a route's budget is at "
+                          "most what the memory holds); raise SearchOptions.max_labels or the gap target (--gap), "
+                          "set a label_cap or coarsen the grid", reason="label_budget",
                           closest=_cell_xy(terrain, closest))
 
 
