@@ -74,7 +74,7 @@ _RUN_NAME = re.compile(r"[^\W_][\w.\- ]{0,99}")
 BATCH_TABLE = "batch.csv"
 
 _OPTION_KEYS = ("plan", "coarse_factor", "corridor_m", "max_widen", "widen_tol", "label_cap", "energy_tol",
-                "max_labels", "heuristic")
+                "max_labels", "heuristic", "gap")
 
 
 def _flatten(d: dict) -> dict:

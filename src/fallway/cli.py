@@ -267,7 +267,7 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
         d["search"]["neighbours"] = int(neighbours)
     if label_cap is not None:
         d["search"]["label_cap"] = int(label_cap)
-    for key in ("plan", "coarse_factor", "corridor_m"):
+    for key in ("plan", "coarse_factor", "corridor_m", "gap"):
         if extra.get(key) is not None:
             d["search"][key] = extra[key]
     if extra.get("no_refine"):
@@ -358,6 +358,9 @@ def _examples(*lines: str) -> str:
 @click.option("--plan", type=click.Choice(["auto", "full", "corridor"]),
               help="Search plan: the full grid, a coarse search then the fine grid in a widening corridor "
                    "(only the corridor is read), or auto (default: full when it fits, else corridor).")
+@click.option("--gap", type=click.FloatRange(min=0.0, max=1.0),
+              help="Certified optimality gap to reach when the exact lattice search is too large (default 0.001 = "
+                   "0.1 %; 0: exact search only). The summary's optimality_gap is the bound reached.")
 @click.option("--coarse", "coarse_factor", type=click.IntRange(min=1),
               help="Corridor plan: coarsening factor (default: about 250 k coarse cells).")
 @click.option("--corridor", "corridor_m", type=click.FloatRange(min=0.0, min_open=True),

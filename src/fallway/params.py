@@ -361,6 +361,13 @@ class SearchOptions:
         Corridor plan: how many times the corridor may double.
     widen_tol : float
         Corridor plan: relative gain below which widening stops.
+    gap : float or None
+        Certified optimality gap to reach (default 0.001, i.e. 0.1 %): when the exact
+        search does not finish on a small label budget, relaxed searches bound the exact
+        lattice optimum from below and the line returned is proven at most this fraction
+        slower (or the gap reached when the label budget runs out;
+        :mod:`fallway.lattice.gap`).  0 or None: the exact search only.  Not used with
+        ``label_cap`` (no bound then holds).
 
     Examples
     --------
@@ -382,6 +389,7 @@ class SearchOptions:
     corridor_m: float | None = None
     max_widen: int = 4
     widen_tol: float = 0.002
+    gap: float | None = 0.001
 
     def __post_init__(self) -> None:
         if isinstance(self.neighbours, bool) or self.neighbours not in NEIGHBOURHOODS:
@@ -410,6 +418,9 @@ class SearchOptions:
             raise ParameterError(f"max_widen must be a whole number >= 0; got {self.max_widen!r}")
         check_number("widen_tol", self.widen_tol)
         object.__setattr__(self, "widen_tol", float(self.widen_tol))
+        if self.gap is not None:
+            check_number("gap", self.gap, high=1.0)
+            object.__setattr__(self, "gap", float(self.gap))
 
 
 def checked_options(fn):

@@ -260,6 +260,13 @@ class RouteSummary:
         ends at cell centres, ran.
     start_moved_why, end_moved_why : str or None
         Why the point moved (None when it did not).
+    optimality_gap : float or None
+        Proven bound on how much slower (as a fraction) the lattice line found is than
+        the exact lattice optimum on the searched grid: 0.0 when the search was exact,
+        ``T_UB / T_LB - 1`` from the relaxed searches otherwise
+        (:mod:`fallway.lattice.gap`; ``inf`` when the budget ran out before any lower
+        bound).  None when no bound holds: a label cap (``label_cap``), the corridor
+        plan (the corridor is not the whole grid) or the robust plan.
     """
 
     line_kind: str
@@ -312,6 +319,7 @@ class RouteSummary:
     min_liftoff_margin_g: float | None = None
     min_liftoff_margin_station_m: float | None = None
     min_grade: float | None = None
+    optimality_gap: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""

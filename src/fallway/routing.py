@@ -46,13 +46,13 @@ from .loads import Loads, line_loads
 from .keepout import Keepout
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
-from .params import Limits, LineSpec, Mover, SearchOptions, checked_options
+from .params import MAX_LABELS, Limits, LineSpec, Mover, SearchOptions, checked_options
 from .physics import check_mu_range, traverse
 from .refine import refine_line
 from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
-from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside, lowest_within,
-                    search_memory_bytes, terrain_source)
+from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside,
+                    fit_label_budget, lowest_within, search_memory_bytes, terrain_source)
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
 __all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
@@ -357,10 +357,22 @@ def _plan_full(src, points, job: _Job, memory_limit_bytes) -> _Found:
     terrain, keep = src.window(box)
     t1 = time.perf_counter()
     lat = lattice_line(terrain, points[0], points[-1], job.mover, via=job.via, limits=job.limits, keepout=keep,
-                       options=job.search)
+                       options=_memory_budget(job, terrain.z.size, memory_limit_bytes))
     t2 = time.perf_counter()
     return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="full",
                   compute_s={"read": t1 - t0, "search": t2 - t1})
+
+
+def _memory_budget(job: _Job, cells: int, memory_limit_bytes) -> SearchOptions:
+    """The search options with the label budget cut to what the memory holds
+    (:func:`fallway.scale.fit_label_budget`): a hard search stops on its budget (with the
+    gap reached, or ``reason="label_budget"``) before it passes the machine's memory."""
+    limit = memory_limit_bytes if memory_limit_bytes is not None else available_bytes()
+    fit = fit_label_budget(cells, limit, legs=1 + len(job.via), turn_limit=job.limits.max_step_turn_deg is not None,
+                           neighbours=job.search.neighbours)
+    if fit is None or (job.search.max_labels is not None and job.search.max_labels <= fit):
+        return job.search
+    return dataclasses.replace(job.search, max_labels=max(min(fit, MAX_LABELS), 1))
 
 
 def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
@@ -386,7 +398,7 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
     check_memory(coarse.z.size, "the coarse search", **{**mem_kw, "cell_m": coarse.cell_size})
     try:
         cl = lattice_line(coarse, points[0], points[-1], job.mover, via=job.via, limits=job.limits, keepout=ckeep,
-                          options=s)
+                          options=_memory_budget(job, coarse.z.size, memory_limit_bytes))
     except NoFeasibleLine as err:
         raise NoFeasibleLine(f"coarse grid ({coarse.cell_size:g} m cells): {err}; set a smaller coarse factor "
                              "or plan='full'", reason=err.reason, closest=err.closest) from err
@@ -408,7 +420,7 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
         check_memory(fine.z.size, f"the corridor search ({w:g} m)", active_cells=free, **mem_kw)
         try:
             ln = lattice_line(fine, points[0], points[-1], job.mover, via=job.via, limits=job.limits, keepout=keep,
-                              allowed=~outside, options=s)
+                              allowed=~outside, options=_memory_budget(job, fine.z.size, memory_limit_bytes))
         except NoFeasibleLine as err:  # a wider corridor may have the passage: widen
             steps.append({"corridor_m": w, "time_s": None, "cells": free, "feasible": False, "reason": err.reason})
             last_err = err
@@ -605,6 +617,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         caution=CAUTION,
         **_load_fields(loads, profile),
         **_point_fields(st, final),
+        optimality_gap=st.get("optimality_gap") if found.plan == "full" else None,
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,

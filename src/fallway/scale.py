@@ -152,6 +152,48 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
     return int(b)
 
 
+def label_budget_bytes(cells: int, max_labels: int, *, active_cells: int | None = None, legs: int = 1,
+                       turn_limit: bool = False, neighbours: int = 16) -> int:
+    """The memory a point-to-point search can reach when it creates ``max_labels`` labels.
+
+    A bound, not a guess: the label pool and the heap never hold more than the labels
+    created (the pool doubles, so its capacity is under twice that, with one old array
+    alive while it grows), and the relaxed searches of a certified gap
+    (:mod:`fallway.lattice.gap`) run one after another on what is left of one budget,
+    each freeing its pool before the next.  On hard terrain the exact Pareto set, or
+    the relaxed set (at most V²/δ + 1 labels per state), is far larger than the typical
+    count :func:`search_memory_bytes` assumes; the budget is what bounds it.
+
+    Examples
+    --------
+    >>> print(f"{label_budget_bytes(1_000_000, 10_000_000) / 1e6:.0f} MB")
+    895 MB
+    """
+    fixed = search_memory_bytes(cells, active_cells=active_cells, neighbours=neighbours, legs=legs,
+                                turn_limit=turn_limit, labels_per_cell=0.0)
+    return int(fixed + int(max_labels) * (_B_LABEL * _GROWTH + 8))
+
+
+def fit_label_budget(cells: int, memory_limit_bytes: int | None, *, active_cells: int | None = None,
+                     legs: int = 1, turn_limit: bool = False, neighbours: int = 16,
+                     share: float = 0.8) -> int | None:
+    """The largest label budget whose :func:`label_budget_bytes` fits ``share`` of the
+    memory limit (None: no limit known; 0: not even the per-cell arrays fit).
+
+    Examples
+    --------
+    >>> b = fit_label_budget(1_000_000, 2_000_000_000)
+    >>> label_budget_bytes(1_000_000, b) <= 0.8 * 2_000_000_000 < label_budget_bytes(1_000_000, b + 100)
+    True
+    """
+    if memory_limit_bytes is None:
+        return None
+    fixed = label_budget_bytes(cells, 0, active_cells=active_cells, legs=legs, turn_limit=turn_limit,
+                               neighbours=neighbours)
+    room = share * float(memory_limit_bytes) - fixed
+    return max(int(room // (_B_LABEL * _GROWTH + 8)), 0)
+
+
 def available_bytes() -> int | None:
     """Memory available to this process, bytes (None when the platform does not say)."""
     try:

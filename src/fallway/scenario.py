@@ -42,6 +42,7 @@ Layout (every section and key optional; unknown keys are rejected)::
     plan = "auto"                    # or "full", "corridor" (coarse-to-fine)
     coarse_factor = 4                # corridor plan: coarsening factor
     corridor_m = 40.0                # corridor plan: first corridor half-width, m
+    gap = 0.001                      # certified optimality gap to reach (0: the exact search only)
 
     [line]                           # fallway.LineSpec
     kind = "ground"                  # or "raised"
@@ -79,7 +80,7 @@ _SCHEMA: dict[str, Any] = {
     "mover": {f.name: f.name for f in fields(Mover)},
     "limits": {f.name: f.name for f in fields(Limits)},
     "search": {"neighbours": int, "refine": bool, "label_cap": int, "plan": str, "coarse_factor": int,
-               "corridor_m": float},
+               "corridor_m": float, "gap": float},
     "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
     "envelope": {"mu_range": "pair"},
     "outputs": {"station_step": float},
@@ -299,6 +300,8 @@ class Scenario:
         for key in ("label_cap", "coarse_factor", "corridor_m"):
             if getattr(self.search, key) is not None:
                 sd[key] = getattr(self.search, key)
+        if self.search.gap != SearchOptions().gap:
+            sd["gap"] = 0.0 if self.search.gap is None else self.search.gap
         d["search"] = sd
         d["line"] = {"kind": self.line.kind, "clearance": list(self.line.clearance_m),
                      "start_height": self.line.start_height_m, "end_height": self.line.end_height_m}

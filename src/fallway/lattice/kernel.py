@@ -149,7 +149,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
            start, v2_start, targets, remaining, inv_v,
            tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max,
-           sdir, max_turn, nvs, vcell, vdir, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, end_rcz):
+           sdir, max_turn, nvs, vcell, vdir, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, end_rcz,
+           v2_grid=0.0, e_top=math.inf, v2_ceil=math.inf, key_max=math.inf):
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
@@ -182,6 +183,13 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     ``corners`` (needs ``use_heading``): every vertex of a line pays the corner law of the
     reporting model ("Corners" in the module notes).
 
+    ``v2_grid`` > 0 runs the *relaxed* search (module notes, "Relaxed search"): v² rounded
+    up to multiples of ``v2_grid`` at every node and clamped to the energy ceiling
+    ``min(v2_ceil, e_top - 2 g z)``, no overspeed test, every sub-segment at least its
+    length over the ceiling speed at its lower end; its optimum is a lower bound of the
+    exact lattice optimum.  Labels whose key exceeds ``key_max`` are not queued (a
+    point-to-point search only; ``inf``: none).
+
     Returns
     -------
     status, final_label, n_labels, t, v2, node, parent, leg, best_t, best_v2,
@@ -196,6 +204,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     nstate = nact if reach_mode else nact * nlegs
     nh = nk + 1 if use_heading else 1
     counters = np.zeros(N_COUNTERS, dtype=np.int64)
+    relaxed = v2_grid > 0.0
+    v2_lim = math.inf if relaxed else v2_max  # the relaxed search never rejects for speed
+    two_g = 2.0 * g
     # plan unit directions of the stencil steps and the virtual edges (for the corner law)
     ucos = np.cos(np.radians(sdir))
     usin = np.sin(np.radians(sdir))
@@ -270,17 +281,23 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             hidx = grow(hidx, 2 * nvs + 2)
         for j in range(nvs):
             v2, te, ok = virtual_edge(counters, blocked, j, v2_start, vcode, vtch_start, vtch, vsub_start, vdrop,
-                                      vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
+                                      vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade,
                                       corners, vcos[j], vsin[j], 0.0, 0.0, 0.0, -1.0)
             if not ok:
                 continue
+            m = vcell[j]
+            if relaxed:
+                te = max(te, relaxed_floor_s(j, vsub_start, vdrop, vplan, inv_v))
+                v2 = relaxed_node_v2(v2, v2_grid, v2_ceil, e_top - two_g * z[m])
             if te > t_max:
                 counters[C_CUTOFF] += 1
                 continue
-            m = vcell[j]
             key = te
             if not reach_mode:
                 key += astar_bound(m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+            if key > key_max:
+                counters[C_CUTOFF] += 1
+                continue
             Le[n_lab, 0] = v2
             hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, te, m, -1,
                                nk + j if use_heading else -1, 0, key)
@@ -370,11 +387,16 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                             counters[C_TURN] += 1
                             continue
                     v2, te, ok = virtual_edge(counters, blocked, j, v20, vcode, vtch_start, vtch, vsub_start,
-                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_max, min_grade, max_grade,
+                                              vdrop, vplan, g, mu, kdrag, v2_stall, v2_lim, min_grade, max_grade,
                                               corners, vcos[j], vsin[j], ax, ay, az, pa)
                     if not ok:
                         continue
+                    if relaxed:
+                        te = max(te, relaxed_floor_s(j, vsub_start, vdrop, vplan, inv_v))
                     tn = t0 + te
+                    if tn > key_max:
+                        counters[C_CUTOFF] += 1
+                        continue
                     if tn >= best_end_t:  # a later arrival at the end is of no use
                         counters[C_DOMINATED] += 1
                         continue
@@ -430,6 +452,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             law = LAW_OK
             bx_, by_, bz_, pb_ = ax, ay, az, pa
             for i in range(sub_count(brk_start, kk)):
+                za = zprev
                 zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
                                                             sub_plan, min_grade, max_grade)
                 if not ok:
@@ -442,13 +465,21 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                     if pb_ >= 0.0:
                         v2 = corner_step(v2, bx_, by_, bz_, pb_, tx, ty, tz, plan, mu, g)
                     bx_, by_, bz_, pb_ = tx, ty, tz, plan
-                v2, dt, law = law_step(v2, drop, plan, length, g, mu, kdrag, v2_stall, v2_max)
+                v2, dt, law = law_step(v2, drop, plan, length, g, mu, kdrag, v2_stall, v2_lim)
                 if law != LAW_OK:
                     break
+                if relaxed:
+                    # the ceiling at the sub-segment's lower end bounds the speed all along it
+                    hi = min(v2_ceil, e_top - two_g * min(za, zprev))
+                    if hi > 0.0:
+                        dt = max(dt, length / math.sqrt(hi))
+                    v2 = min(v2, v2_ceil, max(e_top - two_g * zprev, 0.0))
                 te += dt
             if law != LAW_OK:
                 count_law(counters, law, mu, kdrag)
                 continue
+            if relaxed:
+                v2 = relaxed_node_v2(v2, v2_grid, v2_ceil, e_top - two_g * z[m])
             tn = t0 + te
             if tn > t_max:
                 counters[C_CUTOFF] += 1
@@ -470,6 +501,9 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             key = tn
             if not reach_mode:
                 key += astar_bound(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                if key > key_max:
+                    counters[C_CUTOFF] += 1
+                    continue
             Le[n_lab, 0] = v2
             hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, tn, m, li, kk, leg, key)
             n_lab += 1
@@ -477,3 +511,22 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
 
     return (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2,
             closest, counters)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def relaxed_node_v2(v2, v2_grid, v2_ceil, e_here):
+    """The relaxed search's energy at a node: v² rounded UP to the grid, then clamped to
+    the ceiling ``min(v2_ceil, e_here)`` (an upper bound of every true line's v² there)."""
+    up = v2_grid * math.ceil(v2 / v2_grid)
+    if up < v2:  # floating rounding of the product: never round down
+        up = v2
+    return min(up, v2_ceil, max(e_here, 0.0))
+
+
+@njit(cache=True, nogil=True, inline="always")
+def relaxed_floor_s(j, vsub_start, vdrop, vplan, inv_v):
+    """The least time of virtual edge ``j`` at the speed bound V: its 3D length / V."""
+    s = 0.0
+    for q in range(vsub_start[j], vsub_start[j + 1]):
+        s += math.sqrt(vplan[q] * vplan[q] + vdrop[q] * vdrop[q])
+    return s * inv_v

@@ -96,6 +96,7 @@ from ..results import LatticeLine, ReachMap
 from . import core as _c
 from .kernel import search as _search
 from .ends import EndPoint, Virtual, no_virtual, parse_point, resolve_point, virtual_edges
+from .gap import FIRST_GRID_FRACTION, GapResult, certify
 from .robust import ROBUST_ENERGY_TOL, lo_floor, robust_search
 from .stencil import make_stencil
 
@@ -106,6 +107,14 @@ DEFAULT_ENERGY_TOL = 1e-10
 
 _INIT_CAP = 1 << 16
 _DEFAULT_MAX_LABELS = 400_000_000
+#: With a gap target the exact search runs first on a budget of this many labels plus
+#: :data:`EXACT_FIRST_PER_STATE` per lattice state; past it the relaxed searches bound the
+#: answer (:mod:`fallway.lattice.gap`).
+EXACT_FIRST_LABELS = 200_000
+EXACT_FIRST_PER_STATE = 2
+#: ... and a search keeping this many labels per state gives the first feasible line (T_UB;
+#: 0: none, the relaxed searches' lines only).
+INCUMBENT_LABEL_CAP = 2
 _ROBUST_INIT_CAP = 1 << 14
 _ROBUST_MAX_LABELS = 50_000_000
 
@@ -326,13 +335,25 @@ class _Problem:
             a_max = max(a_max, virtual.drive_max(m.g, m.mu))
         return min(v2, max(v2_start, a_max / m.drag) if a_max > 0.0 else v2_start)
 
+    def v2_top(self, z_start: float, virtual: Virtual | None = None) -> float:
+        """V²: no line from a start at height ``z_start`` is ever faster (energy, cap, drag)."""
+        vt = no_virtual() if virtual is None else virtual
+        zmin = min(self.zmin, vt.z_range()[0])
+        v2 = self._tolerance(z_start, None, DEFAULT_ENERGY_TOL, zmin)[2]
+        if self.mover.drag > 0.0:
+            v2 = self._drag_bound(v2, vt)
+        return min(v2, self.v2_max)
+
     def run(self, start: int, targets: list[int], *, heuristic: bool, energy_tol: float | None,
             max_labels: int | None, label_cap: int | None = None, max_time_s: float | None = None,
-            compact: bool = True, virtual: Virtual | None = None, z_start: float | None = None) -> dict:
+            compact: bool = True, virtual: Virtual | None = None, z_start: float | None = None,
+            v2_grid: float = 0.0, key_max: float | None = None) -> dict:
         """Run the ordinary kernel; a dict of the status, the label pool and the stats.
 
         ``virtual``: the virtual edges of exact end points (:mod:`fallway.lattice.ends`),
-        ``z_start`` the start point's height (default: the start cell's).
+        ``z_start`` the start point's height (default: the start cell's).  ``v2_grid`` > 0:
+        the relaxed search (:mod:`fallway.lattice.gap`; dominance tolerance 0), its
+        labels pruned above the A* key ``key_max``.
         """
         m = self.mover
         v2_start = m.v0 * m.v0
@@ -340,6 +361,9 @@ class _Problem:
         z_start = float(self.z[start]) if z_start is None else float(z_start)
         zmin = min(self.zmin, vt.z_range()[0])
         tol_rel, tol_abs, v2_scale = self._tolerance(z_start, energy_tol, DEFAULT_ENERGY_TOL, zmin)
+        relaxed = v2_grid > 0.0
+        if relaxed:
+            tol_rel = tol_abs = 0.0
         tg = np.asarray(targets, dtype=np.int64)
         remaining = np.zeros(max(len(tg), 1), dtype=np.float64)
         cols = self.cols
@@ -360,6 +384,9 @@ class _Problem:
         if self.v2_max < math.inf:
             vbound = min(vbound, math.sqrt(self.v2_max))
         inv_v = 1.0 / vbound if (use_bound and vbound > 0.0) else 0.0
+        v2_ceil = self.v2_max
+        if relaxed and m.drag > 0.0:
+            v2_ceil = min(v2_ceil, self._drag_bound(v2_scale, vt))
         budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
         t_max = math.inf if max_time_s is None else float(max_time_s)
         cidx, nact = self.index(compact)
@@ -372,7 +399,8 @@ class _Problem:
                       int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
                       int(label_cap or 0), t_max,
                       self.sdir, self.max_turn, int(vt.nvs), vt.cell, vt.dir_deg, vt.code, vt.sub_start, vt.drop,
-                      vt.plan, vt.tch_start, vt.tch, vt.end_rcz)
+                      vt.plan, vt.tch_start, vt.tch, vt.end_rcz, float(v2_grid), v2_start + 2.0 * m.g * z_start,
+                      v2_ceil, math.inf if key_max is None else float(key_max))
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         if len(tg) == 0 and nact < cidx.size:  # reach: compact index -> window cells
@@ -463,8 +491,9 @@ class _Problem:
 # ----------------------------------------------------------------------------- failures
 
 def _budget_error(terrain, budget, closest) -> NoFeasibleLine:
-    return NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end; raise "
-                          "SearchOptions.max_labels, set a label_cap or coarsen the grid", reason="label_budget",
+    return NoFeasibleLine(f"label budget of {budget} exhausted before reaching the end (a route's budget is at "
+                          "most what the memory holds); raise SearchOptions.max_labels or the gap target (--gap), "
+                          "set a label_cap or coarsen the grid", reason="label_budget",
                           closest=_cell_xy(terrain, closest))
 
 
@@ -638,7 +667,6 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
         raise ParameterError(f"at most 100 via points are supported, got {len(via)}; split the route")
     nb = opts.neighbours
     prob = _Problem(terrain, mover, nb, limits, keep, domain)
-    corners = prob.corners
     sp = resolve_point(terrain, start, "start", prob.blocked)
     vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
     ep = resolve_point(terrain, end, "end", prob.blocked)
@@ -653,9 +681,49 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     targets = vias + [ep.cell]
     run_kw = dict(heuristic=opts.heuristic, energy_tol=opts.energy_tol, max_labels=opts.max_labels,
                   label_cap=opts.label_cap, virtual=virt, z_start=sp.z)
-    res = prob.run(sp.cell, targets, **run_kw)
-    if res["status"] == _c.LABEL_BUDGET:
-        raise _budget_error(terrain, opts.max_labels or _DEFAULT_MAX_LABELS, res["closest"])
+    budget = opts.max_labels or _DEFAULT_MAX_LABELS
+    certified = bool(opts.gap) and not opts.label_cap
+    if certified:  # the exact search first, on a budget that small problems never spend
+        legs = len(targets) * (prob.stencil.size + 1 if prob.use_heading else 1)
+        first = min(budget, EXACT_FIRST_LABELS + EXACT_FIRST_PER_STATE * prob.index()[1] * legs)
+        res = prob.run(sp.cell, targets, **(run_kw | dict(max_labels=first)))
+    else:
+        res = prob.run(sp.cell, targets, **run_kw)
+    if res["status"] == _c.LABEL_BUDGET and not certified:
+        raise _budget_error(terrain, budget, res["closest"])
+    gap_stats: dict = {"optimality_gap": None if opts.label_cap else 0.0, "lower_bound_s": None, "gap_rounds": []}
+    if certified and (res["status"] == _c.LABEL_BUDGET or (res["status"] == _c.OK and prob.v2_max < math.inf)):
+        used = res["stats"]["labels_created"]
+        incumbent = None
+        if res["status"] == _c.OK:  # a capped search's line: exact only in principle (lattice_line notes)
+            line = _build_line(terrain, prob, mover, virt, sp, ep, res)
+            incumbent = (_exact_time(line, mover), line)
+        res = {"status": res["status"], "closest": res["closest"]}  # its label pool is freed
+        if incumbent is None and INCUMBENT_LABEL_CAP and budget > used:  # a cheap first line (no bound by itself)
+            quick = prob.run(sp.cell, targets,
+                             **(run_kw | dict(label_cap=INCUMBENT_LABEL_CAP, max_labels=budget - used)))
+            used += quick["stats"]["labels_created"]
+            if quick["status"] == _c.OK:
+                line = _build_line(terrain, prob, mover, virt, sp, ep, quick)
+                t_quick = _exact_time(line, mover)
+                line.stats["label_cap"] = None  # the route's search has none; the gap says how good the line is
+                if math.isfinite(t_quick):
+                    incumbent = (t_quick, replace(line, time_s=t_quick))
+            del quick
+        relaxed = _certify(terrain, prob, mover, virt, sp, ep, targets, run_kw, opts.gap, budget - used, incumbent)
+        gap_stats = {"optimality_gap": relaxed.gap, "lower_bound_s": relaxed.lower_s, "gap_rounds": relaxed.rounds}
+        if relaxed.best is not None:
+            line = relaxed.best
+            line.stats.update(gap_stats)
+            line.stats["exact"] = relaxed.gap == 0.0
+            line.stats["labels_created"] = int(used + relaxed.labels)  # every search's labels, each counted once
+            return line
+        if res["status"] == _c.LABEL_BUDGET or relaxed.exhausted:
+            raise _budget_error(terrain, budget, res["closest"])
+        last = relaxed.rounds[-1] if relaxed.rounds else None
+        if last is None or last["status"] != "none":  # relaxed lines found, none feasible: the exact search's view
+            raise _budget_error(terrain, budget, res["closest"])
+        res = prob.run(sp.cell, targets, **(run_kw | dict(v2_grid=FIRST_GRID_FRACTION * prob.v2_top(sp.z, virt))))
     if res["status"] != _c.OK:
         del prob
 
@@ -666,6 +734,13 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
 
         raise _diagnose(terrain, res["closest"], res["counters"], found, keep=keep, domain=domain, limits=limits,
                         mover=mover)
+    line = _build_line(terrain, prob, mover, virt, sp, ep, res)
+    line.stats.update(gap_stats)
+    return line
+
+
+def _build_line(terrain, prob, mover, virt, sp, ep, res) -> LatticeLine:
+    """The LatticeLine of a kernel run's final label (its kernel time as ``time_s``)."""
     nodes = _chain(res["final"], res["parent"], res["node"])
     if virt.has_end:
         nodes = nodes[:-1]  # the virtual end node
@@ -680,9 +755,42 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     _point_stats(stats, sp, "start")
     _point_stats(stats, ep, "end")
     stats["exit_speed_m_s"] = float(math.sqrt(res["v2"][res["final"]]))
-    profile = traverse(points, mover if corners else replace(mover, normal="gravity"))
+    profile = traverse(points, mover if prob.corners else replace(mover, normal="gravity"))
     return LatticeLine(cells=cells, points=points, profile=profile, time_s=t_final, stats=stats)
 
+
+def _exact_time(line: LatticeLine, mover: Mover) -> float:
+    """A lattice line's exact time by the segment law (its traverse), ``inf`` when it stalls
+    or passes the speed limit."""
+    prof = line.profile
+    if not prof.feasible:
+        return math.inf
+    if mover.max_speed is not None and float(np.nanmax(prof.speed_m_s)) > mover.max_speed:
+        return math.inf
+    return float(prof.travel_time_s)
+
+
+def _certify(terrain, prob, mover, virt, sp, ep, targets, run_kw, target, budget, incumbent) -> GapResult:
+    """The relaxed searches of :func:`fallway.lattice.gap.certify` on this problem."""
+    names = {_c.OK: "ok", _c.LABEL_BUDGET: "budget"}
+
+    def run(grid, key_max, max_labels):
+        res = prob.run(sp.cell, targets, **(run_kw | dict(max_labels=max_labels, v2_grid=grid,
+                                                         key_max=None if key_max == math.inf else key_max)))
+        status = names.get(res["status"], "none")
+        lower = float(res["t"][res["final"]]) if status == "ok" else math.inf
+        return status, lower, res["stats"]["labels_created"], res
+
+    def retime(res):
+        line = _build_line(terrain, prob, mover, virt, sp, ep, res)
+        t = _exact_time(line, mover)
+        if math.isfinite(t):
+            line = replace(line, time_s=t)
+            line.stats["exit_speed_m_s"] = float(line.profile.exit_speed_m_s)
+        return t, line
+
+    return certify(run, retime, target=float(target), v2_top=prob.v2_top(sp.z, virt), budget=max(int(budget), 0),
+                   incumbent=incumbent)
 
 def _with_virtual(points: np.ndarray, virt: Virtual, nodes: list[int]) -> np.ndarray:
     """The lattice polyline with the virtual start and end edges it took (exact end points)."""
