@@ -203,7 +203,8 @@ class RouteSummary:
         The lattice stencil.
     search_plan : str
         ``"full"`` (one search on the whole area), ``"corridor"`` (coarse-to-fine) or
-        ``"robust"`` (the robust search over a friction range).
+        ``"robust"`` (the robust search over a friction range) or ``"raised"`` (a raised
+        line's search in height and plan).
     search_exact : bool
         False when a label cap, a binding speed cap or an energy resolution made the
         lattice answer approximate.

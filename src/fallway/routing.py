@@ -25,7 +25,9 @@ Plans (``SearchOptions.plan``)
     memory estimate (:func:`fallway.scale.search_memory_bytes`) fits the memory
     available, else the corridor.
 With a friction range and ``robust=True`` the robust plan runs (:func:`_plan_robust`),
-on the full grid only.
+on the full grid only.  A raised line (``LineSpec("raised", ...)``) always runs the plan
+``"raised"``: the search over cells times height layers in a corridor around the straight
+line (:mod:`fallway.lattice.raised`), on the area of the full plan.
 """
 
 from __future__ import annotations
@@ -44,6 +46,7 @@ from .evaluate import (COMPUTED_NAME, Comparison, Envelope, as_named_lines, enve
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
 from .loads import Loads, line_loads
 from .keepout import Keepout
+from .lattice.raised import raised_lattice_line
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
 from .params import Limits, LineSpec, Mover, SearchOptions, checked_options
@@ -174,6 +177,8 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         mu_range = check_mu_range(mover, *mu_range)
     if robust and mu_range is None:
         raise ParameterError("robust=True needs a friction range: mu_range=(LO, HI)")
+    if robust and line.kind == "raised":
+        raise ParameterError("the robust search is for ground lines; leave robust off for a raised line")
     points = [_xy(start, "start")] + [_xy(p, f"via point {i + 1}") for i, p in enumerate(via)] + [_xy(end, "end")]
     src = terrain_source(terrain, keepout)
     plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
@@ -183,7 +188,8 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         if plan == "robust":
             route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
         else:
-            found = (_plan_full if plan == "full" else _plan_corridor)(src, points, job, memory_limit_bytes)
+            found = (_plan_raised if line.kind == "raised" else _plan_full if plan == "full" else _plan_corridor)(
+                src, points, job, memory_limit_bytes)
             route = _finish(found, job)
             if mu_range is not None:
                 route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
@@ -223,7 +229,8 @@ def _explained(err: NoFeasibleLine, src, points, job: _Job, memory_limit_bytes, 
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", RefinementWarning)
-                r = _finish(_plan_full(psrc, points, j, memory_limit_bytes), j)
+                r = _finish((_plan_raised if j.line.kind == "raised" else _plan_full)(psrc, points, j,
+                                                                                    memory_limit_bytes), j)
         except NoFeasibleLine:
             return None
         return r if r.summary.feasible else None
@@ -363,6 +370,20 @@ def _plan_full(src, points, job: _Job, memory_limit_bytes) -> _Found:
                   compute_s={"read": t1 - t0, "search": t2 - t1})
 
 
+def _plan_raised(src, points, job: _Job, memory_limit_bytes) -> _Found:
+    """A raised line: the search over cells times height layers (:mod:`fallway.lattice.raised`),
+    in its plan corridor around the straight start-end line."""
+    if job.via:
+        raise ParameterError("via points are not supported on a raised line; route each leg on its own")
+    t0 = time.perf_counter()
+    terrain, keep = src.window(_full_window(src, points))
+    t1 = time.perf_counter()
+    lat = raised_lattice_line(terrain, points[0], points[-1], job.mover, job.line, limits=job.limits, keepout=keep,
+                              options=job.search, memory_limit_bytes=memory_limit_bytes)
+    return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised",
+                  compute_s={"read": t1 - t0, "search": time.perf_counter() - t1})
+
+
 def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
     """Coarse search, then the fine grid in a widening corridor (module notes of :mod:`fallway.scale`)."""
     s = job.search
@@ -484,7 +505,8 @@ def _refine(found: _Found, job: _Job, mover: Mover):
     ko = found.keepout if isinstance(found.keepout, Keepout) else None
     pts = np.asarray(found.lattice.points, dtype=float)
     if not job.via:
-        return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line)
+        return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line,
+                           keep_heights=job.line.kind == "raised")
     cuts = [0] + [int(np.argmin(np.hypot(pts[:, 0] - x, pts[:, 1] - y))) for x, y in job.via] + [len(pts) - 1]
     spec = job.line
     if spec.kind == "raised":
@@ -530,11 +552,6 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
     compute = dict(found.compute_s)
     rr = None
     final = lat.points
-    if job.line.kind == "raised":  # the lattice plan at the heights the refinement starts from
-        sp = job.line
-        z = np.asarray(terrain.sample(final[:, 0], final[:, 1]), dtype=float)
-        final = np.column_stack([final[:, :2], z + raised_heights_m(final, sp.start_height_m, sp.end_height_m,
-                                                                    sp.clearance_m)])
     if refine:
         t0 = time.perf_counter()
         rr = _refine(found, job, mover)
@@ -555,7 +572,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
             on_ground = (judged[0][1], judged[1][1])
             final = alt
     profile = _timed(terrain, final, mover, job.line.kind)
-    lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
+    lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, job.line.kind)
     loads = _loads(terrain, final, profile, mover, job.line.kind)
     violated = _violated(terrain, final, profile, job.limits, found.keepout, loads)
     if rr is not None and on_ground is None:
