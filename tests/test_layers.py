@@ -21,7 +21,7 @@ LAYERS = [
     ["_segment", "_surface"],
     ["_traverse"],
     ["physics", "geometry"],
-    ["loads"],
+    ["loads", "clearance"],
     ["terrain"],
     ["results"],
     ["vector"],

@@ -251,6 +251,11 @@ class RouteSummary:
         ``violated_limits`` unless the limits allow it).
     min_grade : float or None
         Smallest descent grade of a segment (negative = rising).
+    min_clearance_m, min_clearance_station_m, max_clearance_m, max_clearance_station_m : float or None
+        A raised line: its smallest and largest height above the smooth ground along the
+        whole line (every segment sampled at half-cell plan steps,
+        :mod:`fallway.clearance`) and their stations (m along the line); None for a
+        ground line.
     start_given_xy, end_given_xy : list of float
         The start and end points as given (x, y), in the terrain's CRS; the line starts
         and ends exactly there (``start_xyz``, ``end_xyz``) unless a point had to move.
@@ -313,6 +318,10 @@ class RouteSummary:
     min_liftoff_margin_g: float | None = None
     min_liftoff_margin_station_m: float | None = None
     min_grade: float | None = None
+    min_clearance_m: float | None = None
+    min_clearance_station_m: float | None = None
+    max_clearance_m: float | None = None
+    max_clearance_station_m: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""

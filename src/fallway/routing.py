@@ -40,6 +40,7 @@ import warnings
 import numpy as np
 
 from .caution import CAUTION
+from .clearance import clearance_extremes
 from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
 from .evaluate import (COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, lay_on_ground, limit_issues,
                        row_for_line)
@@ -574,7 +575,8 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
     profile = _timed(terrain, final, mover, job.line.kind)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, job.line.kind)
     loads = _loads(terrain, final, profile, mover, job.line.kind)
-    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads)
+    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads,
+                         clearance_m=job.line.clearance_m if job.line.kind == "raised" else None)
     if rr is not None and on_ground is None:
         violated += [k for k, v in (rr.limits or {}).items() if v == "violated" and k not in violated]
     d = np.diff(final, axis=0)
@@ -622,6 +624,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         caution=CAUTION,
         **_load_fields(loads, profile),
         **_point_fields(st, final),
+        **(clearance_extremes(terrain, final) if job.line.kind == "raised" else {}),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,
@@ -687,11 +690,12 @@ def _load_fields(loads: Loads, profile) -> dict:
                 min_grade=float(g.min()) if g.size else None)
 
 
-def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None) -> list[str]:
+def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None,
+              clearance_m=None) -> list[str]:
     """The limits a reported line breaks: :func:`fallway.evaluate.limit_issues`, the check
     every comparison row gets too (the speed-dependent ones on ``loads``, the line's
-    smooth reading)."""
-    return limit_issues(terrain, line, profile, limits, keepout, loads=loads)
+    smooth reading; a raised line's band along every segment)."""
+    return limit_issues(terrain, line, profile, limits, keepout, loads=loads, clearance_m=clearance_m)
 
 
 
