@@ -26,7 +26,7 @@ LAYERS = [
     ["results"],
     ["vector"],
     ["keepout", "points"],
-    ["scale"],
+    ["scale", "section"],
     ["lattice"],
     ["refine"],
     ["evaluate"],

@@ -57,6 +57,7 @@ from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
 from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside, lowest_within,
                     search_memory_bytes, terrain_source)
+from .section import make_section
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
 __all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
@@ -294,6 +295,7 @@ class _Found:
     plan: str
     corridor: dict | None = None
     compute_s: dict = dataclasses.field(default_factory=dict)
+    section: object = None  # a straight-plan raised line: the section it was searched on
 
 
 # --------------------------------------------------------------------------- planning
@@ -379,9 +381,20 @@ def _plan_raised(src, points, job: _Job, memory_limit_bytes) -> _Found:
     t0 = time.perf_counter()
     terrain, keep = src.window(_full_window(src, points))
     t1 = time.perf_counter()
-    lat = raised_lattice_line(terrain, points[0], points[-1], job.mover, job.line, limits=job.limits, keepout=keep,
-                              options=job.search, memory_limit_bytes=memory_limit_bytes)
-    return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised",
+    if not job.line.straight_plan:
+        lat = raised_lattice_line(terrain, points[0], points[-1], job.mover, job.line, limits=job.limits,
+                                  keepout=keep, options=job.search, memory_limit_bytes=memory_limit_bytes)
+        return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised",
+                      compute_s={"read": t1 - t0, "search": time.perf_counter() - t1})
+    # the plan fixed straight: search the section under it (fallway.section)
+    sec = make_section(terrain, points[0], points[-1])
+    opts = dataclasses.replace(job.search, corridor_m=0.25 * sec.terrain.cell_size)
+    loc = raised_lattice_line(sec.terrain, (0.0, 0.0), (sec.length_m, 0.0), job.mover, job.line, limits=job.limits,
+                              options=opts, memory_limit_bytes=memory_limit_bytes)
+    P = sec.to_map(loc.points)
+    r, c = terrain.rowcol(P[:, 0], P[:, 1])
+    lat = dataclasses.replace(loc, points=P, cells=np.column_stack([np.rint(r), np.rint(c)]).astype(int))
+    return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised", section=sec,
                   compute_s={"read": t1 - t0, "search": time.perf_counter() - t1})
 
 
@@ -505,6 +518,10 @@ def _refine(found: _Found, job: _Job, mover: Mover):
     """
     ko = found.keepout if isinstance(found.keepout, Keepout) else None
     pts = np.asarray(found.lattice.points, dtype=float)
+    if found.section is not None:  # a straight plan: the profile refined on the section, mapped back
+        sec = found.section
+        rr = refine_line(sec.terrain, sec.to_local(pts), mover, limits=job.limits, line=job.line, keep_heights=True)
+        return dataclasses.replace(rr, line=sec.to_map(rr.line))
     if not job.via:
         return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line,
                            keep_heights=job.line.kind == "raised")
