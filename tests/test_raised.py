@@ -248,3 +248,25 @@ def test_more_layers_never_slower_on_a_flat_floor():
                                  20.0, height_layers=n)).time_s for n in (5, 9, 17, 33)]
     assert all(b <= a + 1e-12 for a, b in zip(times, times[1:]))
     assert times[-1] >= cycloid_time(100.0, 40.0)
+
+
+def test_long_section_shades_the_band():
+    # the long-section of a raised route draws its band as a strip ground + [min, max]
+    # (the ground: scipy's spline of the grid, as in test_v_valley_raised_line_crosses_in_its_band)
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from fallway.plot import plot_profile
+
+    t = v_valley()
+    band = (2.0, 40.0)
+    r = find_route(t, (10.0, 41.0), (190.0, 41.0), Mover(mu=0.02, normal="gravity"),
+                   line=LineSpec("raised", band, 10.0, 5.0), refine=False, limits=Limits(allow_liftoff=True))
+    ax = plot_profile(r, t)
+    (strip,) = [c for c in ax.collections if c.get_gid() == "fallway-band"]
+    y = np.concatenate([p.vertices[:, 1] for p in strip.get_paths()])
+    # lowest: the valley floor (0 m at x = 100) + 2 m; highest: the rim under the start
+    # (0.3 x 90 = 27 m, away from the kink the spline is exact on the linear flank) + 40 m
+    assert y.min() == pytest.approx(band[0], abs=0.3)
+    assert y.max() == pytest.approx(27.0 + band[1], abs=1e-6)
+    assert not [c for c in ax.collections if c.get_gid() == "fallway-supports"]

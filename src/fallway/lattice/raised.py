@@ -20,7 +20,13 @@ points.  It is feasible only when along its whole length the clearance
 ``z_line(s) - ground(s)`` stays in ``[c_min, c_max]`` (to ``tol_m``), checked at
 samples no more than half a cell apart (plan), with the ground the lattice's own bilinear
 interpolant between cell centres (:meth:`fallway.Terrain.sample_linear`), and only when
-every sample lies in a searchable cell (data, not keep-out, inside the corridor).  With
+every sample lies in a searchable cell (data, not keep-out, inside the corridor).  The
+route judges the band on the smooth surface (:mod:`fallway.clearance`), which passes
+through the same heights at the cell centres but differs between them; so at each sample
+the band is narrowed by the largest gap between the two surfaces measured in that square
+of four centres (:func:`surface_gap`, a 4 x 4 grid per square): a lattice line reported
+without refinement meets the route's check too (to its 3 cm tolerance for the points the
+measurement grid misses).  With
 ``d(s) = (1 - s) z_a + s z_b - ground(s)`` (the ground's chord above the ground) the
 clearance is ``(1 - s) h_a + s h_b + d(s)``: linear in ``h_b``, so one pass over the
 samples gives the interval of feasible ``h_b`` for a given ``h_a`` and every layer in it
@@ -69,7 +75,7 @@ from ..scale import available_bytes
 from .core import heap_pop, heap_push
 from .stencil import make_stencil
 
-__all__ = ["raised_lattice_line", "raised_memory_bytes", "CORRIDOR_FRACTION", "CORRIDOR_MIN_CELLS",
+__all__ = ["raised_lattice_line", "raised_memory_bytes", "surface_gap", "corridor_mask", "CORRIDOR_FRACTION", "CORRIDOR_MIN_CELLS",
            "CLEARANCE_TOL_M"]
 
 #: Default corridor half-width as a fraction of the plan distance start -> end.
@@ -97,7 +103,7 @@ def raised_memory_bytes(cells: int, layers: int, labels_per_state: float = LABEL
     Examples
     --------
     >>> print(f"{raised_memory_bytes(250_000, 16) / 1e6:.0f} MB")
-    1456 MB
+    1520 MB
     """
     states = int(cells) * int(layers)
     return int(states * (28 + labels_per_state * (28 + 16) * 2))
@@ -123,8 +129,14 @@ def _free_at(free, cols, r, c):
     return free[int(r + 0.5) * cols + int(c + 0.5)] != 0
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _gap_at(gap, r, c):
+    rows, cols = gap.shape
+    return gap[min(int(r), rows - 1), min(int(c), cols - 1)]
+
+
 @njit(cache=True, nogil=True)
-def _segment_ok(z, free, r0, c0, za, r1, c1, zb, cmin, cmax, tol):
+def _segment_ok(z, gap, free, r0, c0, za, r1, c1, zb, cmin, cmax, tol):
     """True when the straight 3D segment (r0, c0, za) -> (r1, c1, zb) keeps its clearance in
     the band at samples <= half a cell apart over searchable cells (the first point, an
     exact end point whose height is given on the smooth surface, is not sampled)."""
@@ -138,13 +150,14 @@ def _segment_ok(z, free, r0, c0, za, r1, c1, zb, cmin, cmax, tol):
         if not (g == g) or not _free_at(free, cols, r, c):
             return False
         h = za + s * (zb - za) - g
-        if h < cmin - tol or h > cmax + tol:
+        e = _gap_at(gap, r, c)
+        if h < cmin + e - tol or h > cmax - e + tol:
             return False
     return True
 
 
 @njit(cache=True, nogil=True)
-def _layer_range(z, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol):
+def _layer_range(z, gap, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol):
     """Layers of the end state reachable from (ra, ca) at height ``ha`` above ground by
     the stencil step (dr, dc): ``(k_lo, k_hi)``, empty when ``k_lo > k_hi``."""
     rows, cols = z.shape
@@ -164,9 +177,10 @@ def _layer_range(z, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol):
         if not (g == g) or not _free_at(free, cols, r, c):
             return 1, 0
         d = (1 - s) * za + s * zb - g
-        # cmin - tol <= (1 - s) ha + s hb + d <= cmax + tol
-        lo = max(lo, (cmin - tol - d - (1 - s) * ha) / s)
-        hi = min(hi, (cmax + tol - d - (1 - s) * ha) / s)
+        e = _gap_at(gap, r, c)
+        # cmin + e - tol <= (1 - s) ha + s hb + d <= cmax - e + tol
+        lo = max(lo, (cmin + e - tol - d - (1 - s) * ha) / s)
+        hi = min(hi, (cmax - e + tol - d - (1 - s) * ha) / s)
     if lo > hi:
         return 1, 0
     if L == 1:
@@ -182,7 +196,7 @@ def _layer_range(z, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol):
 
 
 @njit(cache=True, nogil=True)
-def _search(z, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol, g, mu, k, v2_0, v2_stall, v2_max,
+def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol, g, mu, k, v2_0, v2_stall, v2_max,
             min_grade, max_grade, vbound, heuristic, max_labels, label_cap, e_tol):
     """The label-setting search; returns (status, t, v2, state, parent, final, created, settled).
 
@@ -222,7 +236,7 @@ def _search(z, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol, g, m
             continue
         for kb in range(L):
             zb = z[rb, cb] + hs[kb]
-            if not _segment_ok(z, free, rs, cs, zs, rb, cb, zb, cmin, cmax, tol):
+            if not _segment_ok(z, gap, free, rs, cs, zs, rb, cb, zb, cmin, cmax, tol):
                 continue
             plan = cell * math.hypot(rb - rs, cb - cs)
             drop = zs - zb
@@ -263,7 +277,7 @@ def _search(z, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol, g, m
         za = z[ra, ca] + ha
         if q + nk * L + 2 >= Lt.shape[0]:
             Lt, Lv, Ls, Lp, hkey, hidx = _grow(Lt, Lv, Ls, Lp, hkey, hidx)
-        if end_near[flat] and _segment_ok(z, free, re, ce, ze, ra, ca, za, cmin, cmax, tol):
+        if end_near[flat] and _segment_ok(z, gap, free, re, ce, ze, ra, ca, za, cmin, cmax, tol):
             plan = cell * math.hypot(re - ra, ce - ca)
             drop = za - ze
             if plan == 0 or (drop >= min_grade * plan and drop <= max_grade * plan):
@@ -287,7 +301,7 @@ def _search(z, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol, g, m
             fb = rb * cols + cb
             if free[fb] == 0:
                 continue
-            k_lo, k_hi = _layer_range(z, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol)
+            k_lo, k_hi = _layer_range(z, gap, free, ra, ca, dr, dc, ha, hs, cmin, cmax, tol)
             plan = cell * math.hypot(dr, dc)
             for kb in range(k_lo, k_hi + 1):
                 sb = fb * L + kb
@@ -339,6 +353,46 @@ def _grow(Lt, Lv, Ls, Lp, hkey, hidx):
 def _grid_rc(terrain, x: float, y: float) -> tuple[float, float]:
     r, c = terrain.rowcol(np.array([x], float), np.array([y], float))
     return float(r[0]), float(c[0])
+
+
+def surface_gap(terrain, free=None, sub: int = 4) -> np.ndarray:
+    """Per square between four cell centres, the largest |smooth - bilinear| height gap, m.
+
+    Measured on a ``sub`` x ``sub`` grid of points per square (edges included), only for
+    squares touching a searchable cell (``free``; 0 elsewhere and where a corner is
+    nodata).  Shape ``(rows - 1, cols - 1)`` (at least 1 x 1).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.terrain import Terrain
+    >>> plane = Terrain.from_array(np.add.outer(np.arange(6.0), 2 * np.arange(7.0)), (1.0, 0, 0, 0, -1.0, 6.0))
+    >>> float(surface_gap(plane).max()) < 1e-12       # both surfaces are exact on a plane
+    True
+    """
+    rows, cols = terrain.shape
+    out = np.zeros((max(rows - 1, 1), max(cols - 1, 1)))
+    if rows < 2 or cols < 2:
+        return out
+    use = np.ones((rows, cols), bool) if free is None else np.asarray(free, bool)
+    sq = use[:-1, :-1] | use[1:, :-1] | use[:-1, 1:] | use[1:, 1:]
+    if not sq.any():
+        return out
+    rr, cc = np.nonzero(sq)
+    r0, r1, c0, c1 = rr.min(), rr.max() + 1, cc.min(), cc.max() + 1
+    fr = np.linspace(r0, r1, (r1 - r0) * sub + 1)
+    fc = np.linspace(c0, c1, (c1 - c0) * sub + 1)
+    R, C = np.meshgrid(fr, fc, indexing="ij")
+    x, y = terrain.cell_center(R, C)
+    smooth = np.asarray(terrain.sample(x.ravel(), y.ravel()), float).reshape(R.shape)
+    lin = np.asarray(terrain.sample_linear(x.ravel(), y.ravel()), float).reshape(R.shape)
+    d = np.nan_to_num(np.abs(smooth - lin), nan=0.0)
+    nr, nc = r1 - r0, c1 - c0
+    # each square's points: rows k*sub .. (k+1)*sub of the fine grid (edges shared)
+    blk = np.lib.stride_tricks.sliding_window_view(d, (sub + 1, sub + 1))[::sub, ::sub][:nr, :nc]
+    out[r0:r1, c0:c1] = blk.max(axis=(2, 3))
+    out[~sq] = 0.0
+    return out
 
 
 def _ground_at(terrain, x: float, y: float) -> float:
@@ -477,8 +531,9 @@ def raised_lattice_line(terrain, start, end, mover: Mover, line: LineSpec, *, li
     vbound = math.sqrt(max(V2, 1e-12))
     e_tol = 1e-10 if opts.energy_tol is None else float(opts.energy_tol)
     max_labels = int(opts.max_labels) if opts.max_labels is not None else _MAX_LABELS
+    gap = surface_gap(terrain, free)
     status, Lt, Lv, Ls, Lp, final, created, settled = _search(
-        z, free.ravel().astype(np.uint8), hs, offs, cell, np.array([rs, cs, zs]), np.array([re, ce, ze]),
+        z, gap, free.ravel().astype(np.uint8), hs, offs, cell, np.array([rs, cs, zs]), np.array([re, ce, ze]),
         near.ravel(), float(c_lo), float(c_hi), CLEARANCE_TOL_M, g, mu, kd, v2_0, v2_stall, v2_max,
         float(limits.min_grade), float(limits.max_grade), vbound, bool(opts.heuristic), max_labels,
         int(opts.label_cap or 0), e_tol)
