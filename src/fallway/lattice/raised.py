@@ -220,6 +220,8 @@ def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol,
     hidx = np.empty(cap, dtype=np.int64)
     q = 0
     hsize = 0
+    free_slots = np.empty(cap, dtype=np.int64)  # pool slots of labels popped and dropped, for reuse
+    nfree = 0
     created = 0
     settled = 0
     best_end = math.inf
@@ -263,6 +265,10 @@ def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol,
         t = Lt[i]
         v2 = Lv[i]
         if emax[st] >= v2 - e_tol * v2 or (label_cap > 0 and nset[st] >= label_cap):
+            if nfree == free_slots.shape[0]:
+                free_slots = _grow1(free_slots)
+            free_slots[nfree] = i  # no label descends from it: its slot is free again
+            nfree += 1
             continue
         emax[st] = v2
         nset[st] += 1
@@ -319,15 +325,27 @@ def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol,
                 if t + tb < open_t[sb]:
                     open_t[sb] = t + tb
                     open_v[sb] = v2b
-                Lt[q] = t + tb
-                Lv[q] = v2b
-                Ls[q] = sb
-                Lp[q] = i
+                if nfree > 0:
+                    nfree -= 1
+                    slot = free_slots[nfree]
+                else:
+                    slot = q
+                    q += 1
+                Lt[slot] = t + tb
+                Lv[slot] = v2b
+                Ls[slot] = sb
+                Lp[slot] = i
                 key = t + tb + inv_v * math.sqrt((cell * (rb - re)) ** 2 + (cell * (cb - ce)) ** 2 + (zb - ze) ** 2)
-                hsize = heap_push(hkey, hidx, hsize, key, q)
-                q += 1
+                hsize = heap_push(hkey, hidx, hsize, key, slot)
                 created += 1
     return NOT_REACHED, Lt, Lv, Ls, Lp, -1, created, settled
+
+
+@njit(cache=True, nogil=True)
+def _grow1(a):
+    out = np.empty(2 * a.shape[0], dtype=a.dtype)
+    out[: a.shape[0]] = a
+    return out
 
 
 @njit(cache=True, nogil=True)
