@@ -478,13 +478,15 @@ def raised_lattice_line(terrain, start, end, mover: Mover, line: LineSpec, *, li
     NoFeasibleLine
         No line in the band (``reason`` ``"unreachable"``), or the label budget is spent.
     TerrainError
-        The search would not fit in memory.
+        Its memory estimate (:func:`raised_memory_bytes`) is over the budget.
 
     Examples
     --------
-    >>> import numpy as np
+    A flat floor, 20 m up at the start and 4 m at the end:
+
+    >>> from numpy import zeros
     >>> from fallway.terrain import Terrain
-    >>> t = Terrain.from_array(np.zeros((12, 41)), (1.0, 0, 0, 0, -1.0, 12.0))
+    >>> t = Terrain.from_array(zeros((12, 41)), (1.0, 0, 0, 0, -1.0, 12.0))
     >>> ln = raised_lattice_line(t, (0.5, 6.0), (40.5, 6.0), Mover(mu=0.0), LineSpec("raised", (0, 20), 20, 4))
     >>> ln.points[0].tolist(), ln.points[-1].tolist()
     ([0.5, 6.0, 20.0], [40.5, 6.0, 4.0])
