@@ -15,6 +15,7 @@ lattice time over the refined time (find_route) minus 1, for 4 to 64 layers.
 
 Run: python scripts/bench_raised.py            (all; a few minutes)
      python scripts/bench_raised.py grid500 16  (one configuration, JSON on stdout)
+     python scripts/bench_raised.py errors flat (the error against the layers, one case)
 """
 
 from __future__ import annotations
@@ -105,8 +106,8 @@ def main(argv):
     if len(argv) == 3 and argv[1] in CASES:
         print(json.dumps(one(argv[1], int(argv[2]))))
         return
-    if len(argv) == 2 and argv[1] == "errors":
-        for case in ("flat", "demo"):
+    if len(argv) >= 2 and argv[1] == "errors":
+        for case in argv[2:] or ("flat", "demo"):
             for row in error_vs_layers(case):
                 print(json.dumps(row))
         return

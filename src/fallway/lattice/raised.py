@@ -84,9 +84,10 @@ CORRIDOR_FRACTION = 0.25
 CORRIDOR_MIN_CELLS = 8
 #: Clearance tolerance of the lattice's edge test, metres (rounding only).
 CLEARANCE_TOL_M = 1e-6
-#: Expected labels per state, for the memory estimate (measured 0.3 - 1.5 on the
-#: figures of ``scripts/bench_raised.py``; 4 leaves room).
-LABELS_PER_STATE = 4.0
+#: Labels per state the memory estimate allows for: the demo site with 8 layers
+#: (``scripts/bench_raised.py``) peaked at about 1.26 kB per state above the process's
+#: baseline, about 14 labels' worth; 16 leaves a little room.
+LABELS_PER_STATE = 16.0
 _MAX_LABELS = 200_000_000
 
 OK, NOT_REACHED, BUDGET = 0, 1, 2
@@ -103,7 +104,7 @@ def raised_memory_bytes(cells: int, layers: int, labels_per_state: float = LABEL
     Examples
     --------
     >>> print(f"{raised_memory_bytes(250_000, 16) / 1e6:.0f} MB")
-    1520 MB
+    5744 MB
     """
     states = int(cells) * int(layers)
     return int(states * (28 + labels_per_state * (28 + 16) * 2))
