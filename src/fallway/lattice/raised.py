@@ -45,7 +45,7 @@ Labels and dominance are those of the ordinary search (:mod:`fallway.lattice.ker
 from the highest start energy over the lowest point of the band), so a label is
 dominated by a settled one at its state exactly when that state's highest settled v² is
 at least its own (less the tolerance); a newcomer is also dropped when the earliest label
-still queued at its state is no later and no slower.  ``label_cap`` bounds the settled labels per state
+still queued at its state, or the fastest, is no later and no slower.  ``label_cap`` bounds the settled labels per state
 (approximate, as in the ground search).
 
 Cost
@@ -84,10 +84,10 @@ CORRIDOR_FRACTION = 0.25
 CORRIDOR_MIN_CELLS = 8
 #: Clearance tolerance of the lattice's edge test, metres (rounding only).
 CLEARANCE_TOL_M = 1e-6
-#: Labels per state the memory estimate allows for: the demo site with 8 layers
-#: (``scripts/bench_raised.py``) peaked at about 1.26 kB per state above the process's
-#: baseline, about 14 labels' worth; 16 leaves a little room.
-LABELS_PER_STATE = 16.0
+#: Labels per state the memory estimate allows for: on the demo site
+#: (``scripts/bench_raised.py``) the search peaked at about 1.3 kB per state above the
+#: process's baseline with 8 layers and 2.0 kB with 16 (about 14 and 22 labels' worth).
+LABELS_PER_STATE = 24.0
 _MAX_LABELS = 200_000_000
 
 OK, NOT_REACHED, BUDGET = 0, 1, 2
@@ -97,17 +97,17 @@ def raised_memory_bytes(cells: int, layers: int, labels_per_state: float = LABEL
     """Estimated working memory of a raised search over ``cells`` searchable cells, bytes.
 
     Per state (cell x layer): the highest settled v² (8 bytes), the settled count (4) and
-    the earliest queued label's time and v² (16);
+    the time and v² of the earliest and of the fastest queued label (32);
     per label: time, v², state, parent (28 bytes) and its heap entry (16), doubled for the
     pool's growth by doubling.
 
     Examples
     --------
     >>> print(f"{raised_memory_bytes(250_000, 16) / 1e6:.0f} MB")
-    5744 MB
+    8624 MB
     """
     states = int(cells) * int(layers)
-    return int(states * (28 + labels_per_state * (28 + 16) * 2))
+    return int(states * (44 + labels_per_state * (28 + 16) * 2))
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -212,6 +212,8 @@ def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol,
     nset = np.zeros(nstate, dtype=np.int32)
     open_t = np.full(nstate, math.inf)
     open_v = np.full(nstate, -1.0)
+    fast_t = np.full(nstate, math.inf)  # the fastest (highest v²) label queued at the state
+    fast_v = np.full(nstate, -1.0)
     cap = 1 << 16
     Lt = np.empty(cap)
     Lv = np.empty(cap)
@@ -323,9 +325,14 @@ def _search(z, gap, free, hs, offs, cell, start, end, end_near, cmin, cmax, tol,
                     continue
                 if open_t[sb] <= t + tb and open_v[sb] >= v2b - e_tol * v2b:
                     continue
+                if fast_t[sb] <= t + tb and fast_v[sb] >= v2b - e_tol * v2b:
+                    continue
                 if t + tb < open_t[sb]:
                     open_t[sb] = t + tb
                     open_v[sb] = v2b
+                if v2b > fast_v[sb]:
+                    fast_t[sb] = t + tb
+                    fast_v[sb] = v2b
                 if nfree > 0:
                     nfree -= 1
                     slot = free_slots[nfree]
