@@ -158,6 +158,8 @@ class Problem:
         #: speed-aware bends: ``(station fraction, required radius m)`` of the interior
         #: vertices of the line last given to :meth:`update_bends`, or None
         self.bends = None
+        #: samples per segment of the clearance penalty (fixed on first use)
+        self._clear_m = None
 
     # -- variables: interior vertices; ground (x, y), raised (x, y, h above ground) ------
 
@@ -312,13 +314,21 @@ class Problem:
 
     def clearance_penalty(self, P):
         """Exterior penalty, with its gradient (N, 3), on the clearance between the vertices
-        of a raised line: each segment sampled at half-cell plan steps
-        (:func:`fallway.clearance.sample_segments`), ``w (excess / 1 m)²`` for every
+        of a raised line: each segment sampled at the same fractions (enough for half-cell
+        steps on the longest segment of the first line seen), ``w (excess / 1 m)²`` for every
         sample outside the band shrunk by :data:`CLEARANCE_MARGIN_M` (the vertices
         themselves are held by the bounds)."""
-        Q, seg, fr = sample_segments(P, 0.5 * self.cell)
-        inner = (fr > 0.0) & (fr < 1.0)
-        Q, seg, fr = Q[inner], seg[inner], fr[inner]
+        if self._clear_m is None:
+            # a fixed number of samples per segment (a count that followed the segment's
+            # length would make the objective jump as a segment crosses a multiple of half a
+            # cell, and L-BFGS-B's line search stall): enough for the longest segment of the
+            # first line seen, which the levels after it only shorten
+            plan = np.hypot(*np.diff(P[:, :2], axis=0).T)
+            self._clear_m = int(min(32, max(4, math.ceil(float(plan.max(initial=0.0)) / (0.5 * self.cell)))))
+        m = self._clear_m
+        fr = np.tile(np.arange(1, m) / m, len(P) - 1)
+        seg = np.repeat(np.arange(len(P) - 1), m - 1)
+        Q = P[seg] + fr[:, None] * (P[seg + 1] - P[seg])
         G = np.zeros_like(P)
         if not len(Q):
             return 0.0, G
