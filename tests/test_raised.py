@@ -270,3 +270,14 @@ def test_long_section_shades_the_band():
     assert y.min() == pytest.approx(band[0], abs=0.3)
     assert y.max() == pytest.approx(27.0 + band[1], abs=1e-6)
     assert not [c for c in ax.collections if c.get_gid() == "fallway-supports"]
+
+
+def test_straight_plan_needs_a_raised_line(tmp_path):
+    # a bad combination is one clear error line and a non-zero exit, nothing written
+    dem, a, b = _flat_tif(tmp_path)
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, [str(v) for v in ("route", dem, "--start", *a, "--end", *b, "--straight-plan",
+                                                      "--out", out)])
+    assert res.exit_code != 0
+    assert "straight_plan is for a raised line" in res.output and "Traceback" not in res.output
+    assert not out.exists()

@@ -325,6 +325,8 @@ class LineSpec:
             raise ParameterError(f"straight_plan must be True or False, got {self.straight_plan!r}")
         if self.kind not in LINE_KINDS:
             raise ParameterError(f"line kind must be one of {', '.join(LINE_KINDS)}; got {self.kind!r}")
+        if self.straight_plan and self.kind != "raised":
+            raise ParameterError("straight_plan is for a raised line (kind 'raised', --line raised)")
         try:
             lo, hi = (float(v) for v in self.clearance_m)
         except (TypeError, ValueError):

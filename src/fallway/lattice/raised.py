@@ -588,7 +588,7 @@ def raised_lattice_line(terrain, start, end, mover: Mover, line: LineSpec, *, li
     points = np.vstack([[sx, sy, zs], np.column_stack([np.asarray(x, float), np.asarray(y, float), zc]),
                         [ex, ey, ze]])
     profile = traverse(points, dataclasses.replace(mover, normal="gravity"))
-    stats = {"labels_created": int(created), "labels_settled": int(settled), "exact": not opts.label_cap,
+    stats = {"labels_created": int(created), "labels_settled": int(settled), "exact": not opts.label_cap and mover.max_speed is None,
              "label_cap": opts.label_cap, "height_layers": int(L), "state_cells": active,
              "states": active * L, "corridor_m": float(half), "memory_estimate_bytes": int(need),
              "search_s": time.perf_counter() - t0, "exit_speed_m_s": float(math.sqrt(max(Lv[final], 0.0)))}
