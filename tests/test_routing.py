@@ -76,8 +76,8 @@ def test_unknown_option_is_a_parameter_error():
 
 
 def test_raised_line_without_refinement_is_raised():
-    # a raised line reported without refinement lies in its band above the ground, its
-    # heights linear in plan distance between the end heights (not a ground line)
+    # a raised line reported without refinement is the raised search's line: in its band
+    # above the ground at every vertex, at the given end heights (not a ground line)
     t = valley()
     spec = LineSpec("raised", (2.0, 15.0), 8.0, 3.0)
     r = find_route(t, t.cell_center(1, 1), t.cell_center(14, 16), Mover(mu=0.1), line=spec, refine=False, limits=ENCLOSED)

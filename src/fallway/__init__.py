@@ -27,6 +27,7 @@ if TYPE_CHECKING:  # the same names, for type checkers and editors
     from .keepout import Keepout
     from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
     from .refine import refine_line
+    from .clearance import clearance_along, clearance_extremes
     from .evaluate import Comparison, Envelope, LineResult, drape, envelope, evaluate_line, limit_issues
     from .vector import read_lines
     from .routing import compare, find_route, reach
@@ -69,6 +70,8 @@ _EXPORTS = {
     "traverse": "physics",
     "Loads": "loads",
     "line_loads": "loads",
+    "clearance_along": "clearance",
+    "clearance_extremes": "clearance",
     "Keepout": "keepout",
     "LatticeLine": "results",
     "ReachMap": "results",
@@ -116,7 +119,7 @@ __all__ = [
     "STANDARD_GRAVITY", "Mover", "Limits", "LineSpec", "SearchOptions",
     "Terrain", "load_terrain",
     "Profile", "SegmentResult", "normal_gravity", "segment", "traverse",
-    "Loads", "line_loads",
+    "Loads", "line_loads", "clearance_along", "clearance_extremes",
     "Keepout",
     "LatticeLine", "ReachMap", "RefineCandidate", "RefineResult", "Route", "RouteSummary",
     "refine_line",

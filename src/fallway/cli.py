@@ -272,7 +272,7 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
             d["search"][key] = extra[key]
     if extra.get("no_refine"):
         d["search"]["refine"] = False
-    for key in ("kind", "clearance", "start_height", "end_height"):
+    for key in ("kind", "clearance", "start_height", "end_height", "height_layers", "straight_plan"):
         if extra.get(key) is not None:
             d["line"][key] = list(extra[key]) if key == "clearance" else extra[key]
     if extra.get("mu_range") is not None:
@@ -346,6 +346,9 @@ def _examples(*lines: str) -> str:
 @click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m.")
 @click.option("--start-height", type=float, help="Raised line: height above ground at the start, m (default MIN).")
 @click.option("--end-height", type=float, help="Raised line: height above ground at the end, m (default MIN).")
+@click.option("--height-layers", type=int, help="Raised line: height layers of the search over the band (default 16).")
+@click.option("--straight-plan", is_flag=True, default=None, help="Raised line: the plan is the straight line from start "
+              "to end; only the vertical profile is free.")
 @click.option("--min-radius", type=float, help="Smallest bend radius of the refined line along the line (3D), m.")
 @click.option("--max-lateral-g", type=float, help="Largest sideways acceleration in bends, in g (v²/R <= n g on a level "
               "bend: the smallest allowed radius grows with the square of the speed).")

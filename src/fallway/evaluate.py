@@ -40,6 +40,7 @@ from typing import Iterable
 
 import numpy as np
 
+from .clearance import outside_band
 from .errors import FallwayIOError, ParameterError
 from .geometry import drop_repeats, min_radius_m
 from .loads import Loads, line_loads, load_status
@@ -342,11 +343,12 @@ def enters_keepout(terrain, p: np.ndarray, keepout) -> bool:
 
 
 #: The checks of :func:`limit_issues`, in the order they are reported.
-LIMIT_CHECKS = ("stalls", "keepout", "overspeed", "liftoff", "lateral_g", "normal_g", "grade", "min_radius")
+LIMIT_CHECKS = ("stalls", "keepout", "overspeed", "liftoff", "lateral_g", "normal_g", "grade", "min_radius",
+                "clearance")
 
 
 def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, *,
-                 loads: Loads | None = None) -> list[str]:
+                 loads: Loads | None = None, clearance_m: tuple[float, float] | None = None) -> list[str]:
     """The limits a timed line breaks: the one check behind a route's ``feasible`` and a row's status.
 
     :func:`fallway.routing.find_route` (``RouteSummary.violated_limits``) and
@@ -369,6 +371,10 @@ def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, 
         The line's loads at its speeds (:func:`fallway.loads.line_loads`), on which the
         speed-dependent limits are judged (:func:`fallway.loads.load_status`); without
         them those limits are not judged.
+    clearance_m : (float, float), optional
+        A raised line's clearance band above the smooth ground: every segment is sampled
+        at half-cell plan steps and must stay in the band to
+        :data:`fallway.clearance.CLEARANCE_TOL_M` (``terrain`` needed).
 
     Returns
     -------
@@ -376,7 +382,8 @@ def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, 
         In the order of :data:`LIMIT_CHECKS`: ``"stalls"`` (the mover does not reach the
         end), ``"keepout"``, ``"overspeed"`` (over ``Mover.max_speed``), ``"liftoff"``,
         ``"lateral_g"``, ``"normal_g"``, ``"grade"`` (a segment outside the grade window), ``"min_radius"`` (a 3D bend
-        radius below ``Limits.min_radius_m``); empty when the line meets every limit.
+        radius below ``Limits.min_radius_m``), ``"clearance"`` (with ``clearance_m``: a sample
+        outside the band); empty when the line meets every limit.
 
     Examples
     --------
@@ -407,6 +414,8 @@ def limit_issues(terrain, line, profile: Profile, limits: Limits, keepout=None, 
         out.append("grade")
     if limits.min_radius_m is not None and min_radius_m(drop_repeats(p), dims=3) < limits.min_radius_m * (1 - 1e-9):
         out.append("min_radius")
+    if clearance_m is not None and outside_band(terrain, p, clearance_m):
+        out.append("clearance")
     return out
 
 

@@ -291,6 +291,12 @@ class LineSpec:
         Height of a raised line above the ground at its two ends, metres, within the
         band.  None (default): the band's lower edge for a raised line, 0 for a ground
         line; after construction both are numbers.
+    height_layers : int
+        Raised line: height layers of the lattice search, spread evenly over the band
+        (:mod:`fallway.lattice.raised`); 2 to 256, default 16.
+    straight_plan : bool
+        Raised line: the plan is the straight line from start to end, only the vertical
+        profile is free (a line that cannot turn).
 
     Examples
     --------
@@ -308,10 +314,19 @@ class LineSpec:
     clearance_m: tuple[float, float] = (0.0, 0.0)
     start_height_m: float | None = None
     end_height_m: float | None = None
+    height_layers: int = 16
+    straight_plan: bool = False
 
     def __post_init__(self) -> None:
+        if isinstance(self.height_layers, bool) or not isinstance(self.height_layers, int) \
+                or not 2 <= self.height_layers <= 256:
+            raise ParameterError(f"height_layers must be a whole number from 2 to 256, got {self.height_layers!r}")
+        if self.straight_plan not in (True, False):
+            raise ParameterError(f"straight_plan must be True or False, got {self.straight_plan!r}")
         if self.kind not in LINE_KINDS:
             raise ParameterError(f"line kind must be one of {', '.join(LINE_KINDS)}; got {self.kind!r}")
+        if self.straight_plan and self.kind != "raised":
+            raise ParameterError("straight_plan is for a raised line (kind 'raised', --line raised)")
         try:
             lo, hi = (float(v) for v in self.clearance_m)
         except (TypeError, ValueError):

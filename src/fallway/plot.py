@@ -573,8 +573,10 @@ def plot_profile(route, terrain, *, ax=None):
     Returns
     -------
     matplotlib.axes.Axes
-        The heights axes.  For a raised line (line above ground), vertical ticks from
-        ground to line show the clearance at the vertices.  Flagged stretches: stall
+        The heights axes.  For a raised line (``route.line_spec.kind == "raised"``) its
+        clearance band above the ground is a shaded strip, sampled at half-cell steps
+        as the limit check samples it; for another line above the ground, vertical ticks
+        from ground to line show the clearance at the vertices.  Flagged stretches: stall
         (from where the mover stops), overspeed (shaded), lift-off (marked).
 
     Examples
@@ -604,7 +606,17 @@ def plot_profile(route, terrain, *, ax=None):
     ax.plot(s, zl, color=_LINE_COLOUR, linewidth=2.0, zorder=4, label="line", gid="fallway-line-z")
     gap = zl - zg
     raised = finite_g & (gap > 0.05)
-    if raised.any():
+    spec = getattr(route, "line_spec", None)
+    if getattr(spec, "kind", None) == "raised":  # the clearance band along the whole line, as checked
+        from .clearance import clearance_along
+
+        sd, hd = clearance_along(terrain, pts)
+        zd = np.interp(sd, s, zl) - hd  # the ground under the dense samples
+        lo, hi = spec.clearance_m
+        band = ax.fill_between(sd, zd + lo, zd + hi, color="#5dade2", alpha=0.25, zorder=2, linewidth=0,
+                               label=f"clearance band {lo:g}-{hi:g} m")
+        band.set_gid("fallway-band")
+    elif raised.any():
         idx = np.flatnonzero(raised)
         if idx.size > 60:
             idx = idx[np.linspace(0, idx.size - 1, 60).round().astype(int)]

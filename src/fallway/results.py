@@ -203,7 +203,8 @@ class RouteSummary:
         The lattice stencil.
     search_plan : str
         ``"full"`` (one search on the whole area), ``"corridor"`` (coarse-to-fine) or
-        ``"robust"`` (the robust search over a friction range).
+        ``"robust"`` (the robust search over a friction range) or ``"raised"`` (a raised
+        line's search in height and plan).
     search_exact : bool
         False when a label cap, a binding speed cap or an energy resolution made the
         lattice answer approximate.
@@ -250,6 +251,11 @@ class RouteSummary:
         ``violated_limits`` unless the limits allow it).
     min_grade : float or None
         Smallest descent grade of a segment (negative = rising).
+    min_clearance_m, min_clearance_station_m, max_clearance_m, max_clearance_station_m : float or None
+        A raised line: its smallest and largest height above the smooth ground along the
+        whole line (every segment sampled at half-cell plan steps,
+        :mod:`fallway.clearance`) and their stations (m along the line); None for a
+        ground line.
     start_given_xy, end_given_xy : list of float
         The start and end points as given (x, y), in the terrain's CRS; the line starts
         and ends exactly there (``start_xyz``, ``end_xyz``) unless a point had to move.
@@ -320,6 +326,10 @@ class RouteSummary:
     min_liftoff_margin_station_m: float | None = None
     min_grade: float | None = None
     optimality_gap: float | None = None
+    min_clearance_m: float | None = None
+    min_clearance_station_m: float | None = None
+    max_clearance_m: float | None = None
+    max_clearance_station_m: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""

@@ -25,7 +25,9 @@ Plans (``SearchOptions.plan``)
     memory estimate (:func:`fallway.scale.search_memory_bytes`) fits the memory
     available, else the corridor.
 With a friction range and ``robust=True`` the robust plan runs (:func:`_plan_robust`),
-on the full grid only.
+on the full grid only.  A raised line (``LineSpec("raised", ...)``) always runs the plan
+``"raised"``: the search over cells times height layers in a corridor around the straight
+line (:mod:`fallway.lattice.raised`), on the area of the full plan.
 """
 
 from __future__ import annotations
@@ -38,12 +40,14 @@ import warnings
 import numpy as np
 
 from .caution import CAUTION
+from .clearance import clearance_extremes
 from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
 from .evaluate import (COMPUTED_NAME, Comparison, Envelope, as_named_lines, envelope, lay_on_ground, limit_issues,
                        row_for_line)
 from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_heights_m, round_corners
 from .loads import Loads, line_loads
 from .keepout import Keepout
+from .lattice.raised import raised_lattice_line
 from .lattice.search import lattice_line, robust_lattice_line
 from .lattice.search import reach as lattice_reach
 from .params import MAX_LABELS, Limits, LineSpec, Mover, SearchOptions, checked_options
@@ -53,6 +57,7 @@ from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
 from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside,
                     fit_label_budget, lowest_within, search_memory_bytes, terrain_source)
+from .section import make_section
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
 __all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
@@ -174,6 +179,8 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         mu_range = check_mu_range(mover, *mu_range)
     if robust and mu_range is None:
         raise ParameterError("robust=True needs a friction range: mu_range=(LO, HI)")
+    if robust and line.kind == "raised":
+        raise ParameterError("the robust search is for ground lines; leave robust off for a raised line")
     points = [_xy(start, "start")] + [_xy(p, f"via point {i + 1}") for i, p in enumerate(via)] + [_xy(end, "end")]
     src = terrain_source(terrain, keepout)
     plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
@@ -183,7 +190,8 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         if plan == "robust":
             route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
         else:
-            found = (_plan_full if plan == "full" else _plan_corridor)(src, points, job, memory_limit_bytes)
+            found = (_plan_raised if line.kind == "raised" else _plan_full if plan == "full" else _plan_corridor)(
+                src, points, job, memory_limit_bytes)
             route = _finish(found, job)
             if mu_range is not None:
                 route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
@@ -223,7 +231,8 @@ def _explained(err: NoFeasibleLine, src, points, job: _Job, memory_limit_bytes, 
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", RefinementWarning)
-                r = _finish(_plan_full(psrc, points, j, memory_limit_bytes), j)
+                r = _finish((_plan_raised if j.line.kind == "raised" else _plan_full)(psrc, points, j,
+                                                                                    memory_limit_bytes), j)
         except NoFeasibleLine:
             return None
         return r if r.summary.feasible else None
@@ -286,6 +295,7 @@ class _Found:
     plan: str
     corridor: dict | None = None
     compute_s: dict = dataclasses.field(default_factory=dict)
+    section: object = None  # a straight-plan raised line: the section it was searched on
 
 
 # --------------------------------------------------------------------------- planning
@@ -373,6 +383,31 @@ def _memory_budget(job: _Job, cells: int, memory_limit_bytes) -> SearchOptions:
     if fit is None or (job.search.max_labels is not None and job.search.max_labels <= fit):
         return job.search
     return dataclasses.replace(job.search, max_labels=max(min(fit, MAX_LABELS), 1))
+
+
+def _plan_raised(src, points, job: _Job, memory_limit_bytes) -> _Found:
+    """A raised line: the search over cells times height layers (:mod:`fallway.lattice.raised`),
+    in its plan corridor around the straight start-end line."""
+    if job.via:
+        raise ParameterError("via points are not supported on a raised line; route each leg on its own")
+    t0 = time.perf_counter()
+    terrain, keep = src.window(_full_window(src, points))
+    t1 = time.perf_counter()
+    if not job.line.straight_plan:
+        lat = raised_lattice_line(terrain, points[0], points[-1], job.mover, job.line, limits=job.limits,
+                                  keepout=keep, options=job.search, memory_limit_bytes=memory_limit_bytes)
+        return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised",
+                      compute_s={"read": t1 - t0, "search": time.perf_counter() - t1})
+    # the plan fixed straight: search the section under it (fallway.section)
+    sec = make_section(terrain, points[0], points[-1])
+    opts = dataclasses.replace(job.search, corridor_m=0.25 * sec.terrain.cell_size)
+    loc = raised_lattice_line(sec.terrain, (0.0, 0.0), (sec.length_m, 0.0), job.mover, job.line, limits=job.limits,
+                              options=opts, memory_limit_bytes=memory_limit_bytes)
+    P = sec.to_map(loc.points)
+    r, c = terrain.rowcol(P[:, 0], P[:, 1])
+    lat = dataclasses.replace(loc, points=P, cells=np.column_stack([np.rint(r), np.rint(c)]).astype(int))
+    return _Found(terrain=terrain, keepout=keep, lattice=lat, plan="raised", section=sec,
+                  compute_s={"read": t1 - t0, "search": time.perf_counter() - t1})
 
 
 def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
@@ -495,8 +530,13 @@ def _refine(found: _Found, job: _Job, mover: Mover):
     """
     ko = found.keepout if isinstance(found.keepout, Keepout) else None
     pts = np.asarray(found.lattice.points, dtype=float)
+    if found.section is not None:  # a straight plan: the profile refined on the section, mapped back
+        sec = found.section
+        rr = refine_line(sec.terrain, sec.to_local(pts), mover, limits=job.limits, line=job.line, keep_heights=True)
+        return dataclasses.replace(rr, line=sec.to_map(rr.line))
     if not job.via:
-        return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line)
+        return refine_line(found.terrain, pts, mover, limits=job.limits, keepout=ko, line=job.line,
+                           keep_heights=job.line.kind == "raised")
     cuts = [0] + [int(np.argmin(np.hypot(pts[:, 0] - x, pts[:, 1] - y))) for x, y in job.via] + [len(pts) - 1]
     spec = job.line
     if spec.kind == "raised":
@@ -542,11 +582,6 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
     compute = dict(found.compute_s)
     rr = None
     final = lat.points
-    if job.line.kind == "raised":  # the lattice plan at the heights the refinement starts from
-        sp = job.line
-        z = np.asarray(terrain.sample(final[:, 0], final[:, 1]), dtype=float)
-        final = np.column_stack([final[:, :2], z + raised_heights_m(final, sp.start_height_m, sp.end_height_m,
-                                                                    sp.clearance_m)])
     if refine:
         t0 = time.perf_counter()
         rr = _refine(found, job, mover)
@@ -567,9 +602,10 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
             on_ground = (judged[0][1], judged[1][1])
             final = alt
     profile = _timed(terrain, final, mover, job.line.kind)
-    lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, "ground")
+    lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, job.line.kind)
     loads = _loads(terrain, final, profile, mover, job.line.kind)
-    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads)
+    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads,
+                         clearance_m=job.line.clearance_m if job.line.kind == "raised" else None)
     if rr is not None and on_ground is None:
         violated += [k for k, v in (rr.limits or {}).items() if v == "violated" and k not in violated]
     d = np.diff(final, axis=0)
@@ -618,6 +654,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         **_load_fields(loads, profile),
         **_point_fields(st, final),
         optimality_gap=st.get("optimality_gap") if found.plan == "full" else None,
+        **(clearance_extremes(terrain, final) if job.line.kind == "raised" else {}),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,
                  line_spec=job.line, search=job.search, refinement=rr, terrain=terrain, keepout=found.keepout,
@@ -683,11 +720,12 @@ def _load_fields(loads: Loads, profile) -> dict:
                 min_grade=float(g.min()) if g.size else None)
 
 
-def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None) -> list[str]:
+def _violated(terrain, line: np.ndarray, profile, limits: Limits, keepout, loads: Loads | None = None,
+              clearance_m=None) -> list[str]:
     """The limits a reported line breaks: :func:`fallway.evaluate.limit_issues`, the check
     every comparison row gets too (the speed-dependent ones on ``loads``, the line's
-    smooth reading)."""
-    return limit_issues(terrain, line, profile, limits, keepout, loads=loads)
+    smooth reading; a raised line's band along every segment)."""
+    return limit_issues(terrain, line, profile, limits, keepout, loads=loads, clearance_m=clearance_m)
 
 
 

@@ -49,6 +49,8 @@ Layout (every section and key optional; unknown keys are rejected)::
     clearance = [0.5, 15.0]
     start_height = 0.0
     end_height = 0.0
+    height_layers = 16               # raised line: height layers of the search
+    straight_plan = false            # raised line: plan fixed straight, only the profile free
 
     [envelope]
     mu_range = [0.1, 0.2]
@@ -81,7 +83,8 @@ _SCHEMA: dict[str, Any] = {
     "limits": {f.name: f.name for f in fields(Limits)},
     "search": {"neighbours": int, "refine": bool, "label_cap": int, "plan": str, "coarse_factor": int,
                "corridor_m": float, "gap": float},
-    "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float},
+    "line": {"kind": str, "clearance": "pair", "start_height": float, "end_height": float, "height_layers": int,
+             "straight_plan": bool},
     "envelope": {"mu_range": "pair"},
     "outputs": {"station_step": float},
 }
@@ -255,6 +258,10 @@ class Scenario:
         for name in ("start_height", "end_height"):
             if name in line:
                 lk[f"{name}_m"] = _number(f"line.{name}", line[name])
+        if "height_layers" in line:
+            lk["height_layers"] = _count("line.height_layers", line["height_layers"])
+        if "straight_plan" in line:
+            lk["straight_plan"] = _bool("line.straight_plan", line["straight_plan"])
         try:
             kw["line"] = LineSpec(**lk)
         except ParameterError as err:
@@ -304,7 +311,8 @@ class Scenario:
             sd["gap"] = 0.0 if self.search.gap is None else self.search.gap
         d["search"] = sd
         d["line"] = {"kind": self.line.kind, "clearance": list(self.line.clearance_m),
-                     "start_height": self.line.start_height_m, "end_height": self.line.end_height_m}
+                     "start_height": self.line.start_height_m, "end_height": self.line.end_height_m,
+                     "height_layers": self.line.height_layers, "straight_plan": self.line.straight_plan}
         if self.mu_range is not None:
             d["envelope"] = {"mu_range": list(self.mu_range)}
         if self.station_step_m != 10.0:

@@ -23,7 +23,7 @@ __all__ = ["refine_line"]
 def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, keepout=None,
                 line: LineSpec | None = None, n_vertices: int | None = None, levels: int = 8, blend: float = 0.5,
                 max_iter: int = 4000, gtol: float = 1e-9, margin_m: float | None = None,
-                penalty: float = 1e4) -> RefineResult:
+                penalty: float = 1e4, keep_heights: bool = False) -> RefineResult:
     """Move the vertices of a line continuously until its travel time is stationary.
 
     Parameters
@@ -60,6 +60,10 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         The kind of line (default: on the ground).  ``LineSpec("raised", (c_min, c_max),
         start_height_m, end_height_m)``: heights are free within ``[ground + c_min,
         ground + c_max]`` and start and end at the given heights above the ground.
+    keep_heights : bool, default False
+        Raised line: start from the heights of ``points`` (a raised lattice line; held in
+        the band over the smooth surface) instead of the ramp from the start height to
+        the end height.
     n_vertices : int, optional
         Vertices of the finest level (default: one per cell of plan length, at least 33).
     levels : int, default 8
@@ -132,7 +136,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         return Problem(ground, mover, limits, spec, keep, nodata, margin, w_pen)
 
     prob = problem()
-    P_start = _start_line(prob, P_in, spec)
+    P_start = _start_line(prob, P_in, spec, bool(keep_heights))
     cands = [Candidate("start", P_start)]
     seed = P_start
     r_round = _rounding_radius(prob, P_start)
@@ -227,7 +231,7 @@ def _plan(terrain, P_in, n_vertices, levels, blend, max_iter, gtol) -> Plan:
                 _number("gtol", gtol, low=0.0, strict=True))
 
 
-def _start_line(prob: Problem, P_in: np.ndarray, spec: LineSpec) -> np.ndarray:
+def _start_line(prob: Problem, P_in: np.ndarray, spec: LineSpec, keep_heights: bool = False) -> np.ndarray:
     """The start line with heights: as given on the ground (the lattice's own), or raised
     from the start height to the end height above the smooth ground."""
     xy = P_in[:, :2]
@@ -236,4 +240,9 @@ def _start_line(prob: Problem, P_in: np.ndarray, spec: LineSpec) -> np.ndarray:
         return P_in if P_in.shape[1] == 3 else np.column_stack([xy, zg])
     if not np.all(np.isfinite(zg)):
         raise ParameterError("the start line leaves the terrain; keep it inside the DEM's valid area")
+    if keep_heights and P_in.shape[1] == 3:
+        P = np.column_stack([xy, zg + np.clip(P_in[:, 2] - zg, prob.c_min, prob.c_max)])
+        P[0, 2] = zg[0] + spec.start_height_m
+        P[-1, 2] = zg[-1] + spec.end_height_m
+        return P
     return np.column_stack([xy, raised_heights(xy, zg, prob, spec.start_height_m, spec.end_height_m)])

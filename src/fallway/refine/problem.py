@@ -15,6 +15,7 @@ import math
 
 import numpy as np
 
+from ..clearance import CLEARANCE_TOL_M, sample_segments
 from ..geometry import min_radius_m
 from ..loads import line_loads, load_status, required_radius_m
 from ..params import Limits, LineSpec
@@ -22,7 +23,14 @@ from ..physics import Mover
 from .chain import full_chain, gravity_chain, ground_fg
 from .fields import DistanceField, curvature, field_penalty, grade_penalty, keepout_status, radius_penalty
 
-__all__ = ["Ground", "Problem", "on_data"]
+__all__ = ["Ground", "Problem", "on_data", "CLEARANCE_MARGIN_M"]
+
+#: The refinement holds a raised line's clearance between vertices this far inside the
+#: band (the route's check allows :data:`fallway.clearance.CLEARANCE_TOL_M` outside it).
+#: Zero: a start line lying on the band's edge (a raised lattice line on its lowest
+#: layer) then costs nothing; a margin made it cost tens of seconds of penalty and threw
+#: the first L-BFGS-B steps far off.
+CLEARANCE_MARGIN_M = 0.0
 
 
 class Ground:
@@ -150,6 +158,8 @@ class Problem:
         #: speed-aware bends: ``(station fraction, required radius m)`` of the interior
         #: vertices of the line last given to :meth:`update_bends`, or None
         self.bends = None
+        #: samples per segment of the clearance penalty (fixed on first use)
+        self._clear_m = None
 
     # -- variables: interior vertices; ground (x, y), raised (x, y, h above ground) ------
 
@@ -291,12 +301,49 @@ class Problem:
             v, gg = radius_penalty(P, lim.min_radius_m, self.w_pen, 2e-3)
             f += v
             G += gg
+        if self.line == "raised":
+            v, gg = self.clearance_penalty(P)
+            f += v
+            G += gg
         for fld, marg in ((self.keep, self.margin), (self.nodata, 1.5 * self.cell)):
             if fld is not None:
                 v, gg, _ = field_penalty(P, fld, self.w_pen, marg, 1e-4 * self.cell)
                 f += v
                 G += gg
         return f, G
+
+    def clearance_penalty(self, P):
+        """Exterior penalty, with its gradient (N, 3), on the clearance between the vertices
+        of a raised line: each segment sampled at the same fractions (enough for half-cell
+        steps on the longest segment of the first line seen), ``w (excess / 1 m)²`` for every
+        sample outside the band shrunk by :data:`CLEARANCE_MARGIN_M` (the vertices
+        themselves are held by the bounds)."""
+        if self._clear_m is None:
+            # a fixed number of samples per segment (a count that followed the segment's
+            # length would make the objective jump as a segment crosses a multiple of half a
+            # cell, and L-BFGS-B's line search stall): enough for the longest segment of the
+            # first line seen, which the levels after it only shorten
+            plan = np.hypot(*np.diff(P[:, :2], axis=0).T)
+            self._clear_m = int(min(32, max(4, math.ceil(float(plan.max(initial=0.0)) / (0.5 * self.cell)))))
+        m = self._clear_m
+        fr = np.tile(np.arange(1, m) / m, len(P) - 1)
+        seg = np.repeat(np.arange(len(P) - 1), m - 1)
+        Q = P[seg] + fr[:, None] * (P[seg + 1] - P[seg])
+        G = np.zeros_like(P)
+        if not len(Q):
+            return 0.0, G
+        zg, gx, gy = self.gr.z_grad(Q[:, 0], Q[:, 1])
+        h = Q[:, 2] - zg
+        below = np.nan_to_num(np.maximum(self.c_min + CLEARANCE_MARGIN_M - h, 0.0))
+        above = np.nan_to_num(np.maximum(h - (self.c_max - CLEARANCE_MARGIN_M), 0.0))
+        e = above - below  # d(pen)/dh = 2 w e
+        if not np.any(e):
+            return 0.0, G
+        dh = np.column_stack([-np.nan_to_num(gx), -np.nan_to_num(gy), np.ones(len(Q))])
+        dQ = (2.0 * self.w_pen * e)[:, None] * dh
+        np.add.at(G, seg, (1.0 - fr)[:, None] * dQ)
+        np.add.at(G, seg + 1, fr[:, None] * dQ)
+        return float(self.w_pen * np.sum(e * e)), G
 
     def compiled(self) -> bool:
         """True when the objective is the bare chain on the ground surface (one compiled pass)."""
@@ -361,10 +408,15 @@ class Problem:
         X = (P[:-1, None, :2] * (1 - fr)[None, :, None] + P[1:, None, :2] * fr[None, :, None]).reshape(-1, 2)
         out["extent"] = "inactive" if bool(np.all(on_data(self.gr.terrain, X[:, 0], X[:, 1]))) else "violated"
         if self.line == "raised":
-            h = P[:, 2] - self.gr.z(P[:, 0], P[:, 1])
-            bad = (h < self.c_min - 1e-6) | (h > self.c_max + 1e-6)
-            near = (h < self.c_min + 1e-6) | (h > self.c_max - 1e-6)
-            out["clearance"] = "violated" if bad[1:-1].any() else ("active" if near[1:-1].any() else "inactive")
+            # along every segment (half-cell samples), held to CLEARANCE_TOL_M as the route's check
+            Q, _, fr = sample_segments(P, 0.5 * self.cell)
+            inner = (fr > 0.0) | (np.arange(len(fr)) > 0)
+            inner[-1] = False
+            Q = Q[inner]
+            h = Q[:, 2] - self.gr.z(Q[:, 0], Q[:, 1])
+            bad = (h < self.c_min - CLEARANCE_TOL_M) | (h > self.c_max + CLEARANCE_TOL_M) | ~np.isfinite(h)
+            near = (h < self.c_min + 1e-3) | (h > self.c_max - 1e-3)
+            out["clearance"] = "violated" if bad.any() else ("active" if near.any() else "inactive")
         return out
 
     def _speed_status(self, P, model: str) -> dict:
