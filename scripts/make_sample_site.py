@@ -151,7 +151,7 @@ normal = "full"
 max_speed = 30.0  # m/s, a hard cap on the line
 
 [limits]
-min_grade = -0.1   # the chute follows the ground: short rises over bumps up to 10 %, carried on
+min_grade = -0.15  # the chute follows the ground: short rises over bumps up to 15 %, carried on
                    # its speed (an assumption; a steady climb is refused)
 max_step_turn_deg = 45.0
 # An enclosed (covered) chute: on this site's steep discharge slope no open-trough line
