@@ -62,12 +62,22 @@ RANGES: dict[str, tuple[float, float, str]] = {
     "end_height_m": (0.0, 1e4, "m"),
     "min_radius_m": (0.0, math.inf, "m"),
     "corridor_m": (0.0, math.inf, "m"),
+    # cable lines (fallway.cable): heights of supports and clearance as for a raised line;
+    # a span of 10 km and a tension of 1e5 kN lie beyond any cable line built
+    "support_height_m": (0.0, 1e4, "m"),
+    "height_step_m": (0.0, 1e4, "m"),
+    "max_span_m": (0.0, 1e4, "m"),
+    "cable_tension_kn": (0.0, 1e5, "kN"),
+    "carrier_load_kn": (0.0, 1e5, "kN"),
+    "cable_weight_n_m": (0.0, 1e5, "N/m"),
+    "max_break_over_deg": (0.0, 90.0, "°"),
 }
 #: The most labels a search can hold: the kernel counts them in int32 (the bound of
 #: ``label_cap`` and ``max_labels``).
 MAX_LABELS = 2 ** 31 - 1
 #: Parameters whose range excludes its lower end.
-ABOVE_LOW = frozenset({"g", "max_speed", "min_radius_m", "corridor_m"})
+ABOVE_LOW = frozenset({"g", "max_speed", "min_radius_m", "corridor_m", "height_step_m", "max_span_m",
+                       "cable_tension_kn", "max_break_over_deg"})
 
 
 def check_number(name: str, value, *, low: float = 0.0, allow_none: bool = False,
