@@ -27,6 +27,7 @@ LAYERS = [
     ["vector"],
     ["keepout", "points"],
     ["scale"],
+    ["cable"],
     ["lattice"],
     ["refine"],
     ["evaluate"],
