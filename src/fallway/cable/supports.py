@@ -453,9 +453,10 @@ def _no_layout(plan, spec, heights, reached, blocked, fail_runs, site_ch) -> NoF
     parts, hints = [], []
     if note.get("low"):
         c, j, ha, hb, t_kn = note["low"]
-        parts.append(f"the loaded path comes within {c:.2f} m of the ground at best (band {lo:g}-{hi:g} m; "
-                     f"span to {site_ch[j]:.0f} m with heights {ha:g} m and {hb:g} m)")
-        hints.append(f"a lower clearance of {math.floor(c * 100) / 100:g} m")
+        parts.append(f"the loaded path's clearance is {c:.2f} m at best, below the band {lo:g}-{hi:g} m "
+                     f"(span to {site_ch[j]:.0f} m with heights {ha:g} m and {hb:g} m)")
+        if c >= 0.0:
+            hints.append(f"a lower clearance of {math.floor(c * 100) / 100:g} m")
         if t_kn is not None:
             hints.append(f"a tension of at least {math.ceil(t_kn * 10) / 10:g} kN")
         hints.append(f"taller supports than {spec.support_height_m[1]:g} m")
