@@ -30,8 +30,8 @@ STANDARD_GRAVITY = 9.80665
 
 _NORMAL_MODELS = ("gravity", "full")
 
-#: Line kinds: on the terrain surface, or raised within a clearance band.
-LINE_KINDS = ("ground", "raised")
+#: Line kinds: on the terrain surface, raised within a clearance band, or a cable on supports.
+LINE_KINDS = ("ground", "raised", "cable")
 #: Lattice stencils.
 NEIGHBOURHOODS = (8, 16, 32)
 #: Search plans: chosen from the estimate ("auto"), the full grid, or coarse-to-fine.
@@ -291,16 +291,22 @@ class LineSpec:
 
     Parameters
     ----------
-    kind : {"ground", "raised"}
+    kind : {"ground", "raised", "cable"}
         ``"ground"``: the line lies on the terrain surface (an open chute, a conveyor on
         the ground).  ``"raised"``: a trestle, an elevated chute or a flume on posts, its
-        height free within the clearance band.
+        height free within the clearance band.  ``"cable"``: a carrier on a tensioned
+        cable, straight in plan between its stations, on supports placed by search
+        (:mod:`fallway.cable`).
     clearance_m : (float, float)
         ``(min, max)`` height of a raised line above the ground, metres, ``0 <= min <= max``.
     start_height_m, end_height_m : float or None
         Height of a raised line above the ground at its two ends, metres, within the
-        band.  None (default): the band's lower edge for a raised line, 0 for a ground
-        line; after construction both are numbers.
+        band.  None (default): the band's lower edge for a raised or cable line, 0 for a
+        ground line; after construction both are numbers.
+    cable : fallway.cable.CableSpec or None
+        The cable's parameters (kind ``"cable"`` only; None: :class:`~fallway.cable.CableSpec`
+        defaults with this spec's band and end heights).  When given, its band and end
+        heights are this spec's.
 
     Examples
     --------
@@ -308,20 +314,26 @@ class LineSpec:
     'ground'
     >>> LineSpec("raised", (0.5, 15.0), 8.0, 2.0).clearance_m
     (0.5, 15.0)
-    >>> LineSpec("cable")
+    >>> LineSpec("rope")
     Traceback (most recent call last):
     ...
-    fallway.errors.ParameterError: line kind must be one of ground, raised; got 'cable'
+    fallway.errors.ParameterError: line kind must be one of ground, raised, cable; got 'rope'
     """
 
     kind: str = "ground"
     clearance_m: tuple[float, float] = (0.0, 0.0)
     start_height_m: float | None = None
     end_height_m: float | None = None
+    cable: object = None
 
     def __post_init__(self) -> None:
         if self.kind not in LINE_KINDS:
             raise ParameterError(f"line kind must be one of {', '.join(LINE_KINDS)}; got {self.kind!r}")
+        if self.cable is not None:
+            if self.kind != "cable":
+                raise ParameterError(f"cable parameters are for a line of kind 'cable', not {self.kind!r}")
+            for name in ("clearance_m", "start_height_m", "end_height_m"):
+                object.__setattr__(self, name, getattr(self.cable, name))
         try:
             lo, hi = (float(v) for v in self.clearance_m)
         except (TypeError, ValueError):
@@ -332,7 +344,7 @@ class LineSpec:
         object.__setattr__(self, "clearance_m", (lo, hi))
         for name in ("start_height_m", "end_height_m"):
             if getattr(self, name) is None:
-                object.__setattr__(self, name, lo if self.kind == "raised" else 0.0)
+                object.__setattr__(self, name, lo if self.kind in ("raised", "cable") else 0.0)
             check_param(name, getattr(self, name))
             h = float(getattr(self, name))
             object.__setattr__(self, name, h)

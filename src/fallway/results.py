@@ -260,6 +260,9 @@ class RouteSummary:
         ends at cell centres, ran.
     start_moved_why, end_moved_why : str or None
         Why the point moved (None when it did not).
+    cable : dict or None
+        A cable line's layout (:meth:`fallway.cable.CableLayout.to_dict`: objective,
+        support count, supports, spans); None for other kinds.
     """
 
     line_kind: str
@@ -312,6 +315,7 @@ class RouteSummary:
     min_liftoff_margin_g: float | None = None
     min_liftoff_margin_station_m: float | None = None
     min_grade: float | None = None
+    cable: dict | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""
@@ -345,6 +349,9 @@ class Route:
     compute_s : dict
         Seconds of computing per stage (not travel times): ``search``, ``refine``,
         ``total``, and the corridor steps.
+    cable : CableLayout or None
+        A cable line's supports, spans and carrier run (:mod:`fallway.cable`); None for
+        other kinds.
     """
 
     line: np.ndarray
@@ -360,6 +367,7 @@ class Route:
     keepout: Any = None
     envelope: Any = None
     compute_s: dict = field(default_factory=dict)
+    cable: Any = None
 
     @property
     def travel_time_s(self) -> float | None:

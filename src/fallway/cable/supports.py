@@ -236,7 +236,7 @@ class _Edges:
     s_in: list = field(default_factory=list)    # unloaded slope arriving at site j
 
 
-def place_supports(terrain, points, spec: CableSpec, mover: Mover) -> CableLayout:
+def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support=None) -> CableLayout:
     """Place the supports of a cable line: the fastest carrier run, or the fewest supports.
 
     Parameters
@@ -249,6 +249,10 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover) -> CableLayou
         Heights, spans, clearance band, tension, loads, objective.
     mover : Mover
         The carrier: rolling resistance ``mu``, drag, start speed, speed window.
+    no_support : callable, optional
+        ``no_support(x, y)`` -> bool array: True where no support may stand (keep-out
+        areas).  The cable may span over such places; an end or angle station there is
+        an error.
 
     Returns
     -------
@@ -286,6 +290,13 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover) -> CableLayou
     plan = _plan(terrain, pts, spec)
     n_sites = len(plan.site_dense)
     heights = _heights(spec, n_sites)
+    if no_support is not None:
+        banned = np.asarray(no_support(*plan.xy[plan.site_dense].T), dtype=bool)
+        if banned[plan.fixed].any():
+            x, y = plan.xy[plan.site_dense[np.flatnonzero(banned & plan.fixed)[0]]]
+            raise NoFeasibleLine(f"the end or angle station at ({x:.1f}, {y:.1f}) lies in a keep-out area; move it",
+                                 reason="keepout", closest=(float(x), float(y)))
+        heights = [np.empty(0) if b else h for b, h in zip(banned, heights)]
     node0 = np.concatenate([[0], np.cumsum([len(h) for h in heights])])
     lo, hi = spec.clearance_m
     H = spec.cable_tension_kn * 1e3
@@ -298,10 +309,14 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover) -> CableLayou
     blocked = [dict() for _ in range(n_sites)]   # per site: reason -> best figure seen
     checked = 0
     for i in range(n_sites - 1):
+        if not len(heights[i]):
+            continue
         for j in range(i + 1, n_sites):
             L = site_ch[j] - site_ch[i]
             if L > spec.max_span_m + _TOL:
                 break
+            if not len(heights[j]):
+                continue
             L, zp, clr, s_out, s_in = _span_geometry(plan, i, j, heights[i], heights[j], spec)
             checked += clr.shape[0] * clr.shape[1]
             cmin, cmax = clr.min(axis=2), clr.max(axis=2)
