@@ -276,6 +276,12 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
             d["line"][key] = list(extra[key]) if key == "clearance" else extra[key]
     if extra.get("mu_range") is not None:
         d["envelope"]["mu_range"] = list(extra["mu_range"])
+    cable = {f"{k}{unit}": extra[k] for k, unit in (
+        ("support_height", "_m"), ("max_span", "_m"), ("cable_tension", "_kn"), ("carrier_load", "_kn"),
+        ("cable_weight", "_n_m"), ("station_step", "_m"), ("height_step", "_m"), ("max_break_over", "_deg"),
+        ("objective", "")) if extra.get(k) is not None}
+    if cable:
+        d["cable"] = {k: list(v) if isinstance(v, tuple) else v for k, v in cable.items()}
     return d
 
 
@@ -330,10 +336,22 @@ _point_opt = functools.partial(click.option, type=(float, float), metavar="X Y")
 @_point_opt("--end", help="Discharge point.")
 @_point_opt("--via", multiple=True, help="A point the line must pass (repeatable, in order).")
 @_common_options
-@click.option("--line", "kind", type=click.Choice(["ground", "raised"]), help="On the ground, or raised (trestle, flume).")
-@click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m.")
-@click.option("--start-height", type=float, help="Raised line: height above ground at the start, m (default MIN).")
-@click.option("--end-height", type=float, help="Raised line: height above ground at the end, m (default MIN).")
+@click.option("--line", "kind", type=click.Choice(["ground", "raised", "cable"]),
+              help="On the ground, raised (trestle, flume), or a cable on supports placed by search.")
+@click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m. "
+              "Cable: band of the loaded carrier path above ground (MAX: rescue height), m.")
+@click.option("--start-height", type=float, help="Raised line or cable: height above ground at the start, m.")
+@click.option("--end-height", type=float, help="Raised line or cable: height above ground at the end, m.")
+@click.option("--support-height", type=(float, float), metavar="MIN MAX", help="Cable: height range of a support, m.")
+@click.option("--max-span", type=float, help="Cable: longest span between supports (plan), m.")
+@click.option("--cable-tension", type=float, help="Cable: horizontal cable tension, kN.")
+@click.option("--carrier-load", type=float, help="Cable: gross load of the carrier, kN.")
+@click.option("--cable-weight", type=float, help="Cable: weight of the cable, N/m.")
+@click.option("--station-step", type=float, help="Cable: spacing of candidate support sites, m (default one cell).")
+@click.option("--height-step", type=float, help="Cable: step of the support heights tried, m (default 1).")
+@click.option("--max-break-over", type=float, help="Cable: largest break-over angle of the rope over a support, degrees.")
+@click.option("--objective", type=click.Choice(["time", "supports"]),
+              help="Cable: the fastest carrier run (default) or the fewest supports (time breaks ties).")
 @click.option("--min-radius", type=float, help="Smallest bend radius of the refined line along the line (3D), m.")
 @click.option("--max-lateral-g", type=float, help="Largest sideways acceleration in bends, in g (v²/R <= n g on a level "
               "bend: the smallest allowed radius grows with the square of the speed).")
@@ -388,6 +406,10 @@ def _print_route(r, out_dir, written) -> None:
         lo, hi = env.exit_speed_range_m_s
         rng = "stalls" if lo is None or hi is None else f"{hi:.2f} to {lo:.2f} m/s"
         click.echo(f"friction {env.mu_lo:g} to {env.mu_hi:g}: {env.verdict}; exit speed {rng}")
+    if s.cable is not None:
+        last = s.cable["spans"][-1]
+        click.echo(f"cable: {s.cable['support_count']} supports, {len(s.cable['spans'])} spans; the carrier arrives "
+                   f"at {last['exit_speed_m_s']:.2f} m/s and needs braking there")
     click.echo(f"wrote {', '.join(written)} in {out_dir}")
 
 

@@ -20,7 +20,7 @@ import numpy as np
 
 from ..physics import Mover, Profile, traverse
 
-__all__ = ["SpanRun", "run_span"]
+__all__ = ["SpanRun", "run_span", "span_time"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -80,3 +80,43 @@ def run_span(points, mover: Mover, v_in_m_s: float) -> SpanRun:
     return SpanRun(profile=prof, time_s=math.inf if stalled is not None else float(prof.time_s[-1]),
                    exit_speed_m_s=math.nan if stalled is not None else float(prof.speed_m_s[-1]),
                    stalled_at_m=stalled, overspeed=bool(np.asarray(prof.overspeed).size))
+
+
+def span_time(points: np.ndarray, mover: Mover, v_in_m_s: float) -> tuple[float, float, int]:
+    """The search's inner call: :func:`run_span`'s time and exit speed, without the profile.
+
+    ``points`` must be a C-contiguous float64 (N, 3) array without repeated points (a
+    span's dense samples are).  Returns ``(time_s, exit_speed_m_s, status)`` with status
+    0 (through), 1 (stalls) or 2 (overspeeds); the same kernel and numbers as
+    :func:`fallway.physics.traverse`.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c, s = np.cos(np.radians(30)), np.sin(np.radians(30))
+    >>> t, v, status = span_time(np.outer(np.linspace(0, 50, 11), [c, 0, -s]), Mover(mu=0.2), 0.0)
+    >>> print(f"{v:.4f} m/s in {t:.4f} s, status {status}")
+    17.9019 m/s in 5.5860 s, status 0
+    """
+    from .._traverse import traverse_kernel
+
+    m = points.shape[0]
+    v2 = np.empty(m)
+    v2_mid = np.empty(m - 1)
+    time = np.empty(m)
+    stall = traverse_kernel(points, mover.g, mover.mu, mover.drag, float(v_in_m_s) ** 2, mover.stall_speed ** 2,
+                            mover.normal == "full", np.empty(m), v2, time, np.empty(m), np.empty(m),
+                            np.empty(m, dtype=np.int8), v2_mid, _NO_SURFACE[:m] if m <= len(_NO_SURFACE)
+                            else np.zeros((m, 3)), False)
+    if stall >= 0.0:
+        return math.inf, math.nan, 1
+    if mover.max_speed is not None:
+        vmax2 = mover.max_speed ** 2
+        with np.errstate(invalid="ignore"):
+            over = (v2 > vmax2).any() or (v2_mid > vmax2).any()
+        if over:
+            return float(time[-1]), math.sqrt(v2[-1]), 2
+    return float(time[-1]), math.sqrt(v2[-1]), 0
+
+
+_NO_SURFACE = np.zeros((4096, 3))

@@ -35,7 +35,7 @@ import numpy as np
 
 from ..errors import NoFeasibleLine, ParameterError
 from ..physics import Mover, Profile
-from .run import run_span
+from .run import run_span, span_time
 from .span import Span
 from .spec import CableSpec
 
@@ -131,25 +131,25 @@ class CableLayout:
                 "spans": [vars(s).copy() for s in self.spans], "stats": dict(self.stats)}
 
 
-def break_over_ok(slope_in: float, slope_out: float, jump: float, max_deg: float) -> bool:
+def break_over_ok(slope_in, slope_out: float, jump: float, max_deg: float):
     """The rope bends down over the saddle and its break-over angle stays within ``max_deg``.
 
-    ``slope_in`` and ``slope_out`` are the unloaded rope's slopes (dz/dx along the line)
-    arriving at and leaving the saddle; ``jump = P / H`` is how much a carrier at the
-    saddle steepens either side.
+    ``slope_in`` (a number or an array) and ``slope_out`` are the unloaded rope's slopes
+    (dz/dx along the line) arriving at and leaving the saddle; ``jump = P / H`` is how
+    much a carrier at the saddle steepens either side (the carrier arriving raises the
+    arriving slope, leaving it lowers the leaving one).
 
     Examples
     --------
-    >>> break_over_ok(-0.2, -0.3, 0.1, 20.0)
+    >>> bool(break_over_ok(-0.2, -0.3, 0.1, 20.0))
     True
-    >>> break_over_ok(-0.3, -0.2, 0.1, 20.0)  # the rope would lift off the saddle
+    >>> bool(break_over_ok(-0.3, -0.2, 0.1, 20.0))  # the rope would lift off the saddle
     False
     """
-    a_in, a_out = math.atan(slope_in), math.atan(slope_out)
-    if not a_in - a_out > 0.0:
-        return False
-    worst = max(math.atan(slope_in + jump) - a_out, a_in - math.atan(slope_out - jump))
-    return math.degrees(worst) <= max_deg + _TOL
+    s_in = np.asarray(slope_in, dtype=float)
+    a_in, a_out = np.arctan(s_in), math.atan(slope_out)
+    worst = np.maximum(np.arctan(s_in + jump) - a_out, a_in - math.atan(slope_out - jump))
+    return (a_in - a_out > 0.0) & (np.degrees(worst) <= max_deg + _TOL)
 
 
 @dataclass
@@ -333,79 +333,69 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
 
     # ---- labels over the span graph, sites in order of chainage
     by_supports = spec.objective == "supports"
-    lab_t, lab_v, lab_n, lab_edge, lab_parent = [], [], [], [], []
-    at_edge: dict[int, list[int]] = {}
+    lab_edge, lab_parent = [], []           # per label: the span it ends, the label before it
+    at_edge: dict[int, tuple] = {}          # span -> (ids, time, speed, spans) of its labels
     into: dict[int, list[int]] = {}
     for k, d in enumerate(E.dst):
         into.setdefault(d, []).append(k)
+    s_in_all = np.array(E.s_in)
     runs = pruned = over_cut = 0
     reached = np.zeros(n_sites, dtype=bool)
     reached[0] = True
-
-    def dominated(cand, labels):
-        t, v, n = cand
-        for l in labels:
-            if lab_t[l] <= t and lab_v[l] >= v and (not by_supports or lab_n[l] <= n):
-                return True
-        return False
-
-    def pareto(cands):
-        cands = sorted(cands, key=lambda c: (c[2] if by_supports else 0, c[0], -c[1]))
-        keep = []
-        for c in cands:
-            if not any(k[0] <= c[0] and k[1] >= c[1] and (not by_supports or k[2] <= c[2]) for k in keep):
-                keep.append(c)
-        return keep
-
     fail_runs = [dict() for _ in range(n_sites)]
     for node in range(node0[-1]):
         i = int(np.searchsorted(node0, node, side="right") - 1)
         if not out_of[node]:
             continue
         if i == 0:
-            arriving = [(-1, (0.0, mover.v0, 0, -1))]
+            ids, T, V, N = np.array([-1]), np.array([0.0]), np.array([mover.v0]), np.array([0])
         else:
-            arriving = [(e, (lab_t[l], lab_v[l], lab_n[l], l)) for e in into.get(node, ()) for l in at_edge.get(e, ())]
-        if not arriving:
-            continue
+            parts = [at_edge[e] + (e,) for e in into.get(node, ()) if e in at_edge]
+            if not parts:
+                continue
+            ids, T, V, N = (np.concatenate([p[k] for p in parts]) for k in range(4))
+            S = np.concatenate([np.full(len(p[0]), s_in_all[p[4]]) for p in parts])
         for f in out_of[node]:
-            cands = [lab for e, lab in arriving
-                     if e < 0 or break_over_ok(E.s_in[e], E.s_out[f], jump, spec.max_break_over_deg)]
-            if not cands:
+            if i == 0:
+                sel = np.arange(len(ids))
+            else:
+                sel = np.flatnonzero(break_over_ok(S, E.s_out[f], jump, spec.max_break_over_deg))
+            if not sel.size:
                 fail_runs[i]["break_over"] = fail_runs[i].get("break_over", 0) + 1
                 continue
-            keep = pareto(cands)
-            pruned += len(cands) - len(keep)
+            keep = sel[_pareto(T[sel], V[sel], N[sel], by_supports)]
+            pruned += sel.size - keep.size
             pts3 = _edge_points(plan, E, f, spec)
-            mine = at_edge.setdefault(f, [])
-            for t, v, n, parent in keep:
-                r = run_span(pts3, mover, v)
+            out_t, out_v, out_id = [], [], []
+            for idx in keep:
+                dt, v_out, status = span_time(pts3, mover, V[idx])
                 runs += 1
-                if not r.feasible:
-                    why = "stall" if r.stalled_at_m is not None else "overspeed"
+                if status:
+                    why = "stall" if status == 1 else "overspeed"
                     fail_runs[i][why] = fail_runs[i].get(why, 0) + 1
-                    over_cut += why == "overspeed"
+                    over_cut += status == 2
                     continue
-                cand = (t + r.time_s, r.exit_speed_m_s, n + 1)
-                if dominated(cand, mine):
-                    pruned += 1
-                    continue
-                survivors = [l for l in mine if not (cand[0] <= lab_t[l] and cand[1] >= lab_v[l]
-                                                      and (not by_supports or cand[2] <= lab_n[l]))]
-                pruned += len(mine) - len(survivors)
-                lab_t.append(cand[0]), lab_v.append(cand[1]), lab_n.append(cand[2])
-                lab_edge.append(f), lab_parent.append(parent)
-                survivors.append(len(lab_t) - 1)
-                mine[:] = survivors
-                reached[E.j[f]] = True
+                out_t.append(T[idx] + dt), out_v.append(v_out), out_id.append(idx)
+            if not out_t:
+                continue
+            out_t, out_v, out_id = np.array(out_t), np.array(out_v), np.array(out_id)
+            out_n = N[out_id] + 1
+            best = _pareto(out_t, out_v, out_n, by_supports)
+            pruned += out_t.size - best.size
+            new_ids = np.arange(len(lab_edge), len(lab_edge) + best.size)
+            lab_edge.extend([f] * best.size)
+            lab_parent.extend(int(ids[k]) for k in out_id[best])
+            at_edge[f] = (new_ids, out_t[best], out_v[best], out_n[best])
+            reached[E.j[f]] = True
 
     end_node = int(node0[-1] - 1)
-    finals = [l for e in into.get(end_node, ()) for l in at_edge.get(e, ())]
+    finals = [(int(n) if by_supports else 0, float(t), -float(v), int(l)) for e in into.get(end_node, ())
+              if e in at_edge for l, t, v, n in zip(*at_edge[e])]
     stats = {"sites": n_sites, "nodes": int(node0[-1]), "spans_checked": int(checked), "spans_feasible": len(E.i),
-             "labels": len(lab_t), "runs": runs, "pruned": pruned}
+             "labels": len(lab_edge), "runs": runs, "pruned": pruned}
     if not finals:
         raise _no_layout(plan, spec, heights, reached, blocked, fail_runs, site_ch)
-    best = min(finals, key=lambda l: ((lab_n[l] if by_supports else 0), lab_t[l], -lab_v[l], l))
+    best = min(finals)[3]
     chain = []
     while best >= 0:
         chain.append(best)
@@ -415,11 +405,26 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
                    exact=not (over_cut and pruned))
 
 
+def _pareto(T: np.ndarray, V: np.ndarray, N: np.ndarray, by_supports: bool) -> np.ndarray:
+    """Indices of the labels no other dominates (no later, no slower, with ``by_supports``
+    no more spans; of equal labels the first), in order of (spans,) time."""
+    order = np.lexsort((np.arange(T.size), -V, T, N if by_supports else np.zeros_like(N)))
+    if not by_supports:
+        v = V[order]
+        prev = np.concatenate([[-np.inf], np.maximum.accumulate(v)[:-1]])
+        return order[v > prev]
+    kept: list[int] = []
+    for k in order:
+        if not any(T[q] <= T[k] and V[q] >= V[k] for q in kept):   # kept: no more spans, earlier in order
+            kept.append(int(k))
+    return np.array(kept, dtype=int)
+
+
 def _edge_points(plan: _Plan, E: _Edges, f: int, spec: CableSpec) -> np.ndarray:
     i, j = E.i[f], E.j[f]
     _, zp, _, _, _ = _span_geometry(plan, i, j, [E.ha[f]], [E.hb[f]], spec)
     di, dj = plan.site_dense[i], plan.site_dense[j]
-    return np.column_stack([plan.xy[di:dj + 1], zp[0, 0]])
+    return np.ascontiguousarray(np.column_stack([plan.xy[di:dj + 1], zp[0, 0]]))
 
 
 def _note_blocks(note: dict, plan, i, j, heights, cmin, cmax, ok, spec: CableSpec, L: float) -> None:
