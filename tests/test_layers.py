@@ -34,6 +34,7 @@ LAYERS = [
     ["relax"],
     ["routing"],
     ["export"],
+    ["cable_export"],
     ["plot"],
     ["report"],
     ["scenario"],
