@@ -35,7 +35,8 @@ import numpy as np
 
 from ..errors import NoFeasibleLine, ParameterError
 from ..physics import Mover, Profile
-from .run import run_span, span_time
+from ._runs import runs_kernel
+from .run import run_span
 from .span import Span
 from .spec import CableSpec
 
@@ -343,6 +344,7 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
     reached = np.zeros(n_sites, dtype=bool)
     reached[0] = True
     fail_runs = [dict() for _ in range(n_sites)]
+    v2_max = math.inf if mover.max_speed is None else mover.max_speed ** 2
     for node in range(node0[-1]):
         i = int(np.searchsorted(node0, node, side="right") - 1)
         if not out_of[node]:
@@ -366,19 +368,20 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
             keep = sel[_pareto(T[sel], V[sel], N[sel], by_supports)]
             pruned += sel.size - keep.size
             pts3 = _edge_points(plan, E, f, spec)
-            out_t, out_v, out_id = [], [], []
-            for idx in keep:
-                dt, v_out, status = span_time(pts3, mover, V[idx])
-                runs += 1
-                if status:
-                    why = "stall" if status == 1 else "overspeed"
-                    fail_runs[i][why] = fail_runs[i].get(why, 0) + 1
-                    over_cut += status == 2
-                    continue
-                out_t.append(T[idx] + dt), out_v.append(v_out), out_id.append(idx)
-            if not out_t:
+            dt, v2_out, status = (np.empty(keep.size), np.empty(keep.size), np.empty(keep.size, dtype=np.int8))
+            runs_kernel(pts3, mover.g, mover.mu, mover.drag, V[keep] ** 2, mover.stall_speed ** 2,
+                        mover.normal == "full", v2_max, dt, v2_out, status)
+            runs += keep.size
+            for code, why in ((1, "stall"), (2, "overspeed")):
+                c = int((status == code).sum())
+                if c:
+                    fail_runs[i][why] = fail_runs[i].get(why, 0) + c
+            over_cut += int((status == 2).sum())
+            through = status == 0
+            if not through.any():
                 continue
-            out_t, out_v, out_id = np.array(out_t), np.array(out_v), np.array(out_id)
+            out_id = keep[through]
+            out_t, out_v = T[out_id] + dt[through], np.sqrt(v2_out[through])
             out_n = N[out_id] + 1
             best = _pareto(out_t, out_v, out_n, by_supports)
             pruned += out_t.size - best.size
