@@ -44,6 +44,8 @@ def test_cable_route_summary_and_layout(slope):
         v, total = p.exit_speed_m_s, total + p.travel_time_s
     assert s.travel_time_s == pytest.approx(total, rel=1e-12)
     assert s.exit_speed_m_s == pytest.approx(v, rel=1e-12)
+    # kinetic energy of the 5 kN carrier (mass P/g) at the discharge, in kJ
+    assert s.cable["exit_energy_kj"] == pytest.approx(5.0 / 9.80665 * v * v / 2.0, rel=1e-12)
     assert "brake" in s.caution and "qualified engineer" in s.caution
 
 

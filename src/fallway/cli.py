@@ -409,7 +409,7 @@ def _print_route(r, out_dir, written) -> None:
     if s.cable is not None:
         last = s.cable["spans"][-1]
         click.echo(f"cable: {s.cable['support_count']} supports, {len(s.cable['spans'])} spans; the carrier arrives "
-                   f"at {last['exit_speed_m_s']:.2f} m/s and needs braking there")
+                   f"at {last['exit_speed_m_s']:.2f} m/s with {s.cable['exit_energy_kj']:.1f} kJ and needs braking there")
     click.echo(f"wrote {', '.join(written)} in {out_dir}")
 
 

@@ -3,7 +3,8 @@ returns for ``LineSpec(kind="cable")``.
 
 The route's line is the loaded carrier path (densely sampled), its profile the carrier's
 run, ``Route.cable`` the layout (supports, spans) and ``RouteSummary.cable`` the same as
-plain values.  The terrain read is the plan line's box with a margin of a few cells.
+plain values, with ``exit_energy_kj``: the carrier's kinetic energy at the discharge,
+``(P / g) v² / 2``, what a brake or buffer there must take.  The terrain read is the plan line's box with a margin of a few cells.
 Cable lines are held by their own limits (span, clearance band, break-over angle, the
 mover's speed window): the lattice limits (grade window, turn per step, bend radius,
 lateral and normal load) do not apply to a rope, so a run that sets them is refused.
@@ -75,6 +76,10 @@ def cable_route(src, points, mover: Mover, limits: Limits, line: LineSpec, searc
     plan = np.hypot(d[:, 0], d[:, 1])
     grade = -d[:, 2] / np.where(plan > 0, plan, np.nan)
     start, end = final[0], final[-1]
+    layout = lay.to_dict()
+    v_end = float(prof.speed_m_s[-1])
+    # what the brake at the discharge must take: the carrier's kinetic energy, (P / g) v² / 2
+    layout["exit_energy_kj"] = spec.carrier_load_kn / mover.g * v_end * v_end / 2.0
     summary = RouteSummary(
         line_kind="cable", feasible=True, travel_time_s=lay.travel_time_s,
         exit_speed_m_s=float(prof.speed_m_s[-1]), max_speed_m_s=float(np.nanmax(prof.speed_m_s)),
@@ -91,7 +96,7 @@ def cable_route(src, points, mover: Mover, limits: Limits, line: LineSpec, searc
         caution=CAUTION + " " + CABLE_CAUTION,
         start_given_xy=[float(v) for v in points[0]], end_given_xy=[float(v) for v in points[-1]],
         start_moved_m=0.0, end_moved_m=0.0, start_moved_why=None, end_moved_why=None,
-        min_grade=float(np.nanmin(grade)), cable=lay.to_dict(),
+        min_grade=float(np.nanmin(grade)), cable=layout,
     )
     lattice = LatticeLine(cells=np.empty((0, 2), dtype=int), points=final, profile=prof, time_s=lay.travel_time_s,
                           stats=dict(lay.stats))
