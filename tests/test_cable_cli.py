@@ -86,3 +86,19 @@ def test_cable_without_a_layout_exits_3_and_writes_nothing(tmp_path, ramp):
     assert res.exit_code == 3
     assert res.output.count("\n") == 1 and "no cable layout" in res.output and "station" in res.output
     assert not (out / "summary.json").exists()
+
+
+def test_scenario_cable_section_checked():
+    from fallway.errors import ScenarioError
+    from fallway.scenario import Scenario
+
+    with pytest.raises(ScenarioError, match=r'cable parameters need line.kind = "cable"'):
+        Scenario.from_dict({"cable": {"max_span_m": 100}})
+    with pytest.raises(ScenarioError, match=r"cable.max_span_m must be a finite number > 0"):
+        Scenario.from_dict({"line": {"kind": "cable"}, "cable": {"max_span_m": -1}})
+    with pytest.raises(ScenarioError, match=r"unknown key cable.span"):
+        Scenario.from_dict({"line": {"kind": "cable"}, "cable": {"span": 1}})
+    sc = Scenario.from_dict({"line": {"kind": "cable", "clearance": [1, 9], "start_height": 5},
+                             "cable": {"support_height_m": [3, 9], "objective": "supports"}})
+    assert sc.line.cable.clearance_m == (1.0, 9.0) and sc.line.cable.start_height_m == 5.0
+    assert Scenario.from_dict(sc.to_dict()).line == sc.line

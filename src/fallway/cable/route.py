@@ -30,7 +30,15 @@ __all__ = ["cable_route", "cable_spec_of"]
 
 
 def cable_spec_of(line: LineSpec) -> CableSpec:
-    """The cable parameters of a cable line spec (defaults with its band and end heights)."""
+    """The cable parameters of a cable line spec (defaults with its band and end heights).
+
+    Examples
+    --------
+    >>> cable_spec_of(LineSpec("cable", (2.0, 18.0), 7.0, 5.0)).clearance_m
+    (2.0, 18.0)
+    >>> cable_spec_of(LineSpec("cable", cable=CableSpec(max_span_m=120))).max_span_m
+    120.0
+    """
     if line.cable is not None:
         if not isinstance(line.cable, CableSpec):
             raise ParameterError(f"LineSpec.cable must be a fallway.CableSpec, got {type(line.cable).__name__}")
@@ -60,6 +68,18 @@ def cable_route(src, points, mover: Mover, limits: Limits, line: LineSpec, searc
 
     ``src`` is a terrain source (:func:`fallway.scale.terrain_source`), ``points`` the
     start, angle stations and end (x, y).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from affine import Affine
+    >>> from fallway.scale import terrain_source
+    >>> from fallway.terrain import Terrain
+    >>> t = Terrain.from_array(np.tile(100.0 - np.arange(80.0), (8, 1)), Affine(5, 0, 0, 0, -5, 40))
+    >>> r = cable_route(terrain_source(t), [(10.0, 20.0), (310.0, 20.0)], Mover(mu=0.01), Limits(),
+    ...                 LineSpec("cable", cable=CableSpec(station_step_m=50)), SearchOptions())
+    >>> r.summary.line_kind, r.cable.support_count, round(r.summary.travel_time_s, 2)
+    ('cable', 1, 15.52)
     """
     if limits != Limits():
         raise ParameterError("grade, turn, bend-radius and load limits do not apply to a cable line; leave them "
