@@ -183,3 +183,18 @@ def test_angle_station_carries_a_support():
     via = (122.5, 200.0)
     lay = place_supports(terrain, [(12.5, 100.0), via, (232.5, 120.0)], spec, Mover(mu=0.02))
     assert any(s.x == pytest.approx(via[0]) and s.y == pytest.approx(via[1]) for s in lay.supports[1:-1])
+
+
+def test_speed_resolution_is_flagged_and_close():
+    # reference: the exact search (itself checked against brute force above)
+    terrain = _strip(_rough(5, n=90))
+    spec = dataclasses.replace(SPEC, cable_tension_kn=45, max_break_over_deg=12, station_step_m=20, max_span_m=140)
+    mover = Mover(mu=0.02, drag=0.001)
+    ends = [(12.5, Y), (392.5, Y)]
+    exact = place_supports(terrain, ends, spec, mover)
+    approx = place_supports(terrain, ends, dataclasses.replace(spec, speed_resolution_m_s=0.5), mover)
+    assert exact.exact and exact.stats["resolution_cuts"] == 0
+    assert approx.stats["labels"] < exact.stats["labels"]
+    assert approx.exact == (approx.stats["resolution_cuts"] == 0)
+    assert approx.travel_time_s >= exact.travel_time_s - 1e-12
+    assert approx.travel_time_s <= exact.travel_time_s * 1.02

@@ -62,6 +62,11 @@ class CableSpec:
     sample_m : float or None
         Spacing of the dense samples of ground, cable and carrier path, m (None: at most
         a quarter cell and 1 m, dividing the station step).
+    speed_resolution_m_s : float or None
+        None (default): the exact search.  A speed in m/s: a label is also dropped when
+        another is no later and at most this much slower - an approximate search, far
+        fewer labels on long rough lines; the layout says whether it mattered
+        (``CableLayout.exact``).
 
     Examples
     --------
@@ -86,6 +91,7 @@ class CableSpec:
     max_break_over_deg: float = 20.0
     objective: str = "time"
     sample_m: float | None = None
+    speed_resolution_m_s: float | None = None
 
     def __post_init__(self) -> None:
         for name in ("start_height_m", "end_height_m"):
@@ -97,6 +103,9 @@ class CableSpec:
                      "max_break_over_deg"):
             check_param(name, getattr(self, name))
             object.__setattr__(self, name, float(getattr(self, name)))
+        check_number("speed_resolution_m_s", self.speed_resolution_m_s, allow_none=True, high=1e4, unit="m/s")
+        if self.speed_resolution_m_s is not None:
+            object.__setattr__(self, "speed_resolution_m_s", float(self.speed_resolution_m_s))
         for name in ("station_step_m", "sample_m"):
             check_number(name, getattr(self, name), allow_none=True, strictly_positive=True, high=1e4, unit="m")
             if getattr(self, name) is not None:

@@ -97,7 +97,8 @@ class CableLayout:
         The band the loaded path keeps.
     objective : str
     exact : bool
-        False when a speed cap cut runs while labels were pruned (see the module notes).
+        False when a speed cap cut runs while labels were pruned (see the module notes),
+        or a speed resolution dropped a label the exact search keeps.
     stats : dict
         Sites, nodes, spans checked and feasible, labels, runs.
     """
@@ -345,6 +346,8 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
     reached[0] = True
     fail_runs = [dict() for _ in range(n_sites)]
     v2_max = math.inf if mover.max_speed is None else mover.max_speed ** 2
+    res = spec.speed_resolution_m_s or 0.0
+    approx = 0   # filters where the speed resolution dropped a label the exact filter keeps
     for node in range(node0[-1]):
         i = int(np.searchsorted(node0, node, side="right") - 1)
         if not out_of[node]:
@@ -365,8 +368,10 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
             if not sel.size:
                 fail_runs[i]["break_over"] = fail_runs[i].get("break_over", 0) + 1
                 continue
-            keep = sel[_pareto(T[sel], V[sel], N[sel], by_supports)]
+            keep = sel[_pareto(T[sel], V[sel], N[sel], by_supports, res)]
             pruned += sel.size - keep.size
+            if res:
+                approx += keep.size < _pareto(T[sel], V[sel], N[sel], by_supports).size
             pts3 = _edge_points(plan, E, f, spec)
             dt, v2_out, status = (np.empty(keep.size), np.empty(keep.size), np.empty(keep.size, dtype=np.int8))
             runs_kernel(pts3, mover.g, mover.mu, mover.drag, V[keep] ** 2, mover.stall_speed ** 2,
@@ -383,8 +388,10 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
             out_id = keep[through]
             out_t, out_v = T[out_id] + dt[through], np.sqrt(v2_out[through])
             out_n = N[out_id] + 1
-            best = _pareto(out_t, out_v, out_n, by_supports)
+            best = _pareto(out_t, out_v, out_n, by_supports, res)
             pruned += out_t.size - best.size
+            if res:
+                approx += best.size < _pareto(out_t, out_v, out_n, by_supports).size
             new_ids = np.arange(len(lab_edge), len(lab_edge) + best.size)
             lab_edge.extend([f] * best.size)
             lab_parent.extend(int(ids[k]) for k in out_id[best])
@@ -395,7 +402,7 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
     finals = [(int(n) if by_supports else 0, float(t), -float(v), int(l)) for e in into.get(end_node, ())
               if e in at_edge for l, t, v, n in zip(*at_edge[e])]
     stats = {"sites": n_sites, "nodes": int(node0[-1]), "spans_checked": int(checked), "spans_feasible": len(E.i),
-             "labels": len(lab_edge), "runs": runs, "pruned": pruned}
+             "labels": len(lab_edge), "runs": runs, "pruned": pruned, "resolution_cuts": approx}
     if not finals:
         raise _no_layout(plan, spec, heights, reached, blocked, fail_runs, site_ch)
     best = min(finals)[3]
@@ -405,20 +412,21 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
         best = lab_parent[best]
     chain.reverse()
     return _layout(plan, E, [lab_edge[l] for l in chain], spec, mover, stats,
-                   exact=not (over_cut and pruned))
+                   exact=not (over_cut and pruned) and not approx)
 
 
-def _pareto(T: np.ndarray, V: np.ndarray, N: np.ndarray, by_supports: bool) -> np.ndarray:
-    """Indices of the labels no other dominates (no later, no slower, with ``by_supports``
-    no more spans; of equal labels the first), in order of (spans,) time."""
+def _pareto(T: np.ndarray, V: np.ndarray, N: np.ndarray, by_supports: bool, res: float = 0.0) -> np.ndarray:
+    """Indices of the labels no other dominates (no later, no slower - or, with ``res`` > 0,
+    at most ``res`` slower - and with ``by_supports`` no more spans; of equal labels the
+    first), in order of (spans,) time."""
     order = np.lexsort((np.arange(T.size), -V, T, N if by_supports else np.zeros_like(N)))
-    if not by_supports:
+    if not by_supports and res == 0.0:
         v = V[order]
         prev = np.concatenate([[-np.inf], np.maximum.accumulate(v)[:-1]])
         return order[v > prev]
     kept: list[int] = []
     for k in order:
-        if not any(T[q] <= T[k] and V[q] >= V[k] for q in kept):   # kept: no more spans, earlier in order
+        if not any(T[q] <= T[k] and V[q] >= V[k] - res for q in kept):   # kept: no more spans, earlier in order
             kept.append(int(k))
     return np.array(kept, dtype=int)
 
