@@ -368,10 +368,10 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
             if not sel.size:
                 fail_runs[i]["break_over"] = fail_runs[i].get("break_over", 0) + 1
                 continue
-            keep = sel[_pareto(T[sel], V[sel], N[sel], by_supports, res)]
+            kept, cut = _pareto(T[sel], V[sel], N[sel], by_supports, res)
+            keep = sel[kept]
             pruned += sel.size - keep.size
-            if res:
-                approx += keep.size < _pareto(T[sel], V[sel], N[sel], by_supports).size
+            approx += cut
             pts3 = _edge_points(plan, E, f, spec)
             dt, v2_out, status = (np.empty(keep.size), np.empty(keep.size), np.empty(keep.size, dtype=np.int8))
             runs_kernel(pts3, mover.g, mover.mu, mover.drag, V[keep] ** 2, mover.stall_speed ** 2,
@@ -388,10 +388,9 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
             out_id = keep[through]
             out_t, out_v = T[out_id] + dt[through], np.sqrt(v2_out[through])
             out_n = N[out_id] + 1
-            best = _pareto(out_t, out_v, out_n, by_supports, res)
+            best, cut = _pareto(out_t, out_v, out_n, by_supports, res)
             pruned += out_t.size - best.size
-            if res:
-                approx += best.size < _pareto(out_t, out_v, out_n, by_supports).size
+            approx += cut
             new_ids = np.arange(len(lab_edge), len(lab_edge) + best.size)
             lab_edge.extend([f] * best.size)
             lab_parent.extend(int(ids[k]) for k in out_id[best])
@@ -415,20 +414,35 @@ def place_supports(terrain, points, spec: CableSpec, mover: Mover, *, no_support
                    exact=not (over_cut and pruned) and not approx)
 
 
-def _pareto(T: np.ndarray, V: np.ndarray, N: np.ndarray, by_supports: bool, res: float = 0.0) -> np.ndarray:
-    """Indices of the labels no other dominates (no later, no slower - or, with ``res`` > 0,
-    at most ``res`` slower - and with ``by_supports`` no more spans; of equal labels the
-    first), in order of (spans,) time."""
+def _pareto(T: np.ndarray, V: np.ndarray, N: np.ndarray, by_supports: bool, res: float = 0.0):
+    """The labels no other dominates: no later, no slower - or, with ``res`` > 0, at most
+    ``res`` slower - and with ``by_supports`` no more spans; of equal labels the first.
+
+    Returns ``(indices, cut)``: the kept labels in order of (spans,) time, and whether the
+    resolution dropped a label the exact filter keeps.  With a resolution the kept labels
+    are a thinning of the exact front (a label the exact filter drops has a dominator on
+    the front, which is kept or dropped for a kept label no slower than it less ``res``).
+    """
     order = np.lexsort((np.arange(T.size), -V, T, N if by_supports else np.zeros_like(N)))
-    if not by_supports and res == 0.0:
+    if not by_supports:
         v = V[order]
         prev = np.concatenate([[-np.inf], np.maximum.accumulate(v)[:-1]])
-        return order[v > prev]
-    kept: list[int] = []
-    for k in order:
-        if not any(T[q] <= T[k] and V[q] >= V[k] - res for q in kept):   # kept: no more spans, earlier in order
-            kept.append(int(k))
-    return np.array(kept, dtype=int)
+        front = order[v > prev]          # times rising, speeds rising
+    else:
+        kept: list[int] = []
+        for k in order:
+            if not any(T[q] <= T[k] and V[q] >= V[k] for q in kept):   # kept: no more spans, earlier in order
+                kept.append(int(k))
+        front = np.array(kept, dtype=int)
+    if res == 0.0 or front.size < 2:
+        return front, False
+    thin: list[int] = []
+    for k in front:
+        # time objective: the last kept label is the fastest kept so far, and no later
+        near = thin if by_supports else thin[-1:]
+        if not any(T[q] <= T[k] and V[q] >= V[k] - res for q in near):
+            thin.append(int(k))
+    return np.array(thin, dtype=int), len(thin) < front.size
 
 
 def _edge_points(plan: _Plan, E: _Edges, f: int, spec: CableSpec) -> np.ndarray:
