@@ -25,6 +25,7 @@ if TYPE_CHECKING:  # the same names, for type checkers and editors
     from .terrain import Terrain, load_terrain
     from .physics import Profile, SegmentResult, normal_gravity, segment, traverse
     from .keepout import Keepout
+    from .cable import CableLayout, CableSpec, place_supports
     from .results import LatticeLine, ReachMap, RefineCandidate, RefineResult, Route, RouteSummary
     from .refine import refine_line
     from .clearance import clearance_along, clearance_extremes
@@ -73,6 +74,9 @@ _EXPORTS = {
     "clearance_along": "clearance",
     "clearance_extremes": "clearance",
     "Keepout": "keepout",
+    "CableSpec": "cable",
+    "CableLayout": "cable",
+    "place_supports": "cable",
     "LatticeLine": "results",
     "ReachMap": "results",
     "RefineCandidate": "results",

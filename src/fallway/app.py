@@ -41,7 +41,7 @@ DEMO_FILES = ROUTE_FILES + ("reach.tif", "comparison.csv", "comparison.png", "co
 CRAWL_SPEED_M_S = 0.01
 # the result names of a route run: every file it can write (run.json only with timings),
 # so an overwrite also removes a stale run.json of an earlier run
-_ROUTE_RESULTS = ROUTE_FILES + ("run.json",)
+_ROUTE_RESULTS = ROUTE_FILES + ("supports.csv", "spans.csv", "run.json",)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -295,6 +295,10 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     stations = station_table(route, sc.station_step_m)
     export.write_stations_csv(stations, outs.path("stations.csv"))
     write_route_dxf(route, outs.path("route.dxf"), stations)
+    if route.cable is not None:  # a cable line's supports and spans (fallway.cable)
+        from .cable_export import write_spans_csv, write_supports_csv
+        write_supports_csv(route.cable, outs.path("supports.csv"))
+        write_spans_csv(route.cable, outs.path("spans.csv"))
     with export.atomic_write(outs.path("scenario.toml")) as fh:
         fh.write(sc.to_toml())
     ax = plot.plot_map(terrain, route, reach=reach, keepout=route.keepout)

@@ -279,6 +279,14 @@ def _overrides(dem, start, end, via, lonlat, mu, drag, v0, gravity, normal, neig
         d["envelope"]["mu_range"] = list(extra["mu_range"])
     if extra.get("station_step") is not None:
         d["outputs"] = {"station_step": float(extra["station_step"])}
+    # cable options -> keys of the scenario's [cable] section
+    cable = {key: extra[opt] for opt, key in (
+        ("support_height", "support_height_m"), ("max_span", "max_span_m"), ("cable_tension", "cable_tension_kn"),
+        ("carrier_load", "carrier_load_kn"), ("cable_weight", "cable_weight_n_m"), ("support_step", "station_step_m"),
+        ("height_step", "height_step_m"), ("max_break_over", "max_break_over_deg"), ("objective", "objective"))
+        if extra.get(opt) is not None}
+    if cable:
+        d["cable"] = {k: list(v) if isinstance(v, tuple) else v for k, v in cable.items()}
     return d
 
 
@@ -342,10 +350,23 @@ def _examples(*lines: str) -> str:
 @_point_opt("--end", help="Discharge point.")
 @_point_opt("--via", multiple=True, help="A point the line must pass (repeatable, in order).")
 @_common_options
-@click.option("--line", "kind", type=click.Choice(["ground", "raised"]), help="On the ground, or raised (trestle, flume).")
-@click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m.")
-@click.option("--start-height", type=float, help="Raised line: height above ground at the start, m (default MIN).")
-@click.option("--end-height", type=float, help="Raised line: height above ground at the end, m (default MIN).")
+@click.option("--line", "kind", type=click.Choice(["ground", "raised", "cable"]),
+              help="On the ground, raised (trestle, flume), or a cable on supports placed by search.")
+@click.option("--clearance", type=(float, float), metavar="MIN MAX", help="Raised line: height band above ground, m. "
+              "Cable: band of the loaded carrier path above ground (MAX: rescue height), m.")
+@click.option("--start-height", type=float, help="Raised line or cable: height above ground at the start, m.")
+@click.option("--end-height", type=float, help="Raised line or cable: height above ground at the end, m.")
+@click.option("--support-height", type=(float, float), metavar="MIN MAX", help="Cable: height range of a support, m.")
+@click.option("--max-span", type=float, help="Cable: longest span between supports (plan), m.")
+@click.option("--cable-tension", type=float, help="Cable: horizontal cable tension, kN.")
+@click.option("--carrier-load", type=float, help="Cable: gross load of the carrier, kN.")
+@click.option("--cable-weight", type=float, help="Cable: weight of the cable, N/m.")
+@click.option("--support-step", type=float, help="Cable: spacing of candidate support sites along the line, m "
+              "(default one cell).")
+@click.option("--height-step", type=float, help="Cable: step of the support heights tried, m (default 1).")
+@click.option("--max-break-over", type=float, help="Cable: largest break-over angle of the rope over a support, degrees.")
+@click.option("--objective", type=click.Choice(["time", "supports"]),
+              help="Cable: the fastest carrier run (default) or the fewest supports (time breaks ties).")
 @click.option("--height-layers", type=int, help="Raised line: height layers of the search over the band (default 16).")
 @click.option("--straight-plan", is_flag=True, default=None, help="Raised line: the plan is the straight line from start "
               "to end; only the vertical profile is free.")
@@ -408,6 +429,10 @@ def _print_route(r, out_dir, written) -> None:
         lo, hi = env.exit_speed_range_m_s
         rng = "stalls" if lo is None or hi is None else f"{hi:.2f} to {lo:.2f} m/s"
         click.echo(f"friction {env.mu_lo:g} to {env.mu_hi:g}: {env.verdict}; exit speed {rng}")
+    if s.cable is not None:
+        last = s.cable["spans"][-1]
+        click.echo(f"cable: {s.cable['support_count']} supports, {len(s.cable['spans'])} spans; the carrier arrives "
+                   f"at {last['exit_speed_m_s']:.2f} m/s with {s.cable['exit_energy_kj']:.1f} kJ and needs braking there")
     click.echo(f"wrote {', '.join(written)} in {out_dir}")
 
 

@@ -787,8 +787,10 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
     """Write the route as RFC 7946 GeoJSON: WGS 84 lon/lat, a LineString with z.
 
     A FeatureCollection with one Feature whose properties are the route summary, its
-    points in lon/lat, and the inputs (:func:`geojson_properties`), plus ``source_crs``;
-    no ``crs`` member.  Coordinates to 7 decimals (about 1 cm), heights to millimetres.  The reprojection is pyproj's (``always_xy``); heights are the
+    points in lon/lat, and the inputs (:func:`geojson_properties`), plus ``source_crs``
+    (for a cable line also one Point feature per support, ``feature = "support"``); no
+    ``crs`` member.  Coordinates to 7 decimals (about 1 cm), heights to millimetres.  The
+    reprojection is pyproj's (``always_xy``); heights are the
     DEM's, unchanged (RFC 7946 asks for ellipsoidal heights: a DEM's orthometric
     heights differ by the geoid undulation; the ``height_reference`` property says
     so).  A line crossing the antimeridian becomes a MultiLineString (RFC 7946 §3.1.9).
@@ -845,6 +847,13 @@ def write_route_geojson(route, path: str | os.PathLike, crs) -> Path:
         bbox = None  # a bbox across the antimeridian needs west > east; leave it out
     doc = {"type": "FeatureCollection",
            "features": [{"type": "Feature", "properties": props, "geometry": geometry}]}
+    cable = getattr(route, "cable", None)
+    if cable is not None:  # a cable line: one Point feature per support (end stations included)
+        sx, sy = tr.transform([s.x for s in cable.supports], [s.y for s in cable.supports], errcheck=True)
+        for k, (s, lon_s, lat_s) in enumerate(zip(cable.supports, sx, sy)):
+            doc["features"].append({"type": "Feature", "geometry": {"type": "Point", "coordinates": _geojson_coords(
+                np.array([[lon_s, lat_s, s.top_z_m]]))[0]}, "properties": {
+                "feature": "support", "index": k, **to_jsonable(dataclasses.asdict(s))}})
     if bbox is not None:
         doc["bbox"] = bbox
     text = json.dumps(doc, sort_keys=True, indent=1, allow_nan=False, ensure_ascii=False)
@@ -975,7 +984,8 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
     Layers: ``line`` (the reported line; fields = the route summary, nested entries
     flattened with ``_``, lists as JSON text) and ``lattice`` (the lattice line;
     fields time_s, length_m, plan_length_m, drop_m, n_vertices, travel_time_s,
-    exit_speed_m_s).
+    exit_speed_m_s); for a cable line a third, ``supports`` (Point Z at each support's
+    top, end stations included; the columns of ``supports.csv``).
 
     Parameters
     ----------
@@ -1019,6 +1029,15 @@ def write_route_gpkg(route, path: str | os.PathLike, crs) -> Path:
                                   geometry_type="LineString Z", crs=wkt)
                 pyogrio.raw.write(tmp, lat_wkb, arrays2, names2, layer="lattice", driver="GPKG",
                                   geometry_type="LineString Z", crs=wkt, append=True)
+                cable = getattr(route, "cable", None)
+                if cable is not None:  # a cable line's supports, end stations included
+                    sup = cable.supports
+                    wkb = np.array([shapely.to_wkb(shapely.points(s.x, s.y, s.top_z_m), output_dimension=3)
+                                    for s in sup], dtype=object)
+                    cols = [f.name for f in dataclasses.fields(sup[0])]
+                    pyogrio.raw.write(tmp, wkb, [np.array([getattr(s, c) for s in sup], dtype=float) for c in cols],
+                                      cols, layer="supports", driver="GPKG", geometry_type="Point Z", crs=wkt,
+                                      append=True)
         except OSError:
             raise
         except Exception as err:  # pyogrio's DataSourceError / FieldError

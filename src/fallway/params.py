@@ -30,8 +30,8 @@ STANDARD_GRAVITY = 9.80665
 
 _NORMAL_MODELS = ("gravity", "full")
 
-#: Line kinds: on the terrain surface, or raised within a clearance band.
-LINE_KINDS = ("ground", "raised")
+#: Line kinds: on the terrain surface, raised within a clearance band, or a cable on supports.
+LINE_KINDS = ("ground", "raised", "cable")
 #: Lattice stencils.
 NEIGHBOURHOODS = (8, 16, 32)
 #: Search plans: chosen from the estimate ("auto"), the full grid, or coarse-to-fine.
@@ -62,12 +62,22 @@ RANGES: dict[str, tuple[float, float, str]] = {
     "end_height_m": (0.0, 1e4, "m"),
     "min_radius_m": (0.0, math.inf, "m"),
     "corridor_m": (0.0, math.inf, "m"),
+    # cable lines (fallway.cable): heights of supports and clearance as for a raised line;
+    # a span of 10 km and a tension of 1e5 kN lie beyond any cable line built
+    "support_height_m": (0.0, 1e4, "m"),
+    "height_step_m": (0.0, 1e4, "m"),
+    "max_span_m": (0.0, 1e4, "m"),
+    "cable_tension_kn": (0.0, 1e5, "kN"),
+    "carrier_load_kn": (0.0, 1e5, "kN"),
+    "cable_weight_n_m": (0.0, 1e5, "N/m"),
+    "max_break_over_deg": (0.0, 90.0, "°"),
 }
 #: The most labels a search can hold: the kernel counts them in int32 (the bound of
 #: ``label_cap`` and ``max_labels``).
 MAX_LABELS = 2 ** 31 - 1
 #: Parameters whose range excludes its lower end.
-ABOVE_LOW = frozenset({"g", "max_speed", "min_radius_m", "corridor_m"})
+ABOVE_LOW = frozenset({"g", "max_speed", "min_radius_m", "corridor_m", "height_step_m", "max_span_m",
+                       "cable_tension_kn", "max_break_over_deg"})
 
 
 def check_number(name: str, value, *, low: float = 0.0, allow_none: bool = False,
@@ -281,16 +291,22 @@ class LineSpec:
 
     Parameters
     ----------
-    kind : {"ground", "raised"}
+    kind : {"ground", "raised", "cable"}
         ``"ground"``: the line lies on the terrain surface (an open chute, a conveyor on
         the ground).  ``"raised"``: a trestle, an elevated chute or a flume on posts, its
-        height free within the clearance band.
+        height free within the clearance band.  ``"cable"``: a carrier on a tensioned
+        cable, straight in plan between its stations, on supports placed by search
+        (:mod:`fallway.cable`).
     clearance_m : (float, float)
         ``(min, max)`` height of a raised line above the ground, metres, ``0 <= min <= max``.
     start_height_m, end_height_m : float or None
         Height of a raised line above the ground at its two ends, metres, within the
-        band.  None (default): the band's lower edge for a raised line, 0 for a ground
-        line; after construction both are numbers.
+        band.  None (default): the band's lower edge for a raised or cable line, 0 for a
+        ground line; after construction both are numbers.
+    cable : fallway.cable.CableSpec or None
+        The cable's parameters (kind ``"cable"`` only; None: :class:`~fallway.cable.CableSpec`
+        defaults with this spec's band and end heights).  When given, its band and end
+        heights are this spec's.
     height_layers : int
         Raised line: height layers of the lattice search, spread evenly over the band
         (:mod:`fallway.lattice.raised`); 2 to 256, default 16.
@@ -304,10 +320,10 @@ class LineSpec:
     'ground'
     >>> LineSpec("raised", (0.5, 15.0), 8.0, 2.0).clearance_m
     (0.5, 15.0)
-    >>> LineSpec("cable")
+    >>> LineSpec("rope")
     Traceback (most recent call last):
     ...
-    fallway.errors.ParameterError: line kind must be one of ground, raised; got 'cable'
+    fallway.errors.ParameterError: line kind must be one of ground, raised, cable; got 'rope'
     """
 
     kind: str = "ground"
@@ -316,6 +332,7 @@ class LineSpec:
     end_height_m: float | None = None
     height_layers: int = 16
     straight_plan: bool = False
+    cable: object = None
 
     def __post_init__(self) -> None:
         if isinstance(self.height_layers, bool) or not isinstance(self.height_layers, int) \
@@ -327,6 +344,11 @@ class LineSpec:
             raise ParameterError(f"line kind must be one of {', '.join(LINE_KINDS)}; got {self.kind!r}")
         if self.straight_plan and self.kind != "raised":
             raise ParameterError("straight_plan is for a raised line (kind 'raised', --line raised)")
+        if self.cable is not None:
+            if self.kind != "cable":
+                raise ParameterError(f"cable parameters are for a line of kind 'cable', not {self.kind!r}")
+            for name in ("clearance_m", "start_height_m", "end_height_m"):
+                object.__setattr__(self, name, getattr(self.cable, name))
         try:
             lo, hi = (float(v) for v in self.clearance_m)
         except (TypeError, ValueError):
@@ -337,7 +359,7 @@ class LineSpec:
         object.__setattr__(self, "clearance_m", (lo, hi))
         for name in ("start_height_m", "end_height_m"):
             if getattr(self, name) is None:
-                object.__setattr__(self, name, lo if self.kind == "raised" else 0.0)
+                object.__setattr__(self, name, lo if self.kind in ("raised", "cable") else 0.0)
             check_param(name, getattr(self, name))
             h = float(getattr(self, name))
             object.__setattr__(self, name, h)

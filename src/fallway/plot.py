@@ -507,9 +507,16 @@ def plot_map(terrain, route=None, *, reach=None, keepout=None, ax=None, view="au
                 markersize=8, linestyle="none", zorder=6, label="reach start", gid="fallway-reach-start")
 
     if route is not None:
-        lat = np.asarray(route.lattice.points, dtype=float)
-        ax.plot(lat[:, 0], lat[:, 1], color=_LATTICE_COLOUR, linestyle="--", linewidth=1.3, zorder=5,
-                label=f"lattice line ({route.summary.lattice_time_s or route.lattice.time_s:.1f} s)", gid="fallway-lattice")
+        cable = getattr(route, "cable", None)
+        if cable is None:
+            lat = np.asarray(route.lattice.points, dtype=float)
+            ax.plot(lat[:, 0], lat[:, 1], color=_LATTICE_COLOUR, linestyle="--", linewidth=1.3, zorder=5,
+                    label=f"lattice line ({route.summary.lattice_time_s or route.lattice.time_s:.1f} s)",
+                    gid="fallway-lattice")
+        else:  # a cable line: its supports (fallway.cable)
+            ax.plot([p.x for p in cable.supports[1:-1]], [p.y for p in cable.supports[1:-1]], marker="o",
+                    color="#1c2833", markeredgecolor="white", markersize=7, linestyle="none", zorder=8,
+                    label=f"supports ({cable.support_count})", gid="fallway-cable-supports")
         line = np.asarray(route.line, dtype=float)
         tt = route.summary.travel_time_s
         lbl = f"line ({float(tt):.1f} s)" if isinstance(tt, (int, float)) and math.isfinite(float(tt)) else "line"
@@ -556,6 +563,22 @@ def _spans(mask: np.ndarray, station: np.ndarray):
         else:
             i += 1
     return out
+
+
+def _cable_section(ax, lay, s) -> None:
+    """A cable line's long-section: supports, unloaded cable, clearance band (fallway.cable)."""
+    ch = np.asarray(lay.chainage_m, dtype=float)
+    lo, hi = lay.clearance_m
+    g = np.asarray(lay.ground_z, dtype=float)
+    band = ax.fill_between(s, g + lo, g + hi, color="#85c1e9", alpha=0.25, zorder=1.5,
+                           label=f"clearance band {lo:g}-{hi:g} m")
+    band.set_gid("fallway-cable-band")
+    ax.plot(s, lay.unloaded_z, color="#566573", linewidth=1.0, linestyle="--", zorder=3, label="unloaded cable",
+            gid="fallway-cable-unloaded")
+    at = np.searchsorted(ch, [p.station_m for p in lay.supports]).clip(0, len(s) - 1)
+    sup = ax.vlines(s[at], [p.ground_z_m for p in lay.supports], [p.top_z_m for p in lay.supports],
+                    colors="#1c2833", linewidth=2.0, zorder=5, label="supports")
+    sup.set_gid("fallway-supports")
 
 
 def plot_profile(route, terrain, *, ax=None):
@@ -616,6 +639,9 @@ def plot_profile(route, terrain, *, ax=None):
         band = ax.fill_between(sd, zd + lo, zd + hi, color="#5dade2", alpha=0.25, zorder=2, linewidth=0,
                                label=f"clearance band {lo:g}-{hi:g} m")
         band.set_gid("fallway-band")
+    cable = getattr(route, "cable", None)
+    if cable is not None:
+        _cable_section(ax, cable, s)
     elif raised.any():
         idx = np.flatnonzero(raised)
         if idx.size > 60:

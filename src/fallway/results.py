@@ -273,6 +273,9 @@ class RouteSummary:
         (:mod:`fallway.lattice.gap`; ``inf`` when the budget ran out before any lower
         bound).  None when no bound holds: a label cap (``label_cap``), the corridor
         plan (the corridor is not the whole grid) or the robust plan.
+    cable : dict or None
+        A cable line's layout (:meth:`fallway.cable.CableLayout.to_dict`: objective,
+        support count, supports, spans); None for other kinds.
     """
 
     line_kind: str
@@ -330,6 +333,7 @@ class RouteSummary:
     min_clearance_station_m: float | None = None
     max_clearance_m: float | None = None
     max_clearance_station_m: float | None = None
+    cable: dict | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields in order, as plain values (what ``summary.json`` holds)."""
@@ -363,6 +367,9 @@ class Route:
     compute_s : dict
         Seconds of computing per stage (not travel times): ``search``, ``refine``,
         ``total``, and the corridor steps.
+    cable : CableLayout or None
+        A cable line's supports, spans and carrier run (:mod:`fallway.cable`); None for
+        other kinds.
     """
 
     line: np.ndarray
@@ -378,6 +385,7 @@ class Route:
     keepout: Any = None
     envelope: Any = None
     compute_s: dict = field(default_factory=dict)
+    cable: Any = None
 
     @property
     def travel_time_s(self) -> float | None:

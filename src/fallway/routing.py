@@ -39,6 +39,7 @@ import warnings
 
 import numpy as np
 
+from .cable.route import cable_route
 from .caution import CAUTION
 from .clearance import clearance_extremes
 from .errors import InputWarning, NoFeasibleLine, ParameterError, RefinementWarning, TerrainError
@@ -111,7 +112,9 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
     keepout : Keepout or bool mask, optional
         No-go areas (a mask, of the terrain's shape, only with an in-memory terrain).
     line : LineSpec, optional
-        Ground (default) or raised, with its clearance band and end heights.
+        Ground (default) or raised, with its clearance band and end heights; or a cable
+        on supports (``LineSpec("cable", cable=CableSpec(...))``: :mod:`fallway.cable`;
+        the points are the stations, via points the angle stations).
     search : SearchOptions, optional
         Stencil, label cap and budget, plan (module notes).
     refine : bool
@@ -183,6 +186,11 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         raise ParameterError("the robust search is for ground lines; leave robust off for a raised line")
     points = [_xy(start, "start")] + [_xy(p, f"via point {i + 1}") for i, p in enumerate(via)] + [_xy(end, "end")]
     src = terrain_source(terrain, keepout)
+    if line.kind == "cable":  # supports placed by search over the span graph (fallway.cable)
+        if mu_range is not None or robust:
+            raise ParameterError("a friction range and the robust search are not available for cable lines yet")
+        route = cable_route(src, points, mover, limits, line, search)
+        return dataclasses.replace(route, compute_s={**route.compute_s, "total": time.perf_counter() - t_start})
     plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
     job = _Job(mover=mover, limits=limits, line=line, search=search, refine=bool(refine), via=tuple(points[1:-1]))
     explain = bool(workable) and plan != "robust"

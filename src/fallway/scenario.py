@@ -57,6 +57,16 @@ Layout (every section and key optional; unknown keys are rejected)::
 
     [outputs]
     station_step = 10.0              # interval of the chainage table stations.csv, m
+    [cable]                          # fallway.CableSpec (with line.kind = "cable"; the band
+    support_height_m = [4.0, 15.0]   # and end heights come from [line])
+    max_span_m = 300.0
+    cable_tension_kn = 50.0
+    carrier_load_kn = 5.0
+    cable_weight_n_m = 20.0
+    objective = "time"               # or "supports"
+    station_step_m = 10.0
+    height_step_m = 1.0
+    max_break_over_deg = 20.0
 """
 
 from __future__ import annotations
@@ -68,6 +78,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FallwayError, ParameterError, ScenarioError
+from .cable.spec import CableSpec
 from .params import Limits, LineSpec, Mover, SearchOptions
 
 __all__ = ["Scenario", "load_scenario", "read_toml", "check_value", "kind_of"]
@@ -87,6 +98,8 @@ _SCHEMA: dict[str, Any] = {
              "straight_plan": bool},
     "envelope": {"mu_range": "pair"},
     "outputs": {"station_step": float},
+    "cable": {f.name: f.name for f in fields(CableSpec)
+              if f.name not in ("start_height_m", "end_height_m", "clearance_m")},
 }
 
 
@@ -262,6 +275,8 @@ class Scenario:
             lk["height_layers"] = _count("line.height_layers", line["height_layers"])
         if "straight_plan" in line:
             lk["straight_plan"] = _bool("line.straight_plan", line["straight_plan"])
+        if "cable" in data or lk.get("kind") == "cable":
+            lk["cable"] = _cable(data.get("cable", {}), lk)
         try:
             kw["line"] = LineSpec(**lk)
         except ParameterError as err:
@@ -317,11 +332,36 @@ class Scenario:
             d["envelope"] = {"mu_range": list(self.mu_range)}
         if self.station_step_m != 10.0:
             d["outputs"] = {"station_step": self.station_step_m}
+        if self.line.cable is not None:
+            d["cable"] = {k: (list(v) if isinstance(v, tuple) else v) for k, v in asdict(self.line.cable).items()
+                          if v is not None and k in _SCHEMA["cable"]}
         return d
 
     def to_toml(self) -> str:
         """The resolved scenario as TOML text (readable back with :func:`load_scenario`)."""
         return dumps_toml(self.to_dict())
+
+
+def _cable(values: dict, line: dict) -> CableSpec:
+    """The [cable] section with the band and end heights of [line]."""
+    if line.get("kind") != "cable":
+        raise ScenarioError(f"cable parameters need line.kind = \"cable\", got {line.get('kind', 'ground')!r}")
+    kw = {}
+    for key, value in values.items():
+        if key == "support_height_m":
+            kw[key] = tuple(_number("cable.support_height_m", v) for v in _pair("cable.support_height_m", value))
+        elif key == "objective":
+            kw[key] = _text("cable.objective", value)
+        else:
+            kw[key] = _number(f"cable.{key}", value)
+    for src, dst in (("clearance_m", "clearance_m"), ("start_height_m", "start_height_m"),
+                     ("end_height_m", "end_height_m")):
+        if src in line:
+            kw[dst] = line[src]
+    try:
+        return CableSpec(**kw)
+    except ParameterError as err:
+        raise ScenarioError(f"cable.{err}") from err
 
 
 def _bool(key: str, value) -> bool:
