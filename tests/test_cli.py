@@ -218,6 +218,20 @@ def test_demo_writes_every_output(tmp_path):
     with open(out / "profile.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert float(rows[-1]["time_s"]) == pytest.approx(summary["travel_time_s"], rel=1e-6)
+    # the second scenario: a cable line on supports in its own folder, with its own report;
+    # the carrier path in profile.csv is re-timed by the incline law span by span in
+    # tests/test_cable_route.py, here the files agree with each other
+    cable = out / "cable"
+    for name in ("route.geojson", "profile.csv", "summary.json", "report.html", "supports.csv", "spans.csv",
+                 "profile.pdf", "stations.csv", "route.dxf"):
+        assert (cable / name).is_file(), name
+    cs = json.loads((cable / "summary.json").read_text())
+    assert cs["line_kind"] == "cable" and cs["feasible"]
+    with open(cable / "spans.csv", newline="") as fh:
+        spans = list(csv.DictReader(fh))
+    assert sum(float(r["time_s"]) for r in spans) == pytest.approx(cs["travel_time_s"], abs=1e-3 * len(spans))
+    assert len(spans) == cs["cable"]["support_count"] + 1
+    assert "cable" in res.output
 
 
 def test_route_corridor_plan_matches_the_incline_formula(tmp_path, ramp):

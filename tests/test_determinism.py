@@ -144,9 +144,10 @@ def test_batch_byte_identical(tmp_path):
 
 @pytest.mark.slow
 def test_demo_byte_identical(tmp_path):
-    from fallway.app import DEMO_FILES
+    from fallway.app import DEMO_CABLE_DIR, DEMO_FILES, ROUTE_FILES
 
     _cli("demo", "--out", tmp_path / "a")
     time.sleep(1.1)
     _cli("demo", "--out", tmp_path / "b")
-    _same_files(tmp_path / "a", tmp_path / "b", DEMO_FILES)
+    cable = [f"{DEMO_CABLE_DIR}/{n}" for n in ROUTE_FILES + ("supports.csv", "spans.csv")]
+    _same_files(tmp_path / "a", tmp_path / "b", DEMO_FILES + tuple(cable))

@@ -34,6 +34,8 @@ CORE_FILES = ("summary.json", "route.geojson", "profile.csv")
 COMPARE_FILES = ("comparison.csv", "comparison.png", "comparison.svg", "report.html")
 #: The files the demo writes.
 DEMO_FILES = ROUTE_FILES + ("reach.tif", "comparison.csv", "comparison.png", "comparison.svg")
+#: The demo's folder for its second scenario, a cable line on supports (``sample_terrain/cable.toml``).
+DEMO_CABLE_DIR = "cable"
 #: Mean speed (m/s) below which a line counts as a crawl when the mover has no stall speed.
 #: 1 cm/s, 100 s per metre: far below any chute, conveyor, slide or cable line in use, so
 #: only a line that a real load would never finish (drag so high that the terminal speed
@@ -410,7 +412,9 @@ def _write_reach_map(sc, site, rm, path):
 
 @checked_options
 def run_demo(out_dir, *, overwrite: bool = False):
-    """The whole job on the bundled, invented sample site; returns ``(route, comparison, written)``."""
+    """The whole job on the bundled, invented sample site: the chute scenario (route, reach,
+    comparison) in ``out_dir`` and the cable-line scenario in ``out_dir/cable``; returns
+    ``(route, comparison, written, cable_route)``."""
     from importlib.resources import as_file, files
 
     from .export import OutputSet, write_reach_geotiff
@@ -423,7 +427,12 @@ def run_demo(out_dir, *, overwrite: bool = False):
         sc = load_scenario(Path(site_dir) / "scenario.toml")
         lines_path = Path(site_dir) / "lines.geojson"
         cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
-        with OutputSet(out_dir, overwrite=overwrite, result_names=DEMO_FILES) as outs:
+        with OutputSet(out_dir, overwrite=overwrite, result_names=DEMO_FILES, result_dirs=(DEMO_CABLE_DIR,)) as outs:
+            # the second scenario: a cable line between the same points, in its own folder
+            cable_sc = load_scenario(Path(site_dir) / "cable.toml")
+            cable_route = _route_of(cable_sc, resolve_site(cable_sc), robust=False)
+            with OutputSet(outs.path(DEMO_CABLE_DIR), result_names=_ROUTE_RESULTS, make_parents=False) as couts:
+                write_route(couts, cable_sc, cable_route)
             site = resolve_site(sc, cover=cover)
             route = _route_of(sc, site, robust=False)
             terrain = route.terrain
@@ -434,4 +443,4 @@ def run_demo(out_dir, *, overwrite: bool = False):
             cmp = compare(terrain, lines, sc.mover, limits=sc.limits, keepout=site.keepout, mu_range=sc.mu_range,
                           route=route)
             written = write_route(outs, sc, route, reach=rm, comparison=cmp)
-    return route, cmp, written
+    return route, cmp, written, cable_route

@@ -550,11 +550,14 @@ def demo(out_dir, overwrite, quiet):
     _setup_logging(quiet, 0)
     from .app import run_demo
 
-    r, cmp, written = run_demo(out_dir, overwrite=overwrite)
+    r, cmp, written, cable = run_demo(out_dir, overwrite=overwrite)
     if not quiet:
         click.echo("fallway demo: the invented sample site (quarry bench to valley floor), line kept clear of the no-go areas")
         _print_route(r, out_dir, written)
         _print_rows(cmp, indent="  ")
+        s = cable.summary
+        click.echo(f"cable line between the same points ({Path(out_dir) / 'cable'}): {s.cable['support_count']} supports "
+                   f"between the end stations, carrier {s.travel_time_s:.2f} s, arrives at {s.exit_speed_m_s:.1f} m/s")
         click.echo("Preliminary layout aid only: have any real design checked by a qualified engineer.")
 
 
