@@ -17,6 +17,8 @@ import json
 import re
 from pathlib import Path
 
+import numpy as np
+
 from .errors import ParameterError, TerrainError
 from .params import checked_options
 
@@ -294,9 +296,10 @@ def _write_route(outs, sc, route, *, reach, comparison, timings, core_only):
     if core_only:
         return sorted(outs._names)
     export.write_route_gpkg(route, outs.path("route.gpkg"), terrain.crs)
-    stations = station_table(route, sc.station_step_m)
+    supports, marks = _support_marks(route)
+    stations = station_table(route, sc.station_step_m, extra=marks)
     export.write_stations_csv(stations, outs.path("stations.csv"))
-    write_route_dxf(route, outs.path("route.dxf"), stations)
+    write_route_dxf(route, outs.path("route.dxf"), stations, supports=supports)
     if route.cable is not None:  # a cable line's supports and spans (fallway.cable)
         from .cable_export import write_spans_csv, write_supports_csv
         write_supports_csv(route.cable, outs.path("supports.csv"))
@@ -411,6 +414,21 @@ def _write_reach_map(sc, site, rm, path):
 
 
 @checked_options
+def _support_marks(route) -> tuple[list, list]:
+    """A cable line's supports for the drawing, ``(x, y, top z, label)``, and as stations of
+    the chainage table, ``(station along the loaded path, label)``; empty for other lines."""
+    if route.cable is None:
+        return [], []
+    sup = route.cable.supports
+    labels = ["start station"] + [f"support {i}" for i in range(1, len(sup) - 1)] + ["end station"]
+    line, station = route.line, route.profile.station_m
+    marks = []
+    for s, label in zip(sup, labels):  # the loaded path passes over each saddle: its nearest vertex
+        k = int(np.argmin(np.hypot(line[:, 0] - s.x, line[:, 1] - s.y)))
+        marks.append((float(station[k]), label))
+    return [(s.x, s.y, s.top_z_m, label) for s, label in zip(sup, labels)], marks
+
+
 def run_demo(out_dir, *, overwrite: bool = False):
     """The whole job on the bundled, invented sample site: the chute scenario (route, reach,
     comparison) in ``out_dir`` and the cable-line scenario in ``out_dir/cable``; returns
