@@ -73,6 +73,24 @@ def test_cable_route_writes_supports_spans_and_layers(tmp_path, ramp):
     assert [name for name, _ in pyogrio.list_layers(out / "route.gpkg")] == ["line", "lattice", "supports"]
     meta, _, geom, fields = pyogrio.raw.read(out / "route.gpkg", layer="supports")
     assert meta["geometry_type"] == "Point Z" and len(geom) == len(sup)
+    # the supports in the drawing (read back with ezdxf) and as stations of the chainage table
+    import ezdxf
+
+    marks = [(e.dxf.location.x, e.dxf.location.y, e.dxf.location.z)
+             for e in ezdxf.readfile(out / "route.dxf").modelspace().query('POINT[layer=="SUPPORTS"]')]
+    assert len(marks) == len(sup)
+    for (x, y, z), s in zip(marks, sup):
+        assert (x, y, z) == pytest.approx((float(s["x"]), float(s["y"]), float(s["top_z_m"])), abs=2e-3)
+    flags = [r["flags"] for r in _rows(out / "stations.csv")]
+    assert sum("support" in f for f in flags) == len(sup) - 2 and any("end station" in f for f in flags)
+    # the cable cautions in the report and on the printed long-section (read back with pypdf)
+    import pypdf
+
+    from fallway.caution import CABLE_CAUTION
+
+    assert CABLE_CAUTION[:60] in (out / "report.html").read_text()
+    pdf_text = " ".join(" ".join(page.extract_text().split()) for page in pypdf.PdfReader(out / "profile.pdf").pages)
+    assert "Cable lines: the span model" in pdf_text
     assert list(fields[meta["fields"].tolist().index("height_m")]) == [float(s["height_m"]) for s in sup]
     sc = load_scenario(out / "scenario.toml")
     assert sc.line.kind == "cable" and sc.line.cable.max_span_m == 60.0 and sc.line.cable.cable_tension_kn == 30.0

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .caution import CAUTION
+from .caution import CABLE_CAUTION, CAUTION
 from .errors import ParameterError
 from .handover import crs_text, fallway_version, limit_rows, line_rows, reading, run_date
 from .plot import nice_step
@@ -147,6 +147,13 @@ def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
         band = ax.fill_between(st, zg, zl, where=raised, color="#85c1e9", alpha=0.5, hatch="////", linewidth=0,
                                zorder=3, label="clearance (line above ground)")
         band.set_gid("fallway-clearance")
+    cable = getattr(route, "cable", None)
+    if cable is not None:  # the supports, at the station of the loaded path over each saddle
+        line = np.asarray(route.line, dtype=float)
+        at = [float(np.asarray(p.station_m)[int(np.argmin(np.hypot(line[:, 0] - q.x, line[:, 1] - q.y)))])
+              for q in cable.supports]
+        ax.vlines(at, [q.ground_z_m for q in cable.supports], [q.top_z_m for q in cable.supports], color="#1c2833",
+                  linewidth=2.0, zorder=5, label="supports", gid="fallway-supports")
     ax.set_xlim(s0, s0 + layout["metres_per_sheet"])
     ax.set_ylim(*zlim)
     grid = nice_step(layout["metres_per_sheet"], 12)
@@ -213,7 +220,8 @@ def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
     fig.text(_LEFT_MM / w, 191.0 / h, f"Long-section, sheet {sheet} of {sheets}: stations {chainage(s0)} to "
              f"{chainage(min(s1, s[-1]))}; {scales}; on A4 at 100 %", fontsize=8)
     _title_block(fig, rows + [("Scales", scales)], 57.0)
-    caution = "\n".join(textwrap.wrap("CAUTION: " + CAUTION, 78))
+    text = CAUTION + (" " + CABLE_CAUTION if route.line_spec.kind == "cable" else "")
+    caution = "\n".join(textwrap.wrap("CAUTION: " + text, 78))
     fig.text(12.0 / w, 55.0 / h, caution, fontsize=6.5, va="top", color="#922b21", gid="fallway-caution")
 
 

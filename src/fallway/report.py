@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from .caution import CAUTION
+from .caution import CABLE_CAUTION, CAUTION
 from .handover import crs_text, fallway_version, limit_rows, line_rows, mover_rows, reading, run_date
 
 __all__ = ["write_report_html", "report_html", "comparison_html", "write_comparison_html"]
@@ -455,6 +455,8 @@ def report_html(route, terrain, *, map_png=None, profile_png=None, parameters: d
     parts.append('<h2 id="cautions">Cautions</h2>')
     parts.append("<ul>")
     parts.append(f"<li><strong>{_e(CAUTION)}</strong></li>")
+    if route.summary.line_kind == "cable":
+        parts.append(f"<li><strong>{_e(CABLE_CAUTION)}</strong></li>")
     parts.append("<li>Heights come from the elevation model as given; its errors and its cell size limit "
                  "what the line can follow.</li>")
     parts.append("<li>The friction coefficient is one number for the whole line; try the range of values "
