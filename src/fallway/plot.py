@@ -642,7 +642,7 @@ def plot_profile(route, terrain, *, ax=None):
     cable = getattr(route, "cable", None)
     if cable is not None:
         _cable_section(ax, cable, s)
-    elif raised.any():
+    elif raised.any() and getattr(spec, "kind", None) != "raised":  # a raised line has its band
         idx = np.flatnonzero(raised)
         if idx.size > 60:
             idx = idx[np.linspace(0, idx.size - 1, 60).round().astype(int)]
