@@ -83,3 +83,16 @@ def plane_tif(tmp_path):
     z, t = plane(40, 50, 5.0, 0.1, 0.2)
     path = write_geotiff(tmp_path / "plane.tif", z, t, "EPSG:32633")
     return path, z, t, (0.1, 0.2)
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """One ``fallway demo`` run in a fresh process, shared by the tests that read its files:
+    ``(output folder, completed process)``."""
+    import subprocess
+    import sys
+
+    out = tmp_path_factory.mktemp("demo") / "demo"
+    p = subprocess.run([sys.executable, "-m", "fallway.cli", "demo", "--out", str(out)], capture_output=True,
+                       text=True, timeout=900)
+    return out, p

@@ -198,14 +198,13 @@ def test_real_dem_end_to_end(tmp_path):
 
 
 @pytest.mark.slow
-def test_demo_writes_every_output(tmp_path):
-    out = tmp_path / "demo"
-    res = _run(["demo", "--out", out])
-    assert res.exit_code == 0, res.output
+def test_demo_writes_every_output(demo_run):
+    out, p = demo_run
+    assert p.returncode == 0, p.stderr
     for name in ("route.geojson", "route.gpkg", "profile.csv", "summary.json", "map.png", "profile.png",
                  "report.html", "reach.tif", "comparison.csv", "comparison.png", "scenario.toml"):
         assert (out / name).is_file(), name
-    assert "qualified engineer" in res.output
+    assert "qualified engineer" in p.stdout
     with open(out / "comparison.csv", newline="") as fh:
         names = [r["name"] for r in csv.DictReader(fh)]
     assert {"haul road", "direct", "double-back", "computed optimum"} <= set(names)
@@ -231,7 +230,7 @@ def test_demo_writes_every_output(tmp_path):
         spans = list(csv.DictReader(fh))
     assert sum(float(r["time_s"]) for r in spans) == pytest.approx(cs["travel_time_s"], abs=1e-3 * len(spans))
     assert len(spans) == cs["cable"]["support_count"] + 1
-    assert "cable" in res.output
+    assert "cable" in p.stdout
 
 
 def test_route_corridor_plan_matches_the_incline_formula(tmp_path, ramp):

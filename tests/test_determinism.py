@@ -143,11 +143,12 @@ def test_batch_byte_identical(tmp_path):
 
 
 @pytest.mark.slow
-def test_demo_byte_identical(tmp_path):
+def test_demo_byte_identical(tmp_path, demo_run):
     from fallway.app import DEMO_CABLE_DIR, DEMO_FILES, ROUTE_FILES
 
-    _cli("demo", "--out", tmp_path / "a")
+    first, p = demo_run  # an earlier run (the shared one, in another process)
+    assert p.returncode == 0, p.stderr
     time.sleep(1.1)
     _cli("demo", "--out", tmp_path / "b")
     cable = [f"{DEMO_CABLE_DIR}/{n}" for n in ROUTE_FILES + ("supports.csv", "spans.csv")]
-    _same_files(tmp_path / "a", tmp_path / "b", DEMO_FILES + tuple(cable))
+    _same_files(first, tmp_path / "b", DEMO_FILES + tuple(cable))
