@@ -417,6 +417,7 @@ def _assert_complete(out: Path) -> None:
     assert not [n for n in names if n.startswith(".") or ".tmp" in n], names
 
 
+@pytest.mark.slow
 def test_south_up_raster_works(tmp_path):
     # rows stored south to north (positive y step): the terrain flips it; the answer
     # must equal the north-up raster's: the same plane, so the same heights at the ends
@@ -684,6 +685,7 @@ def test_overwrite_failing_at_any_move_restores_the_old_set(tmp_path, monkeypatc
     assert _snapshot(out) == before
 
 
+@pytest.mark.slow
 def test_compare_overwrite_keeps_the_route_files(tmp_path):
     # issue 19.3: compare --overwrite in a route folder removed nine route files it never writes
     dem = _plane_tif(tmp_path / "dem.tif")
@@ -772,6 +774,7 @@ def test_csv_cells_that_a_spreadsheet_would_run_are_neutralised(tmp_path):
 
 
 
+@pytest.mark.slow
 def test_named_keepout_and_line_layers_are_read(tmp_path):
     # issue 19.4: with --keepout-layer only the named layers count; compare reads every
     # line layer of a GeoPackage (here two), or the one --lines-layer names
@@ -857,6 +860,7 @@ def test_full_disk_fails_the_reach_map(tmp_path, tiny_disk):
     assert sorted(x.name for x in disk.iterdir()) == ["filler"]
 
 
+@pytest.mark.slow
 def test_a_crawling_line_is_said_to_crawl(tmp_path):
     # issue 19.12: --drag 1e9 "succeeded" with a line of 1e6 s at 5e-5 m/s, unremarked.
     # On the 0.3 plane the mover is held at its terminal speed with quadratic drag,

@@ -50,6 +50,7 @@ def test_scale_and_offset_tags_are_applied(tmp_path):
 
 @pytest.mark.parametrize("unit, metres", [("ft", 0.3048), ("foot", 0.3048), ("US survey foot", 1200 / 3937),
                                           ("ftUS", 1200 / 3937), ("metre", 1.0), ("m", 1.0)])
+@pytest.mark.slow
 def test_declared_height_units_are_converted(tmp_path, unit, metres):
     # issue 19.5: a band whose unit says feet was read as metres
     z, t = plane(N, N, CELL, -0.3, 0.0)
@@ -68,6 +69,7 @@ def test_vertical_crs_in_feet_is_converted(tmp_path):
     np.testing.assert_allclose(t2.z, z, rtol=1e-12)
 
 
+@pytest.mark.slow
 def test_z_scale_option_reads_an_undeclared_unit(tmp_path):
     # --z-scale: metres per stored unit; it also stands for an unknown declared unit
     z, t = plane(N, N, CELL, -0.3, 0.0)
@@ -85,6 +87,7 @@ def test_z_scale_option_reads_an_undeclared_unit(tmp_path):
     assert "declares its heights in 'ft'" in p.stderr and "z_scale 1 is used" in p.stderr, p.stderr
 
 
+@pytest.mark.slow
 def test_band_option_and_the_band_one_note(tmp_path):
     # issue 19.12: a multi-band DEM silently used band 1
     z, t = plane(N, N, CELL, -0.3, 0.0)

@@ -78,6 +78,7 @@ def test_two_runs_byte_identical(tmp_path, refine):
     assert not (tmp_path / "a" / "run.json").exists()
 
 
+@pytest.mark.slow
 def test_timings_go_to_run_json(tmp_path):
     dem = _dem(tmp_path)
     _route(dem, tmp_path / "a", "--no-refine")
@@ -89,6 +90,7 @@ def test_timings_go_to_run_json(tmp_path):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "t" / name).read_bytes()
 
 
+@pytest.mark.slow
 def test_overwrite_without_timings_drops_stale_run_json(tmp_path):
     dem = _dem(tmp_path)
     _route(dem, tmp_path / "a", "--no-refine", "--timings")

@@ -765,6 +765,7 @@ def test_read_geojson_with_legacy_crs_member(tmp_path):
     assert name == "chute" and np.allclose(xy, [[X0 + 1.0, Y0 - 1.0], [X0 + 90.0, Y0 - 80.0]], atol=1e-9)
 
 
+@pytest.mark.slow
 def test_exact_robust_route_is_robust_and_no_slower_than_the_candidates():
     # the cases of the candidate-method tests above, now with the robust lattice search:
     # its line passes the envelope (traverse at the three frictions) and, being the

@@ -195,6 +195,7 @@ def test_route_points(site, x, y, which):
     check_contract(code, err, exc, ("start", "end", "via", "point"))
 
 
+@pytest.mark.slow
 def test_every_odd_value_of_every_option(site):
     """The fixed corner of the search space, each option alone: every odd value once."""
     for opt, names in ROUTE_OPTIONS.items():

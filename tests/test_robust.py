@@ -209,6 +209,7 @@ def test_robust_answer_differs_where_the_nominal_optimum_is_not_robust(seed, noi
     assert ln.cells.tolist() != nominal.cells.tolist() and ln.time_s > nominal.time_s
 
 
+@pytest.mark.slow
 def test_kernel_equals_brute_force_over_many_seeds_with_a_speed_limit():
     # 20 seeded DEMs, default tolerance: the declared 1e-10 does not change the answer here
     found = 0
