@@ -17,8 +17,6 @@ import json
 import re
 from pathlib import Path
 
-import numpy as np
-
 from .errors import ParameterError, TerrainError
 from .params import checked_options
 
@@ -419,13 +417,11 @@ def _support_marks(route) -> tuple[list, list]:
     the chainage table, ``(station along the loaded path, label)``; empty for other lines."""
     if route.cable is None:
         return [], []
+    from .cable.route import support_stations
+
     sup = route.cable.supports
     labels = ["start station"] + [f"support {i}" for i in range(1, len(sup) - 1)] + ["end station"]
-    line, station = route.line, route.profile.station_m
-    marks = []
-    for s, label in zip(sup, labels):  # the loaded path passes over each saddle: its nearest vertex
-        k = int(np.argmin(np.hypot(line[:, 0] - s.x, line[:, 1] - s.y)))
-        marks.append((float(station[k]), label))
+    marks = list(zip(support_stations(route), labels))
     return [(s.x, s.y, s.top_z_m, label) for s, label in zip(sup, labels)], marks
 
 

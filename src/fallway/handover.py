@@ -13,6 +13,8 @@ import math
 import os
 from typing import Any
 
+import numpy as np
+
 __all__ = ["run_date", "fallway_version", "reading", "mover_rows", "limit_rows", "line_rows", "crs_text"]
 
 
@@ -63,13 +65,8 @@ def reading(value: Any, decimals: int = 2, unit: str = "", *, none: str = "none"
     """
     if value is None:
         return none
-    try:
-        import numpy as np
-
-        if isinstance(value, np.generic):
-            value = value.item()
-    except ImportError:  # pragma: no cover
-        pass
+    if isinstance(value, np.generic):
+        value = value.item()
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, int):

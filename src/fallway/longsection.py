@@ -149,10 +149,9 @@ def _sheet(fig, route, st, zg, zl, s0, s1, layout, zlim, rows, sheet, sheets):
         band.set_gid("fallway-clearance")
     cable = getattr(route, "cable", None)
     if cable is not None:  # the supports, at the station of the loaded path over each saddle
-        line = np.asarray(route.line, dtype=float)
-        at = [float(np.asarray(p.station_m)[int(np.argmin(np.hypot(line[:, 0] - q.x, line[:, 1] - q.y)))])
-              for q in cable.supports]
-        ax.vlines(at, [q.ground_z_m for q in cable.supports], [q.top_z_m for q in cable.supports], color="#1c2833",
+        from .cable.route import support_stations
+
+        ax.vlines(support_stations(route), [q.ground_z_m for q in cable.supports], [q.top_z_m for q in cable.supports], color="#1c2833",
                   linewidth=2.0, zorder=5, label="supports", gid="fallway-supports")
     ax.set_xlim(s0, s0 + layout["metres_per_sheet"])
     ax.set_ylim(*zlim)

@@ -29,6 +29,16 @@ from .supports import place_supports
 __all__ = ["cable_route", "cable_spec_of"]
 
 
+def support_stations(route) -> list[float]:
+    """The station (along the route's loaded carrier path, as ``route.profile.station_m``)
+    of each support of a cable route, end stations included: the path's vertex nearest to
+    the support in plan, where the path passes over the saddle."""
+    line = np.asarray(route.line, dtype=float)
+    station = np.asarray(route.profile.station_m, dtype=float)
+    return [float(station[int(np.argmin(np.hypot(line[:, 0] - s.x, line[:, 1] - s.y)))])
+            for s in route.cable.supports]
+
+
 def cable_spec_of(line: LineSpec) -> CableSpec:
     """The cable parameters of a cable line spec (defaults with its band and end heights).
 
