@@ -668,10 +668,11 @@ def test_overwrite_failing_at_any_move_restores_the_old_set(tmp_path, monkeypatc
     placed = []
 
     def flaky(src, dst):
-        # a finished result moving from the working folder into place (not a writer's own
-        # rename of its temporary file, which starts with a dot)
-        src = Path(src)
-        if (src.parent.name.startswith(".fallway-") and not src.parent.name.startswith(".fallway-old")
+        # a finished result moving into place: into the output folder, from the working
+        # folder (not back from the backup folder, not a writer's temporary file, whose
+        # name starts with a dot)
+        src, dst = Path(src), Path(dst)
+        if (dst.parent == out and src.parent != out and not src.parent.name.startswith(".fallway-old")
                 and not src.name.startswith(".")):
             placed.append(Path(dst).name)
             if len(placed) == fail_at:
