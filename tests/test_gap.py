@@ -218,7 +218,7 @@ MEMORY_PROBE = textwrap.dedent('''
     out = {}
     try:
         rt = find_route(t, a, b, mover, refine=False, workable=False, memory_limit_bytes=limit,
-                        search=SearchOptions(neighbours=16, plan="full"))
+                        search=SearchOptions(neighbours=16, plan="full", heuristic=False))
         out = {"gap": rt.summary.optimality_gap, "labels": rt.summary.labels_created}
     except NoFeasibleLine as err:
         out = {"reason": err.reason}
@@ -233,7 +233,9 @@ def test_memory_budget_holds_on_hard_terrain():
     # The route's label budget is cut to what the memory limit holds
     # (fallway.scale.fit_label_budget), so the measured peak of a hard search (fresh
     # interpreter; peak reset after the kernels are compiled, proc(5) clear_refs "5") stays
-    # under the limit, while the search spends a good part of it: the budget binds.
+    # under the limit, while the search spends a good part of it: the budget binds.  The A*
+    # bound is off (with it this hillside is solved exactly in a few thousand labels), so
+    # the search fills its budget as it does on ground where the bound is weak.
     from fallway.scale import label_budget_bytes
 
     n, limit = 200, 400_000_000

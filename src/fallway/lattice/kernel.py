@@ -150,7 +150,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
            start, v2_start, targets, remaining, inv_v,
            tol_abs, tol_rel, max_labels, init_cap, label_cap, t_max,
            sdir, max_turn, nvs, vcell, vdir, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, end_rcz,
-           v2_grid=0.0, e_top=math.inf, v2_ceil=math.inf, key_max=math.inf):
+           v2_grid, e_top, v2_ceil, key_max, hgo, ucap):
     """Run the label-setting search.
 
     ``cidx`` (int32, one per cell of the window) is the compact index of each searchable
@@ -189,6 +189,11 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     length over the ceiling speed at its lower end; its optimum is a lower bound of the
     exact lattice optimum.  Labels whose key exceeds ``key_max`` are not queued (a
     point-to-point search only; ``inf``: none).
+
+    ``hgo`` (float64, ``nlegs * nact`` entries, or empty): the per-cell A* bound of
+    :mod:`fallway.lattice.bound` (leg-major, compact index), used instead of the straight
+    bound when given; ``ucap`` (``nact`` entries, or empty): its energy ceiling U, which
+    also clamps the relaxed search's node energies.
 
     Returns
     -------
@@ -262,7 +267,8 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
     if nvs == 0:
         key0 = 0.0
         if not reach_mode:
-            key0 = astar_bound(start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+            key0 = bound_at(hgo, nact, state_of(cidx, ident, start), start, 0, cols, cell, z, tgt_r, tgt_c, tgt_z,
+                            remaining, inv_v)
         Le[0, 0] = v2_start
         hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, 0.0, start, -1, -1, 0, key0)
         n_lab += 1
@@ -286,15 +292,18 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             if not ok:
                 continue
             m = vcell[j]
+            cm = state_of(cidx, ident, m)
             if relaxed:
                 te = max(te, relaxed_floor_s(j, vsub_start, vdrop, vplan, inv_v))
                 v2 = relaxed_node_v2(v2, v2_grid, v2_ceil, e_top - two_g * z[m])
+                if ucap.shape[0] > 0:
+                    v2 = min(v2, ucap[cm])
             if te > t_max:
                 counters[C_CUTOFF] += 1
                 continue
             key = te
             if not reach_mode:
-                key += astar_bound(m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                key += bound_at(hgo, nact, cm, m, 0, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
             if key > key_max:
                 counters[C_CUTOFF] += 1
                 continue
@@ -418,7 +427,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 if emax[s2] >= v20 - (tol_abs + tol_rel * v20):
                     counters[C_DOMINATED] += 1
                     continue
-                key = t0 + astar_bound(n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                key = t0 + bound_at(hgo, nact, cn, n, nleg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
                 Le[n_lab, 0] = v20
                 hsize = push_label(Lt, Lnode, Lpar, Lhd, Lleg, hkey, hidx, n_lab, hsize, t0, n, li, hd, nleg, key)
                 n_lab += 1
@@ -478,13 +487,15 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
             if law != LAW_OK:
                 count_law(counters, law, mu, kdrag)
                 continue
+            cm = state_of(cidx, ident, m)
             if relaxed:
                 v2 = relaxed_node_v2(v2, v2_grid, v2_ceil, e_top - two_g * z[m])
+                if ucap.shape[0] > 0:
+                    v2 = min(v2, ucap[cm])
             tn = t0 + te
             if tn > t_max:
                 counters[C_CUTOFF] += 1
                 continue
-            cm = state_of(cidx, ident, m)
             sm = (cm if reach_mode else leg * nact + cm) * nh + (kk + 1 if use_heading else 0)
             if emax[sm] >= v2 - (tol_abs + tol_rel * v2):
                 counters[C_DOMINATED] += 1
@@ -500,7 +511,7 @@ def search(z, blocked, cidx, nact, rows, cols, cell,
                 open_v2[sm] = v2
             key = tn
             if not reach_mode:
-                key += astar_bound(m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
+                key += bound_at(hgo, nact, cm, m, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)
                 if key > key_max:
                     counters[C_CUTOFF] += 1
                     continue
@@ -530,3 +541,12 @@ def relaxed_floor_s(j, vsub_start, vdrop, vplan, inv_v):
     for q in range(vsub_start[j], vsub_start[j + 1]):
         s += math.sqrt(vplan[q] * vplan[q] + vdrop[q] * vdrop[q])
     return s * inv_v
+
+
+@njit(cache=True, nogil=True, inline="always")
+def bound_at(hgo, nact, cn, n, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v):
+    """The A* bound of a label of leg ``leg`` at cell ``n`` (compact index ``cn``): the
+    per-cell bound ``hgo`` when given (:mod:`fallway.lattice.bound`), else the straight one."""
+    if hgo.shape[0] > 0:
+        return hgo[leg * nact + cn]
+    return astar_bound(n, leg, cols, cell, z, tgt_r, tgt_c, tgt_z, remaining, inv_v)

@@ -94,6 +94,8 @@ from ..params import Limits, SearchOptions, checked_options
 from ..physics import Mover, check_mu_range, traverse
 from ..results import LatticeLine, ReachMap
 from . import core as _c
+from ..scale import CELL_BOUND_MAX_LEGS  # routes of more legs use the straight A* bound
+from .bound import energy_ceiling as _energy_ceiling, time_to_go as _time_to_go
 from .kernel import search as _search
 from .ends import EndPoint, Virtual, no_virtual, parse_point, resolve_point, virtual_edges
 from .gap import FIRST_GRID_FRACTION, GapResult, certify
@@ -276,6 +278,9 @@ class _Problem:
         self.max_grade = limits.max_grade if use_limits else math.inf
         vmax = mover.max_speed if use_limits else None
         self.v2_max = math.inf if vmax is None else vmax * vmax
+        self._cell_bound = None
+        self._cell_bound_key = None
+        self._cell_bound_s = 0.0
 
     def a_max(self, mover: Mover) -> float:
         """An upper bound of the drive g (G - mu) / sqrt(1 + G²) over every sub-segment."""
@@ -390,6 +395,19 @@ class _Problem:
         budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
         t_max = math.inf if max_time_s is None else float(max_time_s)
         cidx, nact = self.index(compact)
+        e_top = v2_start + 2.0 * m.g * z_start
+        hgo = ucap = np.zeros(0)
+        bound_s = 0.0
+        if use_bound and inv_v > 0.0 and len(tg) <= CELL_BOUND_MAX_LEGS:
+            key = (int(start), z_start, tuple(int(a) for a in tg), id(vt), bool(compact))
+            if self._cell_bound_key != key:
+                self._cell_bound = None  # the old arrays are freed first
+                tb = time.perf_counter()
+                self._cell_bound = self._bounds(cidx, nact, int(start), z_start, tg, vt, e_top, v2_scale, inv_v)
+                self._cell_bound_key = key
+                self._cell_bound_s = time.perf_counter() - tb
+                bound_s = self._cell_bound_s
+            ucap, hgo = self._cell_bound
         t0 = time.perf_counter()
         out = _search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
                       self.off_dr, self.off_dc,
@@ -399,8 +417,8 @@ class _Problem:
                       int(start), v2_start, tg, remaining, inv_v, tol_abs, tol_rel, budget, _INIT_CAP,
                       int(label_cap or 0), t_max,
                       self.sdir, self.max_turn, int(vt.nvs), vt.cell, vt.dir_deg, vt.code, vt.sub_start, vt.drop,
-                      vt.plan, vt.tch_start, vt.tch, vt.end_rcz, float(v2_grid), v2_start + 2.0 * m.g * z_start,
-                      v2_ceil, math.inf if key_max is None else float(key_max))
+                      vt.plan, vt.tch_start, vt.tch, vt.end_rcz, float(v2_grid), e_top,
+                      v2_ceil, math.inf if key_max is None else float(key_max), hgo, ucap)
         elapsed = time.perf_counter() - t0
         (status, final, n_lab, Lt, Le, Lnode, Lpar, Lleg, best_t, best_v2, closest, counters) = out
         if len(tg) == 0 and nact < cidx.size:  # reach: compact index -> window cells
@@ -429,9 +447,54 @@ class _Problem:
             "neighbours": int(self.stencil.size),
             "energy_tol": float(tol_rel),
             "heuristic": bool(inv_v > 0.0),
+            "cell_bound": bool(hgo.size > 0),
+            "cell_bound_s": float(bound_s),
         }
         return dict(status=int(status), final=int(final), t=Lt, v2=Le[:, 0], node=Lnode, parent=Lpar,
                     best_t=best_t, best_v2=best_v2, closest=int(closest), counters=counters, stats=stats)
+
+    def cell_bound(self, start: int, targets: list[int]) -> tuple[np.ndarray, np.ndarray]:
+        """The per-cell A* bound of a query from cell ``start`` (no exact end points):
+        ``(U, H)`` as window grids, U the energy ceiling (m²/s², -inf where no line
+        arrives) and H of shape ``(legs, rows, cols)`` the time to go (s, inf where the
+        target is out of reach, NaN on blocked cells); :mod:`fallway.lattice.bound`."""
+        self.run(start, targets, heuristic=True, energy_tol=None, max_labels=1)
+        U, H = self._cell_bound
+        cidx, nact = self.index()
+        if nact == self.rows * self.cols:
+            return U.reshape(self.rows, self.cols), H.reshape(len(targets), self.rows, self.cols)
+        sel = cidx >= 0
+        Ug = np.full(cidx.size, np.nan)
+        Ug[sel] = U[cidx[sel]]
+        Hg = np.full((len(targets), cidx.size), np.nan)
+        for i in range(len(targets)):
+            Hg[i, sel] = H[i * nact:(i + 1) * nact][cidx[sel]]
+        return Ug.reshape(self.rows, self.cols), Hg.reshape(len(targets), self.rows, self.cols)
+
+    def _bounds(self, cidx, nact, start, z_start, tg, vt, e_top, v2_scale, inv_v):
+        """The per-cell A* bound of :mod:`fallway.lattice.bound`: ``(U, H)``, H leg-major."""
+        m = self.mover
+        v2_ceil = self.v2_max
+        if m.drag > 0.0:
+            v2_ceil = min(v2_ceil, self._drag_bound(v2_scale, vt))
+        law_on = not self.corners
+        common = (self.z, self.blocked, cidx, nact, self.rows, self.cols, self.off_dr, self.off_dc, self.brk_start,
+                  self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan, self.tch_start, self.tch_flat,
+                  m.g, m.mu, m.drag, m.stall_speed ** 2, v2_ceil, self.min_grade, self.max_grade, e_top)
+        U = _energy_ceiling(*common, int(start), m.v0 * m.v0, float(z_start), int(vt.nvs), vt.cell, vt.code,
+                            vt.sub_start, vt.drop, vt.plan, vt.tch_start, vt.tch, law_on)
+        nlegs = len(tg)
+        H = np.full(nlegs * nact, np.inf)
+        rest = 0.0
+        for i in range(nlegs - 1, -1, -1):
+            target = -1 if (vt.has_end and i == nlegs - 1) else int(tg[i])
+            h = H[i * nact:(i + 1) * nact]
+            _time_to_go(*common, U, target, rest, int(vt.nvs), vt.cell, vt.code, vt.sub_start, vt.drop, vt.plan,
+                        vt.tch_start, vt.tch, inv_v, law_on, h)
+            if i > 0:
+                prev = int(tg[i - 1])
+                rest = float(h[prev if nact == self.rows * self.cols else int(cidx[prev])])
+        return U, H
 
     def run_robust(self, start: int, end: int, mu_lo: float, mu_hi: float, *, heuristic: bool,
                    energy_tol: float | None, max_labels: int | None, label_cap: int | None,

@@ -1,0 +1,282 @@
+"""A per-cell A* bound for the point-to-point searches: two Dijkstra passes on the lattice.
+
+The straight-line bound of :mod:`fallway.lattice.kernel` (3D distance over one global speed
+bound V) is weak on long rough descents with drag: V is set by the steepest patch
+anywhere, while a line mostly runs near its local terminal speed.  This module computes,
+once per query, a tighter bound that is still admissible and consistent:
+
+1. **Energy ceiling U(n)** (:func:`energy_ceiling`): an upper bound of v² at cell ``n``
+   over every lattice line from the start.  It is a *post-fixpoint* of the segment law:
+   ``U(start) >= v0²`` (or, with an exact start point, ``U(c) >= f_j(v0²)`` for the cell
+   ``c`` of each virtual start edge ``j``) and ``U(m) >= f_e(U(n))`` for every edge
+   ``e = n -> m``, where ``f_e`` is the walk of the edge's sub-segments by the segment law
+   with no speed test and every sub-segment's exit v² clamped to the ceiling
+   ``min(V_c², e_top - 2 g z)`` (the cap / drag bound and the energy balance; kernel notes,
+   "A* bound"), and ``f_e = -inf`` when the law stalls or the grade window or a blocked
+   cell rejects the edge.  Since ``f_e`` is monotone in its entry v² (gravity, Coulomb
+   friction and drag; kernel notes, "Dominance"), induction over the nodes of any
+   feasible line gives ``v² <= U`` at each of them.  The pass is a label-correcting search
+   that pops cells in order of falling energy head ``U + 2 g z`` (the head never grows
+   along an edge, so each cell is popped about once) and pushes a cell again whenever its
+   U rises; when the queue is empty every edge satisfies the inequality.  Stall, turn
+   limits and via points are ignored (a superset of lines: still an upper bound).
+   With the corner law (full normal model with a turn limit) a crest may *add* v²
+   (:func:`fallway._traverse.corner_v2`), so the law is not propagated: U is the
+   ceiling itself.
+2. **Time to go H(n)** (:func:`time_to_go`): a backward Dijkstra from the leg's target with
+   edge cost ``c(n -> m)`` = the time of the edge walked from entry ``U(n)`` with the same
+   clamps, each sub-segment at least its 3D length over the ceiling speed at its lower
+   end (the relaxed search's floor).  Any label at ``n`` has ``v² <= U(n)``, and the
+   time of a straight sub-segment falls as its entry v² rises, so the label's edge time is
+   at least ``c(n -> m)``; an edge whose walk stalls from ``U(n)`` stalls for every label
+   (cost ``inf``).  A virtual end edge costs its walk from ``U`` likewise, and at least its
+   3D length over V.  Hence ``H(n)`` (the least sum of costs to the target) is at most the
+   time of any line from ``n`` to the target: **admissible**; and ``H(n) <= c(n -> m) +
+   H(m) <=`` (the label's edge time) ``+ H(m)``: **consistent**, so keys never fall along a
+   line and the first label settled at the target is optimal, exactly as with the
+   straight bound.  Cells the backward pass does not reach have ``H = inf`` (no line from
+   them reaches the target).
+3. **Via legs**: leg ``i`` uses ``H_i + R_i`` with ``R_i = H_{i+1}(target_i) + R_{i+1}``,
+   so at the switch from leg ``i`` to ``i + 1`` at via point ``i`` the bound is unchanged.
+   U covers every leg (a line's prefix is a line from the start).
+
+For the relaxed search (:mod:`fallway.lattice.gap`) the same holds with one addition: its
+node energies are clamped to ``U`` as well (U bounds every true energy there, so step 3
+of the relaxation proof keeps ``w² >= v²``), which keeps every relaxed label at or below
+``U`` - the condition the consistency argument needs.
+
+Cost: each pass walks every edge of every reached cell once (about the work of one
+label per cell), and holds two float64 arrays per searchable cell (U, and H per leg).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .core import (LAW_OK, grow, heap_pop, heap_push, law_step, passable, state_of, sub_count, sub_segment,
+                   virtual_passable)
+
+__all__ = ["energy_ceiling", "time_to_go"]
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _clamp(v2, v2_ceil, e_top, two_g, zq):
+    return min(v2, v2_ceil, max(e_top - two_g * zq, 0.0))
+
+
+@njit(cache=True, nogil=True)
+def _edge_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade, max_grade,
+               g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on):
+    """Walk stencil edge ``kk`` from ``n`` to ``m`` from entry v² ``w`` (clamped after each
+    sub-segment); ``law_on`` False: the ceiling floors alone (the corner-law case).
+    Returns ``(exit v², time lower bound, ok)``."""
+    two_g = 2.0 * g
+    zprev = z[n]
+    te = 0.0
+    for i in range(sub_count(brk_start, kk)):
+        za = zprev
+        zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
+                                                    sub_plan, min_grade, max_grade)
+        if not ok:
+            return w, te, False
+        dt = 0.0
+        if law_on:
+            w, dt, law = law_step(w, drop, plan, length, g, mu, kdrag, v2_stall, math.inf)
+            if law != LAW_OK:
+                return w, te, False
+        else:
+            w = math.inf
+        hi = min(v2_ceil, e_top - two_g * min(za, zprev))
+        if hi > 0.0:
+            dt = max(dt, length / math.sqrt(hi))
+        w = _clamp(w, v2_ceil, e_top, two_g, zprev)
+        te += dt
+    return w, te, True
+
+
+@njit(cache=True, nogil=True)
+def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top,
+                  law_on):
+    """Walk virtual edge ``j`` (starting at height ``z0``) from entry v² ``w``, as
+    :func:`_edge_exit`.  Returns ``(exit v², time lower bound, ok)``."""
+    two_g = 2.0 * g
+    zprev = z0
+    te = 0.0
+    for q in range(vsub_start[j], vsub_start[j + 1]):
+        d = vdrop[q]
+        p = vplan[q]
+        grade = d / p
+        if grade < min_grade or grade > max_grade:
+            return w, te, False
+        length = math.sqrt(p * p + d * d)
+        za = zprev
+        zprev = za - d
+        dt = 0.0
+        if law_on:
+            w, dt, law = law_step(w, d, p, length, g, mu, kdrag, v2_stall, math.inf)
+            if law != LAW_OK:
+                return w, te, False
+        else:
+            w = math.inf
+        hi = min(v2_ceil, e_top - two_g * min(za, zprev))
+        if hi > 0.0:
+            dt = max(dt, length / math.sqrt(hi))
+        w = _clamp(w, v2_ceil, e_top, two_g, zprev)
+        te += dt
+    return w, te, True
+
+
+@njit(cache=True, nogil=True)
+def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, brk_fa, brk_fb, brk_w, sub_plan,
+                   tch_start, tch_flat, g, mu, kdrag, v2_stall, v2_ceil, min_grade, max_grade, e_top,
+                   start, v2_start, z_start, nvs, vcell, vcode, vsub_start, vdrop, vplan, vtch_start, vtch,
+                   propagate):
+    """U: an upper bound of v² at every searchable cell (compact index) over every lattice
+    line from the start (module notes, step 1); ``-inf`` where no line arrives.
+
+    ``propagate`` False: U is the ceiling ``min(v2_ceil, e_top - 2 g z)`` everywhere (and
+    ``v2_start`` at the start cell), no segment law (the corner-law case).
+    """
+    ncell = rows * cols
+    ident = nact == ncell
+    nk = off_dr.shape[0]
+    two_g = 2.0 * g
+    U = np.full(nact, -np.inf)
+    if not propagate:
+        for n in range(ncell):
+            if blocked[n] == 0:
+                U[state_of(cidx, ident, n)] = _clamp(math.inf, v2_ceil, e_top, two_g, z[n])
+        if nvs == 0:
+            cs = state_of(cidx, ident, start)
+            U[cs] = max(U[cs], v2_start)
+        return U
+    cap = 1 << 16
+    hkey = np.empty(cap, dtype=np.float64)
+    hidx = np.empty(cap, dtype=np.int32)
+    hsize = 0
+    if nvs == 0:
+        U[state_of(cidx, ident, start)] = v2_start  # the start label is never clamped
+        hsize = heap_push(hkey, hidx, hsize, -(v2_start + two_g * z[start]), start)
+    else:
+        for j in range(nvs):
+            if virtual_passable(blocked, j, vcode, vtch_start, vtch):
+                continue
+            w, te, ok = _virtual_exit(j, v2_start, z_start, vsub_start, vdrop, vplan, min_grade, max_grade,
+                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, True)
+            if not ok:
+                continue
+            m = vcell[j]
+            cm = state_of(cidx, ident, m)
+            if w > U[cm]:
+                U[cm] = w
+                if hsize + 1 > hkey.shape[0]:
+                    hkey = grow(hkey, 2 * hkey.shape[0])
+                    hidx = grow(hidx, 2 * hidx.shape[0])
+                hsize = heap_push(hkey, hidx, hsize, -(w + two_g * z[m]), m)
+    while hsize > 0:
+        key = hkey[0]
+        n, hsize = heap_pop(hkey, hidx, hsize)
+        cn = state_of(cidx, ident, n)
+        w0 = U[cn]
+        if -(w0 + two_g * z[n]) != key:  # a stale entry: U rose since it was queued
+            continue
+        r = n // cols
+        c = n - r * cols
+        for kk in range(nk):
+            r2 = r + off_dr[kk]
+            c2 = c + off_dc[kk]
+            if r2 < 0 or r2 >= rows or c2 < 0 or c2 >= cols:
+                continue
+            if passable(blocked, n, kk, tch_start, tch_flat):
+                continue
+            m = r2 * cols + c2
+            w, te, ok = _edge_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
+                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, True)
+            if not ok:
+                continue
+            cm = state_of(cidx, ident, m)
+            if w > U[cm]:
+                U[cm] = w
+                if hsize + 1 > hkey.shape[0]:
+                    hkey = grow(hkey, 2 * hkey.shape[0])
+                    hidx = grow(hidx, 2 * hidx.shape[0])
+                hsize = heap_push(hkey, hidx, hsize, -(w + two_g * z[m]), m)
+    return U
+
+
+@njit(cache=True, nogil=True)
+def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, brk_fa, brk_fb, brk_w, sub_plan,
+               tch_start, tch_flat, g, mu, kdrag, v2_stall, v2_ceil, min_grade, max_grade, e_top, U,
+               target, rest_s, nvs, vcell, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, inv_v, law_on, h):
+    """Fill ``h`` (compact index, ``inf`` on entry) with ``rest_s`` + the least time from each
+    cell to the target (module notes, step 2): the cell ``target``, or with ``target < 0``
+    the end point through the virtual end edges ``nvs ..``.  ``law_on`` False: edge costs
+    are the ceiling floors alone (the corner law may add v² at a crest inside an edge)."""
+    ncell = rows * cols
+    ident = nact == ncell
+    nk = off_dr.shape[0]
+    cap = 1 << 16
+    hkey = np.empty(cap, dtype=np.float64)
+    hidx = np.empty(cap, dtype=np.int32)
+    hsize = 0
+    if target >= 0:
+        h[state_of(cidx, ident, target)] = rest_s
+        hsize = heap_push(hkey, hidx, hsize, rest_s, target)
+    else:
+        for j in range(nvs, vcell.shape[0]):
+            if virtual_passable(blocked, j, vcode, vtch_start, vtch):
+                continue
+            n = vcell[j]
+            cn = state_of(cidx, ident, n)
+            if U[cn] == -np.inf:
+                continue
+            w, te, ok = _virtual_exit(j, U[cn], z[n], vsub_start, vdrop, vplan, min_grade, max_grade,
+                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on)
+            if not ok:
+                continue
+            s = 0.0
+            for q in range(vsub_start[j], vsub_start[j + 1]):
+                s += math.sqrt(vplan[q] * vplan[q] + vdrop[q] * vdrop[q])
+            te = rest_s + max(te, s * inv_v)
+            if te < h[cn]:
+                h[cn] = te
+                if hsize + 1 > hkey.shape[0]:
+                    hkey = grow(hkey, 2 * hkey.shape[0])
+                    hidx = grow(hidx, 2 * hidx.shape[0])
+                hsize = heap_push(hkey, hidx, hsize, te, n)
+    while hsize > 0:
+        key = hkey[0]
+        m, hsize = heap_pop(hkey, hidx, hsize)
+        cm = state_of(cidx, ident, m)
+        hm = h[cm]
+        if hm != key:
+            continue
+        r = m // cols
+        c = m - r * cols
+        for kk in range(nk):
+            r0 = r - off_dr[kk]
+            c0 = c - off_dc[kk]
+            if r0 < 0 or r0 >= rows or c0 < 0 or c0 >= cols:
+                continue
+            n = r0 * cols + c0
+            if blocked[n] or passable(blocked, n, kk, tch_start, tch_flat):
+                continue
+            cn = state_of(cidx, ident, n)
+            w0 = U[cn]
+            if w0 == -np.inf:
+                continue
+            w, te, ok = _edge_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
+                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on)
+            if not ok:
+                continue
+            cand = hm + te
+            if cand < h[cn]:
+                h[cn] = cand
+                if hsize + 1 > hkey.shape[0]:
+                    hkey = grow(hkey, 2 * hkey.shape[0])
+                    hidx = grow(hidx, 2 * hidx.shape[0])
+                hsize = heap_push(hkey, hidx, hsize, cand, n)
+    return h

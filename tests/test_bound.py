@@ -1,0 +1,93 @@
+"""The per-cell A* bound (fallway.lattice.bound) checked against exhaustive references.
+
+References:
+- ``pareto_ref`` (tests/test_lattice.py): a plain-Python exhaustive Pareto label search on
+  the 8-neighbour lattice (label-correcting, FIFO, exact dominance, no heuristic), the
+  segment law from CHECKS.md "Motion along a line" (incline, Coulomb friction, drag);
+- the energy balance (CHECKS.md): frictionless and without drag, v² = v0² + 2 g (z0 - z)
+  at every point a line reaches, whatever the path.
+
+Checked, on seeded rough grids with and without drag:
+- the energy ceiling U is at least the v² of every Pareto label at every cell (U bounds
+  every feasible line's energy - what the consistency proof needs);
+- the time to go H never exceeds the exact least time from the cell to the target when
+  the cell is left with its highest possible energy U (so no label there can do better:
+  the bound is admissible), and H is 0 at the target;
+- U is the energy balance exactly on frictionless ground (16 neighbours, break points).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from test_lattice import MOVER, best_time, pareto_ref, rough_dem, terrain_of
+
+from fallway.lattice.search import _Problem
+from fallway.params import Limits
+from fallway.physics import Mover
+
+REL = 1e-9
+NO_DRAG = Mover(mu=0.25, drag=0.0, v0=1.0, normal="gravity")
+
+
+def problem(z, mover, neighbours=8):
+    t = terrain_of(z)
+    return _Problem(t, mover, neighbours, Limits(), np.zeros(z.shape, dtype=bool))
+
+
+@pytest.mark.parametrize("mover", [MOVER, NO_DRAG], ids=["drag", "no-drag"])
+def test_energy_ceiling_bounds_every_pareto_label(mover):
+    reached = 0
+    for seed in range(12):
+        z = rough_dem(seed)
+        rows, cols = z.shape
+        U, _ = problem(z, mover).cell_bound(0, [6 * cols + 7])
+        sets = pareto_ref(z, 10.0, mover, (0, 0))
+        for (r, c), labs in sets.items():
+            top = max(lab[1] for lab in labs)
+            assert top <= U[r, c] * (1 + REL) + 1e-12, (seed, r, c)
+            reached += 1
+        assert U[0, 0] >= mover.v0 ** 2
+    assert reached > 100  # the check saw real label sets
+
+
+@pytest.mark.parametrize("mover", [MOVER, NO_DRAG], ids=["drag", "no-drag"])
+def test_time_to_go_never_exceeds_the_exact_remaining_time(mover):
+    checked = 0
+    for seed in range(12):
+        z = rough_dem(seed)
+        rows, cols = z.shape
+        end = (6, 7)
+        U, H = problem(z, mover).cell_bound(0, [end[0] * cols + end[1]])
+        H = H[0]
+        assert H[end] == 0.0
+        for r in range(rows):
+            for c in range(cols):
+                if not np.isfinite(U[r, c]) or (r, c) == end:
+                    continue
+                # the fastest continuation of any label at (r, c): leave with the most
+                # energy any line has there (time falls as the entry energy rises)
+                seeds = [(0.0, float(U[r, c]), None)]
+                exact = best_time(pareto_ref(z, 10.0, mover, (r, c), seeds=seeds), end)
+                if math.isfinite(exact):
+                    assert 0.0 < H[r, c] <= exact * (1 + REL), (seed, r, c, H[r, c], exact)
+                    checked += 1
+    assert checked > 20
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_energy_ceiling_is_the_energy_balance_without_losses(seed):
+    # frictionless and without drag every line keeps v0² + 2 g (z0 - z) (energy balance);
+    # the 16-neighbour stencil walks its edges through break points, which must not lose
+    # or invent energy
+    rng = np.random.default_rng(seed)
+    r, c = np.mgrid[0:9, 0:10]
+    z = 60.0 - 3.0 * r - 2.0 * c + rng.normal(scale=0.5, size=r.shape)
+    mover = Mover(mu=0.0, drag=0.0, v0=2.0, normal="gravity")
+    U, H = problem(z, mover, 16).cell_bound(0, [8 * 10 + 9])
+    balance = mover.v0 ** 2 + 2.0 * mover.g * (z[0, 0] - z)
+    ok = np.isfinite(U)
+    assert ok.sum() > 40
+    np.testing.assert_allclose(U[ok], balance[ok], rtol=1e-9)
