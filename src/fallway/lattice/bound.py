@@ -45,6 +45,19 @@ node energies are clamped to ``U`` as well (U bounds every true energy there, so
 of the relaxation proof keeps ``w² >= v²``), which keeps every relaxed label at or below
 ``U`` - the condition the consistency argument needs.
 
+Rounding
+--------
+The passes decide stalls and grade at the very boundary a true line may touch (a line
+that climbs back to the start's height with no energy left); the energies of U come
+from another order of floating-point operations than a label's, so a bare U could sit an
+ulp below a true energy and stall where the line does not.  Every energy the passes
+carry is therefore raised by a slack (:data:`SLACK_REL` relative plus ``eps_abs``, 1e-9 of
+the largest v², far above the accumulated rounding of a line and far below any physical
+effect) at each sub-segment; so is the ceiling speed of the time floors.  Raising the
+entry only lowers the time bounds and raises U: the argument above holds for the raised
+values.  The slack could let energy creep up around a loop that loses less than it; the
+ceiling clamp bounds U regardless, so the pass ends.
+
 Cost: each pass walks every edge of every reached cell once (about the work of one
 label per cell), and holds two float64 arrays per searchable cell (U, and H per leg).
 """
@@ -62,6 +75,16 @@ from .core import (LAW_OK, grow, heap_pop, heap_push, law_step, passable, state_
 __all__ = ["energy_ceiling", "time_to_go"]
 
 
+#: Relative slack added to every energy the passes carry (module notes, "Rounding").
+SLACK_REL = 1e-9
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _up(v2, eps_abs):
+    """``v2`` raised by the rounding slack (module notes, "Rounding")."""
+    return v2 + SLACK_REL * abs(v2) + eps_abs
+
+
 @njit(cache=True, nogil=True, inline="always")
 def _clamp(v2, v2_ceil, e_top, two_g, zq):
     return min(v2, v2_ceil, max(e_top - two_g * zq, 0.0))
@@ -69,13 +92,14 @@ def _clamp(v2, v2_ceil, e_top, two_g, zq):
 
 @njit(cache=True, nogil=True)
 def _edge_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade, max_grade,
-               g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on):
+               g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, law_on):
     """Walk stencil edge ``kk`` from ``n`` to ``m`` from entry v² ``w`` (clamped after each
     sub-segment); ``law_on`` False: the ceiling floors alone (the corner-law case).
     Returns ``(exit v², time lower bound, ok)``."""
     two_g = 2.0 * g
     zprev = z[n]
     te = 0.0
+    w = _up(w, eps_abs)
     for i in range(sub_count(brk_start, kk)):
         za = zprev
         zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
@@ -89,22 +113,23 @@ def _edge_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_g
                 return w, te, False
         else:
             w = math.inf
-        hi = min(v2_ceil, e_top - two_g * min(za, zprev))
+        hi = _up(min(v2_ceil, e_top - two_g * min(za, zprev)), eps_abs)
         if hi > 0.0:
             dt = max(dt, length / math.sqrt(hi))
-        w = _clamp(w, v2_ceil, e_top, two_g, zprev)
+        w = _up(_clamp(w, v2_ceil, e_top, two_g, zprev), eps_abs)
         te += dt
     return w, te, True
 
 
 @njit(cache=True, nogil=True)
 def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top,
-                  law_on):
+                  eps_abs, law_on):
     """Walk virtual edge ``j`` (starting at height ``z0``) from entry v² ``w``, as
     :func:`_edge_exit`.  Returns ``(exit v², time lower bound, ok)``."""
     two_g = 2.0 * g
     zprev = z0
     te = 0.0
+    w = _up(w, eps_abs)
     for q in range(vsub_start[j], vsub_start[j + 1]):
         d = vdrop[q]
         p = vplan[q]
@@ -121,10 +146,10 @@ def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, m
                 return w, te, False
         else:
             w = math.inf
-        hi = min(v2_ceil, e_top - two_g * min(za, zprev))
+        hi = _up(min(v2_ceil, e_top - two_g * min(za, zprev)), eps_abs)
         if hi > 0.0:
             dt = max(dt, length / math.sqrt(hi))
-        w = _clamp(w, v2_ceil, e_top, two_g, zprev)
+        w = _up(_clamp(w, v2_ceil, e_top, two_g, zprev), eps_abs)
         te += dt
     return w, te, True
 
@@ -132,7 +157,7 @@ def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, m
 @njit(cache=True, nogil=True)
 def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, brk_fa, brk_fb, brk_w, sub_plan,
                    tch_start, tch_flat, g, mu, kdrag, v2_stall, v2_ceil, min_grade, max_grade, e_top,
-                   start, v2_start, z_start, nvs, vcell, vcode, vsub_start, vdrop, vplan, vtch_start, vtch,
+                   eps_abs, start, v2_start, z_start, nvs, vcell, vcode, vsub_start, vdrop, vplan, vtch_start, vtch,
                    propagate):
     """U: an upper bound of v² at every searchable cell (compact index) over every lattice
     line from the start (module notes, step 1); ``-inf`` where no line arrives.
@@ -148,7 +173,7 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
     if not propagate:
         for n in range(ncell):
             if blocked[n] == 0:
-                U[state_of(cidx, ident, n)] = _clamp(math.inf, v2_ceil, e_top, two_g, z[n])
+                U[state_of(cidx, ident, n)] = _up(_clamp(math.inf, v2_ceil, e_top, two_g, z[n]), eps_abs)
         if nvs == 0:
             cs = state_of(cidx, ident, start)
             U[cs] = max(U[cs], v2_start)
@@ -165,7 +190,7 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
             if virtual_passable(blocked, j, vcode, vtch_start, vtch):
                 continue
             w, te, ok = _virtual_exit(j, v2_start, z_start, vsub_start, vdrop, vplan, min_grade, max_grade,
-                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, True)
+                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, True)
             if not ok:
                 continue
             m = vcell[j]
@@ -194,7 +219,7 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
                 continue
             m = r2 * cols + c2
             w, te, ok = _edge_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
-                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, True)
+                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, True)
             if not ok:
                 continue
             cm = state_of(cidx, ident, m)
@@ -209,7 +234,7 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
 
 @njit(cache=True, nogil=True)
 def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, brk_fa, brk_fb, brk_w, sub_plan,
-               tch_start, tch_flat, g, mu, kdrag, v2_stall, v2_ceil, min_grade, max_grade, e_top, U,
+               tch_start, tch_flat, g, mu, kdrag, v2_stall, v2_ceil, min_grade, max_grade, e_top, eps_abs, U,
                target, rest_s, nvs, vcell, vcode, vsub_start, vdrop, vplan, vtch_start, vtch, inv_v, law_on, h):
     """Fill ``h`` (compact index, ``inf`` on entry) with ``rest_s`` + the least time from each
     cell to the target (module notes, step 2): the cell ``target``, or with ``target < 0``
@@ -234,7 +259,7 @@ def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, br
             if U[cn] == -np.inf:
                 continue
             w, te, ok = _virtual_exit(j, U[cn], z[n], vsub_start, vdrop, vplan, min_grade, max_grade,
-                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on)
+                                      g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, law_on)
             if not ok:
                 continue
             s = 0.0
@@ -269,7 +294,7 @@ def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, br
             if w0 == -np.inf:
                 continue
             w, te, ok = _edge_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
-                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, law_on)
+                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, law_on)
             if not ok:
                 continue
             cand = hm + te
