@@ -20,6 +20,13 @@ Cases, each in its own process so that its peak memory (``VmHWM``) is its own:
 
 Run: ``python scripts/bench_hard.py [--size 1000] [--gap 0.001] [--max-labels N]``.
 
+Scaling: ``python scripts/bench_hard.py --scaling 500 1000 2000 3000 5000 [--scipy-up-to 4000000]``
+runs ``route`` (and ``scipy`` up to that many cells: its graph of 16 edges per cell takes
+about 0.5 kB per cell to build) at each size, each in its own process, and prints the
+table with the growth exponents (least-squares slope of log time and log peak memory
+against log cells).  Sizes above 1000 synthesise their own field of that size (the same
+spectrum, relief and plane), so the terrain statistics match.
+
 Measured 2026-12-02 (2 cores shared by about six people: wall times inflated and noisy):
 see DEVELOPERS.md, "Benchmarks".
 """
@@ -45,7 +52,10 @@ CELL = 10.0
 def fractal_dem(n: int, *, seed: int = 7, relief: float = 40.0, slope: float = 0.2, beta: float = 2.6,
                 cell: float = CELL, full: int = 1000) -> np.ndarray:
     """The hard hillside: a ``full`` x ``full`` fractal field (periodic FFT synthesis) on a
-    falling plane, cropped to its ``n`` x ``n`` north-west corner when ``n < full``."""
+    falling plane, cropped to its ``n`` x ``n`` north-west corner when ``n < full``; a
+    larger ``n`` synthesises its own field, its relief scaled by ``(n / full)^H`` (``H =
+    (beta - 1) / 2``, the fBm growth of relief with size) so that the local slopes keep
+    the statistics of the ``full`` field."""
     m = max(n, full)
     rng = np.random.default_rng(seed)
     k = np.hypot(np.fft.fftfreq(m)[:, None], np.fft.rfftfreq(m)[None, :])
@@ -53,7 +63,9 @@ def fractal_dem(n: int, *, seed: int = 7, relief: float = 40.0, slope: float = 0
     amp = k ** (-(beta + 1.0) / 2.0)
     amp[0, 0] = 0.0
     f = np.fft.irfft2(amp * (rng.normal(size=amp.shape) + 1j * rng.normal(size=amp.shape)), s=(m, m))
-    f *= relief / (f.max() - f.min())
+    # a field larger than ``full`` keeps the local roughness of the ``full`` one: fBm relief
+    # grows with size as size^H, H = (beta - 1) / 2
+    f *= relief * (m / full) ** ((beta - 1.0) / 2.0) / (f.max() - f.min())
     r, c = np.mgrid[0:m, 0:m]
     z = 1000.0 + f - slope * cell * (r + c) / math.sqrt(2.0)
     return np.ascontiguousarray(z[:n, :n])
@@ -99,9 +111,46 @@ def case_route(a, cap: bool) -> dict:
                 "peak_mb": peak_mb()}
     wall = time.perf_counter() - t0
     st = ln.stats
-    return {"case": "cap" if cap else "route", "wall_s": wall, "time_s": ln.time_s,
+    return {"case": "cap" if cap else "route", "wall_s": wall, "time_s": ln.time_s, "bound_s": st.get("cell_bound_s"),
             "gap": st.get("optimality_gap"), "lower_bound_s": st.get("lower_bound_s"),
             "labels": st.get("labels_created"), "rounds": st.get("gap_rounds"), "peak_mb": peak_mb()}
+
+
+def _child(case: str, size: int, a) -> dict:
+    args = [sys.executable, __file__, "--case", case, "--size", str(size), "--gap", str(a.gap),
+            "--relief", str(a.relief), "--slope", str(a.slope), "--v0", str(a.v0)]
+    if a.max_labels:
+        args += ["--max-labels", str(a.max_labels)]
+    res = subprocess.run(args, capture_output=True, text=True, check=False)
+    if res.returncode != 0:
+        return {"case": case, "error": res.stderr.strip().splitlines()[-1] if res.stderr.strip() else "failed"}
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def scaling(a) -> None:
+    """The scaling table on the hard hillside (route with the certified gap; scipy where it fits)."""
+    rows = []
+    print(f"hard hillside, 16 neighbours, mu {a.slope - 0.05:g}, drag 0.002 /m, gap target {a.gap:g}")
+    print(f"{'cells':>10s} {'route s':>9s} {'peak MB':>8s} {'gap':>9s} {'labels':>9s} {'scipy s':>8s} "
+          f"{'scipy MB':>8s} {'ratio':>6s}")
+    for n in a.scaling:
+        r = _child("route", n, a)
+        sc = _child("scipy", n, a) if n * n <= a.scipy_up_to else None
+        rows.append((n * n, r))
+        if "error" in r:
+            print(f"{n * n:>10d} route failed: {r['error']}")
+            continue
+        sct = sc.get("total_s") if sc and "error" not in sc else None
+        scm = sc.get("peak_mb") if sc and "error" not in sc else None
+        print(f"{n * n:>10d} {r['wall_s']:9.2f} {r['peak_mb']:8.0f} {r['gap']!s:>9.9s} {r['labels']:>9d} "
+              + (f"{sct:8.2f} {scm:8.0f} {r['wall_s'] / sct:6.2f}" if sct else f"{'-':>8s} {'-':>8s} {'-':>6s}"),
+              flush=True)
+    ok = [(c, r) for c, r in rows if "error" not in r]
+    if len(ok) >= 2:
+        lc = np.log([c for c, _ in ok])
+        et = np.polyfit(lc, np.log([r["wall_s"] for _, r in ok]), 1)[0]
+        em = np.polyfit(lc, np.log([r["peak_mb"] for _, r in ok]), 1)[0]
+        print(f"route: time ~ cells^{et:.2f}, peak memory ~ cells^{em:.2f}")
 
 
 def main() -> None:
@@ -113,7 +162,12 @@ def main() -> None:
     ap.add_argument("--slope", type=float, default=0.2)
     ap.add_argument("--v0", type=float, default=2.0)
     ap.add_argument("--case", choices=["scipy", "route", "cap"])
+    ap.add_argument("--scaling", type=int, nargs="+", default=None, help="sizes (n of n x n) for the scaling table")
+    ap.add_argument("--scipy-up-to", type=int, default=4_000_000)
     a = ap.parse_args()
+    if a.scaling:
+        scaling(a)
+        return
     if a.case:
         out = case_scipy(a) if a.case == "scipy" else case_route(a, a.case == "cap")
         print(json.dumps(out))

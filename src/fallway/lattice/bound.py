@@ -19,7 +19,12 @@ once per query, a tighter bound that is still admissible and consistent:
    that pops cells in order of falling energy head ``U + 2 g z`` (the head never grows
    along an edge, so each cell is popped about once) and pushes a cell again whenever its
    U rises; when the queue is empty every edge satisfies the inequality.  Stall, turn
-   limits and via points are ignored (a superset of lines: still an upper bound).
+   limits and via points are ignored (a superset of lines: still an upper bound).  The
+   passes stall a mover only when it comes to rest (stall speed 0): that test is monotone
+   in the entry v² (a higher entry never stops where a lower one gets through), while
+   "decelerating below a positive stall speed" is not quite (with drag a fast entry
+   may decelerate below it where a slow one accelerates); ignoring the stall speed
+   only admits more lines.
    With the corner law (full normal model with a turn limit) a crest may *add* v²
    (:func:`fallway._traverse.corner_v2`), so the law is not propagated: U is the
    ceiling itself.
@@ -69,6 +74,7 @@ import math
 import numpy as np
 from numba import njit
 
+from .._segment import _TINY_KS
 from .core import (LAW_OK, grow, heap_pop, heap_push, law_step, passable, state_of, sub_count, sub_segment,
                    virtual_passable)
 
@@ -88,6 +94,47 @@ def _up(v2, eps_abs):
 @njit(cache=True, nogil=True, inline="always")
 def _clamp(v2, v2_ceil, e_top, two_g, zq):
     return min(v2, v2_ceil, max(e_top - two_g * zq, 0.0))
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _exit_v2(v2_in, drop, plan, s, g, mu, k, v2_stall):
+    """The exit v² of :func:`fallway._segment.segment_law` (same formulas and stall test),
+    without its time; ``-1`` when the mover stalls."""
+    if s <= 0.0:
+        return v2_in
+    if v2_in < 0.0:
+        v2_in = 0.0
+    a = g * (drop - mu * plan) / s
+    ks = k * s
+    if ks >= _TINY_KS:
+        v2_out = v2_in * math.exp(-2.0 * ks) - (a / k) * math.expm1(-2.0 * ks)
+    else:
+        v2_out = v2_in + 2.0 * a * s
+    if v2_in <= 0.0 and a <= 0.0:
+        return -1.0
+    if v2_out < v2_in and v2_out < v2_stall:
+        return -1.0
+    return max(v2_out, 0.0)
+
+
+@njit(cache=True, nogil=True)
+def _ceiling_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade, max_grade,
+                  g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs):
+    """The exit v² of :func:`_edge_exit` without the times (the energy pass); ``-1``
+    when the edge is stopped."""
+    two_g = 2.0 * g
+    zprev = z[n]
+    w = _up(w, eps_abs)
+    for i in range(sub_count(brk_start, kk)):
+        zprev, drop, plan, length, ok = sub_segment(z, n, m, kk, i, zprev, brk_start, brk_fa, brk_fb, brk_w,
+                                                    sub_plan, min_grade, max_grade)
+        if not ok:
+            return -1.0
+        w = _exit_v2(w, drop, plan, length, g, mu, kdrag, v2_stall)
+        if w < 0.0:
+            return -1.0
+        w = _up(_clamp(w, v2_ceil, e_top, two_g, zprev), eps_abs)
+    return w
 
 
 @njit(cache=True, nogil=True)
@@ -218,9 +265,9 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
             if passable(blocked, n, kk, tch_start, tch_flat):
                 continue
             m = r2 * cols + c2
-            w, te, ok = _edge_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
-                                   max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, True)
-            if not ok:
+            w = _ceiling_exit(z, n, m, kk, w0, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_grade,
+                              max_grade, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs)
+            if w < 0.0:
                 continue
             cm = state_of(cidx, ident, m)
             if w > U[cm]:

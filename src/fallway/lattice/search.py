@@ -480,8 +480,8 @@ class _Problem:
         law_on = not self.corners
         common = (self.z, self.blocked, cidx, nact, self.rows, self.cols, self.off_dr, self.off_dc, self.brk_start,
                   self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan, self.tch_start, self.tch_flat,
-                  m.g, m.mu, m.drag, m.stall_speed ** 2, v2_ceil, self.min_grade, self.max_grade, e_top,
-                  1e-9 * max(v2_scale, 1e-300))
+                  m.g, m.mu, m.drag, 0.0, v2_ceil, self.min_grade, self.max_grade, e_top,
+                  1e-9 * max(v2_scale, 1e-300))  # stall at rest only: monotone in the entry (module notes)
         U = _energy_ceiling(*common, int(start), m.v0 * m.v0, float(z_start), int(vt.nvs), vt.cell, vt.code,
                             vt.sub_start, vt.drop, vt.plan, vt.tch_start, vt.tch, law_on)
         nlegs = len(tg)
