@@ -271,8 +271,11 @@ class RouteSummary:
         the exact lattice optimum on the searched grid: 0.0 when the search was exact,
         ``T_UB / T_LB - 1`` from the relaxed searches otherwise
         (:mod:`fallway.lattice.gap`; ``inf`` when the budget ran out before any lower
-        bound).  None when no bound holds: a label cap (``label_cap``), the corridor
-        plan (the corridor is not the whole grid) or the robust plan.
+        bound).  With the corridor plan: ``time / T_LB - 1`` against a lower bound of the
+        whole area's lattice optimum (:func:`fallway.lattice.search.lattice_lower_bound`;
+        None when it was not computed: ``corridor["lower_bound_note"]`` says why).  None
+        when no bound holds: a label cap (``label_cap``) on the full grid, or the robust
+        plan.
     cable : dict or None
         A cable line's layout (:meth:`fallway.cable.CableLayout.to_dict`: objective,
         support count, supports, spans); None for other kinds.

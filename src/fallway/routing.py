@@ -49,15 +49,17 @@ from .geometry import MIN_EXPORT_SEGMENT_M, drop_repeats, min_radius_m, raised_h
 from .loads import Loads, line_loads
 from .keepout import Keepout
 from .lattice.raised import raised_lattice_line
-from .lattice.search import lattice_line, robust_lattice_line
+from .lattice.gap import gap_of
+from .lattice.search import lattice_line, lattice_lower_bound, robust_lattice_line
 from .lattice.search import reach as lattice_reach
 from .params import MAX_LABELS, Limits, LineSpec, Mover, SearchOptions, checked_options
 from .physics import check_mu_range, traverse
 from .refine import refine_line
 from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
-from .scale import (DEFAULT_COARSE_CELLS, available_bytes, box_around, check_memory, corridor_outside,
-                    fit_label_budget, lowest_within, search_memory_bytes, terrain_source)
+from .scale import (CELL_BOUND_MAX_LEGS, DEFAULT_COARSE_CELLS, available_bytes, bound_memory_bytes, box_around,
+                    check_memory, corridor_outside, fit_label_budget, lowest_within, search_memory_bytes,
+                    terrain_source)
 from .section import make_section
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
@@ -485,9 +487,35 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
                              reason=last_err.reason if last_err is not None else "corridor",
                              closest=getattr(last_err, "closest", None))
     fine, keep, ln, w = best
+    t0 = time.perf_counter()
+    lower, why = _whole_grid_bound(src, area, points, job, memory_limit_bytes)
+    compute["whole_grid_bound"] = time.perf_counter() - t0
+    gap = None if lower is None else gap_of(float(ln.time_s), lower)
+    ln.stats.update(optimality_gap=gap, lower_bound_s=lower)
     info = {"coarse_factor": int(factor), "cell_m": float(fine.cell_size), "coarse_cell_m": float(coarse.cell_size),
-            "coarse_time_s": float(cl.time_s), "corridor_m": float(w), "steps": steps}
+            "coarse_time_s": float(cl.time_s), "corridor_m": float(w), "steps": steps,
+            "lower_bound_s": lower, "lower_bound_note": why}
     return _Found(terrain=fine, keepout=keep, lattice=ln, plan="corridor", corridor=info, compute_s=compute)
+
+
+def _whole_grid_bound(src, area, points, job: _Job, memory_limit_bytes) -> tuple[float | None, str | None]:
+    """A lower bound of the exact lattice optimum over the whole search area
+    (:func:`fallway.lattice.search.lattice_lower_bound`), so that the corridor's line gets a
+    certified gap; ``(None, why)`` when it is not computed."""
+    legs = 1 + len(job.via)
+    if legs > CELL_BOUND_MAX_LEGS:
+        return None, f"no whole-grid bound for more than {CELL_BOUND_MAX_LEGS} legs"
+    if not job.search.heuristic:
+        return None, "no whole-grid bound with the A* bound off"
+    need = bound_memory_bytes(_cells(area, src.cell), legs=legs)
+    limit = memory_limit_bytes if memory_limit_bytes is not None else available_bytes()
+    if limit is not None and need > 0.8 * limit:
+        return None, (f"the whole-grid bound needs about {need / 1e9:.1f} GB, more than 80 % of the "
+                      f"{limit / 1e9:.1f} GB available")
+    terrain, keep = src.window(area)
+    lb = lattice_lower_bound(terrain, points[0], points[-1], job.mover, via=job.via, limits=job.limits,
+                             keepout=keep, neighbours=job.search.neighbours)
+    return lb, None
 
 
 # --------------------------------------------------------------------------- finishing
@@ -661,7 +689,7 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         caution=CAUTION,
         **_load_fields(loads, profile),
         **_point_fields(st, final),
-        optimality_gap=st.get("optimality_gap") if found.plan == "full" else None,
+        optimality_gap=st.get("optimality_gap") if found.plan in ("full", "corridor") else None,
         **(clearance_extremes(terrain, final) if job.line.kind == "raised" else {}),
     )
     return Route(line=final, profile=profile, lattice=lat, summary=summary, mover=mover, limits=job.limits,

@@ -100,7 +100,7 @@ from .errors import ParameterError, TerrainError
 from .keepout import Keepout
 from .physics import Mover
 
-__all__ = ["search_memory_bytes", "check_memory", "available_bytes", "terrain_source", "box_around",
+__all__ = ["search_memory_bytes", "bound_memory_bytes", "check_memory", "available_bytes", "terrain_source", "box_around",
            "corridor_outside", "lowest_within", "DEFAULT_COARSE_CELLS"]
 
 #: The auto coarse factor aims at about this many cells on the coarse grid.
@@ -161,6 +161,19 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
         b += active * (_B_BOUND_ACTIVE + _B_BOUND_LEG * max(int(legs), 1))
     b += int(states * lpc * _B_LABEL * _GROWTH)
     return int(b)
+
+
+def bound_memory_bytes(cells: int, *, legs: int = 1) -> int:
+    """The working memory of :func:`fallway.lattice.search.lattice_lower_bound` on a window
+    of ``cells`` cells, bytes: the per-cell arrays of the problem and of the two bound
+    passes (module notes, "Memory"), no labels.
+
+    Examples
+    --------
+    >>> print(f"{bound_memory_bytes(1_000_000) / 1e6:.0f} MB")
+    95 MB
+    """
+    return int(cells) * (_B_CELL + _B_BOUND_ACTIVE + _B_BOUND_LEG * max(int(legs), 1))
 
 
 def label_budget_bytes(cells: int, max_labels: int, *, active_cells: int | None = None, legs: int = 1,

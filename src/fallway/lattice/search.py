@@ -93,8 +93,10 @@ from ..keepout import Keepout
 from ..params import Limits, SearchOptions, checked_options
 from ..physics import Mover, check_mu_range, traverse
 from ..results import LatticeLine, ReachMap
-from . import core as _c
 from ..scale import CELL_BOUND_MAX_LEGS  # routes of more legs use the straight A* bound
+from . import core as _c
+from .core import virtual_passable as _virtual_passable
+from .bound import _virtual_exit
 from .bound import energy_ceiling as _energy_ceiling, time_to_go as _time_to_go
 from .kernel import search as _search
 from .ends import EndPoint, Virtual, no_virtual, parse_point, resolve_point, virtual_edges
@@ -102,7 +104,7 @@ from .gap import FIRST_GRID_FRACTION, GapResult, certify
 from .robust import ROBUST_ENERGY_TOL, lo_floor, robust_search
 from .stencil import make_stencil
 
-__all__ = ["reach", "lattice_line", "robust_lattice_line", "DEFAULT_ENERGY_TOL", "ROBUST_ENERGY_TOL"]
+__all__ = ["reach", "lattice_line", "lattice_lower_bound", "robust_lattice_line", "DEFAULT_ENERGY_TOL", "ROBUST_ENERGY_TOL"]
 
 #: Declared dominance tolerance on v², relative to each label's own v².
 DEFAULT_ENERGY_TOL = 1e-10
@@ -801,6 +803,86 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     line = _build_line(terrain, prob, mover, virt, sp, ep, res)
     line.stats.update(gap_stats)
     return line
+
+
+def lattice_lower_bound(terrain, start, end, mover: Mover, *, via=(), limits: Limits | None = None, keepout=None,
+                        neighbours: int = 16) -> float | None:
+    """A proven lower bound of the exact minimum time over the whole terrain lattice.
+
+    The per-cell A* bound of :mod:`fallway.lattice.bound` at the start: the time to go
+    H of the start cell, or with an exact start point the least over its virtual start
+    edges of (the edge's time bound from v0) + H of the cell it reaches.  H never exceeds
+    the time of any line from a cell to the end (its admissibility), so no lattice line
+    on this grid - in particular none inside a corridor of it - is faster.  Used for the
+    corridor plan's gap (:func:`fallway.routing.find_route`): the corridor's line is a
+    line of the whole lattice, so ``time / bound - 1`` bounds how far it can be from the
+    whole lattice's optimum.
+
+    Parameters
+    ----------
+    terrain, start, end, mover, via, limits, keepout
+        As :func:`lattice_line`.
+    neighbours : {8, 16, 32}
+
+    Returns
+    -------
+    float or None
+        Seconds; None for routes of more than
+        :data:`fallway.scale.CELL_BOUND_MAX_LEGS` legs (no per-cell bound is computed);
+        ``inf`` when no line exists.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from fallway.terrain import Terrain
+    >>> z = 50.0 - 2.0 * np.add.outer(np.arange(10.0), np.arange(12.0))
+    >>> t = Terrain.from_array(z, (5.0, 0.0, 0.0, 0.0, -5.0, 50.0))
+    >>> a, b = t.cell_center(0, 0), t.cell_center(9, 11)
+    >>> lb = lattice_lower_bound(t, a, b, Mover(mu=0.2, drag=0.01))
+    >>> exact = lattice_line(t, a, b, Mover(mu=0.2, drag=0.01)).time_s
+    >>> 0.9 * exact < lb <= exact
+    True
+    """
+    limits = Limits() if limits is None else limits
+    if len(via) + 1 > CELL_BOUND_MAX_LEGS:
+        return None
+    keep = _keepout_mask(terrain, keepout)
+    prob = _Problem(terrain, mover, neighbours, limits, keep)
+    sp = resolve_point(terrain, start, "start", prob.blocked)
+    vias = [_snap(terrain, p, f"via point {i + 1}") for i, p in enumerate(via)]
+    ep = resolve_point(terrain, end, "end", prob.blocked)
+    virt = virtual_edges(terrain, prob.stencil, sp, ep)
+    tg = np.asarray(vias + [ep.cell], dtype=np.int64)
+    m = mover
+    v2_start = m.v0 * m.v0
+    zmin = min(prob.zmin, virt.z_range()[0])
+    v2_scale = v2_start + 2.0 * m.g * max(sp.z - zmin, 0.0)
+    v2_ceil = prob.v2_max
+    if m.drag > 0.0:
+        v2_ceil = min(v2_ceil, prob._drag_bound(v2_scale, virt))
+    vbound = math.sqrt(min(v2_scale, v2_ceil))
+    inv_v = 1.0 / vbound if vbound > 0.0 else 0.0
+    e_top = v2_start + 2.0 * m.g * sp.z
+    cidx, nact = prob.index()
+    U, H = prob._bounds(cidx, nact, sp.cell, sp.z, tg, virt, e_top, v2_scale, inv_v)
+    ident = nact == prob.rows * prob.cols
+
+    def h_at(flat: int) -> float:
+        return float(H[flat if ident else int(cidx[flat])])
+
+    if not virt.has_start:
+        return h_at(sp.cell)
+    eps_abs = 1e-9 * max(v2_scale, 1e-300)
+    best = math.inf
+    for j in range(int(virt.nvs)):
+        if _virtual_passable(prob.blocked, j, virt.code, virt.tch_start, virt.tch):
+            continue
+        _, te, ok = _virtual_exit(j, v2_start, float(sp.z), virt.sub_start, virt.drop, virt.plan, prob.min_grade,
+                                  prob.max_grade, m.g, m.mu, m.drag, 0.0, v2_ceil, e_top, eps_abs,
+                                  not prob.corners)
+        if ok:
+            best = min(best, float(te) + h_at(int(virt.cell[j])))
+    return best
 
 
 def _build_line(terrain, prob, mover, virt, sp, ep, res) -> LatticeLine:
