@@ -58,6 +58,18 @@ completion is later than a known feasible line.  The dominance tolerance is 0 in
 relaxed search (its energies lie on the grid).  Floating-point rounding of the segment
 law (relative 1e-15 per step) is outside the proof.
 
+The A* bound
+------------
+Both the straight-line bound and the per-cell bound of :mod:`fallway.lattice.bound`
+(used for routes of up to eight legs) serve the relaxed search.  The per-cell bound is
+consistent for every label whose energy is at most the ceiling U of its cell; the relaxed
+search clamps its node energies to U as well (U bounds every true energy, so step 3 still
+holds), which keeps that condition.  So the relaxed optimum is still found by label
+setting, and pruning at ``key > T_UB`` still removes only labels that cannot lead below
+T_UB.  The per-cell bound also gives a lower bound by itself: its value at the start is
+at most the exact optimum (admissibility), which is how the corridor plan gets a gap
+against the whole grid (:func:`fallway.lattice.search.lattice_lower_bound`).
+
 The robust search (three frictions per label) is not covered: its labels carry
 energies at LO and HI friction whose overspeed (LO) and stall (HI) tests pull in
 opposite directions, so rounding one energy up is not a relaxation of both; its label
