@@ -115,7 +115,7 @@ _DEFAULT_MAX_LABELS = 400_000_000
 #: :data:`EXACT_FIRST_PER_STATE` per lattice state; past it the relaxed searches bound the
 #: answer (:mod:`fallway.lattice.gap`).
 EXACT_FIRST_LABELS = 200_000
-EXACT_FIRST_PER_STATE = 2
+EXACT_FIRST_PER_STATE = 0.25
 #: ... and a search keeping this many labels per state gives the first feasible line (T_UB;
 #: 0: none, the relaxed searches' lines only).
 INCUMBENT_LABEL_CAP = 2
@@ -399,7 +399,6 @@ class _Problem:
         cidx, nact = self.index(compact)
         e_top = v2_start + 2.0 * m.g * z_start
         hgo = ucap = np.zeros(0)
-        bound_s = 0.0
         if use_bound and inv_v > 0.0 and len(tg) <= CELL_BOUND_MAX_LEGS:
             key = (int(start), z_start, tuple(int(a) for a in tg), id(vt), bool(compact))
             if self._cell_bound_key != key:
@@ -408,7 +407,6 @@ class _Problem:
                 self._cell_bound = self._bounds(cidx, nact, int(start), z_start, tg, vt, e_top, v2_scale, inv_v)
                 self._cell_bound_key = key
                 self._cell_bound_s = time.perf_counter() - tb
-                bound_s = self._cell_bound_s
             ucap, hgo = self._cell_bound
         t0 = time.perf_counter()
         out = _search(self.z, self.blocked, cidx, nact, self.rows, self.cols, self.cell,
@@ -450,7 +448,7 @@ class _Problem:
             "energy_tol": float(tol_rel),
             "heuristic": bool(inv_v > 0.0),
             "cell_bound": bool(hgo.size > 0),
-            "cell_bound_s": float(bound_s),
+            "cell_bound_s": float(self._cell_bound_s if hgo.size > 0 else 0.0),
         }
         return dict(status=int(status), final=int(final), t=Lt, v2=Le[:, 0], node=Lnode, parent=Lpar,
                     best_t=best_t, best_v2=best_v2, closest=int(closest), counters=counters, stats=stats)
@@ -751,7 +749,7 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     certified = bool(opts.gap) and not opts.label_cap
     if certified:  # the exact search first, on a budget that small problems never spend
         legs = len(targets) * (prob.stencil.size + 1 if prob.use_heading else 1)
-        first = min(budget, EXACT_FIRST_LABELS + EXACT_FIRST_PER_STATE * prob.index()[1] * legs)
+        first = min(budget, int(EXACT_FIRST_LABELS + EXACT_FIRST_PER_STATE * prob.index()[1] * legs))
         res = prob.run(sp.cell, targets, **(run_kw | dict(max_labels=first)))
     else:
         res = prob.run(sp.cell, targets, **run_kw)
