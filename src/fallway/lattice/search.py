@@ -400,12 +400,15 @@ class _Problem:
         e_top = v2_start + 2.0 * m.g * z_start
         hgo = ucap = np.zeros(0)
         if use_bound and inv_v > 0.0 and len(tg) <= CELL_BOUND_MAX_LEGS:
-            key = (int(start), z_start, tuple(int(a) for a in tg), id(vt), bool(compact))
-            if self._cell_bound_key != key:
+            # the virtual edges by identity (kept alive with the key, so an id is never reused)
+            vkey = vt if (vt.has_start or vt.has_end) else None
+            key = (int(start), z_start, tuple(int(a) for a in tg), bool(compact))
+            old = self._cell_bound_key
+            if old is None or old[0] != key or old[1] is not vkey:
                 self._cell_bound = None  # the old arrays are freed first
                 tb = time.perf_counter()
                 self._cell_bound = self._bounds(cidx, nact, int(start), z_start, tg, vt, e_top, v2_scale, inv_v)
-                self._cell_bound_key = key
+                self._cell_bound_key = (key, vkey)
                 self._cell_bound_s = time.perf_counter() - tb
             ucap, hgo = self._cell_bound
         t0 = time.perf_counter()
