@@ -515,7 +515,9 @@ def _whole_grid_bound(src, area, points, job: _Job, memory_limit_bytes) -> tuple
     terrain, keep = src.window(area)
     lb = lattice_lower_bound(terrain, points[0], points[-1], job.mover, via=job.via, limits=job.limits,
                              keepout=keep, neighbours=job.search.neighbours)
-    return lb, None
+    if lb is None or not math.isfinite(lb) or lb <= 0.0:  # inf would contradict the corridor's line
+        return None, f"the whole-grid bound gave no usable value ({lb})"
+    return float(lb), None
 
 
 # --------------------------------------------------------------------------- finishing
