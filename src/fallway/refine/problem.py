@@ -250,7 +250,9 @@ class Problem:
         v = np.sqrt(np.maximum(self.speeds(P, model), 0.0))
         r = required_radius_m(P, v, lim, g=self.mover.g, surface_normal=self.bed_normals(P))
         kap = curvature(P[:-2], P[1:-1], P[2:])
-        if lim.min_radius_m is None and not np.any(kap * r > 0.5):
+        with np.errstate(invalid="ignore"):  # a straight vertex (0) where no bend is allowed (inf): NaN, not tight
+            tight = kap * r > 0.5
+        if lim.min_radius_m is None and not np.any(tight):
             self.bends = None
             return
         self.bends = (_fractions(P)[1:-1], r)
