@@ -197,14 +197,16 @@ def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
 
 @njit(cache=True, nogil=True)
 def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grade,
-                    normal_ratio, lift, v2_mid, surf, has_surf):
+                    normal_ratio, lift, v2_mid, surf, has_surf, v2_dep):
     """Speed along a polyline without repeated points; fills the output arrays.
 
     Outputs (length M unless noted): ``station`` (m), ``v2`` (m²/s², NaN after a
     stall), ``time`` (s, NaN after a stall), ``grade`` (descent grade of the segment
     leaving each vertex), ``normal_ratio`` (N/g; NaN after a stall in the full model),
     ``lift`` (1 where an open chute would lift off, 0 otherwise), ``v2_mid`` (M-1,
-    squared speed at each segment's midpoint, full model; NaN otherwise).
+    squared speed at each segment's midpoint, full model; NaN otherwise), ``v2_dep``
+    (squared speed leaving each vertex: after the corner law at an interior vertex in the
+    full model, else equal to ``v2``; NaN after a stall).
 
     ``surf`` (M, 3): the upward unit normal of the surface the line lies on (the
     ground), used for lift-off when ``has_surf``; otherwise lift-off is judged against
@@ -261,6 +263,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
         drop = pts[j, 2] - pts[j + 1, 2]
         plan = math.sqrt(max(s * s - drop * drop, 0.0))
         if not full:
+            v2_dep[j] = v2[j]
             u, t, at = segment_law(v2[j], drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at
@@ -272,6 +275,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
             u0 = v2[j]
             if j >= 1:
                 u0 = corner_v2(u0, phi_c[j], mu, g, run_before[j], run_after[j])
+            v2_dep[j] = u0
             u, t, at = segment_law(u0, drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at
@@ -284,6 +288,10 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     for i in range(last + 1, m):
         v2[i] = math.nan
         time[i] = math.nan
+    for i in range(last + 1, m):
+        v2_dep[i] = math.nan
+    if stall < 0.0:
+        v2_dep[m - 1] = v2[m - 1]
 
     # normal force ratio and lift-off at the vertices
     for i in range(m):

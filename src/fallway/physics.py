@@ -70,6 +70,10 @@ class Profile:
     overspeed : ndarray of float
         Stations where the speed exceeds ``Mover.max_speed``: vertices, and with the
         ``"full"`` model segment midpoints (where a bend's peak can lie).
+    departing_speed_m_s : ndarray (N,)
+        Speed leaving each vertex: with the ``"full"`` model after the corner law at an
+        interior vertex (the speed the next segment starts with), otherwise equal to
+        ``speed_m_s``; at the end the arriving speed; NaN after a stall.
     """
 
     points: np.ndarray
@@ -81,6 +85,7 @@ class Profile:
     stalled_at_m: float | None
     liftoff: np.ndarray
     overspeed: np.ndarray
+    departing_speed_m_s: np.ndarray
 
     @property
     def feasible(self) -> bool:
@@ -299,6 +304,7 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     ratio = np.empty(m)
     lift = np.empty(m, dtype=np.int8)
     v2_mid = np.empty(m - 1)
+    v2_dep = np.empty(m)
     if surface_normal is None:
         surf = np.zeros((m, 3))
     else:
@@ -312,7 +318,7 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
         surf = np.ascontiguousarray((surf / norm[:, None])[keep])
     stall = traverse_kernel(uniq, mover.g, mover.mu, mover.drag, mover.v0 ** 2, mover.stall_speed ** 2,
                             mover.normal == "full", station, v2, time, grade, ratio, lift, v2_mid,
-                            surf, surface_normal is not None)
+                            surf, surface_normal is not None, v2_dep)
     speed = np.sqrt(v2)
     liftoff = station[lift.astype(bool)]
     if mover.max_speed is None:
@@ -334,6 +340,7 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
         stalled_at_m=None if stall < 0.0 else float(stall),
         liftoff=_readonly(liftoff),
         overspeed=_readonly(overspeed),
+        departing_speed_m_s=_readonly(np.sqrt(v2_dep)[idx]),
     )
 
 

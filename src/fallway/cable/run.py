@@ -107,7 +107,7 @@ def span_time(points: np.ndarray, mover: Mover, v_in_m_s: float) -> tuple[float,
     stall = traverse_kernel(points, mover.g, mover.mu, mover.drag, float(v_in_m_s) ** 2, mover.stall_speed ** 2,
                             mover.normal == "full", np.empty(m), v2, time, np.empty(m), np.empty(m),
                             np.empty(m, dtype=np.int8), v2_mid, _NO_SURFACE[:m] if m <= len(_NO_SURFACE)
-                            else np.zeros((m, 3)), False)
+                            else np.zeros((m, 3)), False, np.empty(m))
     if stall >= 0.0:
         return math.inf, math.nan, 1
     if mover.max_speed is not None:
