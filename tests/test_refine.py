@@ -451,3 +451,18 @@ def test_bend_radii_of_a_straight_line_where_no_bend_is_allowed_raise_no_warning
         warnings.simplefilter("error")
         prob.update_bends(P, "full")
     assert prob.bends is not None
+
+
+def test_interpolated_radius_slope_is_zero_beside_an_infinite_radius_without_a_warning():
+    # np.interp's slope (the piece's rise over its run, checked by differences) and 0 on a
+    # piece touching an infinite required radius (a vertex where no bend is allowed)
+    from fallway.refine.problem import _interp_slope
+
+    xp, fp = np.array([0.0, 0.5, 1.0]), np.array([10.0, 30.0, np.inf])
+    x = np.array([0.25, 0.75])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        s = _interp_slope(x, xp, fp)
+    h = 1e-6
+    assert s[0] == pytest.approx((np.interp(0.25 + h, xp, fp) - np.interp(0.25 - h, xp, fp)) / (2 * h), rel=1e-6)
+    assert s[1] == 0.0

@@ -91,7 +91,8 @@ def _interp_slope(x, xp, fp) -> np.ndarray:
         return np.zeros_like(x)
     k = np.clip(np.searchsorted(xp, x, side="right") - 1, 0, len(xp) - 2)
     dx = xp[k + 1] - xp[k]
-    df = fp[k + 1] - fp[k]
+    with np.errstate(invalid="ignore"):  # inf - inf beside a vertex where no bend is allowed: NaN, masked below
+        df = fp[k + 1] - fp[k]
     inside = (x >= xp[0]) & (x <= xp[-1]) & (dx > 0) & np.isfinite(df)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(inside, df / np.where(dx > 0, dx, 1.0), 0.0)
