@@ -64,7 +64,7 @@ def make_profile(points, mover, *, liftoff=(), overspeed=()):
     grade = np.append(-d[:, 2] / plan, -d[-1, 2] / plan[-1])
     ratio = np.append(plan / length, plan[-1] / length[-1])
     return Profile(pts, station, np.sqrt(v2), t, grade, ratio, stalled,
-                   np.asarray(liftoff, float), np.asarray(overspeed, float))
+                   np.asarray(liftoff, float), np.asarray(overspeed, float), np.sqrt(v2))
 
 
 def make_route(terrain=None, mover=None, *, raised=0.0, n=31):
@@ -231,7 +231,7 @@ def test_geojson_round_trip_anywhere_in_the_zone(tmp_path_factory, pts):
     base = make_route()
     r = dataclasses.replace(base, line=line, profile=Profile(
         line, np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)), np.zeros(len(line)),
-        np.ones(len(line)), None, np.array([]), np.array([])))
+        np.ones(len(line)), None, np.array([]), np.array([]), np.zeros(len(line))))
     path = tmp_path_factory.mktemp("rt") / "r.geojson"
     f = check_rfc7946(json.loads(write_route_geojson(r, path, "EPSG:32633").read_text()))
     lonlat = np.array(f["geometry"]["coordinates"])
@@ -367,7 +367,7 @@ def test_profile_csv_flags_and_empty_cells(terrain, tmp_path):
     prof = r.profile
     assert prof.stalled_at_m is not None
     prof = Profile(prof.points, prof.station_m, prof.speed_m_s, prof.time_s, prof.grade, prof.normal_ratio,
-                   prof.stalled_at_m, np.array([prof.station_m[2] + 0.1]), np.array([]))
+                   prof.stalled_at_m, np.array([prof.station_m[2] + 0.1]), np.array([]), prof.departing_speed_m_s)
     r = dataclasses.replace(r, profile=prof, mover=mover)
     rows = _read_csv(write_profile_csv(r, terrain, tmp_path / "profile.csv"))
     flags = [row["flags"] for row in rows]
@@ -387,7 +387,7 @@ def test_profile_csv_flags_and_empty_cells(terrain, tmp_path):
 def test_flags_mark_the_nearest_vertex(stations):
     # property: every listed lift-off station flags exactly the vertex nearest to it
     s = np.linspace(0.0, 100.0, 11)
-    p = Profile(np.zeros((11, 3)), s, np.ones(11), s, s, s, None, np.array(stations), np.array([]))
+    p = Profile(np.zeros((11, 3)), s, np.ones(11), s, s, s, None, np.array(stations), np.array([]), np.ones(11))
     flags = profile_flags(p)
     expect = {int(np.argmin(np.abs(s - x))) for x in stations}
     got = {i for i, f in enumerate(flags) if f == "liftoff"}

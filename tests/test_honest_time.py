@@ -24,7 +24,7 @@ from conftest import write_geotiff
 from fallway.cli import main
 from fallway.geometry import MAX_VERTEX_TURN_DEG, round_corners
 from fallway.physics import Mover, traverse
-from references import sharp_corner_reading, smooth_reading
+from references import incline_step, sharp_corner_reading, smooth_reading
 
 
 def _turns_deg(P):
@@ -40,6 +40,27 @@ descending = st.lists(
 def _polyline(steps):
     d = np.array([(dx, dy, -dz) for dx, dy, dz in steps])
     return np.vstack([[0.0, 0.0, 500.0], np.cumsum(d, axis=0) + [0.0, 0.0, 500.0]])
+
+
+@settings(max_examples=40, deadline=None)
+@given(descending, st.floats(0.0, 0.4), st.just(0.0) | st.floats(1e-4, 0.02), st.floats(0.5, 6.0))
+def test_departing_speed_is_what_the_next_segment_starts_with(steps, mu, k, v0):
+    # the speed leaving each vertex (after its corner) carried along the segment by the
+    # independent incline law gives the speed arriving at the next vertex; the gravity
+    # model has no corners (departing = arriving)
+    P = _polyline(steps)
+    p = traverse(P, Mover(mu=mu, drag=k, v0=v0))
+    dep = np.asarray(p.departing_speed_m_s)
+    for j in range(len(P) - 1):
+        if not math.isfinite(p.speed_m_s[j + 1]):
+            break
+        d = P[j + 1] - P[j]
+        v, _ = incline_step(float(dep[j]), -float(d[2]), float(math.hypot(d[0], d[1])), mu, k)
+        assert v == pytest.approx(p.speed_m_s[j + 1], rel=1e-9, abs=1e-9)
+    if p.feasible:
+        assert dep[-1] == p.speed_m_s[-1]
+    g = traverse(P, Mover(mu=mu, drag=k, v0=v0, normal="gravity"))
+    np.testing.assert_array_equal(g.departing_speed_m_s, g.speed_m_s)
 
 
 @settings(max_examples=60, deadline=None)

@@ -106,7 +106,7 @@ def test_profile_plot_ground_line_speed_time_and_flags(terrain):
     p = r.profile
     assert p.stalled_at_m is not None
     p = Profile(p.points, p.station_m, p.speed_m_s, p.time_s, p.grade, p.normal_ratio, p.stalled_at_m,
-                np.array([p.station_m[3]]), np.array([]))
+                np.array([p.station_m[3]]), np.array([]), p.departing_speed_m_s)
     r = dataclasses.replace(r, profile=p, mover=mover)
     ax = plot_profile(r, terrain)
     fig = ax.figure

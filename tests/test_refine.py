@@ -432,3 +432,37 @@ def test_bad_parameters_raise_parameter_errors():
                           ("margin_m", -1.0), ("penalty", float("nan"))):
         with pytest.raises(ParameterError, match=option):
             refine_line(t, pts, Mover(), **{option: value})
+
+
+def test_bend_radii_of_a_straight_line_where_no_bend_is_allowed_raise_no_warning():
+    # On a level straight line with max_normal_g = 1 no bend at all is allowed (the
+    # required radius is infinite) and the curvature is exactly 0: the vertex is not
+    # tight (0 * inf), and no numpy warning reaches the user's terminal.
+    t = Terrain.from_array(np.zeros((20, 40)), Affine(1.0, 0.0, 0.0, 0.0, -1.0, 20.0), None)
+    prob = Problem(Ground(t), Mover(mu=0.0, v0=5.0, normal="full"), Limits(max_normal_g=1.0, allow_liftoff=True),
+                   LineSpec("raised", (0.0, 20.0)), None, None, 0.1, 1e4)
+    P = np.column_stack([np.linspace(5.5, 30.5, 6), np.full(6, 10.5), np.full(6, 2.0)])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        prob.update_bends(P, "full")
+    assert prob.bends is None
+    P[3, 1] += 0.5  # a real bend: now the radius binds
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        prob.update_bends(P, "full")
+    assert prob.bends is not None
+
+
+def test_interpolated_radius_slope_is_zero_beside_an_infinite_radius_without_a_warning():
+    # np.interp's slope (the piece's rise over its run, checked by differences) and 0 on a
+    # piece touching an infinite required radius (a vertex where no bend is allowed)
+    from fallway.refine.problem import _interp_slope
+
+    xp, fp = np.array([0.0, 0.5, 1.0]), np.array([10.0, 30.0, np.inf])
+    x = np.array([0.25, 0.75])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        s = _interp_slope(x, xp, fp)
+    h = 1e-6
+    assert s[0] == pytest.approx((np.interp(0.25 + h, xp, fp) - np.interp(0.25 - h, xp, fp)) / (2 * h), rel=1e-6)
+    assert s[1] == 0.0

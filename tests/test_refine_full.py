@@ -251,3 +251,35 @@ def test_converged_only_when_the_returned_lines_own_solver_passed_its_stationari
     assert not res.converged
     names = [c.name for c in res.candidates]
     assert "gravity optimum" in names  # converged on its own, but not the line returned
+
+
+def test_polish_trades_time_for_a_broken_limit():
+    # A bend at speed on a 30° plane that breaks a lateral limit of 0.3 g.  The polish
+    # minimises time plus the limits' penalties; it keeps its line when that objective
+    # falls even though the line gets slower (holding a lateral limit costs time: the
+    # allowed radius grows with v², v²/R <= n g).  Measured independently: the lateral
+    # acceleration is re-read from the vertices by the circumcircle (v²/R, CHECKS
+    # "Buildable lines") and the time by traverse.
+    from fallway.geometry import circumradii
+    from fallway.refine.problem import Ground, Problem
+    from fallway.refine.solve import polish
+
+    t = plane_terrain(30.0, rows=60, cols=60)
+    xy = np.array([(5.5, 30.5), (20.5, 30.5), (30.5, 45.5), (40.5, 45.5)])
+    xy = np.vstack([np.linspace(a, b, 8, endpoint=False) for a, b in zip(xy[:-1], xy[1:])] + [xy[-1:]])
+    P = on_ground(t, xy)
+    mover = Mover(mu=0.1, normal="full", v0=3.0)
+    lim = Limits(max_lateral_g=0.3, allow_liftoff=True)
+
+    def lateral_g(Q):
+        v = traverse(Q, mover).speed_m_s
+        r = circumradii(Q[:, :2], dims=2)
+        return np.max(v[1:-1] ** 2 / r) / mover.g
+
+    prob = Problem(Ground(t), mover, lim, LineSpec(), None, None, 0.1, 1e4)
+    prob.update_bends(P, "full")
+    assert prob.violations(P, "full")["lateral_g"] == "violated"
+    Q, _, _, _, note = polish(prob, P, 400, 1e-9, (0.0,))
+    assert not np.array_equal(Q, P), note
+    assert lateral_g(Q) < lateral_g(P)
+    assert traverse(Q, mover).travel_time_s > traverse(P, mover).travel_time_s

@@ -196,19 +196,16 @@ def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
 
 
 @njit(cache=True, nogil=True)
-def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grade,
-                    normal_ratio, lift, v2_mid, surf, has_surf):
+def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grade, v2_mid, v2_dep):
     """Speed along a polyline without repeated points; fills the output arrays.
 
     Outputs (length M unless noted): ``station`` (m), ``v2`` (m²/s², NaN after a
     stall), ``time`` (s, NaN after a stall), ``grade`` (descent grade of the segment
-    leaving each vertex), ``normal_ratio`` (N/g; NaN after a stall in the full model),
-    ``lift`` (1 where an open chute would lift off, 0 otherwise), ``v2_mid`` (M-1,
-    squared speed at each segment's midpoint, full model; NaN otherwise).
-
-    ``surf`` (M, 3): the upward unit normal of the surface the line lies on (the
-    ground), used for lift-off when ``has_surf``; otherwise lift-off is judged against
-    the up direction in the vertical plane of the tangent.
+    leaving each vertex), ``v2_mid`` (M-1, squared speed at each segment's midpoint, full
+    model; NaN otherwise), ``v2_dep`` (squared speed leaving each vertex: after the corner
+    law at an interior vertex in the full model, else equal to ``v2``; NaN after a stall).
+    The loads at the vertices (normal load, lift-off) are not the kernel's: they are
+    :func:`fallway.loads.line_loads`' reading of the line and its speeds.
 
     Returns the stall station (m), or -1.0 when the mover reaches the end.
     """
@@ -216,9 +213,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     nseg = m - 1
     tang = np.empty((nseg, 3))
     seg_len = np.empty(nseg)
-    kappa = np.empty(m)
-    normal = np.empty((m, 3))
-    vertex_geometry(pts, tang, seg_len, kappa, normal)
+    vertex_geometry(pts, tang, seg_len, np.empty(m), np.empty((m, 3)))
     station[0] = 0.0
     for j in range(nseg):
         station[j + 1] = station[j] + seg_len[j]
@@ -261,6 +256,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
         drop = pts[j, 2] - pts[j + 1, 2]
         plan = math.sqrt(max(s * s - drop * drop, 0.0))
         if not full:
+            v2_dep[j] = v2[j]
             u, t, at = segment_law(v2[j], drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at
@@ -272,6 +268,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
             u0 = v2[j]
             if j >= 1:
                 u0 = corner_v2(u0, phi_c[j], mu, g, run_before[j], run_after[j])
+            v2_dep[j] = u0
             u, t, at = segment_law(u0, drop, plan, s, g, mu, k, v2_stall)
             if at >= 0.0:
                 stall = station[j] + at
@@ -284,48 +281,9 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     for i in range(last + 1, m):
         v2[i] = math.nan
         time[i] = math.nan
+    for i in range(last + 1, m):
+        v2_dep[i] = math.nan
+    if stall < 0.0:
+        v2_dep[m - 1] = v2[m - 1]
 
-    # normal force ratio and lift-off at the vertices
-    for i in range(m):
-        lift[i] = 0
-        # tangent at the vertex: bisector of the adjacent segment directions
-        if i == 0:
-            tx, ty, tz = tang[0, 0], tang[0, 1], tang[0, 2]
-        elif i == m - 1:
-            tx, ty, tz = tang[nseg - 1, 0], tang[nseg - 1, 1], tang[nseg - 1, 2]
-        else:
-            tx = tang[i - 1, 0] + tang[i, 0]
-            ty = tang[i - 1, 1] + tang[i, 1]
-            tz = tang[i - 1, 2] + tang[i, 2]
-            tn = math.sqrt(tx * tx + ty * ty + tz * tz)
-            if tn > 1e-12:
-                tx, ty, tz = tx / tn, ty / tn, tz / tn
-            else:
-                tx, ty, tz = tang[i, 0], tang[i, 1], tang[i, 2]
-        # up normal in the vertical plane of the tangent and its length (= cos slope)
-        upx = -tz * tx
-        upy = -tz * ty
-        upz = 1.0 - tz * tz
-        upn = math.sqrt(upx * upx + upy * upy + upz * upz)
-        # g_perp = -g * up (unnormalised)
-        if not full:
-            jj = i if i < nseg else nseg - 1
-            normal_ratio[i] = math.sqrt(max(1.0 - tang[jj, 2] ** 2, 0.0))
-        else:
-            u = v2[i]
-            ckx = u * kappa[i] * normal[i, 0] + g * upx
-            cky = u * kappa[i] * normal[i, 1] + g * upy
-            ckz = u * kappa[i] * normal[i, 2] + g * upz
-            normal_ratio[i] = math.sqrt(ckx * ckx + cky * cky + ckz * ckz) / g
-        if kappa[i] > 0.0 and upn > 1e-12 and i <= last:
-            if has_surf:
-                # component of the supplied force along the surface normal: a bend in the
-                # plane of the ground (a plan turn on a slope) never lifts the mass off
-                ax, ay, az = surf[i, 0], surf[i, 1], surf[i, 2]
-            else:
-                ax, ay, az = upx / upn, upy / upn, upz / upn
-            nup = (v2[i] * kappa[i] * (normal[i, 0] * ax + normal[i, 1] * ay + normal[i, 2] * az)
-                   + g * (upx * ax + upy * ay + upz * az))
-            if nup < 0.0:
-                lift[i] = 1
     return stall

@@ -632,7 +632,7 @@ def _example_route():
     v2, t, _ = segment_law(0.0, 25.0, plan, 50.0, mover.g, mover.mu, 0.0, 0.0)
     prof = Profile(line, np.array([0.0, 50.0]), np.array([0.0, math.sqrt(v2)]), np.array([0.0, t]),
                    np.array([tan30, tan30]), np.full(2, math.cos(math.radians(30.0))), None,
-                   np.array([]), np.array([]))
+                   np.array([]), np.array([]), np.array([0.0, math.sqrt(v2)]))
     lattice = LatticeLine(np.array([[1, 0], [1, 7]]), line, prof, t)
     v = math.sqrt(v2)
     summary = RouteSummary(
@@ -665,8 +665,8 @@ def profile_flags(profile, mover=None) -> list[str]:
     >>> import numpy as np
     >>> from fallway.physics import Profile
     >>> s = np.array([0.0, 1.0, 2.0, 3.0])
-    >>> p = Profile(np.zeros((4, 3)), s, np.array([0, 1, 2, np.nan]), s, s, s, 2.5,
-    ...             np.array([1.1]), np.array([]))
+    >>> v = np.array([0, 1, 2, np.nan])
+    >>> p = Profile(np.zeros((4, 3)), s, v, s, s, s, 2.5, np.array([1.1]), np.array([]), v)
     >>> profile_flags(p)
     ['', 'liftoff', 'stall', 'stall']
     """

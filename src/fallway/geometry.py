@@ -105,7 +105,7 @@ def circumradii(points, dims: int = 2) -> np.ndarray:
     # |u x w| = ab * bc * sin(turn): a turn below 1e-9 rad is straight (radius beyond 1e9 legs)
     straight = cross <= 1e-9 * ab * bc
     dot = np.einsum("ij,ij->i", u, w)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # a radius past 1e308 m: inf
         return np.where(straight, np.where(dot < 0, 0.0, np.inf), ab * bc * ca / (2.0 * cross))
 
 

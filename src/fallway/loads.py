@@ -228,7 +228,7 @@ def line_loads(points, speed_m_s, *, g: float = STANDARD_GRAVITY, surface_normal
     straight = kmag == 0.0
     lateral[straight & np.isfinite(u)] = 0.0
     h = np.hypot(t[:, 0], t[:, 1])
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # near-vertical: +-inf
         grade = np.where(h > 0, -t[:, 2] / h, np.where(t[:, 2] < 0, np.inf, -np.inf))
     return Loads(station, v.copy(), kplan, kmag, np.where(straight, 0.0, kv), lateral, normal_g, lift, grade)
 

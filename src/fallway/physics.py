@@ -57,19 +57,24 @@ class Profile:
     normal_ratio : ndarray (N,)
         Normal force over g at each vertex: ``"gravity"`` model, gravity's cross
         component on the segment leaving the vertex (``plan / length``); ``"full"``
-        model, ``|v² kappa n - g_perp| / g`` with the vertex's discrete curvature and
-        the bisector tangent (NaN after a stall).
+        model, the resultant of bed and wall forces ``|v² kappa n - g_perp| / g`` as
+        :func:`fallway.loads.line_loads` reads it (``normal_g``; NaN after a stall).
     stalled_at_m : float or None
         Station where the mover stalls, or None.
     liftoff : ndarray of float
         Stations of the vertices where an open chute would need a pulling normal force:
         on a convex crest in the vertical plane ``v² kappa_vertical`` exceeds gravity's
-        cross component ``g cos(slope)`` and the mass would leave the ground (computed
-        with either normal model; after lift-off the profile assumes the line still
-        guides the mass, as a closed chute or a cable would).
+        cross component ``g cos(slope)`` and the mass would leave the ground: a negative
+        ``liftoff_margin_g`` of :func:`fallway.loads.line_loads` (computed with either
+        normal model; after lift-off the profile assumes the line still guides the mass,
+        as a closed chute or a cable would).
     overspeed : ndarray of float
         Stations where the speed exceeds ``Mover.max_speed``: vertices, and with the
         ``"full"`` model segment midpoints (where a bend's peak can lie).
+    departing_speed_m_s : ndarray (N,)
+        Speed leaving each vertex: with the ``"full"`` model after the corner law at an
+        interior vertex (the speed the next segment starts with), otherwise equal to
+        ``speed_m_s``; at the end the arriving speed; NaN after a stall.
     """
 
     points: np.ndarray
@@ -81,6 +86,7 @@ class Profile:
     stalled_at_m: float | None
     liftoff: np.ndarray
     overspeed: np.ndarray
+    departing_speed_m_s: np.ndarray
 
     @property
     def feasible(self) -> bool:
@@ -244,10 +250,12 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     with bed and walls, conservative against a point mass on one banked surface
     (``mu |v² kappa n - g_perp|``).  A line meant as a smooth curve must therefore be
     sampled densely where it bends; route lines are (<= 5° of turn per vertex).  The
-    speed at a vertex is the arriving speed.  ``normal_ratio`` and lift-off are read on
-    the smooth reading of the vertices (discrete curvature ``phi_i / l_i``, ``l_i`` the
-    mean of the adjoining segment lengths); the load is the resultant of bed and wall
-    forces, ``|v² kappa n - g_perp| / g``.
+    speed at a vertex is the arriving speed.  ``normal_ratio`` (full model) and lift-off
+    are :func:`fallway.loads.line_loads`' reading of the vertices and their speeds (the
+    curvature of the circle through each vertex and its neighbours): the load is the
+    resultant of bed and wall forces, ``|v² kappa n - g_perp| / g``, and a vertex lifts off
+    where its lift-off margin is negative -- the same reading a route's limits and
+    summary use.
 
     Stalls: the mover stalls where it slows below ``stall_speed`` (or comes to rest).
     A line that starts at rest (or below the stall speed) on an upslope or a level
@@ -269,6 +277,7 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     0.0
     """
     from ._traverse import traverse_kernel
+    from .loads import line_loads
 
     _check_mover(mover)
     try:
@@ -296,12 +305,10 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
     v2 = np.empty(m)
     time = np.empty(m)
     grade = np.empty(m)
-    ratio = np.empty(m)
-    lift = np.empty(m, dtype=np.int8)
     v2_mid = np.empty(m - 1)
-    if surface_normal is None:
-        surf = np.zeros((m, 3))
-    else:
+    v2_dep = np.empty(m)
+    surf = None
+    if surface_normal is not None:
         surf = np.array(surface_normal, dtype=np.float64)
         if surf.shape != pts.shape or not np.isfinite(surf).all():
             raise ParameterError(f"surface_normal must be a finite (N, 3) array like points {pts.shape}, "
@@ -311,10 +318,17 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
             raise ParameterError("surface_normal has a zero vector; give unit upward normals")
         surf = np.ascontiguousarray((surf / norm[:, None])[keep])
     stall = traverse_kernel(uniq, mover.g, mover.mu, mover.drag, mover.v0 ** 2, mover.stall_speed ** 2,
-                            mover.normal == "full", station, v2, time, grade, ratio, lift, v2_mid,
-                            surf, surface_normal is not None)
+                            mover.normal == "full", station, v2, time, grade, v2_mid, v2_dep)
     speed = np.sqrt(v2)
-    liftoff = station[lift.astype(bool)]
+    loads = line_loads(uniq, speed, g=mover.g, surface_normal=surf)
+    if mover.normal == "full":
+        ratio = np.asarray(loads.normal_g, dtype=float)
+    else:  # gravity's cross component on the segment leaving each vertex
+        d = np.diff(uniq, axis=0)
+        cos = np.hypot(d[:, 0], d[:, 1]) / np.sqrt((d ** 2).sum(axis=1))
+        ratio = np.append(cos, cos[-1])
+    with np.errstate(invalid="ignore"):  # NaN after a stall: not judged
+        liftoff = station[np.asarray(loads.liftoff_margin_g) < 0.0]
     if mover.max_speed is None:
         overspeed = np.empty(0)
     else:
@@ -334,6 +348,7 @@ def traverse(points, mover: Mover, *, surface_normal=None) -> Profile:
         stalled_at_m=None if stall < 0.0 else float(stall),
         liftoff=_readonly(liftoff),
         overspeed=_readonly(overspeed),
+        departing_speed_m_s=_readonly(np.sqrt(v2_dep)[idx]),
     )
 
 

@@ -80,6 +80,7 @@ from typing import Any
 from .errors import FallwayError, ParameterError, ScenarioError
 from .cable.spec import CableSpec
 from .params import Limits, LineSpec, Mover, SearchOptions
+from .stations import DEFAULT_STATION_STEP_M
 
 __all__ = ["Scenario", "load_scenario", "read_toml", "check_value", "kind_of"]
 
@@ -203,7 +204,7 @@ class Scenario:
     search: SearchOptions = field(default_factory=SearchOptions)
     refine: bool = True
     mu_range: tuple[float, float] | None = None
-    station_step_m: float = 10.0
+    station_step_m: float = DEFAULT_STATION_STEP_M
 
     def __post_init__(self) -> None:
         if self.mu_range is not None:
@@ -330,7 +331,7 @@ class Scenario:
                      "height_layers": self.line.height_layers, "straight_plan": self.line.straight_plan}
         if self.mu_range is not None:
             d["envelope"] = {"mu_range": list(self.mu_range)}
-        if self.station_step_m != 10.0:
+        if self.station_step_m != DEFAULT_STATION_STEP_M:
             d["outputs"] = {"station_step": self.station_step_m}
         if self.line.cable is not None:
             d["cable"] = {k: (list(v) if isinstance(v, tuple) else v) for k, v in asdict(self.line.cable).items()

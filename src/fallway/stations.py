@@ -136,43 +136,6 @@ def check_station_step(step_m) -> float:
     return step
 
 
-def _departing_v2(P: np.ndarray, v2: np.ndarray, mover) -> np.ndarray:
-    """Squared speed leaving each vertex of a line without repeated points (length M - 1).
-
-    The gravity-normal model has no corners: the arriving speed.  The full model applies
-    the corner law at each interior vertex, with the friction angle and the plan lengths
-    of the straight runs either side as :func:`fallway._traverse.traverse_kernel` takes them.
-    """
-    from ._traverse import corner_v2, turn_angle
-
-    u0 = np.array(v2[:-1], dtype=float)
-    m = len(P)
-    if mover.normal != "full" or m < 3:
-        return u0
-    d = np.diff(P, axis=0)
-    s = np.sqrt((d ** 2).sum(axis=1))
-    tang = d / s[:, None]
-    plan = s * np.sqrt(np.maximum(1.0 - tang[:, 2] ** 2, 0.0))
-    phi = np.zeros(m)
-    for i in range(1, m - 1):
-        phi[i] = turn_angle(*tang[i - 1], *tang[i])
-    run_before = np.zeros(m)
-    run_after = np.zeros(m)
-    acc = 0.0
-    for i in range(1, m):
-        acc += plan[i - 1]
-        run_before[i] = acc
-        acc = 0.0 if phi[i] != 0.0 else acc
-    acc = 0.0
-    for i in range(m - 2, -1, -1):
-        acc += plan[i]
-        run_after[i] = acc
-        acc = 0.0 if phi[i] != 0.0 else acc
-    for j in range(1, m - 1):
-        u0[j] = corner_v2(float(v2[j]), phi[j], mover.mu, mover.g, run_before[j], run_after[j])
-    return u0
-
-
 def _stations(length_m: float, step_m: float, marks: list) -> tuple[np.ndarray, list]:
     """Sorted stations with their flags: the multiples of the step, the end, and the marks."""
     n = int(math.floor(length_m / step_m + 1e-9))
@@ -251,7 +214,7 @@ def station_table(route, step_m: float = DEFAULT_STATION_STEP_M, *, extra=()) ->
     m = len(P)
     length = float(S[-1])
     v2 = V * V
-    u0 = _departing_v2(P, v2, mover)
+    u0 = (np.asarray(prof.departing_speed_m_s, dtype=float)[keep] ** 2)[:-1]  # each segment's start
     normals = None
     if getattr(route.line_spec, "kind", "ground") == "ground":
         n = terrain.normal(P[:, 0], P[:, 1])

@@ -23,13 +23,10 @@ def runs_kernel(pts, g, mu, k, v2_in, v2_stall, full, v2_max, out_t, out_v2, out
     v2 = np.empty(m)
     time = np.empty(m)
     grade = np.empty(m)
-    ratio = np.empty(m)
-    lift = np.empty(m, dtype=np.int8)
     v2_mid = np.empty(m - 1)
-    surf = np.zeros((m, 3))
+    v2_dep = np.empty(m)
     for i in range(v2_in.shape[0]):
-        stall = traverse_kernel(pts, g, mu, k, v2_in[i], v2_stall, full, station, v2, time, grade, ratio, lift,
-                                v2_mid, surf, False)
+        stall = traverse_kernel(pts, g, mu, k, v2_in[i], v2_stall, full, station, v2, time, grade, v2_mid, v2_dep)
         out_t[i] = time[m - 1]
         out_v2[i] = v2[m - 1]
         if stall >= 0.0:

@@ -105,9 +105,7 @@ def span_time(points: np.ndarray, mover: Mover, v_in_m_s: float) -> tuple[float,
     v2_mid = np.empty(m - 1)
     time = np.empty(m)
     stall = traverse_kernel(points, mover.g, mover.mu, mover.drag, float(v_in_m_s) ** 2, mover.stall_speed ** 2,
-                            mover.normal == "full", np.empty(m), v2, time, np.empty(m), np.empty(m),
-                            np.empty(m, dtype=np.int8), v2_mid, _NO_SURFACE[:m] if m <= len(_NO_SURFACE)
-                            else np.zeros((m, 3)), False)
+                            mover.normal == "full", np.empty(m), v2, time, np.empty(m), v2_mid, np.empty(m))
     if stall >= 0.0:
         return math.inf, math.nan, 1
     if mover.max_speed is not None:
@@ -119,4 +117,3 @@ def span_time(points: np.ndarray, mover: Mover, v_in_m_s: float) -> tuple[float,
     return float(time[-1]), math.sqrt(v2[-1]), 0
 
 
-_NO_SURFACE = np.zeros((4096, 3))

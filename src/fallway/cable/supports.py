@@ -583,4 +583,5 @@ def _joined_profile(parts) -> Profile:
     overspeed = np.concatenate([np.asarray(p.overspeed) + s0 for p, _, _, s0 in parts])
     return Profile(points=cat("points"), station_m=cat("station_m", "s"), speed_m_s=cat("speed_m_s"),
                    time_s=cat("time_s", "t"), grade=cat("grade"), normal_ratio=cat("normal_ratio"),
-                   stalled_at_m=None, liftoff=liftoff, overspeed=overspeed)
+                   stalled_at_m=None, liftoff=liftoff, overspeed=overspeed,
+                   departing_speed_m_s=cat("departing_speed_m_s"))

@@ -91,7 +91,8 @@ def _interp_slope(x, xp, fp) -> np.ndarray:
         return np.zeros_like(x)
     k = np.clip(np.searchsorted(xp, x, side="right") - 1, 0, len(xp) - 2)
     dx = xp[k + 1] - xp[k]
-    df = fp[k + 1] - fp[k]
+    with np.errstate(invalid="ignore"):  # inf - inf beside a vertex where no bend is allowed: NaN, masked below
+        df = fp[k + 1] - fp[k]
     inside = (x >= xp[0]) & (x <= xp[-1]) & (dx > 0) & np.isfinite(df)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(inside, df / np.where(dx > 0, dx, 1.0), 0.0)
@@ -250,7 +251,9 @@ class Problem:
         v = np.sqrt(np.maximum(self.speeds(P, model), 0.0))
         r = required_radius_m(P, v, lim, g=self.mover.g, surface_normal=self.bed_normals(P))
         kap = curvature(P[:-2], P[1:-1], P[2:])
-        if lim.min_radius_m is None and not np.any(kap * r > 0.5):
+        with np.errstate(invalid="ignore"):  # a straight vertex (0) where no bend is allowed (inf): NaN, not tight
+            tight = kap * r > 0.5
+        if lim.min_radius_m is None and not np.any(tight):
             self.bends = None
             return
         self.bends = (_fractions(P)[1:-1], r)
