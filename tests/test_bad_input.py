@@ -438,6 +438,7 @@ def test_south_up_raster_works(tmp_path):
     assert a["travel_time_s"] == pytest.approx(b["travel_time_s"], rel=1e-12)
 
 
+@pytest.mark.slow
 def test_geographic_dem_works(tmp_path):
     # a lon/lat raster near 15 E 36 N (1e-4 degree cells, about 9 x 11 m), falling east
     lon0, lat0, d = 15.0, 36.0, 1e-4
@@ -457,6 +458,7 @@ def test_geographic_dem_works(tmp_path):
 
 # --------------------------------------------------------------------------- output folder
 
+@pytest.mark.slow
 def test_existing_results_refused_and_untouched(tmp_path):
     dem = _plane_tif(tmp_path / "dem.tif")
     out = tmp_path / "out"
