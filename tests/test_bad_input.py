@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -438,6 +439,7 @@ def test_south_up_raster_works(tmp_path):
     assert a["travel_time_s"] == pytest.approx(b["travel_time_s"], rel=1e-12)
 
 
+@pytest.mark.slow
 def test_geographic_dem_works(tmp_path):
     # a lon/lat raster near 15 E 36 N (1e-4 degree cells, about 9 x 11 m), falling east
     lon0, lat0, d = 15.0, 36.0, 1e-4
@@ -455,8 +457,26 @@ def test_geographic_dem_works(tmp_path):
     assert doc["drop_m"] == pytest.approx(22.0, abs=0.5)
 
 
+def test_closest_reach_is_said_in_lon_lat_when_the_points_were(tmp_path):
+    # the same lon/lat raster with friction the 0.2 fall cannot overcome: the failure says
+    # where the search got closest in the system the points were given in (lon/lat), not
+    # in the UTM zone the DEM was reprojected to
+    lon0, lat0, d = 15.0, 36.0, 1e-4
+    r, c = np.mgrid[0:N, 0:N]
+    dem = write_geotiff(tmp_path / "geo.tif", 200.0 - 2.0 * c + 0.0 * r, Affine(d, 0, lon0, 0, -d, lat0), "EPSG:4326")
+    s = (lon0 + 0.5 * d, lat0 - 5.5 * d)
+    e = (lon0 + (N - 0.5) * d, lat0 - 5.5 * d)
+    p = run_cli("route", dem, *_pts(s, e), "--mu", "0.9", "--no-refine", "--out", tmp_path / "out")
+    assert p.returncode == 3, p.stderr
+    m = re.search(r"closest reach: lon (-?[0-9.]+), lat (-?[0-9.]+)\)", p.stderr)
+    assert m, p.stderr
+    lon, lat = float(m.group(1)), float(m.group(2))
+    assert lon0 <= lon <= lon0 + N * d and lat0 - N * d <= lat <= lat0, (lon, lat)
+
+
 # --------------------------------------------------------------------------- output folder
 
+@pytest.mark.slow
 def test_existing_results_refused_and_untouched(tmp_path):
     dem = _plane_tif(tmp_path / "dem.tif")
     out = tmp_path / "out"

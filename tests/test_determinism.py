@@ -60,7 +60,8 @@ def _cli(*args):
     return p
 
 
-@pytest.mark.parametrize("refine", [False, pytest.param(True, marks=pytest.mark.slow)], ids=["lattice", "refined"])
+@pytest.mark.slow
+@pytest.mark.parametrize("refine", [False, True], ids=["lattice", "refined"])
 def test_two_runs_byte_identical(tmp_path, refine):
     from fallway.app import ROUTE_FILES
 

@@ -166,6 +166,7 @@ def option_args(draw, options, pairs=None):
     return args, tuple(names) + tuple(o.lstrip("-") for o in chosen)
 
 
+@pytest.mark.slow
 @fuzz(12)
 @given(opts=option_args(ROUTE_OPTIONS, ROUTE_PAIRS))
 def test_route_numeric_options(site, opts):

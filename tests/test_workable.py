@@ -70,6 +70,7 @@ def test_speed_cap_too_low_exits_3_names_the_cap_and_a_workable_one(tmp_path, st
     assert s["feasible"] is True and s["max_speed_m_s"] <= cap * (1 + 1e-9)
 
 
+@pytest.mark.slow
 def test_friction_that_stalls_names_the_highest_workable_mu(tmp_path, strip):
     dem, start, end = strip
     out = tmp_path / "run"

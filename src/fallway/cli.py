@@ -156,7 +156,7 @@ def _guard(fn):
         except NoFeasibleLine as err:
             msg = str(err)
             if err.closest is not None:
-                msg += f" (closest reach: x={err.closest[0]:.1f}, y={err.closest[1]:.1f})"
+                msg += f" (closest reach: {err.closest_text or f'x={err.closest[0]:.1f}, y={err.closest[1]:.1f}'})"
             _fail(msg, EXIT_NO_LINE)
         except FallwayError as err:
             _fail(str(err).splitlines()[0] if str(err) else type(err).__name__, EXIT_ERROR)

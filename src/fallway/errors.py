@@ -84,6 +84,9 @@ class NoFeasibleLine(FallwayError):
     workable : dict, optional
         For each binding limit, the nearest value found to work by a bisection with the
         same search (:mod:`fallway.relax`); None where none was found.
+    closest_text : str, optional
+        ``closest`` as the caller gave the points (``"lon .., lat .."`` for lon/lat,
+        else ``"x=.., y=.."``); :func:`fallway.find_route` sets it.
 
     Examples
     --------
@@ -94,8 +97,9 @@ class NoFeasibleLine(FallwayError):
 
     def __init__(self, message: str, *, reason: str = "unreachable",
                  closest: tuple[float, float] | None = None, route=None, binding: tuple = (),
-                 workable: dict | None = None) -> None:
+                 workable: dict | None = None, closest_text: str | None = None) -> None:
         super().__init__(message)
+        self.closest_text = closest_text
         self.reason = reason
         self.closest = closest
         self.route = route

@@ -188,36 +188,41 @@ def find_route(terrain, start, end, mover: Mover, *, via=(), limits: Limits | No
         raise ParameterError("the robust search is for ground lines; leave robust off for a raised line")
     points = [_xy(start, "start")] + [_xy(p, f"via point {i + 1}") for i, p in enumerate(via)] + [_xy(end, "end")]
     src = terrain_source(terrain, keepout)
-    if line.kind == "cable":  # supports placed by search over the span graph (fallway.cable)
-        if mu_range is not None or robust:
-            raise ParameterError("a friction range and the robust search are not available for cable lines yet")
-        route = cable_route(src, points, mover, limits, line, search)
-        return dataclasses.replace(route, compute_s={**route.compute_s, "total": time.perf_counter() - t_start})
-    plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
-    job = _Job(mover=mover, limits=limits, line=line, search=search, refine=bool(refine), via=tuple(points[1:-1]))
-    explain = bool(workable) and plan != "robust"
     try:
-        if plan == "robust":
-            route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
-        else:
-            found = (_plan_raised if line.kind == "raised" else _plan_full if plan == "full" else _plan_corridor)(
-                src, points, job, memory_limit_bytes)
-            route = _finish(found, job)
-            if mu_range is not None:
-                route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
-    except NoFeasibleLine as err:
-        if not explain or err.reason not in ("limits", "stall") or err.binding:
-            raise
-        raise _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start) from err
-    warn_moved_points(route.summary.to_dict(), route.terrain.crs, points_crs)
-    if not route.summary.feasible:
-        broken = route.summary.violated_limits
-        err = NoFeasibleLine(f"the line found breaks {'its limits' if broken else 'the physics'} "
-                             f"({', '.join(broken) or 'the mover stalls'}); no line meeting them was found",
-                             reason="stall" if set(broken) <= {"stalls"} else "limits", route=route)
-        if explain:
-            err = _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start, route=route)
-        raise err
+        if line.kind == "cable":  # supports placed by search over the span graph (fallway.cable)
+            if mu_range is not None or robust:
+                raise ParameterError("a friction range and the robust search are not available for cable lines yet")
+            route = cable_route(src, points, mover, limits, line, search)
+            return dataclasses.replace(route, compute_s={**route.compute_s, "total": time.perf_counter() - t_start})
+        plan = _choose_plan(src, points, limits, search, robust, memory_limit_bytes)
+        job = _Job(mover=mover, limits=limits, line=line, search=search, refine=bool(refine), via=tuple(points[1:-1]))
+        explain = bool(workable) and plan != "robust"
+        try:
+            if plan == "robust":
+                route = _plan_robust(src, points, job, mu_range, memory_limit_bytes)
+            else:
+                found = (_plan_raised if line.kind == "raised" else _plan_full if plan == "full" else _plan_corridor)(
+                    src, points, job, memory_limit_bytes)
+                route = _finish(found, job)
+                if mu_range is not None:
+                    route = dataclasses.replace(route, envelope=_envelope_of(route, mu_range))
+        except NoFeasibleLine as err:
+            if not explain or err.reason not in ("limits", "stall") or err.binding:
+                raise
+            raise _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start) from err
+        warn_moved_points(route.summary.to_dict(), route.terrain.crs, points_crs)
+        if not route.summary.feasible:
+            broken = route.summary.violated_limits
+            err = NoFeasibleLine(f"the line found breaks {'its limits' if broken else 'the physics'} "
+                                 f"({', '.join(broken) or 'the mover stalls'}); no line meeting them was found",
+                                 reason="stall" if set(broken) <= {"stalls"} else "limits", route=route)
+            if explain:
+                err = _explained(err, src, points, job, memory_limit_bytes, time.perf_counter() - t_start, route=route)
+            raise err
+    except NoFeasibleLine as err:  # say where the search got closest in the caller's CRS
+        if err.closest is not None and err.closest_text is None:
+            err.closest_text = _closest_text(err.closest, src.crs, points_crs)
+        raise
     compute = dict(route.compute_s)
     compute["total"] = time.perf_counter() - t_start
     return dataclasses.replace(route, compute_s=compute)
@@ -708,6 +713,16 @@ def _point_fields(stats: dict, line: np.ndarray) -> dict:
         out[f"{key}_moved_m"] = float(stats.get(f"{key}_moved_m", 0.0))
         out[f"{key}_moved_why"] = stats.get(f"{key}_moved_why")
     return out
+
+
+def _closest_text(xy, terrain_crs, points_crs) -> str:
+    """Where a failed search got closest, for a message: ``lon .., lat ..`` when the caller
+    gave lon/lat, else ``x=.., y=..`` in the caller's CRS (the terrain's by default)."""
+    text = _describe_xy(xy, terrain_crs, points_crs)
+    if text.startswith("(lon"):
+        return text[1:-1]
+    x, y = text[1:-1].split(", ")
+    return f"x={x}, y={y}"
 
 
 def _describe_xy(xy, terrain_crs, points_crs) -> str:

@@ -572,13 +572,12 @@ def _diagnose(terrain, closest_flat: int, counters, found, *, keep, domain, limi
     it reaches the end.
     """
     closest = _cell_xy(terrain, closest_flat)
-    where = f"closest reached cell ({closest[0]:.1f}, {closest[1]:.1f})"
     if counters[_c.C_KEEPOUT] > 0 and found(keep=np.zeros_like(keep)):
-        return NoFeasibleLine(f"keep-out areas block every line; {where}; shrink the keep-out or move the points",
+        return NoFeasibleLine("keep-out areas block every line; shrink the keep-out or move the points",
                               reason="keepout", closest=closest)
     lim = limits if limits is not None else Limits()
     if (lim != Limits() or mover.max_speed is not None) and found(use_limits=False):
-        return NoFeasibleLine(f"the grade, turn or speed limits block every line; {where}; relax the limits",
+        return NoFeasibleLine("the grade, turn or speed limits block every line; relax the limits",
                               reason="limits", closest=closest)
     nod = ~np.isfinite(terrain.z)
     if counters[_c.C_NODATA] > 0 and (~nod).any():
@@ -588,25 +587,25 @@ def _diagnose(terrain, closest_flat: int, counters, found, *, keep, domain, limi
         filled = terrain.z[tuple(idx)]
         del idx
         if found(z_override=filled):
-            return NoFeasibleLine(f"nodata cells block every line; {where}; fill the DEM gaps or move the points",
+            return NoFeasibleLine("nodata cells block every line; fill the DEM gaps or move the points",
                                   reason="nodata", closest=closest)
     if domain is not None and counters[_c.C_OUTSIDE] > 0 and found(domain=None):
-        return NoFeasibleLine(f"the search domain (corridor) cuts every line, a line exists outside it; {where}; "
+        return NoFeasibleLine("the search domain (corridor) cuts every line, a line exists outside it; "
                               "widen the corridor", reason="corridor", closest=closest)
     if robust:
         if counters[_c.C_STALL] > 0 or counters[_c.C_SPEED] > 0:
-            return NoFeasibleLine(f"no line works over the friction range (every line stalls at high friction or "
-                                  f"is too fast at low friction); {where}; narrow the range or relax the speed "
+            return NoFeasibleLine("no line works over the friction range (every line stalls at high friction or "
+                                  "is too fast at low friction); narrow the range or relax the speed "
                                   "limit", reason="stall" if counters[_c.C_SPEED] == 0 else "limits",
                                   closest=closest)
     else:
         if counters[_c.C_STALL] > 0:
-            return NoFeasibleLine(f"the mover stalls on every line (friction and drag take all its energy); {where}; "
+            return NoFeasibleLine("the mover stalls on every line (friction and drag take all its energy); "
                                   "lower mu or drag, or raise v0", reason="stall", closest=closest)
         if counters[_c.C_UPHILL] > 0:
-            return NoFeasibleLine(f"every line would have to climb higher than the start energy allows; {where}",
+            return NoFeasibleLine("every line would have to climb higher than the start energy allows",
                                   reason="uphill", closest=closest)
-    return NoFeasibleLine(f"no lattice line connects the points; {where}", reason="unreachable", closest=closest)
+    return NoFeasibleLine("no lattice line connects the points", reason="unreachable", closest=closest)
 
 
 def _line_points(terrain, stencil, nodes: list[int]) -> tuple[np.ndarray, np.ndarray]:
