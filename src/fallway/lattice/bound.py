@@ -17,7 +17,7 @@ once per query, a tighter bound that is still admissible and consistent:
    friction and drag; kernel notes, "Dominance"), induction over the nodes of any
    feasible line gives ``v² <= U`` at each of them.  The pass is a label-correcting search
    that pops cells in order of falling energy head ``U + 2 g z`` (the head never grows
-   along an edge, so each cell is popped about once) and pushes a cell again whenever its
+   along an edge, so each cell is popped about once) and queues a cell again whenever its
    U rises; when the queue is empty every edge satisfies the inequality.  Stall, turn
    limits and via points are ignored (a superset of lines: still an upper bound).  The
    passes stall a mover only when it comes to rest (stall speed 0): that test is monotone
@@ -64,7 +64,8 @@ values.  The slack could let energy creep up around a loop that loses less than 
 ceiling clamp bounds U regardless, so the pass ends.
 
 Cost: each pass walks every edge of every reached cell once (about the work of one
-label per cell), and holds two float64 arrays per searchable cell (U, and H per leg).
+label per cell), and holds two float64 arrays per searchable cell (U, and H per leg) and an
+indexed queue (decrease-key, so no stale entries: 20 B per cell).
 """
 
 from __future__ import annotations
@@ -75,7 +76,7 @@ import numpy as np
 from numba import njit
 
 from .._segment import _TINY_KS
-from .core import (LAW_OK, grow, heap_pop, heap_push, law_step, passable, state_of, sub_count, sub_segment,
+from .core import (LAW_OK, law_step, passable, state_of, sub_count, sub_segment,
                    virtual_passable)
 
 __all__ = ["energy_ceiling", "time_to_go"]
@@ -94,6 +95,62 @@ def _up(v2, eps_abs):
 @njit(cache=True, nogil=True, inline="always")
 def _clamp(v2, v2_ceil, e_top, two_g, zq):
     return min(v2, v2_ceil, max(e_top - two_g * zq, 0.0))
+
+
+@njit(cache=True, nogil=True)
+def _iheap_set(hkey, hnode, hcell, pos, size, key, n, cn):
+    """Insert cell ``cn`` (flat ``n``) under ``key`` into the indexed min-heap, or lower its
+    key when it is queued (``pos[cn] >= 0``); returns the heap size."""
+    i = pos[cn]
+    if i < 0:
+        i = size
+        size += 1
+    while i > 0:
+        p = (i - 1) >> 1
+        if hkey[p] <= key:
+            break
+        hkey[i] = hkey[p]
+        hnode[i] = hnode[p]
+        hcell[i] = hcell[p]
+        pos[hcell[i]] = i
+        i = p
+    hkey[i] = key
+    hnode[i] = n
+    hcell[i] = cn
+    pos[cn] = i
+    return size
+
+
+@njit(cache=True, nogil=True)
+def _iheap_pop(hkey, hnode, hcell, pos, size):
+    """Remove the least key: ``(flat node, compact cell, new size)``."""
+    n0 = hnode[0]
+    c0 = hcell[0]
+    pos[c0] = -1
+    size -= 1
+    if size > 0:
+        key = hkey[size]
+        n = hnode[size]
+        cn = hcell[size]
+        i = 0
+        while True:
+            c = 2 * i + 1
+            if c >= size:
+                break
+            if c + 1 < size and hkey[c + 1] < hkey[c]:
+                c += 1
+            if hkey[c] >= key:
+                break
+            hkey[i] = hkey[c]
+            hnode[i] = hnode[c]
+            hcell[i] = hcell[c]
+            pos[hcell[i]] = i
+            i = c
+        hkey[i] = key
+        hnode[i] = n
+        hcell[i] = cn
+        pos[cn] = i
+    return n0, c0, size
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -225,13 +282,15 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
             cs = state_of(cidx, ident, start)
             U[cs] = max(U[cs], v2_start)
         return U
-    cap = 1 << 16
-    hkey = np.empty(cap, dtype=np.float64)
-    hidx = np.empty(cap, dtype=np.int32)
+    hkey = np.empty(nact, dtype=np.float64)
+    hnode = np.empty(nact, dtype=np.int32)
+    hcell = np.empty(nact, dtype=np.int32)
+    pos = np.full(nact, -1, dtype=np.int32)
     hsize = 0
     if nvs == 0:
-        U[state_of(cidx, ident, start)] = v2_start  # the start label is never clamped
-        hsize = heap_push(hkey, hidx, hsize, -(v2_start + two_g * z[start]), start)
+        cs = state_of(cidx, ident, start)
+        U[cs] = v2_start  # the start label is never clamped
+        hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, -(v2_start + two_g * z[start]), start, cs)
     else:
         for j in range(nvs):
             if virtual_passable(blocked, j, vcode, vtch_start, vtch):
@@ -244,17 +303,10 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
             cm = state_of(cidx, ident, m)
             if w > U[cm]:
                 U[cm] = w
-                if hsize + 1 > hkey.shape[0]:
-                    hkey = grow(hkey, 2 * hkey.shape[0])
-                    hidx = grow(hidx, 2 * hidx.shape[0])
-                hsize = heap_push(hkey, hidx, hsize, -(w + two_g * z[m]), m)
+                hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, -(w + two_g * z[m]), m, cm)
     while hsize > 0:
-        key = hkey[0]
-        n, hsize = heap_pop(hkey, hidx, hsize)
-        cn = state_of(cidx, ident, n)
+        n, cn, hsize = _iheap_pop(hkey, hnode, hcell, pos, hsize)
         w0 = U[cn]
-        if -(w0 + two_g * z[n]) != key:  # a stale entry: U rose since it was queued
-            continue
         r = n // cols
         c = n - r * cols
         for kk in range(nk):
@@ -272,10 +324,7 @@ def energy_ceiling(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start
             cm = state_of(cidx, ident, m)
             if w > U[cm]:
                 U[cm] = w
-                if hsize + 1 > hkey.shape[0]:
-                    hkey = grow(hkey, 2 * hkey.shape[0])
-                    hidx = grow(hidx, 2 * hidx.shape[0])
-                hsize = heap_push(hkey, hidx, hsize, -(w + two_g * z[m]), m)
+                hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, -(w + two_g * z[m]), m, cm)
     return U
 
 
@@ -290,13 +339,15 @@ def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, br
     ncell = rows * cols
     ident = nact == ncell
     nk = off_dr.shape[0]
-    cap = 1 << 16
-    hkey = np.empty(cap, dtype=np.float64)
-    hidx = np.empty(cap, dtype=np.int32)
+    hkey = np.empty(nact, dtype=np.float64)
+    hnode = np.empty(nact, dtype=np.int32)
+    hcell = np.empty(nact, dtype=np.int32)
+    pos = np.full(nact, -1, dtype=np.int32)
     hsize = 0
     if target >= 0:
-        h[state_of(cidx, ident, target)] = rest_s
-        hsize = heap_push(hkey, hidx, hsize, rest_s, target)
+        ct = state_of(cidx, ident, target)
+        h[ct] = rest_s
+        hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, rest_s, target, ct)
     else:
         for j in range(nvs, vcell.shape[0]):
             if virtual_passable(blocked, j, vcode, vtch_start, vtch):
@@ -315,17 +366,10 @@ def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, br
             te = rest_s + max(te, s * inv_v)
             if te < h[cn]:
                 h[cn] = te
-                if hsize + 1 > hkey.shape[0]:
-                    hkey = grow(hkey, 2 * hkey.shape[0])
-                    hidx = grow(hidx, 2 * hidx.shape[0])
-                hsize = heap_push(hkey, hidx, hsize, te, n)
+                hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, te, n, cn)
     while hsize > 0:
-        key = hkey[0]
-        m, hsize = heap_pop(hkey, hidx, hsize)
-        cm = state_of(cidx, ident, m)
+        m, cm, hsize = _iheap_pop(hkey, hnode, hcell, pos, hsize)
         hm = h[cm]
-        if hm != key:
-            continue
         r = m // cols
         c = m - r * cols
         for kk in range(nk):
@@ -347,8 +391,5 @@ def time_to_go(z, blocked, cidx, nact, rows, cols, off_dr, off_dc, brk_start, br
             cand = hm + te
             if cand < h[cn]:
                 h[cn] = cand
-                if hsize + 1 > hkey.shape[0]:
-                    hkey = grow(hkey, 2 * hkey.shape[0])
-                    hidx = grow(hidx, 2 * hidx.shape[0])
-                hsize = heap_push(hkey, hidx, hsize, cand, n)
+                hsize = _iheap_set(hkey, hnode, hcell, pos, hsize, cand, n, cn)
     return h
