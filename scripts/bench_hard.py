@@ -28,8 +28,8 @@ against log cells).  Sizes above 1000 synthesise their own field of that size (t
 spectrum, relief and plane), so the terrain statistics match.
 
 Measured 2026-12-03 (2 cores shared; wall times noisy), figures in DEVELOPERS.md
-("Certified optimality gap"): 1000 x 1000 exact (gap 0) in 6.06 s = 2.08 x scipy's 2.92 s,
-258 MB; the scaling table 0.25 M - 25 M cells, time ~ cells^1.09, gap <= 0.093 %.
+("Certified optimality gap"): 1000 x 1000 exact (gap 0) in 3.63 s = 2.13 x scipy's 1.71 s,
+257 MB; the scaling table 0.25 M - 25 M cells, time ~ cells^1.08, gap <= 0.093 %.
 """
 
 from __future__ import annotations
