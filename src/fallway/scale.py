@@ -59,7 +59,9 @@ from what the kernel and its Python front allocate:
 * a point-to-point search of up to 8 legs adds its per-cell A* bound
   (:mod:`fallway.lattice.bound`): 8 B per searchable cell (the energy ceiling U) + 8 B
   per cell and leg (the time to go H) + 20 B per searchable cell for the passes'
-  indexed queue (key, cell, compact cell, position);
+  indexed queue (key, cell, compact cell, position) + 16 B of margin, not itemised (the
+  1000² corridor probe of ``tests/test_memory.py``, a search the bound keeps to 22 k
+  labels, peaked 9 B per searchable cell above the itemised count);
 * reach adds 16 B per searchable cell (best time and v², compact) + 24 B per window
   cell (the window-shaped time and speed maps and a transient copy);
 * per label 26 B (t, v² float64; node, parent int32; leg, heading int8) + 12 B of heap,
@@ -111,7 +113,7 @@ _B_STATE = 24
 _B_LABEL = 26 + 12
 _B_REACH_ACTIVE = 16
 _B_REACH_CELL = 24
-_B_BOUND_ACTIVE = 8 + 20
+_B_BOUND_ACTIVE = 8 + 20 + 16
 _B_BOUND_LEG = 8
 #: The per-cell A* bound (:mod:`fallway.lattice.bound`: one float64 array per leg and
 #: cell) is computed for routes of up to this many legs; longer chains use the straight bound.
@@ -145,9 +147,9 @@ def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbou
     Examples
     --------
     >>> print(f"{search_memory_bytes(1_000_000) / 1e6:.0f} MB")
-    395 MB
+    411 MB
     >>> print(f"{search_memory_bytes(1_000_000, active_cells=100_000) / 1e6:.0f} MB")
-    67 MB
+    69 MB
     """
     cells = int(cells)
     active = cells if active_cells is None else min(int(active_cells), cells)
@@ -171,7 +173,7 @@ def bound_memory_bytes(cells: int, *, legs: int = 1) -> int:
     Examples
     --------
     >>> print(f"{bound_memory_bytes(1_000_000) / 1e6:.0f} MB")
-    67 MB
+    83 MB
     """
     return int(cells) * (_B_CELL + _B_BOUND_ACTIVE + _B_BOUND_LEG * max(int(legs), 1))
 
@@ -191,7 +193,7 @@ def label_budget_bytes(cells: int, max_labels: int, *, active_cells: int | None 
     Examples
     --------
     >>> print(f"{label_budget_bytes(1_000_000, 10_000_000) / 1e6:.0f} MB")
-    931 MB
+    947 MB
     """
     fixed = search_memory_bytes(cells, active_cells=active_cells, neighbours=neighbours, legs=legs,
                                 turn_limit=turn_limit, labels_per_cell=0.0)
