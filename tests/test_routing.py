@@ -147,3 +147,27 @@ def test_refined_line_passes_its_via_points():
     assert r.summary.refined
     assert np.hypot(r.line[:, 0] - via[0], r.line[:, 1] - via[1]).min() < 1e-9
     assert r.summary.travel_time_s == pytest.approx(traverse(r.line, Mover(mu=0.1)).travel_time_s, rel=1e-12)
+
+
+def test_auto_plan_weighs_the_time_estimate_as_well_as_the_cell_count():
+    # 1900 x 1900 cells (3.61 M, under the 4 M cell cap): the 16-neighbour search is
+    # estimated at 3.61 M x 4.5 µs = 16 s and runs on the full grid; with 32 neighbours
+    # (twice the edges per cell) 32.5 s, over the 30 s a full-grid search may take, so the
+    # corridor; so also with a via point (two legs: the grid searched twice)
+    from fallway.routing import FULL_GRID_MAX_SECONDS, _choose_plan
+    from fallway.scale import SEARCH_SECONDS_PER_CELL, search_seconds, terrain_source
+
+    n = 1900
+    t = Terrain.from_array(np.zeros((n, n), np.float32), Affine(1.0, 0, 0.0, 0, -1.0, float(n)), "EPSG:32633")
+    src = terrain_source(t)
+    ends = [(0.5, n - 0.5), (n - 0.5, 0.5)]
+    via = [(n / 2, n / 2)]
+    assert search_seconds(n * n) == pytest.approx(n * n * SEARCH_SECONDS_PER_CELL)
+    assert search_seconds(n * n) <= FULL_GRID_MAX_SECONDS < search_seconds(n * n, neighbours=32)
+
+    def plan(points, neighbours):
+        return _choose_plan(src, points, Limits(), SearchOptions(neighbours=neighbours), False, 64 * 2 ** 30)
+
+    assert plan(ends, 16) == "full"
+    assert plan(ends, 32) == "corridor"
+    assert plan([ends[0]] + via + [ends[1]], 16) == "corridor"

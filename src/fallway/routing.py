@@ -21,9 +21,12 @@ Plans (``SearchOptions.plan``)
     ``reason="corridor"`` and widened.  The best step's lattice line is the answer (it
     is not searched again).
 ``"auto"`` (default)
-    The full grid when the area has at most :data:`FULL_GRID_MAX_CELLS` cells and its
-    memory estimate (:func:`fallway.scale.search_memory_bytes`) fits the memory
-    available, else the corridor.
+    The full grid when the area has at most :data:`FULL_GRID_MAX_CELLS` cells, its
+    time estimate (:func:`fallway.scale.search_seconds`, the measured cost per cell scaled
+    by stencil and legs) is at most :data:`FULL_GRID_MAX_SECONDS` and its memory
+    estimate (:func:`fallway.scale.search_memory_bytes`) fits the memory available, else
+    the corridor (which refuses, with the numbers and the options, when even its
+    windows do not fit: :func:`fallway.scale.check_memory`).
 With a friction range and ``robust=True`` the robust plan runs (:func:`_plan_robust`),
 on the full grid only.  A raised line (``LineSpec("raised", ...)``) always runs the plan
 ``"raised"``: the search over cells times height layers in a corridor around the straight
@@ -59,15 +62,19 @@ from .relax import describe, find_workable, relaxations_for
 from .results import LatticeLine, ReachMap, RefineResult, Route, RouteSummary
 from .scale import (CELL_BOUND_MAX_LEGS, DEFAULT_COARSE_CELLS, available_bytes, bound_memory_bytes, box_around,
                     check_memory, corridor_outside, fit_label_budget, lowest_within, search_memory_bytes,
-                    terrain_source)
+                    search_seconds, terrain_source)
 from .section import make_section
 from .terrain import DEFAULT_MARGIN_M, MIN_GRID_CELLS, Terrain
 
-__all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "MAX_AREA_CELLS", "WORKABLE_MAX_PROBES",
+__all__ = ["find_route", "reach", "compare", "FULL_GRID_MAX_CELLS", "FULL_GRID_MAX_SECONDS", "MAX_AREA_CELLS",
+           "WORKABLE_MAX_PROBES",
            "WORKABLE_BUDGET_FACTOR", "WORKABLE_MAX_CELLS"]
 
-#: ``plan="auto"`` searches the full grid up to this many cells of search area.
+#: ``plan="auto"`` searches the full grid up to this many cells of search area ...
 FULL_GRID_MAX_CELLS = 4_000_000
+#: ... and while its estimated search time (:func:`fallway.scale.search_seconds`) is at
+#: most this many seconds; beyond either, the coarse-to-fine corridor.
+FULL_GRID_MAX_SECONDS = 30.0
 
 #: The largest search area (cells of the DEM) a route takes; beyond it, coarsen the DEM.
 MAX_AREA_CELLS = 200_000_000
@@ -366,7 +373,8 @@ def _choose_plan(src, points, limits, search, robust, memory_limit_bytes) -> str
     if search.plan != "auto":
         return search.plan
     cells = _cells(_full_window(src, points), src.cell)
-    if cells > FULL_GRID_MAX_CELLS:
+    seconds = search_seconds(cells, neighbours=search.neighbours, legs=len(points) - 1)
+    if cells > FULL_GRID_MAX_CELLS or seconds > FULL_GRID_MAX_SECONDS:
         return "corridor"
     need = search_memory_bytes(cells, neighbours=search.neighbours, legs=len(points) - 1,
                                turn_limit=limits.max_step_turn_deg is not None, max_per_cell=search.label_cap)

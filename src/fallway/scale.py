@@ -102,7 +102,7 @@ from .errors import ParameterError, TerrainError
 from .keepout import Keepout
 from .physics import Mover
 
-__all__ = ["search_memory_bytes", "bound_memory_bytes", "check_memory", "available_bytes", "terrain_source", "box_around",
+__all__ = ["search_memory_bytes", "search_seconds", "SEARCH_SECONDS_PER_CELL", "bound_memory_bytes", "check_memory", "available_bytes", "terrain_source", "box_around",
            "corridor_outside", "lowest_within", "DEFAULT_COARSE_CELLS"]
 
 #: The auto coarse factor aims at about this many cells on the coarse grid.
@@ -119,6 +119,27 @@ _B_BOUND_LEG = 8
 #: cell) is computed for routes of up to this many legs; longer chains use the straight bound.
 CELL_BOUND_MAX_LEGS = 8
 _GROWTH = 2.0
+
+
+#: Wall seconds of a full-grid route search per cell of its window (16 neighbours, one
+#: leg): the two bound passes and the label search on the hard hillside of
+#: ``scripts/bench_hard.py``, 3.3-4.3 µs per cell from 1 M to 9 M cells on this project's
+#: 2-core machine (DEVELOPERS.md, "Benchmarks"), rounded up.  A planning figure, not a promise.
+SEARCH_SECONDS_PER_CELL = 4.5e-6
+
+
+def search_seconds(cells: int, *, neighbours: int = 16, legs: int = 1) -> float:
+    """Rough wall time of a full-grid route search over ``cells`` cells, seconds.
+
+    The measured cost per cell (:data:`SEARCH_SECONDS_PER_CELL`) scaled with the stencil
+    (edges per cell) and the legs (each leg searches the grid again).
+
+    Examples
+    --------
+    >>> round(search_seconds(1_000_000), 1), round(search_seconds(1_000_000, neighbours=32, legs=2), 1)
+    (4.5, 18.0)
+    """
+    return float(cells) * SEARCH_SECONDS_PER_CELL * (neighbours / 16.0) * max(int(legs), 1)
 
 
 def search_memory_bytes(cells: int, *, active_cells: int | None = None, neighbours: int = 16, legs: int = 1,
