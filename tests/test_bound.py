@@ -131,3 +131,27 @@ def test_corridor_gap_brackets_the_whole_grid_optimum(mover):
         assert rt.lattice.time_s <= exact * (1 + gap) * (1 + REL)
         checked += 1
     assert checked >= 1
+
+
+@pytest.mark.parametrize("cell", [10.0, 12.0])
+def test_a_start_above_the_speed_limit_keeps_the_bounds_below_the_optimum(cell):
+    # A mover entering at 15 m/s on level ground under a 3 m/s limit, drag k = 0.2 /m, no
+    # friction: drag alone slows it (dv/dt = -k v², CHECKS "Motion along a line" with
+    # mu = 0), v² = v0² exp(-2 k s), below the limit after 8 m; the speed limit is tested
+    # at sub-segment ends, so the one straight edge to the next cell (10 or 12 m) is
+    # feasible and the fastest (every other lattice line is longer): t = (exp(k L) - 1) /
+    # (k v0), 2.130 s over 10 m.  The bounds must not take the limit as the speed of the
+    # first metres.
+    from fallway.lattice.search import lattice_line, lattice_lower_bound
+
+    k, v0, cols = 0.2, 15.0, 2
+    exact = math.expm1(k * cell) / (k * v0)
+    t = terrain_of(np.full((2, cols), 30.0), cell)
+    mover = Mover(mu=0.0, drag=k, v0=v0, normal="gravity", max_speed=3.0)
+    a, b = t.cell_center(0, 0), t.cell_center(0, cols - 1)
+    assert lattice_lower_bound(t, a, b, mover, neighbours=8) <= exact * (1 + REL)
+    # the exact search (no gap target) finds that line; the bound at the start stays under it
+    ln = lattice_line(t, a, b, mover, options=SearchOptions(neighbours=8, gap=None))
+    assert ln.time_s == pytest.approx(exact, rel=REL)
+    U, H = _Problem(t, mover, 8, Limits(), np.zeros((2, cols), dtype=bool)).cell_bound(0, [cols - 1])
+    assert U[0, 0] >= v0 ** 2 and H[0][0, 0] <= exact * (1 + REL)

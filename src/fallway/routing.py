@@ -503,6 +503,10 @@ def _plan_corridor(src, points, job: _Job, memory_limit_bytes) -> _Found:
     t0 = time.perf_counter()
     lower, why = _whole_grid_bound(src, area, points, job, memory_limit_bytes)
     compute["whole_grid_bound"] = time.perf_counter() - t0
+    if lower is not None and lower > float(ln.time_s) * (1.0 + 1e-9):
+        # a lower bound above a line that exists contradicts its proof: no gap is claimed
+        lower, why = None, (f"the whole-grid bound ({lower:.6f} s) came out above the line found "
+                            f"({float(ln.time_s):.6f} s); no gap is claimed")
     gap = None if lower is None else gap_of(float(ln.time_s), lower)
     ln.stats.update(optimality_gap=gap, lower_bound_s=lower)
     info = {"coarse_factor": int(factor), "cell_m": float(fine.cell_size), "coarse_cell_m": float(coarse.cell_size),

@@ -112,10 +112,13 @@ DEFAULT_ENERGY_TOL = 1e-10
 _INIT_CAP = 1 << 16
 _DEFAULT_MAX_LABELS = 400_000_000
 #: With a gap target the exact search runs first on a budget of this many labels plus
-#: :data:`EXACT_FIRST_PER_STATE` per lattice state; past it the relaxed searches bound the
+#: :data:`EXACT_FIRST_PER_STATE` per lattice state (:data:`EXACT_FIRST_PER_STATE_PLAIN`
+#: where no per-cell A* bound guides it: the A* bound off, or more legs than
+#: :data:`fallway.scale.CELL_BOUND_MAX_LEGS`); past it the relaxed searches bound the
 #: answer (:mod:`fallway.lattice.gap`).
 EXACT_FIRST_LABELS = 200_000
 EXACT_FIRST_PER_STATE = 0.25
+EXACT_FIRST_PER_STATE_PLAIN = 2.0
 #: ... and a search keeping this many labels per state gives the first feasible line (T_UB;
 #: 0: none, the relaxed searches' lines only).
 INCUMBENT_LABEL_CAP = 2
@@ -342,6 +345,16 @@ class _Problem:
             a_max = max(a_max, virtual.drive_max(m.g, m.mu))
         return min(v2, max(v2_start, a_max / m.drag) if a_max > 0.0 else v2_start)
 
+    def v2_ceiling(self, v2_scale: float, virtual: Virtual | None = None) -> float:
+        """The speed ceiling of the relaxed search and the per-cell bound: every energy of a
+        feasible line lies under it -- the speed limit (tested at every sub-segment exit),
+        the drag bound, and the start's own v0² (a mover may start above the limit and slow
+        below it within its first sub-segment, so the limit alone does not bound it there)."""
+        v2 = self.v2_max
+        if self.mover.drag > 0.0:
+            v2 = min(v2, self._drag_bound(v2_scale, virtual))
+        return max(v2, self.mover.v0 * self.mover.v0)
+
     def v2_top(self, z_start: float, virtual: Virtual | None = None) -> float:
         """V²: no line from a start at height ``z_start`` is ever faster (energy, cap, drag)."""
         vt = no_virtual() if virtual is None else virtual
@@ -389,11 +402,9 @@ class _Problem:
         if m.drag > 0.0 and use_bound:
             vbound = min(vbound, math.sqrt(self._drag_bound(v2_scale, vt)))
         if self.v2_max < math.inf:
-            vbound = min(vbound, math.sqrt(self.v2_max))
+            vbound = min(vbound, math.sqrt(max(self.v2_max, v2_start)))
         inv_v = 1.0 / vbound if (use_bound and vbound > 0.0) else 0.0
-        v2_ceil = self.v2_max
-        if relaxed and m.drag > 0.0:
-            v2_ceil = min(v2_ceil, self._drag_bound(v2_scale, vt))
+        v2_ceil = self.v2_ceiling(v2_scale, vt) if relaxed else max(self.v2_max, v2_start)
         budget = _DEFAULT_MAX_LABELS if max_labels is None else int(max_labels)
         t_max = math.inf if max_time_s is None else float(max_time_s)
         cidx, nact = self.index(compact)
@@ -477,9 +488,7 @@ class _Problem:
     def _bounds(self, cidx, nact, start, z_start, tg, vt, e_top, v2_scale, inv_v):
         """The per-cell A* bound of :mod:`fallway.lattice.bound`: ``(U, H)``, H leg-major."""
         m = self.mover
-        v2_ceil = self.v2_max
-        if m.drag > 0.0:
-            v2_ceil = min(v2_ceil, self._drag_bound(v2_scale, vt))
+        v2_ceil = self.v2_ceiling(v2_scale, vt)
         law_on = not self.corners
         common = (self.z, self.blocked, cidx, nact, self.rows, self.cols, self.off_dr, self.off_dc, self.brk_start,
                   self.brk_fa, self.brk_fb, self.brk_w, self.sub_plan, self.tch_start, self.tch_flat,
@@ -751,7 +760,9 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     certified = bool(opts.gap) and not opts.label_cap
     if certified:  # the exact search first, on a budget that small problems never spend
         legs = len(targets) * (prob.stencil.size + 1 if prob.use_heading else 1)
-        first = min(budget, int(EXACT_FIRST_LABELS + EXACT_FIRST_PER_STATE * prob.index()[1] * legs))
+        guided = opts.heuristic and len(targets) <= CELL_BOUND_MAX_LEGS
+        per_state = EXACT_FIRST_PER_STATE if guided else EXACT_FIRST_PER_STATE_PLAIN
+        first = min(budget, int(EXACT_FIRST_LABELS + per_state * prob.index()[1] * legs))
         res = prob.run(sp.cell, targets, **(run_kw | dict(max_labels=first)))
     else:
         res = prob.run(sp.cell, targets, **run_kw)
@@ -857,9 +868,7 @@ def lattice_lower_bound(terrain, start, end, mover: Mover, *, via=(), limits: Li
     v2_start = m.v0 * m.v0
     zmin = min(prob.zmin, virt.z_range()[0])
     v2_scale = v2_start + 2.0 * m.g * max(sp.z - zmin, 0.0)
-    v2_ceil = prob.v2_max
-    if m.drag > 0.0:
-        v2_ceil = min(v2_ceil, prob._drag_bound(v2_scale, virt))
+    v2_ceil = prob.v2_ceiling(v2_scale, virt)
     vbound = math.sqrt(min(v2_scale, v2_ceil))
     inv_v = 1.0 / vbound if vbound > 0.0 else 0.0
     e_top = v2_start + 2.0 * m.g * sp.z
