@@ -195,6 +195,15 @@ def _check_points(terrain, keep, domain, points, names) -> None:
                                  "(allowed) or move the point", reason="corridor", closest=None)
 
 
+def _check_start_speed(mover, start: EndPoint) -> None:
+    """Raise when the mover starts above its speed limit: a reported line is judged at every
+    vertex, the first included (:func:`fallway.physics.traverse`), so every line breaks it."""
+    if mover.max_speed is not None and mover.v0 > mover.max_speed:
+        raise NoFeasibleLine(f"the mover starts at {mover.v0:g} m/s, above the speed limit of {mover.max_speed:g} m/s: "
+                             "every line breaks it at the start; raise the limit to at least the start speed, or "
+                             "lower v0", reason="limits", closest=start.xy)
+
+
 def _check_uphill(mover, start: EndPoint, points) -> None:
     """Raise when a point (name, (x, y), z) lies above the start's energy height."""
     ceiling = start.z + mover.v0 ** 2 / (2.0 * mover.g)
@@ -750,6 +759,7 @@ def _lattice_line(terrain, start, end, mover: Mover, via, limits, keepout, allow
     vnames = [f"via point {i + 1}" for i in range(len(vias))]
     _check_points(terrain, keep, domain, vias, vnames)
     zs = terrain.z.ravel()
+    _check_start_speed(mover, sp)
     _check_uphill(mover, sp, [(n, _cell_xy(terrain, v), float(zs[v])) for n, v in zip(vnames, vias)]
                   + [("end", ep.xy, ep.z)])
     virt = virtual_edges(terrain, prob.stencil, sp, ep)
