@@ -33,6 +33,7 @@ def _tags(path, **tags):
     return path
 
 
+@pytest.mark.slow
 def test_scale_and_offset_tags_are_applied(tmp_path):
     # issue 19.5: an int16 DEM stored in decimetres with scale 0.1 gave a 164 m drop
     z, t = plane(N, N, CELL, -0.3, 0.0)

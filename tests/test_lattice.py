@@ -834,6 +834,7 @@ def hills_terrain(n=60, cell=3.0, seed=2):
     return Terrain.from_array(300.0 - 0.3 * cell * (r + c) + h, (cell, 0, 0, 0, -cell, n * cell))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("mover", [Mover(mu=0.2, drag=0.01, v0=1.0, normal="gravity"),
                                    Mover(mu=0.1, v0=0.5, normal="gravity")])
 def test_friction_reach_cutoff_is_the_full_reach_masked(mover):

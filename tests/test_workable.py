@@ -86,6 +86,7 @@ def test_friction_that_stalls_names_the_highest_workable_mu(tmp_path, strip):
     assert p2.returncode == 0, p2.stderr
 
 
+@pytest.mark.slow
 def test_grade_window_names_the_widest_window_needed(tmp_path, strip):
     dem, start, end = strip
     out = tmp_path / "run"
