@@ -37,6 +37,11 @@ gravity-normal optimum stalls under the full model and the full-model polish of 
 finest level stops at its budget (the 633 s run above returned a different, faster
 line from a refinement version in the middle of being changed).
 
+Measured 2026-12-03 on a quiet machine, ``--hard`` (the final code of that day): wall 85.1 s,
+peak 1.28 GB, certified gap 0.0046 %; plan chosen by the tool: the corridor (coarse 1.2 s,
+corridors 80 m and 160 m 5.6 s, whole-grid lower bound 70 s, refinement 2.8 s: it kept the
+lattice line, 501.611 s).
+
 Earlier figures (before 2026-12-02; their peaks are ``ru_maxrss``, which in a child
 started by subprocess includes the parent's own peak - here the DEM generation - so
 they overstate the case's memory; --cap 4, mu 0.2, drag 0.001 /m):
