@@ -20,6 +20,7 @@ Checked, on seeded rough grids with and without drag:
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -130,6 +131,12 @@ def test_corridor_gap_brackets_the_whole_grid_optimum(mover):
         assert rt.lattice.time_s >= exact * (1 - REL)
         assert rt.lattice.time_s <= exact * (1 + gap) * (1 + REL)
         checked += 1
+        if checked == 1:  # no gap asked (gap 0): the bound's pass is skipped, and the summary says so
+            r0 = find_route(t, t.cell_center(1, 1), t.cell_center(14, 14), mover, refine=False, workable=False,
+                            search=dataclasses.replace(opts, gap=None))
+            assert r0.summary.optimality_gap is None and r0.summary.corridor["lower_bound_s"] is None
+            assert "no gap asked" in r0.summary.corridor["lower_bound_note"]
+            assert r0.lattice.time_s == rt.lattice.time_s
     assert checked >= 1
 
 

@@ -520,6 +520,8 @@ def _whole_grid_bound(src, area, points, job: _Job, memory_limit_bytes) -> tuple
     (:func:`fallway.lattice.search.lattice_lower_bound`), so that the corridor's line gets a
     certified gap; ``(None, why)`` when it is not computed."""
     legs = 1 + len(job.via)
+    if not job.search.gap:
+        return None, "no gap asked (gap 0): the whole-grid bound is not computed"
     if legs > CELL_BOUND_MAX_LEGS:
         return None, f"no whole-grid bound for more than {CELL_BOUND_MAX_LEGS} legs"
     if not job.search.heuristic:
