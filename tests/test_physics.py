@@ -242,20 +242,24 @@ def test_descending_helix_3d():
     assert p.liftoff.size == 0
 
 
-def test_vertex_curvature_of_a_regular_polygon():
-    # an inscribed regular polygon turns by its central angle Δθ at each vertex and has
-    # chords 2R sin(Δθ/2) (elementary geometry): κ = Δθ / (2R sin(Δθ/2)), normal towards the centre
-    from fallway._traverse import vertex_geometry
+def test_segments_and_curvature_of_a_regular_polygon():
+    # an inscribed regular polygon has chords 2R sin(Δθ/2) and every three consecutive
+    # vertices lie on its circle (elementary geometry): the segment geometry of the traverse
+    # kernel, and the curvature 1/R with the normal towards the centre that a profile's
+    # loads are read with (fallway.loads.line_loads)
+    from fallway._traverse import segment_geometry
+    from fallway.loads import line_loads
     R, n = 7.0, 12
     th = np.linspace(0, 2 * math.pi * (n - 1) / n, n)
     pts = np.ascontiguousarray(np.column_stack([R * np.cos(th), R * np.sin(th), np.zeros(n)]))
-    tang, seg, kap, nrm = np.empty((n - 1, 3)), np.empty(n - 1), np.empty(n), np.empty((n, 3))
-    vertex_geometry(pts, tang, seg, kap, nrm)
+    tang, seg = np.empty((n - 1, 3)), np.empty(n - 1)
+    segment_geometry(pts, tang, seg)
     d = 2 * math.pi / n
     np.testing.assert_allclose(seg, 2 * R * math.sin(d / 2), rtol=1e-13)
-    np.testing.assert_allclose(kap[1:-1], d / (2 * R * math.sin(d / 2)), rtol=1e-12)
-    assert kap[0] == 0.0 and kap[-1] == 0.0
-    np.testing.assert_allclose(nrm[1:-1], -pts[1:-1] / R, atol=1e-12)
+    np.testing.assert_allclose(tang, np.diff(pts, axis=0) / seg[:, None], rtol=1e-13)
+    ld = line_loads(pts, np.ones(n), g=9.80665)
+    np.testing.assert_allclose(ld.curvature_1_m[1:-1], 1.0 / R, rtol=1e-12)
+    assert ld.curvature_1_m[0] == 0.0 and ld.curvature_1_m[-1] == 0.0
 
 
 @pytest.mark.parametrize("phi_deg", [30.0, 90.0, 150.0])

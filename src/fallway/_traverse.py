@@ -22,19 +22,15 @@ nothing, and no curvature is spread over segment lengths.  A line meant as a smo
 curve must be sampled densely where it bends (the route's refined line is, at <= 5° of
 turn per vertex: :func:`fallway.geometry.round_corners`).
 
-The normal force ratio and lift-off outputs are read on the smooth reading of the
-vertices: a discrete curvature vector at each interior vertex with turning angle
-``phi_i`` between ``T_{i-1}`` and ``T_i``, ``|kappa_i| = phi_i / l_i``, ``l_i =
-(s_{i-1} + s_i) / 2``, ``n_i`` along ``T_i - T_{i-1}`` (:func:`vertex_turn`); the load
-is the resultant ``|v² kappa n - g_perp|`` of bed and wall forces.
+The loads at the vertices (normal load, lift-off) are not computed here: a profile
+takes them from :func:`fallway.loads.line_loads`, the reading the limits use.
 
 Ends: the line starts along its first segment and ends along its last (no turn at the
 end vertices).  The speed at a vertex is the speed arriving there (before its corner).
 
 Building blocks (all ``@njit(cache=True, nogil=True)``, scalars and flat arrays):
 :func:`turn_angle` and :func:`corner_v2` (a corner's friction angle and its law),
-:func:`vertex_turn` (the discrete curvature at one vertex, smooth reading),
-:func:`vertex_geometry` (directions, lengths, curvature per vertex), :func:`window_step`
+:func:`segment_geometry` (unit directions and lengths of the segments), :func:`window_step`
 (one segment from its window of vertices, for the refinement's adjoint) and
 :func:`traverse_kernel` (a whole line).  Functions return status codes, never raise: callers translate them.
 """
@@ -53,15 +49,10 @@ _STRAIGHT_RAD = 1e-6
 
 
 @njit(cache=True, nogil=True)
-def vertex_geometry(pts, tang, seg_len, kappa, normal):
-    """Unit segment directions, lengths and discrete curvature vectors at vertices.
-
-    ``pts`` (M, 3) without repeated points; fills ``tang`` (M-1, 3), ``seg_len``
-    (M-1), ``kappa`` (M) (``phi_i / l_i``, 0 at the ends and where straight) and
-    ``normal`` (M, 3) (unit ``T_i - T_{i-1}``, zeros where straight).
-    """
-    m = pts.shape[0]
-    for j in range(m - 1):
+def segment_geometry(pts, tang, seg_len):
+    """Unit segment directions and lengths: ``pts`` (M, 3) without repeated points;
+    fills ``tang`` (M-1, 3) and ``seg_len`` (M-1)."""
+    for j in range(pts.shape[0] - 1):
         dx = pts[j + 1, 0] - pts[j, 0]
         dy = pts[j + 1, 1] - pts[j, 1]
         dz = pts[j + 1, 2] - pts[j, 2]
@@ -70,15 +61,6 @@ def vertex_geometry(pts, tang, seg_len, kappa, normal):
         tang[j, 0] = dx / s
         tang[j, 1] = dy / s
         tang[j, 2] = dz / s
-    kappa[0] = 0.0
-    kappa[m - 1] = 0.0
-    for c in range(3):
-        normal[0, c] = 0.0
-        normal[m - 1, c] = 0.0
-    for i in range(1, m - 1):
-        kappa[i], normal[i, 0], normal[i, 1], normal[i, 2] = vertex_turn(
-            tang[i - 1, 0], tang[i - 1, 1], tang[i - 1, 2], tang[i, 0], tang[i, 1], tang[i, 2],
-            0.5 * (seg_len[i - 1] + seg_len[i]))
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -145,27 +127,6 @@ def corner_v2(u, phi, mu, g, plan_a, plan_b):
 
 
 @njit(cache=True, nogil=True, inline="always")
-def vertex_turn(ax, ay, az, bx, by, bz, mean_len):
-    """Discrete curvature at a vertex where the unit direction turns from ``a`` to ``b``.
-
-    The turning angle ``phi = atan2(|a x b|, a . b)`` spread over ``mean_len`` (the mean
-    of the two adjoining segment lengths).  Returns ``(kappa, nx, ny, nz)``: ``kappa =
-    phi / mean_len`` and ``n`` the unit vector along ``b - a``; all zero where straight
-    (``phi`` up to :data:`_STRAIGHT_RAD`).  The one measure of the full model's bends,
-    used by :func:`vertex_geometry` and :func:`window_step`.
-    """
-    cx = ay * bz - az * by
-    cy = az * bx - ax * bz
-    cz = ax * by - ay * bx
-    phi = math.atan2(math.sqrt(cx * cx + cy * cy + cz * cz), ax * bx + ay * by + az * bz)
-    nx, ny, nz = bx - ax, by - ay, bz - az
-    nn = math.sqrt(nx * nx + ny * ny + nz * nz)
-    if phi <= _STRAIGHT_RAD or nn <= 0.0:
-        return 0.0, 0.0, 0.0, 0.0
-    return phi / mean_len, nx / nn, ny / nn, nz / nn
-
-
-@njit(cache=True, nogil=True, inline="always")
 def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
     """One segment of the full model (sharp-corner reading) from its window of vertices.
 
@@ -213,7 +174,7 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     nseg = m - 1
     tang = np.empty((nseg, 3))
     seg_len = np.empty(nseg)
-    vertex_geometry(pts, tang, seg_len, np.empty(m), np.empty((m, 3)))
+    segment_geometry(pts, tang, seg_len)
     station[0] = 0.0
     for j in range(nseg):
         station[j + 1] = station[j] + seg_len[j]
@@ -281,7 +242,6 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     for i in range(last + 1, m):
         v2[i] = math.nan
         time[i] = math.nan
-    for i in range(last + 1, m):
         v2_dep[i] = math.nan
     if stall < 0.0:
         v2_dep[m - 1] = v2[m - 1]

@@ -732,27 +732,28 @@ def _point_fields(stats: dict, line: np.ndarray) -> dict:
 def _closest_text(xy, terrain_crs, points_crs) -> str:
     """Where a failed search got closest, for a message: ``lon .., lat ..`` when the caller
     gave lon/lat, else ``x=.., y=..`` in the caller's CRS (the terrain's by default)."""
-    text = _describe_xy(xy, terrain_crs, points_crs)
-    if text.startswith("(lon"):
-        return text[1:-1]
-    x, y = text[1:-1].split(", ")
-    return f"x={x}, y={y}"
+    x, y, geographic = _caller_xy(xy, terrain_crs, points_crs)
+    return f"lon {x:.6f}, lat {y:.6f}" if geographic else f"x={x:.1f}, y={y:.1f}"
 
 
 def _describe_xy(xy, terrain_crs, points_crs) -> str:
     """A point for a message, in the caller's CRS (lon/lat when that is geographic)."""
+    x, y, geographic = _caller_xy(xy, terrain_crs, points_crs)
+    return f"(lon {x:.6f}, lat {y:.6f})" if geographic else f"({x:.1f}, {y:.1f})"
+
+
+def _caller_xy(xy, terrain_crs, points_crs) -> tuple[float, float, bool]:
+    """``xy`` (terrain CRS) in the caller's CRS, and whether that CRS is geographic."""
     x, y = float(xy[0]), float(xy[1])
     if points_crs is None or terrain_crs is None:
-        return f"({x:.1f}, {y:.1f})"
+        return x, y, False
     from pyproj import CRS
 
     from .points import to_terrain_crs
 
     dst = CRS.from_user_input(points_crs)
     (px, py), = to_terrain_crs([(x, y)], terrain_crs, dst)
-    if dst.is_geographic:
-        return f"(lon {px:.6f}, lat {py:.6f})"
-    return f"({px:.1f}, {py:.1f})"
+    return float(px), float(py), bool(dst.is_geographic)
 
 
 def warn_moved_points(stats, terrain_crs, points_crs=None) -> None:

@@ -102,8 +102,9 @@ from .errors import ParameterError, TerrainError
 from .keepout import Keepout
 from .physics import Mover
 
-__all__ = ["search_memory_bytes", "search_seconds", "SEARCH_SECONDS_PER_CELL", "bound_memory_bytes", "check_memory", "available_bytes", "terrain_source", "box_around",
-           "corridor_outside", "lowest_within", "DEFAULT_COARSE_CELLS"]
+__all__ = ["search_memory_bytes", "search_seconds", "SEARCH_SECONDS_PER_CELL", "bound_memory_bytes", "check_memory",
+           "available_bytes", "terrain_source", "box_around", "corridor_outside", "lowest_within",
+           "DEFAULT_COARSE_CELLS"]
 
 #: The auto coarse factor aims at about this many cells on the coarse grid.
 DEFAULT_COARSE_CELLS = 250_000

@@ -213,7 +213,6 @@ def station_table(route, step_m: float = DEFAULT_STATION_STEP_M, *, extra=()) ->
     G = np.asarray(prof.grade, dtype=float)[keep]
     m = len(P)
     length = float(S[-1])
-    v2 = V * V
     u0 = (np.asarray(prof.departing_speed_m_s, dtype=float)[keep] ** 2)[:-1]  # each segment's start
     normals = None
     if getattr(route.line_spec, "kind", "ground") == "ground":
