@@ -235,7 +235,7 @@ def incline_step(v0: float, drop_m: float, plan_m: float, mu: float, k: float = 
 
 
 def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
-                         g: float = G0, channel: bool = True) -> tuple[float, float]:
+                         g: float = G0, channel: bool = True, speeds: list | None = None) -> tuple[float, float]:
     """Time and exit speed of a polyline read as straight segments with sharp corners.
 
     Each segment by :func:`incline_step`; at every interior vertex the belt-friction
@@ -249,7 +249,8 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     bed friction over the corner is μ|G − v²φ| instead of μG, G the gravity-normal part
     of half the straight runs either side up to the neighbouring corners (past G the
     mover would lift off an open bed; an enclosed line's cover presses).
-    Returns ``(time_s, exit_speed_m_s)`` (``inf``, ``nan`` when the mover stops).
+    Returns ``(time_s, exit_speed_m_s)`` (``inf``, ``nan`` when the mover stops); a list
+    given as ``speeds`` receives each straight piece's (start, end) speeds.
     """
     P = np.asarray(points, dtype=float)
     d = np.diff(P, axis=0)
@@ -281,11 +282,25 @@ def sharp_corner_reading(points, mu: float, k: float = 0.0, v0: float = 0.0,
     for j, seg in enumerate(d):
         if j:
             v = corner_speed(v, d[j - 1], seg, mu, before[j], after[j], g, channel)
+        v_start = v
         v, dt = incline_step(v, -float(seg[2]), float(math.hypot(seg[0], seg[1])), mu, k, g)
         if not math.isfinite(dt):
             return math.inf, math.nan
+        if speeds is not None:
+            speeds.append((v_start, v))
         t += dt
     return t, v
+
+
+def sharp_corner_speeds(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float = G0) -> np.ndarray:
+    """The speeds of :func:`sharp_corner_reading` at both ends of every straight piece,
+    ``(n_pieces, 2)``: leaving the corner before it, arriving at the corner after it.  On a
+    straight piece under gravity, Coulomb friction and quadratic drag the speed moves
+    monotonically towards its terminal value, so the largest speed along the line is the
+    largest of these."""
+    out: list[float] = []
+    sharp_corner_reading(points, mu, k, v0, g, speeds=out)
+    return np.asarray(out)
 
 
 def corner_speed(v: float, a, b, mu: float, run_before_m: float, run_after_m: float, g: float = G0,
@@ -391,3 +406,46 @@ def smooth_reading(points, mu: float, k: float = 0.0, v0: float = 0.0, g: float 
                 return math.inf, math.nan
             u2, t = float(sol.y[0, -1]), float(sol.y[1, -1])
     return t, math.sqrt(max(u2, 0.0))
+
+
+def circumcentre(a, b, c) -> np.ndarray | None:
+    """The centre of the circle through three points in 3D (None when they are collinear);
+    elementary geometry."""
+    a, b, c = (np.asarray(q, dtype=float) for q in (a, b, c))
+    u, w = b - a, c - a
+    uxw = np.cross(u, w)
+    den = 2.0 * float(uxw @ uxw)
+    if den < 1e-18:
+        return None
+    return a + (float(w @ w) * np.cross(uxw, u) + float(u @ u) * np.cross(w, uxw)) / den
+
+
+def vertex_loads(points, speed_m_s, g: float = G0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Lateral g, normal g and the open bed's lift-off margin (g) at each interior vertex.
+
+    The line through each vertex and its neighbours is read as the circle through the three
+    points (curvature vector κn towards its centre) with the chord from the previous to the
+    next vertex as its tangent t; ``speed_m_s[i]`` is the speed at vertex i.  Per unit mass:
+    lateral acceleration v_h²/R_plan (R_plan the plan circle's radius, v_h the horizontal
+    speed); the force the bed and walls supply N = v²κn − g⊥ (g⊥ gravity's part across t;
+    1 g on a level straight); the bed's share N·up, up the upward unit normal to t in its
+    vertical plane, must stay positive on an open bed (at a crest, v²κ_vertical < g cos θ).
+    Any mechanics text; CHECKS "Buildable lines".
+    """
+    P = np.asarray(points, dtype=float)
+    v = np.asarray(speed_m_s, dtype=float)
+    gv = np.array([0.0, 0.0, -g])
+    lat, nor, lift = [], [], []
+    for i in range(1, len(P) - 1):
+        a, b, c = P[i - 1], P[i], P[i + 1]
+        t = (c - a) / np.linalg.norm(c - a)
+        flat = [np.r_[q[:2], 0.0] for q in (a, b, c)]
+        cp = circumcentre(*flat)
+        lat.append(0.0 if cp is None else v[i] ** 2 * float(t[:2] @ t[:2]) / float(np.linalg.norm(cp - flat[1])) / g)
+        c3 = circumcentre(a, b, c)
+        kn = np.zeros(3) if c3 is None else (c3 - b) / float((c3 - b) @ (c3 - b))
+        n_vec = v[i] ** 2 * kn - (gv - float(gv @ t) * t)
+        up = np.array([0.0, 0.0, 1.0]) - t[2] * t
+        nor.append(float(np.linalg.norm(n_vec)) / g)
+        lift.append(float(n_vec @ (up / np.linalg.norm(up))) / g)
+    return np.array(lat), np.array(nor), np.array(lift)

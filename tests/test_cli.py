@@ -207,7 +207,7 @@ def test_demo_writes_every_output(demo_run):
     assert "qualified engineer" in p.stdout
     with open(out / "comparison.csv", newline="") as fh:
         names = [r["name"] for r in csv.DictReader(fh)]
-    assert {"haul road", "direct", "double-back", "computed optimum"} <= set(names)
+    assert {"direct", "east of the trees", "west of the trees", "computed optimum"} <= set(names)
     # the reported line is the faster of the refined and the lattice line as laid on the
     # ground (both timed with the same full model), and the exported profile re-times to
     # the reported figure
@@ -231,6 +231,56 @@ def test_demo_writes_every_output(demo_run):
     assert sum(float(r["time_s"]) for r in spans) == pytest.approx(cs["travel_time_s"], abs=1e-3 * len(spans))
     assert len(spans) == cs["cable"]["support_count"] + 1
     assert "cable" in p.stdout
+
+
+@pytest.mark.slow
+def test_demo_line_meets_every_limit_of_its_scenario(demo_run):
+    # issue: the demo's refined line meets the realistic open-chute limits its scenario
+    # carries.  Each limit is read twice: from summary.json, and independently from the
+    # exported route.gpkg, re-timed by the sharp-corner reading (incline law + capstan law,
+    # tests/references.py) and, for the loads, by the circle through each vertex and its
+    # neighbours (v^2/R; N = v^2 kappa n - g_perp; mechanics texts, CHECKS "Buildable lines")
+    import pyogrio
+    from shapely import from_wkb
+
+    from references import sharp_corner_reading, sharp_corner_speeds, smooth_reading, vertex_loads
+
+    out, p = demo_run
+    assert p.returncode == 0, p.stderr
+    sc = tomllib.loads((out / "scenario.toml").read_text())
+    mv, lim = sc["mover"], sc["limits"]
+    # the scenario is an open chute with every buildability limit set
+    assert lim["allow_liftoff"] is False and mv["normal"] == "full"
+    for key in ("max_lateral_g", "max_normal_g", "min_grade", "max_grade"):
+        assert key in lim, key
+    assert mv["max_speed"] is not None
+    s = json.loads((out / "summary.json").read_text())
+    assert s["feasible"] and not s["violated_limits"]
+    assert s["max_speed_m_s"] <= mv["max_speed"]
+    assert s["max_lateral_g"] <= lim["max_lateral_g"]
+    assert s["max_normal_g"] <= lim["max_normal_g"]
+    assert s["min_liftoff_margin_g"] > 0.0
+    assert lim["min_grade"] <= s["min_grade"] and s["max_grade"] <= lim["max_grade"]
+    # the exported line itself
+    _, _, geom, _ = pyogrio.raw.read(out / "route.gpkg", layer="line")
+    P = np.array(from_wkb(geom[0]).coords, dtype=float)
+    d = np.diff(P, axis=0)
+    grade = -d[:, 2] / np.hypot(d[:, 0], d[:, 1])
+    assert lim["min_grade"] <= grade.min() and grade.max() <= lim["max_grade"]
+    mu = mv["mu"]
+    t_sharp, v_exit = sharp_corner_reading(P, mu)
+    assert t_sharp == pytest.approx(s["travel_time_s"], rel=5e-3)
+    assert v_exit == pytest.approx(s["exit_speed_m_s"], rel=5e-3)
+    t_smooth, v_smooth = smooth_reading(P, mu)
+    assert t_smooth == pytest.approx(s["travel_time_s"], rel=5e-3)
+    assert v_smooth == pytest.approx(s["exit_speed_m_s"], rel=5e-3)
+    pieces = sharp_corner_speeds(P, mu)
+    assert pieces.max() <= mv["max_speed"]
+    at_vertex = np.maximum(pieces[:-1, 1], pieces[1:, 0])   # arriving at / leaving each interior vertex
+    lateral_g, normal_g, bed_g = vertex_loads(P, np.r_[0.0, at_vertex, 0.0])
+    assert lateral_g.max() <= lim["max_lateral_g"]
+    assert normal_g.max() <= lim["max_normal_g"]
+    assert bed_g.min() > 0.0                                  # no lift-off anywhere on the open bed
 
 
 def test_route_corridor_plan_matches_the_incline_formula(tmp_path, ramp):

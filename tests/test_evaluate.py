@@ -26,7 +26,7 @@ from rasterio.crs import CRS
 from fallway.errors import FallwayIOError, InputWarning, NoFeasibleLine, ParameterError
 from fallway.evaluate import COMPARISON_COLUMNS, ENVELOPE_COLUMNS, drape, envelope, evaluate_line
 from fallway.geometry import min_radius_m
-from fallway.params import SearchOptions
+from fallway.params import Limits, SearchOptions
 from fallway.physics import Mover
 from fallway.routing import compare, find_route
 from fallway.terrain import Terrain
@@ -707,8 +707,10 @@ def test_read_lines_reads_every_line_layer_or_the_named_ones(tmp_path):
 
 
 def test_sample_site_candidates_behave_as_its_readme_says():
-    # the shipped invented site (sample_terrain/README.md): at mu = 0.15 the haul road and
-    # the double-back stall, and the direct line runs through the site building (keep-out)
+    # the shipped invented site (sample_terrain/README.md), with the demo scenario's mover
+    # (mu 0.25, 12 m/s cap, 1 g lateral): the direct line runs through the protected trees
+    # (keep-out), the line east of the trees overspeeds on its straight fall, and the one
+    # west of them turns too sharply for its speed; no hand-drawn line meets the limits
     from importlib.resources import as_file, files
 
     from fallway.keepout import Keepout
@@ -718,14 +720,17 @@ def test_sample_site_candidates_behave_as_its_readme_says():
         t = load_terrain(d / "site.tif")
         lines = read_lines(d / "lines.geojson", crs=t.crs)
         ko = Keepout.from_file(d / "keepout.geojson").in_crs(t.crs)
-    cmp = compare(t, lines, Mover(mu=0.15, max_speed=30.0), keepout=ko, optimum=False, mu_range=(0.1, 0.2))
+    cmp = compare(t, lines, Mover(mu=0.25, max_speed=12.0), limits=Limits(max_lateral_g=1.0), keepout=ko,
+                  optimum=False, mu_range=(0.2, 0.3))
     rows = {r.name: r for r in cmp.rows}
-    assert set(rows) == {"haul road", "direct", "double-back"}
-    assert rows["haul road"].status == "stalls" and rows["double-back"].status == "stalls"
+    assert set(rows) == {"direct", "east of the trees", "west of the trees"}
     assert "keepout" in rows["direct"].issues and rows["direct"].travel_time_s is not None
-    assert cmp.rows[0].name == "direct"  # the only one that reaches the hopper
-    # stalls rank by station, furthest first
-    assert cmp.rows[1].stalled_at_m >= cmp.rows[2].stalled_at_m
+    assert rows["east of the trees"].status == "overspeed" and rows["east of the trees"].travel_time_s is not None
+    assert "lateral_g" in rows["west of the trees"].issues and rows["west of the trees"].travel_time_s is not None
+    assert all(r.status != "ok" for r in cmp.rows)
+    # none meets the limits, so all rank by time
+    times = [r.travel_time_s for r in cmp.rows]
+    assert times == sorted(times)
 
 
 def test_robust_route_against_a_speed_limit_tightens_its_searches():

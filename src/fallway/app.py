@@ -442,7 +442,7 @@ def run_demo(out_dir, *, overwrite: bool = False):
         lines_path = Path(site_dir) / "lines.geojson"
         cover = [tuple(p[:2]) for _, line in read_lines(lines_path, crs=dem_crs(sc.dem)) for p in line]
         with OutputSet(out_dir, overwrite=overwrite, result_names=DEMO_FILES, result_dirs=(DEMO_CABLE_DIR,)) as outs:
-            # the second scenario: a cable line between the same points, in its own folder
+            # the second scenario: a cable line from the bench lip to the valley hopper, in its own folder
             cable_sc = load_scenario(Path(site_dir) / "cable.toml")
             cable_route = _route_of(cable_sc, resolve_site(cable_sc), robust=False)
             with OutputSet(outs.path(DEMO_CABLE_DIR), result_names=_ROUTE_RESULTS, make_parents=False) as couts:

@@ -414,6 +414,18 @@ def route(out_dir, overwrite, scenario_path, quiet, verbose, robust, timings, **
         _print_route(r, out_dir, written)
 
 
+def _exit_speeds(env) -> str:
+    """The exit speeds at the two ends of a friction range, in words ("stalls" where it does)."""
+    at_hi, at_lo = env.exit_speed_range_m_s   # (at high friction, at low friction)
+    if at_hi is not None and at_lo is not None:
+        return f"exit speed {at_lo:.2f} to {at_hi:.2f} m/s"
+    if at_hi is None and at_lo is None:
+        return "stalls at both ends of the range"
+    if at_hi is None:
+        return f"exit speed {at_lo:.2f} m/s at {env.mu_lo:g}, stalls at {env.mu_hi:g}"
+    return f"stalls at {env.mu_lo:g}, exit speed {at_hi:.2f} m/s at {env.mu_hi:g}"
+
+
 def _print_route(r, out_dir, written) -> None:
     s = r.summary
     t = "stalls" if s.travel_time_s is None else f"{s.travel_time_s:.2f} s"
@@ -426,9 +438,7 @@ def _print_route(r, out_dir, written) -> None:
                    f"smallest lift-off margin {s.min_liftoff_margin_g:.2f} g (at {s.min_liftoff_margin_station_m:.0f} m)")
     env = r.envelope
     if env is not None:
-        lo, hi = env.exit_speed_range_m_s
-        rng = "stalls" if lo is None or hi is None else f"{hi:.2f} to {lo:.2f} m/s"
-        click.echo(f"friction {env.mu_lo:g} to {env.mu_hi:g}: {env.verdict}; exit speed {rng}")
+        click.echo(f"friction {env.mu_lo:g} to {env.mu_hi:g}: {env.verdict}; {_exit_speeds(env)}")
     if s.cable is not None:
         last = s.cable["spans"][-1]
         click.echo(f"cable: {s.cable['support_count']} supports, {len(s.cable['spans'])} spans; the carrier arrives "
@@ -552,11 +562,12 @@ def demo(out_dir, overwrite, quiet):
 
     r, cmp, written, cable = run_demo(out_dir, overwrite=overwrite)
     if not quiet:
-        click.echo("fallway demo: the invented sample site (quarry bench to valley floor), line kept clear of the no-go areas")
+        click.echo("fallway demo: the invented sample site, an open chute from the foot of the quarry bench down the "
+                   "hillside, kept clear of the no-go areas")
         _print_route(r, out_dir, written)
         _print_rows(cmp, indent="  ")
         s = cable.summary
-        click.echo(f"cable line between the same points ({Path(out_dir) / 'cable'}): {s.cable['support_count']} supports "
+        click.echo(f"cable line from the bench lip to the valley hopper ({Path(out_dir) / 'cable'}): {s.cable['support_count']} supports "
                    f"between the end stations, carrier {s.travel_time_s:.2f} s, arrives at {s.exit_speed_m_s:.1f} m/s")
         click.echo("Preliminary layout aid only: have any real design checked by a qualified engineer.")
 
