@@ -283,3 +283,40 @@ def test_polish_trades_time_for_a_broken_limit():
     assert not np.array_equal(Q, P), note
     assert lateral_g(Q) < lateral_g(P)
     assert traverse(Q, mover).travel_time_s > traverse(P, mover).travel_time_s
+
+
+def test_the_rounded_start_is_polished_when_no_gravity_stage_line_meets_the_limits():
+    # A capped mover (4 m/s, mu 0.25) on a 16.7 deg plane, from a lattice-like line: five
+    # steps down the fall line, then knight's moves.  The start overspeeds; the
+    # gravity-normal optimum, held to the cap at gravity-normal speeds (which miss the
+    # bends' friction), breaks the grade window and the cap, and so does its polish.  The
+    # rounded start polished on the full model is then a candidate, and the returned line
+    # meets the limits.  Read independently of fallway: the speeds by the sharp-corner
+    # reading (incline law + capstan law, tests/references.py), the grades from the
+    # vertices, the lateral acceleration by the circle through each vertex (v^2/R, CHECKS
+    # "Buildable lines"); and no line beats the chord at the cap (distance / speed).
+    from references import sharp_corner_speeds, vertex_loads
+
+    t = plane_terrain(16.7, rows=50, cols=52)
+    xy = [(1.5, 45.5)]
+    for (dx, dy), n in (((1.0, 0.0), 5), ((2.0, -1.0), 20)):
+        for _ in range(n):
+            xy.append((xy[-1][0] + dx, xy[-1][1] + dy))
+    pts = on_ground(t, np.array(xy))
+    mover = Mover(mu=0.25, normal="full", max_speed=4.0)
+    lim = Limits(min_grade=0.0, max_lateral_g=1.0)
+    res = refine_line(t, pts, mover, limits=lim)
+    cand = {c.name: c for c in res.candidates}
+    assert not cand["start"].meets_limits and not cand["rounded"].meets_limits
+    assert not cand["gravity optimum"].meets_limits and not cand["full polish"].meets_limits
+    assert res.chosen == "rounded start, full polish" and cand[res.chosen].meets_limits
+    P = res.line
+    pieces = sharp_corner_speeds(P, mover.mu)
+    assert pieces.max() <= mover.max_speed * (1 + 1e-9)
+    d = np.diff(P, axis=0)
+    assert np.all(-d[:, 2] / np.hypot(d[:, 0], d[:, 1]) >= lim.min_grade)
+    at_vertex = np.maximum(pieces[:-1, 1], pieces[1:, 0])
+    lateral_g, _, _ = vertex_loads(P, np.r_[0.0, at_vertex, 0.0])
+    assert lateral_g.max() <= lim.max_lateral_g
+    chord = float(np.linalg.norm(P[-1] - P[0]))
+    assert res.time_after_s > chord / mover.max_speed

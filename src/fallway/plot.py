@@ -805,7 +805,8 @@ def comparison_figure(terrain, comparison, *, keepout=None, figsize=(14.0, 6.0))
     if first is not None:
         ax_map.plot([first.points[0, 0]], [first.points[0, 1]], marker="^", color="white", markeredgecolor="black",
                     markersize=10, linestyle="none", zorder=7, label="start")
-    ax_map.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    # below the map: inside it the legend hides the lines' start, which they share
+    ax_map.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), fontsize=7, framealpha=0.85)
     ax_z.set_xlabel("station along the line (m)")
     ax_z.set_ylabel("height (m), solid")
     ax_v.set_ylabel("speed (m/s), dotted")

@@ -14,7 +14,7 @@ from ..results import RefineResult
 from .choose import Candidate, choose, improves, judge
 from .fields import DistanceField
 from .problem import Ground, Problem
-from .stages import Plan, gravity_stage, polish_stage, raised_heights, repair_radius, rounded_start
+from .stages import GravityRun, Plan, gravity_stage, polish_rounded, polish_stage, raised_heights, repair_radius, rounded_start
 
 __all__ = ["refine_line"]
 
@@ -86,7 +86,9 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         the start line, its rounded version (``min_radius_m``), the gravity-normal optimum
         and, with the full model, the polish's lines and - when none of those beats the
         start line - the optimum of a gravity-normal run (``"gravity optimum, full-model
-        timed"``); every candidate is timed with the mover's own model.  ``candidates``
+        timed"``); when no refined line meets the limits, the rounded start polished on
+        the full model (``"rounded start, full polish"``, penalties strengthened while a
+        limit is broken); every candidate is timed with the mover's own model.  ``candidates``
         lists them all with their times, limit status and any failure, ``chosen`` names
         the one returned.  Never slower than the
         start line among lines that meet the limits: when the start line itself breaks one
@@ -139,6 +141,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     P_start = _start_line(prob, P_in, spec, bool(keep_heights))
     cands = [Candidate("start", P_start)]
     seed = P_start
+    P_round = None
     r_round = _rounding_radius(prob, P_start)
     if r_round is not None:
         # a bend limit: start from the lattice line with its corners rounded
@@ -164,6 +167,18 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             cands.append(Candidate.refined_line("gravity optimum, full-model timed", alt.line,
                                                 repair_radius(prob, alt.line, P_start), alt.converged,
                                                 alt.residual, alt, alt.error))
+    if mover.normal == "full" and P_round is not None:
+        judge(prob, cands, mover)
+        if not any(c.meets for c in cands if c.refined):
+            # no refined line meets the limits (under a speed cap the gravity-normal
+            # optimum can stall under the full model): polish the rounded start instead
+            prob_r = problem()
+            pr = polish_rounded(prob_r, P_round, P_start, plan)
+            run = GravityRun(None, iterations=pr.iterations, converged=pr.ok, residual=pr.residual,
+                             notes=["no line of the gravity-normal stage met the limits: the rounded start was "
+                                    "polished on the full model"])
+            cands += [Candidate.refined_line(f"rounded start, {nm}", L, repair_radius(prob, L, P_start), ok, res, run)
+                      for nm, L, ok, res in pr.lines]
     return choose(prob, cands, mover, pol)
 
 

@@ -186,7 +186,7 @@ def _polish_notes(cands: list, pol: PolishRun | None) -> list:
     polished = [c for c in cands if c.name.startswith("full polish") and c.line is not None]
     best = min((c for c in polished if c.meets), key=lambda c: c.time, default=None)
     if best is None or not (math.isfinite(pol.t_gravity) and best.time < pol.t_gravity):
-        return ["full-model polish found nothing faster than the gravity-normal optimum"]
+        return ["full-model polish of the gravity-normal optimum: nothing faster than it"]
     notes = []
     finest = next((c for c in polished if c.name == "full polish"), None)
     if best is not finest and finest is not None:

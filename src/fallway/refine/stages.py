@@ -7,6 +7,8 @@
   gravity-normal model it is the very line a gravity-normal run returns.
 * :func:`polish_stage` - the full-model polish, coarse to fine again from the gravity
   optimum: one polished line per level.
+* :func:`polish_rounded` - the same polish from the rounded start, with stronger penalties
+  while a limit is broken: for when the gravity optimum gives no line meeting the limits.
 * :func:`repair_radius` - a refined line left with a few too tight bends, smoothed locally.
 
 A stage that cannot run says why (``error``); it never raises on numbers.
@@ -27,7 +29,8 @@ from .problem import Problem
 from .shape import fillet_plan, monitor, refine_density, resample, resample_smooth
 from .solve import STAT_TOL_COARSE, polish, solve
 
-__all__ = ["Plan", "GravityRun", "PolishRun", "rounded_start", "repair_radius", "gravity_stage", "polish_stage"]
+__all__ = ["Plan", "GravityRun", "PolishRun", "rounded_start", "repair_radius", "gravity_stage", "polish_stage",
+           "polish_rounded"]
 
 #: full-model polish: iteration budget of a level, in vertex-iterations
 _POLISH_BUDGET = 20_000
@@ -301,3 +304,34 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
         if prob.line != "ground" or spacing <= 2.0 * prob.cell:
             lines.append((f"full polish, level {li + 1} of {len(sizes)} ({len(L)} vertices)", L, ok_i, res_i))
     return PolishRun(lines[::-1], iters, ok, res, t_grav)
+
+
+#: rounds of stronger penalties after the polish of the rounded start
+_POLISH_ROUNDS = 3
+
+
+def polish_rounded(prob: Problem, P_round: np.ndarray, P_start: np.ndarray, plan: Plan) -> PolishRun:
+    """The full-model polish from the rounded start instead of the gravity optimum, then
+    stronger penalties on its finest line while a limit is still broken (as the gravity
+    stage's rounds: keep-out margin x4, penalty weight x100; at most three rounds).
+
+    For when no line of the gravity stage meets the limits.  Under a speed cap the
+    gravity-normal optimum runs at gravity-normal speeds, which miss the friction of the
+    bends; held to the cap at those speeds it can stall under the full model, and so can
+    its polish.  The rounded start already runs at the full model's speeds."""
+    run = polish_stage(prob, P_round, P_start, plan)
+    name, L, ok, res = run.lines[0]
+    iters = run.iterations
+    for _ in range(_POLISH_ROUNDS):
+        viol = prob.violations(L, "full")
+        if not any(v == "violated" for v in viol.values()):
+            break
+        if viol.get("keepout") == "violated":
+            prob.margin *= 4.0
+        if any(v == "violated" for k, v in viol.items() if k != "keepout"):
+            prob.w_pen *= 100.0
+        prob.update_bends(L, "full")
+        # the level's whole iteration cap: a stiffer penalty is a worse-conditioned problem
+        L, it, res, ok, _ = polish(prob, L, plan.max_iter, plan.gtol, (0.0,))
+        iters += it
+    return PolishRun([(name, L, ok, res)] + run.lines[1:], iters, ok, res, run.t_gravity)
