@@ -145,7 +145,8 @@ def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
     if s <= 1e-12:
         return v2_in, 0.0, -1.0
     drop = -dz
-    plan = math.sqrt(max(s * s - drop * drop, 0.0) + eps_plan * eps_plan)
+    # from dx, dy: sqrt(s² - drop²) cancels on a near-vertical segment
+    plan = math.sqrt(dx * dx + dy * dy + eps_plan * eps_plan)
     u = v2_in
     if has_a:
         ex, ey, ez = Q[1, 0] - Q[0, 0], Q[1, 1] - Q[0, 1], Q[1, 2] - Q[0, 2]
@@ -215,7 +216,8 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
     for j in range(nseg):
         s = seg_len[j]
         drop = pts[j, 2] - pts[j + 1, 2]
-        plan = math.sqrt(max(s * s - drop * drop, 0.0))
+        # from dx, dy: sqrt(s² - drop²) cancels on a near-vertical segment
+        plan = math.hypot(pts[j + 1, 0] - pts[j, 0], pts[j + 1, 1] - pts[j, 1])
         if not full:
             v2_dep[j] = v2[j]
             u, t, at = segment_law(v2[j], drop, plan, s, g, mu, k, v2_stall)

@@ -56,6 +56,7 @@ import itertools
 import math
 import os
 import re
+import sys
 from pathlib import Path
 
 from .errors import FallwayIOError, ScenarioError
@@ -284,11 +285,29 @@ def run_batch(scenarios_path, out_dir, *, workers: int | None = None, scheduler=
             from concurrent.futures import ProcessPoolExecutor
 
             ctx = multiprocessing.get_context("spawn")  # no fork of a process holding threads
+            _quiet_resource_tracker()
             with ProcessPoolExecutor(max_workers=min(n, len(specs)), mp_context=ctx,
                                      initializer=_quiet_worker) as ex:
                 rows = list(ex.map(run_one, specs))
         _write_table(rows if timings else [{**r, "run_s": None} for r in rows], runs, outs.path(BATCH_TABLE))
     return rows
+
+
+def _quiet_resource_tracker() -> None:
+    """Start multiprocessing's resource tracker (if it is not running yet) with its own
+    UserWarnings off.  A stop by signal kills the workers and ends this process at once
+    (``cli._end_on_signal``); the tracker then unlinks the pool's semaphores, as it should,
+    but also warned of "leaked semaphore objects" on the user's terminal after fallway's
+    one-line message.  The tracker takes its warning options from ``sys.warnoptions``
+    when it starts."""
+    from multiprocessing import resource_tracker
+
+    saved = list(sys.warnoptions)
+    sys.warnoptions.append("ignore::UserWarning:multiprocessing.resource_tracker")
+    try:
+        resource_tracker.ensure_running()
+    finally:
+        sys.warnoptions[:] = saved
 
 
 def _quiet_worker() -> None:

@@ -87,9 +87,9 @@ class RefineCandidate:
         ``"start"`` (the lattice line), ``"rounded"`` (its corners rounded to the bend
         radius), ``"gravity optimum"`` (the gravity-normal optimum), ``"full polish"``
         (polished on the full normal-force model), ``"gravity optimum, full-model timed"``,
-        ``"rounded start, full polish"`` (the rounded start polished on the full model, when
-        no other refined line meets the limits); a polished line of a coarser level adds
-        ``", level i of n (k vertices)"``.
+        ``"rounded start, full polish"`` or ``"start, full polish"`` (the rounded start, or
+        the start line without a bend limit, polished on the full model: a second seed for
+        the polish); a polished line of a coarser level adds ``", level i of n (k vertices)"``.
     time_s : float or None
         Travel time with the route's model; None when the stage failed or the mover stalls.
     meets_limits : bool

@@ -14,7 +14,8 @@ from ..results import RefineResult
 from .choose import Candidate, choose, improves, judge
 from .fields import DistanceField
 from .problem import Ground, Problem
-from .stages import GravityRun, Plan, gravity_stage, polish_rounded, polish_stage, raised_heights, repair_radius, rounded_start
+from .stages import (GravityRun, Plan, gravity_stage, polish_stage, polish_start_line, raised_heights, repair_radius,
+                     rounded_start)
 
 __all__ = ["refine_line"]
 
@@ -86,11 +87,11 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         the start line, its rounded version (``min_radius_m``), the gravity-normal optimum
         and, with the full model, the polish's lines and - when none of those beats the
         start line - the optimum of a gravity-normal run (``"gravity optimum, full-model
-        timed"``); when no refined line meets the limits, the rounded start polished on
-        the full model (``"rounded start, full polish"``, penalties strengthened while a
-        limit is broken); every candidate is timed with the mover's own model.  ``candidates``
-        lists them all with their times, limit status and any failure, ``chosen`` names
-        the one returned.  Never slower than the
+        timed"``); with the full model also the rounded start (the start line without a
+        bend limit) polished on the full model (``"rounded start, full polish"``,
+        ``"start, full polish"``; penalties strengthened while a limit is broken); every
+        candidate is timed with the mover's own model.  ``candidates`` lists them all with their times, limit status and any
+        failure, ``chosen`` names the one returned.  Never slower than the
         start line among lines that meet the limits: when the start line itself breaks one
         (typically the bend radius at its lattice corners) the fastest line that meets them
         is returned even if slower, and ``message`` says so.
@@ -167,18 +168,17 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             cands.append(Candidate.refined_line("gravity optimum, full-model timed", alt.line,
                                                 repair_radius(prob, alt.line, P_start), alt.converged,
                                                 alt.residual, alt, alt.error))
-    if mover.normal == "full" and P_round is not None:
-        judge(prob, cands, mover)
-        if not any(c.meets for c in cands if c.refined):
-            # no refined line meets the limits (under a speed cap the gravity-normal
-            # optimum can stall under the full model): polish the rounded start instead
-            prob_r = problem()
-            pr = polish_rounded(prob_r, P_round, P_start, plan)
-            run = GravityRun(None, iterations=pr.iterations, converged=pr.ok, residual=pr.residual,
-                             notes=["no line of the gravity-normal stage met the limits: the rounded start was "
-                                    "polished on the full model"])
-            cands += [Candidate.refined_line(f"rounded start, {nm}", L, repair_radius(prob, L, P_start), ok, res, run)
-                      for nm, L, ok, res in pr.lines]
+    if mover.normal == "full" and grav.line is not None and len(P_start) >= 3:
+        # the gravity stage runs at gravity-normal speeds, which miss the bends' friction:
+        # under a speed cap its line is held to the cap at those speeds, too slow, and can
+        # stall under the full model; elsewhere it can land in another local optimum.  The
+        # (rounded) start polished on the full model is a second seed.
+        seed_name, P_seed = ("rounded start", P_round) if P_round is not None else ("start", P_start)
+        pr = polish_start_line(problem(), P_seed, P_start, plan)
+        run = GravityRun(None, iterations=pr.iterations, converged=pr.ok, residual=pr.residual,
+                         notes=[f"the {seed_name} polished on the full model as well"])
+        cands += [Candidate.refined_line(f"{seed_name}, {nm}", L, repair_radius(prob, L, P_start), ok, res, run)
+                  for nm, L, ok, res in pr.lines]
     return choose(prob, cands, mover, pol)
 
 

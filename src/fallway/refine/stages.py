@@ -7,8 +7,8 @@
   gravity-normal model it is the very line a gravity-normal run returns.
 * :func:`polish_stage` - the full-model polish, coarse to fine again from the gravity
   optimum: one polished line per level.
-* :func:`polish_rounded` - the same polish from the rounded start, with stronger penalties
-  while a limit is broken: for when the gravity optimum gives no line meeting the limits.
+* :func:`polish_start_line` - the same polish from the (rounded) start line, with stronger
+  penalties while a limit is broken: a second seed beside the gravity optimum.
 * :func:`repair_radius` - a refined line left with a few too tight bends, smoothed locally.
 
 A stage that cannot run says why (``error``); it never raises on numbers.
@@ -30,7 +30,7 @@ from .shape import fillet_plan, monitor, refine_density, resample, resample_smoo
 from .solve import STAT_TOL_COARSE, polish, solve
 
 __all__ = ["Plan", "GravityRun", "PolishRun", "rounded_start", "repair_radius", "gravity_stage", "polish_stage",
-           "polish_rounded"]
+           "polish_start_line"]
 
 #: full-model polish: iteration budget of a level, in vertex-iterations
 _POLISH_BUDGET = 20_000
@@ -237,18 +237,27 @@ def _resolve_repaired(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: P
     return P
 
 
+def _stiffen(prob: Problem, P: np.ndarray, model: str) -> bool:
+    """When ``P`` breaks a limit: a wider keep-out margin (x4) for the keep-out, a heavier
+    penalty weight (x100) for any other, the required radii frozen from ``P``; True.
+    False (nothing changed) when it breaks none."""
+    viol = prob.violations(P, model)
+    if not any(v == "violated" for v in viol.values()):
+        return False
+    if viol.get("keepout") == "violated":
+        # a segment cuts a corner between the sampled points: keep a wider berth
+        prob.margin *= 4.0
+    if any(v == "violated" for k, v in viol.items() if k != "keepout"):
+        prob.w_pen *= 100.0
+    prob.update_bends(P, model)
+    return True
+
+
 def _strengthen(prob: Problem, P: np.ndarray, plan: Plan, run: GravityRun, model: str) -> np.ndarray:
     """Stronger penalties while a limit is still violated (at most four rounds)."""
     for _ in range(4):
-        viol = prob.violations(P, model)
-        if not any(v == "violated" for v in viol.values()):
+        if not _stiffen(prob, P, model):
             break
-        if viol.get("keepout") == "violated":
-            # a segment cuts a corner between the sampled points: keep a wider berth
-            prob.margin *= 4.0
-        if any(v == "violated" for k, v in viol.items() if k != "keepout"):
-            prob.w_pen *= 100.0
-        prob.update_bends(P, model)
         P, it, res, ok, msg = solve(prob, P, plan.max_iter, plan.gtol)
         run.iterations += it
         run.converged, run.residual = ok, res
@@ -310,28 +319,23 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
 _POLISH_ROUNDS = 3
 
 
-def polish_rounded(prob: Problem, P_round: np.ndarray, P_start: np.ndarray, plan: Plan) -> PolishRun:
-    """The full-model polish from the rounded start instead of the gravity optimum, then
-    stronger penalties on its finest line while a limit is still broken (as the gravity
-    stage's rounds: keep-out margin x4, penalty weight x100; at most three rounds).
+def polish_start_line(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, plan: Plan) -> PolishRun:
+    """The full-model polish from the start line (rounded when there is a bend limit)
+    instead of the gravity optimum, then stronger penalties on its finest line while a
+    limit is still broken (as the gravity stage's rounds: keep-out margin x4, penalty
+    weight x100; at most three rounds, each with the level's whole iteration cap: a
+    stiffer penalty is a worse-conditioned problem).
 
-    For when no line of the gravity stage meets the limits.  Under a speed cap the
-    gravity-normal optimum runs at gravity-normal speeds, which miss the friction of the
-    bends; held to the cap at those speeds it can stall under the full model, and so can
-    its polish.  The rounded start already runs at the full model's speeds."""
-    run = polish_stage(prob, P_round, P_start, plan)
+    A second seed for the polish.  The gravity stage runs at gravity-normal speeds, which
+    miss the friction of the bends: under a speed cap it is held to the cap at those
+    speeds, its line is too slow and can stall under the full model, and its polish with
+    it.  The start line already runs at the full model's speeds."""
+    run = polish_stage(prob, P_seed, P_start, plan)
     name, L, ok, res = run.lines[0]
     iters = run.iterations
     for _ in range(_POLISH_ROUNDS):
-        viol = prob.violations(L, "full")
-        if not any(v == "violated" for v in viol.values()):
+        if not _stiffen(prob, L, "full"):
             break
-        if viol.get("keepout") == "violated":
-            prob.margin *= 4.0
-        if any(v == "violated" for k, v in viol.items() if k != "keepout"):
-            prob.w_pen *= 100.0
-        prob.update_bends(L, "full")
-        # the level's whole iteration cap: a stiffer penalty is a worse-conditioned problem
         L, it, res, ok, _ = polish(prob, L, plan.max_iter, plan.gtol, (0.0,))
         iters += it
     return PolishRun([(name, L, ok, res)] + run.lines[1:], iters, ok, res, run.t_gravity)
