@@ -15,7 +15,7 @@ import numpy as np
 import pyogrio.raw
 import pytest
 from click.testing import CliRunner
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from shapely import from_wkb
 
@@ -44,6 +44,9 @@ def _polyline(steps):
 
 @settings(max_examples=40, deadline=None)
 @given(descending, st.floats(0.0, 0.4), st.just(0.0) | st.floats(1e-4, 0.02), st.floats(0.5, 6.0))
+# a near-vertical segment (plan 6e-8 m, found by hypothesis): its plan length from dx, dy,
+# never sqrt(s² - drop²), which cancels
+@example([(0.0, 5.960464477539063e-08, 4.0)], 0.25, 0.0, 1.0)
 def test_departing_speed_is_what_the_next_segment_starts_with(steps, mu, k, v0):
     # the speed leaving each vertex (after its corner) carried along the segment by the
     # independent incline law gives the speed arriving at the next vertex; the gravity
@@ -65,6 +68,9 @@ def test_departing_speed_is_what_the_next_segment_starts_with(steps, mu, k, v0):
 
 @settings(max_examples=60, deadline=None)
 @given(descending, st.floats(0.0, 0.4), st.just(0.0) | st.floats(1e-4, 0.02), st.floats(0.0, 6.0))
+# a crest onto a near-vertical segment (found by hypothesis): the crest relief's plan runs
+@example([(1.0, 1.0, 1.0), (0.0, 5.960464477539063e-08, 2.75)], 0.375, 0.0, 0.0)
+@example([(0.0, 1.0, 1.0), (0.0, 5.960464477539063e-08, 2.75)], 0.375, 0.0, 0.0)
 def test_traverse_is_the_sharp_corner_reading(steps, mu, k, v0):
     # straight segments by the incline law, the capstan law at each corner (channel share
     # for mixed turns, crest relief bounded): an independent implementation

@@ -153,7 +153,7 @@ def window_step(v2_in, Q, has_a, g, mu, k, eps_plan, v2_stall):
         so = math.sqrt(ex * ex + ey * ey + ez * ez)
         if so > 1e-12:
             phi = turn_angle(ex / so, ey / so, ez / so, dx / s, dy / s, dz / s)
-            u = corner_v2(u, phi, mu, g, math.sqrt(max(so * so - ez * ez, 0.0)), plan)
+            u = corner_v2(u, phi, mu, g, math.sqrt(ex * ex + ey * ey), plan)
     return segment_law(u, drop, plan, s, g, mu, k, v2_stall)
 
 
@@ -198,13 +198,13 @@ def traverse_kernel(pts, g, mu, k, v2_0, v2_stall, full, station, v2, time, grad
             phi_c[i] = turn_angle(tang[i - 1, 0], tang[i - 1, 1], tang[i - 1, 2], tang[i, 0], tang[i, 1], tang[i, 2])
         acc = 0.0
         for i in range(1, m):
-            acc += seg_len[i - 1] * math.sqrt(max(1.0 - tang[i - 1, 2] ** 2, 0.0))
+            acc += seg_len[i - 1] * math.hypot(tang[i - 1, 0], tang[i - 1, 1])   # plan length, no cancellation
             run_before[i] = acc
             if phi_c[i] != 0.0:
                 acc = 0.0
         acc = 0.0
         for i in range(m - 2, -1, -1):
-            acc += seg_len[i] * math.sqrt(max(1.0 - tang[i, 2] ** 2, 0.0))
+            acc += seg_len[i] * math.hypot(tang[i, 0], tang[i, 1])
             run_after[i] = acc
             if phi_c[i] != 0.0:
                 acc = 0.0

@@ -47,6 +47,7 @@ from .loads import Loads, line_loads, load_status
 from .params import Limits
 from .physics import Mover, Profile, traverse
 from .physics import check_mu_range as _check_mu_range
+from .terrain import GROUND_TOLERANCE_M, lay_on_ground
 
 __all__ = [
     "COMPARISON_COLUMNS",
@@ -159,65 +160,6 @@ def drape(terrain, xy, *, max_step_m: float | None = None, name: str = "line") -
     z = _terrain_heights(terrain, d[:, 0], d[:, 1])
     _check_on_terrain(d, z, name)
     return np.column_stack([d, z])
-
-
-#: How far (m) a ground line's straight segment may run above or below the smooth ground
-#: surface before a vertex is added on the ground: a judgment (a chute or conveyor laid on
-#: the ground is bedded on a few decimetres of packing or cut), not a standard.
-GROUND_TOLERANCE_M = 0.25
-
-
-def lay_on_ground(terrain, points, *, tol_m: float = GROUND_TOLERANCE_M) -> np.ndarray:
-    """A 3D polyline whose vertices lie on the ground, with vertices added (on the ground)
-    wherever a straight segment strays more than ``tol_m`` from it.
-
-    Each segment is checked against :meth:`Terrain.sample` (the smooth surface) at steps of
-    at most half a cell; where the largest gap exceeds ``tol_m`` the segment is split at
-    that point, laid on the ground, and both halves are checked again.  So no point of
-    the returned line, sampled at half a cell, is more than ``tol_m`` off the ground
-    (within the sampling), while gentle ground keeps long segments.  Where the smooth
-    surface is undefined (near nodata or the DEM's edge) vertices keep their own heights
-    and the segment is not checked there.
-
-    Examples
-    --------
-    A chord across a ridge gets a vertex on the crest:
-
-    >>> import numpy as np
-    >>> from fallway.terrain import Terrain
-    >>> z = 10.0 - 0.5 * np.abs(np.arange(9.0) - 4.0)
-    >>> t = Terrain.from_array(np.tile(z, (5, 1)), (2.0, 0, 0, 0, -2.0, 10.0))
-    >>> line = lay_on_ground(t, [(1.0, 5.0, 8.0), (17.0, 5.0, 8.0)])
-    >>> len(line) > 2, bool(np.abs(line[:, 2] - t.sample(line[:, 0], line[:, 1])).max() < 1e-9)
-    (True, True)
-    """
-    P = np.array(points, dtype=float)
-    zs = _terrain_heights(terrain, P[:, 0], P[:, 1])
-    # where the smooth surface is undefined (within reach of nodata or the DEM's edge) the
-    # vertex keeps its own height and the ground there goes unchecked
-    P[:, 2] = np.where(np.isfinite(zs), zs, P[:, 2])
-    half = 0.5 * float(terrain.cell_size)
-    out = [P[0]]
-    for a, b in zip(P[:-1], P[1:]):
-        todo = [(a, b)]
-        while todo:
-            u, w = todo.pop()
-            plan = float(np.hypot(*(w[:2] - u[:2])))
-            n = max(2, int(math.ceil(plan / half)) + 1)
-            f = np.linspace(0.0, 1.0, n)[1:-1]
-            if f.size:
-                xy = u[:2] + np.outer(f, w[:2] - u[:2])
-                zg = _terrain_heights(terrain, xy[:, 0], xy[:, 1])
-                gap = np.abs(u[2] + f * (w[2] - u[2]) - zg)
-                gap[~np.isfinite(gap)] = 0.0
-                k = int(np.argmax(gap))
-                if gap[k] > tol_m:
-                    m = np.array([xy[k, 0], xy[k, 1], zg[k]])
-                    todo.append((m, w))
-                    todo.append((u, m))
-                    continue
-            out.append(w)
-    return np.array(out)
 
 
 def _check_on_terrain(xy: np.ndarray, z: np.ndarray, name: str) -> None:

@@ -37,7 +37,8 @@ from affine import Affine
 from ._surface import SmoothSurface
 from .errors import FallwayIOError, ParameterError, TerrainError
 
-__all__ = ["Terrain", "load_terrain", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS", "MIN_GRID_CELLS"]
+__all__ = ["Terrain", "load_terrain", "lay_on_ground", "DEFAULT_MARGIN_M", "DEFAULT_MAX_CELLS", "MIN_GRID_CELLS",
+           "GROUND_TOLERANCE_M"]
 
 #: Margin (m) added around ``bounds`` when reading a window, so that lines that bulge a
 #: little beyond the start/end box still lie on data.
@@ -705,3 +706,61 @@ def _warp(z, rt, src_crs, dst_crs, res, average: bool):
               dst_transform=dt, dst_crs=dst_crs, dst_nodata=np.nan,
               resampling=Resampling.average if average else Resampling.bilinear)
     return dst, dt
+
+
+#: How far (m) a ground line's straight segment may run above or below the smooth ground
+#: surface before a vertex is added on the ground: a judgment (a chute or conveyor laid on
+#: the ground is bedded on a few decimetres of packing or cut), not a standard.
+GROUND_TOLERANCE_M = 0.25
+
+
+def lay_on_ground(terrain, points, *, tol_m: float = GROUND_TOLERANCE_M) -> np.ndarray:
+    """A 3D polyline whose vertices lie on the ground, with vertices added (on the ground)
+    wherever a straight segment strays more than ``tol_m`` from it.
+
+    Each segment is checked against :meth:`Terrain.sample` (the smooth surface) at steps of
+    at most half a cell; where the largest gap exceeds ``tol_m`` the segment is split at
+    that point, laid on the ground, and both halves are checked again.  So no point of
+    the returned line, sampled at half a cell, is more than ``tol_m`` off the ground
+    (within the sampling), while gentle ground keeps long segments.  Where the smooth
+    surface is undefined (near nodata or the DEM's edge) vertices keep their own heights
+    and the segment is not checked there.
+
+    Examples
+    --------
+    A chord across a ridge gets a vertex on the crest:
+
+    >>> import numpy as np
+        >>> z = 10.0 - 0.5 * np.abs(np.arange(9.0) - 4.0)
+    >>> t = Terrain.from_array(np.tile(z, (5, 1)), (2.0, 0, 0, 0, -2.0, 10.0))
+    >>> line = lay_on_ground(t, [(1.0, 5.0, 8.0), (17.0, 5.0, 8.0)])
+    >>> len(line) > 2, bool(np.abs(line[:, 2] - t.sample(line[:, 0], line[:, 1])).max() < 1e-9)
+    (True, True)
+    """
+    P = np.array(points, dtype=float)
+    zs = np.atleast_1d(np.asarray(terrain.sample(P[:, 0], P[:, 1]), dtype=float))
+    # where the smooth surface is undefined (within reach of nodata or the DEM's edge) the
+    # vertex keeps its own height and the ground there goes unchecked
+    P[:, 2] = np.where(np.isfinite(zs), zs, P[:, 2])
+    half = 0.5 * float(terrain.cell_size)
+    out = [P[0]]
+    for a, b in zip(P[:-1], P[1:]):
+        todo = [(a, b)]
+        while todo:
+            u, w = todo.pop()
+            plan = float(np.hypot(*(w[:2] - u[:2])))
+            n = max(2, int(math.ceil(plan / half)) + 1)
+            f = np.linspace(0.0, 1.0, n)[1:-1]
+            if f.size:
+                xy = u[:2] + np.outer(f, w[:2] - u[:2])
+                zg = np.atleast_1d(np.asarray(terrain.sample(xy[:, 0], xy[:, 1]), dtype=float))
+                gap = np.abs(u[2] + f * (w[2] - u[2]) - zg)
+                gap[~np.isfinite(gap)] = 0.0
+                k = int(np.argmax(gap))
+                if gap[k] > tol_m:
+                    m = np.array([xy[k, 0], xy[k, 1], zg[k]])
+                    todo.append((m, w))
+                    todo.append((u, m))
+                    continue
+            out.append(w)
+    return np.array(out)

@@ -11,6 +11,7 @@ from ..errors import ParameterError
 from ..params import Limits, LineSpec, checked_options
 from ..physics import Mover
 from ..results import RefineResult
+from ..terrain import lay_on_ground
 from .choose import Candidate, choose, improves, judge
 from .fields import DistanceField
 from .problem import Ground, Problem
@@ -140,6 +141,15 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
 
     prob = problem()
     P_start = _start_line(prob, P_in, spec, bool(keep_heights))
+
+    def finished(L):
+        # a refined line as it is judged: tight bends eased (repair_radius) and, on the
+        # ground, laid on it between far-apart vertices (the solvers see the ground at the
+        # vertices only; a long chord may cut a convex slope or span a hollow, and the
+        # route exports the line laid on the ground)
+        Q = repair_radius(prob, L, P_start)
+        return _laid(terrain, Q) if spec.kind == "ground" else Q
+
     cands = [Candidate("start", P_start)]
     seed = P_start
     P_round = None
@@ -154,10 +164,10 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     pol = None
     if mover.normal == "full" and grav.line is not None and len(grav.line) >= 3:
         pol = polish_stage(prob, grav.line, P_start, plan)
-    cands.append(Candidate.refined_line("gravity optimum", grav.line, repair_radius(prob, grav.line, P_start),
+    cands.append(Candidate.refined_line("gravity optimum", grav.line, finished(grav.line),
                                         grav.converged, grav.residual, grav, grav.error))
     if pol is not None:
-        cands += [Candidate.refined_line(nm, L, repair_radius(prob, L, P_start), ok, res, grav)
+        cands += [Candidate.refined_line(nm, L, finished(L), ok, res, grav)
                   for nm, L, ok, res in pol.lines]
     if mover.normal == "full" and grav.line is not None:
         judge(prob, cands, mover)
@@ -166,7 +176,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
             # (first level distributed and limits checked with gravity-normal speeds)
             alt = gravity_stage(problem(), seed, P_start, plan, "gravity")
             cands.append(Candidate.refined_line("gravity optimum, full-model timed", alt.line,
-                                                repair_radius(prob, alt.line, P_start), alt.converged,
+                                                finished(alt.line), alt.converged,
                                                 alt.residual, alt, alt.error))
     if mover.normal == "full" and grav.line is not None and len(P_start) >= 3:
         # the gravity stage runs at gravity-normal speeds, which miss the bends' friction:
@@ -177,9 +187,18 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         pr = polish_start_line(problem(), P_seed, P_start, plan)
         run = GravityRun(None, iterations=pr.iterations, converged=pr.ok, residual=pr.residual,
                          notes=[f"the {seed_name} polished on the full model as well"])
-        cands += [Candidate.refined_line(f"{seed_name}, {nm}", L, repair_radius(prob, L, P_start), ok, res, run)
+        cands += [Candidate.refined_line(f"{seed_name}, {nm}", L, finished(L), ok, res, run)
                   for nm, L, ok, res in pr.lines]
     return choose(prob, cands, mover, pol)
+
+
+def _laid(terrain, L: np.ndarray | None) -> np.ndarray | None:
+    """``L`` laid on the ground where a segment strays from it (:func:`fallway.terrain.lay_on_ground`);
+    ``L`` itself when nothing changes."""
+    if L is None or not np.all(np.isfinite(L)):
+        return L
+    Q = lay_on_ground(terrain, L)
+    return L if len(Q) == len(L) and np.array_equal(Q, L) else Q
 
 
 def _rounding_radius(prob: Problem, P_start: np.ndarray) -> float | None:
