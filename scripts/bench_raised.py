@@ -5,8 +5,9 @@ Cases (each configuration in its own process, peak memory from its own VmHWM):
   grid500: a 500 x 500 grid of 2 m cells, a tilted V valley (z = 200 + 0.15 |x - 500|
            - 0.08 x, plus gentle waves), a raised line across it (900 m, band 2-60 m,
            20 m up at the start, 5 m at the end, mu = 0.05), default corridor;
-  demo:    the bundled sample site (fallway.sample_terrain, 300 x 400 cells of 2 m), the
-           demo's start and end, band 2-30 m, 10 m -> 3 m, mu = 0.15;
+  demo:    the bundled sample site (fallway.sample_terrain, 300 x 400 cells of 2 m), from
+           the bench lip to the valley hopper (the cable line's points), band 2-30 m,
+           10 m -> 3 m, mu = 0.15;
   each with 8, 16 and 32 height layers (16 neighbours).  Search time is measured after a
   warm-up search (numba compile excluded); memory is the process's peak.
 Error against the layers: the flat-floor friction brachistochrone (L = 100 m, H = 40 m,

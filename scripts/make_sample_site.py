@@ -155,8 +155,9 @@ end = [{dx:.1f}, {dy:.1f}]     # chute hopper, foot of the hillside
 mu = 0.25          # dry bulk material on a lined chute: assumed (wall friction varies widely
                    # with material, moisture and liner wear; common practice is to measure it,
                    # ASTM D6128) -- the envelope below checks 0.2-0.3
-drag = 0.0
-v0 = 0.0
+drag = 0.0         # no air drag on a bulk stream at these speeds (assumed)
+v0 = 0.0           # the material leaves the feeder at rest (conservative: a feed drop would
+                   # add speed)
 normal = "full"
 max_speed = 12.0   # m/s: assumed cap against liner wear and degradation of the material
                    # (common practice keeps long chutes to roughly 10-15 m/s; recalled, no source)
@@ -167,7 +168,7 @@ max_grade = 0.7    # at most 35 deg (assumed): a steeper run would be a drop chu
 max_step_turn_deg = 45.0   # a search limit only: steers the lattice towards gentle lines
 max_lateral_g = 1.0        # bends tied to speed, R >= v^2 / g: the material's surface tilts
                            # up to 45 deg in the trough at the limit (assumed)
-max_normal_g = 3.0         # sags: at most 3 g on the bed (assumed, liner impact)
+max_normal_g = 3.0         # sags and bends: at most 3 g from bed and walls (assumed, liner impact)
 allow_liftoff = false      # an open trough: no crest may lift the material off its bed
 
 [search]
@@ -175,6 +176,10 @@ neighbours = 16
 refine = true
 
 [envelope]
+# the friction range to check the line against (assumed: +-0.05 around mu).  At 0.3 no line
+# reaches this hopper (gravity-normal friction: 89 m of drop against 0.3 x 304 m of plan,
+# the shortest), and at 0.2 this line overspeeds: a chute built on it needs its friction
+# held near 0.25 (liner, moisture), or a line found with --robust across the range that matters
 mu_range = [0.2, 0.3]
 """
 

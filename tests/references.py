@@ -430,7 +430,9 @@ def vertex_loads(points, speed_m_s, g: float = G0) -> tuple[np.ndarray, np.ndarr
     speed); the force the bed and walls supply N = v²κn − g⊥ (g⊥ gravity's part across t;
     1 g on a level straight); the bed's share N·up, up the upward unit normal to t in its
     vertical plane, must stay positive on an open bed (at a crest, v²κ_vertical < g cos θ).
-    Any mechanics text; CHECKS "Buildable lines".
+    Any mechanics text; CHECKS "Buildable lines".  (fallway judges a ground line's lift-off
+    along the ground's own upward normal; on a side slope the two differ, and a test that
+    holds both to the limit holds the line to the stricter.)
     """
     P = np.asarray(points, dtype=float)
     v = np.asarray(speed_m_s, dtype=float)

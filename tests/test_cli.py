@@ -11,6 +11,7 @@ import math
 import subprocess
 import sys
 import tomllib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -281,6 +282,36 @@ def test_demo_line_meets_every_limit_of_its_scenario(demo_run):
     assert lateral_g.max() <= lim["max_lateral_g"]
     assert normal_g.max() <= lim["max_normal_g"]
     assert bed_g.min() > 0.0                                  # no lift-off anywhere on the open bed
+    # the keep-out: the exported line's segments against the shipped polygons, moved to the
+    # DEM's CRS by pyproj and tested by shapely
+    from importlib.resources import as_file, files
+
+    from pyproj import Transformer
+    from shapely.geometry import LineString, Polygon
+
+    with as_file(files("fallway.sample_terrain")) as d:
+        ko = json.loads((Path(d) / "keepout.geojson").read_text())
+    tr = Transformer.from_crs("EPSG:4326", s["crs"], always_xy=True)
+    line = LineString(P[:, :2])
+    for f in ko["features"]:
+        lon, lat = np.asarray(f["geometry"]["coordinates"][0]).T
+        assert not line.intersects(Polygon(np.column_stack(tr.transform(lon, lat)))), f["properties"]["name"]
+
+
+def test_exit_speeds_in_words():
+    # the friction range's exit speeds as the route and demo print them: both ends, a stall
+    # at either end, a stall at both
+    from types import SimpleNamespace
+
+    from fallway.cli import _exit_speeds
+
+    def env(at_hi, at_lo):
+        return SimpleNamespace(mu_lo=0.2, mu_hi=0.3, exit_speed_range_m_s=(at_hi, at_lo))
+
+    assert _exit_speeds(env(9.5, 14.25)) == "exit speed 14.25 to 9.50 m/s"
+    assert _exit_speeds(env(None, 18.9)) == "exit speed 18.90 m/s at 0.2, stalls at 0.3"
+    assert _exit_speeds(env(3.0, None)) == "stalls at 0.2, exit speed 3.00 m/s at 0.3"
+    assert _exit_speeds(env(None, None)) == "stalls at both ends of the range"
 
 
 def test_route_corridor_plan_matches_the_incline_formula(tmp_path, ramp):

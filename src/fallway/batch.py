@@ -299,7 +299,8 @@ def _quiet_resource_tracker() -> None:
     (``cli._end_on_signal``); the tracker then unlinks the pool's semaphores, as it should,
     but also warned of "leaked semaphore objects" on the user's terminal after fallway's
     one-line message.  The tracker takes its warning options from ``sys.warnoptions``
-    when it starts."""
+    when it starts: a tracker already running (an earlier pool in the same process) keeps
+    its own, and this one stays quiet on a real leak too (the tracker still cleans up)."""
     from multiprocessing import resource_tracker
 
     saved = list(sys.warnoptions)

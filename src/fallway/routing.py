@@ -567,9 +567,9 @@ def _num(v) -> float | None:
 def _exported(terrain, line, job: _Job) -> np.ndarray:
     """A line as a route exports it: corners sampled as arcs (<= 5° of turn per vertex,
     detail under 5 cm dropped); a ground line then kept within
-    :data:`~fallway.evaluate.GROUND_TOLERANCE_M` of the ground along every segment (a
+    :data:`~fallway.terrain.GROUND_TOLERANCE_M` of the ground along every segment (a
     straight chord between far-apart vertices would cut through a convex slope:
-    :func:`~fallway.evaluate.lay_on_ground`) and its new bends sampled the same way.  Its
+    :func:`~fallway.terrain.lay_on_ground`) and its new bends sampled the same way.  Its
     time is the reported one."""
     P = round_corners(np.asarray(line, dtype=float), fixed_xy=job.via, min_segment_m=MIN_EXPORT_SEGMENT_M)
     if job.line.kind == "ground":

@@ -731,7 +731,7 @@ def lay_on_ground(terrain, points, *, tol_m: float = GROUND_TOLERANCE_M) -> np.n
     A chord across a ridge gets a vertex on the crest:
 
     >>> import numpy as np
-        >>> z = 10.0 - 0.5 * np.abs(np.arange(9.0) - 4.0)
+    >>> z = 10.0 - 0.5 * np.abs(np.arange(9.0) - 4.0)
     >>> t = Terrain.from_array(np.tile(z, (5, 1)), (2.0, 0, 0, 0, -2.0, 10.0))
     >>> line = lay_on_ground(t, [(1.0, 5.0, 8.0), (17.0, 5.0, 8.0)])
     >>> len(line) > 2, bool(np.abs(line[:, 2] - t.sample(line[:, 0], line[:, 1])).max() < 1e-9)

@@ -142,13 +142,18 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     prob = problem()
     P_start = _start_line(prob, P_in, spec, bool(keep_heights))
 
-    def finished(L):
+    def refined(name, solved, converged, residual, run, error=None) -> Candidate:
         # a refined line as it is judged: tight bends eased (repair_radius) and, on the
         # ground, laid on it between far-apart vertices (the solvers see the ground at the
         # vertices only; a long chord may cut a convex slope or span a hollow, and the
         # route exports the line laid on the ground)
-        Q = repair_radius(prob, L, P_start)
-        return _laid(terrain, Q) if spec.kind == "ground" else Q
+        c = Candidate.refined_line(name, solved, repair_radius(prob, solved, P_start), converged, residual, run,
+                                   error)
+        if spec.kind == "ground":
+            laid = _laid(terrain, c.line)
+            if laid is not c.line:
+                c.line, c.laid = laid, True
+        return c
 
     cands = [Candidate("start", P_start)]
     seed = P_start
@@ -164,20 +169,17 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
     pol = None
     if mover.normal == "full" and grav.line is not None and len(grav.line) >= 3:
         pol = polish_stage(prob, grav.line, P_start, plan)
-    cands.append(Candidate.refined_line("gravity optimum", grav.line, finished(grav.line),
-                                        grav.converged, grav.residual, grav, grav.error))
+    cands.append(refined("gravity optimum", grav.line, grav.converged, grav.residual, grav, grav.error))
     if pol is not None:
-        cands += [Candidate.refined_line(nm, L, finished(L), ok, res, grav)
-                  for nm, L, ok, res in pol.lines]
+        cands += [refined(nm, L, ok, res, grav) for nm, L, ok, res in pol.lines]
     if mover.normal == "full" and grav.line is not None:
         judge(prob, cands, mover)
         if not improves(cands):
             # the full-model stages gained nothing: the optimum of a gravity-normal run
             # (first level distributed and limits checked with gravity-normal speeds)
             alt = gravity_stage(problem(), seed, P_start, plan, "gravity")
-            cands.append(Candidate.refined_line("gravity optimum, full-model timed", alt.line,
-                                                finished(alt.line), alt.converged,
-                                                alt.residual, alt, alt.error))
+            cands.append(refined("gravity optimum, full-model timed", alt.line, alt.converged, alt.residual, alt,
+                                 alt.error))
     if mover.normal == "full" and grav.line is not None and len(P_start) >= 3:
         # the gravity stage runs at gravity-normal speeds, which miss the bends' friction:
         # under a speed cap its line is held to the cap at those speeds, too slow, and can
@@ -187,8 +189,7 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         pr = polish_start_line(problem(), P_seed, P_start, plan)
         run = GravityRun(None, iterations=pr.iterations, converged=pr.ok, residual=pr.residual,
                          notes=[f"the {seed_name} polished on the full model as well"])
-        cands += [Candidate.refined_line(f"{seed_name}, {nm}", L, finished(L), ok, res, run)
-                  for nm, L, ok, res in pr.lines]
+        cands += [refined(f"{seed_name}, {nm}", L, ok, res, run) for nm, L, ok, res in pr.lines]
     return choose(prob, cands, mover, pol)
 
 

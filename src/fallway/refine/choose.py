@@ -37,9 +37,10 @@ class Candidate:
     to the start line and its rounded version; ``run``: the gravity stage it comes from.
     ``converged``: the solver that made this line stopped on its stationarity test (not on
     an iteration cap); ``repaired``: its bends were eased after the solver (so the line is
-    no stationary point); ``residual``: that solver's largest projected-gradient
-    component, s/m.  ``judge`` fills ``profile``,
-    ``status`` and ``meets``.
+    no stationary point); ``laid``: a ground line laid on the ground after the solver, where
+    a long chord strayed from it (no stationary point either); ``residual``: that solver's
+    largest projected-gradient component, s/m.  ``judge`` fills ``profile``, ``status`` and
+    ``meets``.
     """
 
     name: str
@@ -50,6 +51,7 @@ class Candidate:
     converged: bool = False
     residual: float = math.inf
     repaired: bool = False
+    laid: bool = False
     profile: Profile | None = field(default=None, init=False)
     status: dict = field(default_factory=dict, init=False)
     meets: bool = field(default=False, init=False)
@@ -117,6 +119,8 @@ def choose(prob: Problem, cands: list, mover: Mover, pol: PolishRun | None) -> R
     notes = list(run.notes) + _polish_notes(cands, pol)
     if good:
         msg = _message(best, start, cands, iters, notes)
+        if best.refined and best.laid:
+            msg += "; not converged: laid on the ground after the solver, where a long chord strayed from it"
         if best.refined and best.repaired:
             # the bends were eased to the radius limit after the solver (repair_radius): a
             # line that meets the limits, but no stationary point
@@ -130,7 +134,7 @@ def choose(prob: Problem, cands: list, mover: Mover, pol: PolishRun | None) -> R
                f"{', '.join(bad)} ({_time_text(start.time)} -> {_time_text(best.time)})")
         warnings.warn(msg, RefinementWarning, stacklevel=3)
     polish_note = next((n for n in notes if n.startswith("full-model polish")), "")
-    converged = bool(best.refined and good and best.converged and not best.repaired)
+    converged = bool(best.refined and good and best.converged and not best.repaired and not best.laid)
     residual = best.residual if best.refined else run.residual
     return RefineResult(best.line.copy(), best.profile, iters, residual, converged, start.time, best.time, msg,
                         best.status, polish_note, best.name, tuple(c.record() for c in cands))
