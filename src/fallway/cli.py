@@ -567,8 +567,9 @@ def demo(out_dir, overwrite, quiet):
         _print_route(r, out_dir, written)
         _print_rows(cmp, indent="  ")
         s = cable.summary
-        click.echo(f"cable line from the bench lip to the valley hopper ({Path(out_dir) / 'cable'}): {s.cable['support_count']} supports "
-                   f"between the end stations, carrier {s.travel_time_s:.2f} s, arrives at {s.exit_speed_m_s:.1f} m/s")
+        click.echo(f"cable line from the bench lip to the valley hopper ({Path(out_dir) / 'cable'}): "
+                   f"{s.cable['support_count']} supports between the end stations, carrier {s.travel_time_s:.2f} s, "
+                   f"arrives at {s.exit_speed_m_s:.1f} m/s")
         click.echo("Preliminary layout aid only: have any real design checked by a qualified engineer.")
 
 

@@ -90,10 +90,12 @@ def refine_line(terrain, points, mover: Mover, *, limits: Limits | None = None, 
         start line - the optimum of a gravity-normal run (``"gravity optimum, full-model
         timed"``); with the full model also the rounded start (the start line without a
         bend limit) polished on the full model (``"rounded start, full polish"``,
-        ``"start, full polish"``; penalties strengthened while a limit is broken); every
-        candidate is timed with the mover's own model.  ``candidates`` lists them all with their times, limit status and any
-        failure, ``chosen`` names the one returned.  Never slower than the
-        start line among lines that meet the limits: when the start line itself breaks one
+        ``"start, full polish"``; penalties strengthened while a limit is broken).  Every
+        candidate is timed with the mover's own model, a ground line laid on the ground
+        where a long chord strays from it (:func:`fallway.terrain.lay_on_ground`, as a
+        route exports it).  ``candidates`` lists them all with their times, limit status
+        and any failure, ``chosen`` names the one returned.  Never slower than the start
+        line among lines that meet the limits: when the start line itself breaks one
         (typically the bend radius at its lattice corners) the fastest line that meets them
         is returned even if slower, and ``message`` says so.
 

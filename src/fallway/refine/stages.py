@@ -315,7 +315,7 @@ def polish_stage(prob: Problem, P: np.ndarray, P_start: np.ndarray, plan: Plan) 
     return PolishRun(lines[::-1], iters, ok, res, t_grav)
 
 
-#: rounds of stronger penalties after the polish of the rounded start
+#: rounds of stronger penalties after the polish of the start line
 _POLISH_ROUNDS = 3
 
 
@@ -323,7 +323,7 @@ def polish_start_line(prob: Problem, P_seed: np.ndarray, P_start: np.ndarray, pl
     """The full-model polish from the start line (rounded when there is a bend limit)
     instead of the gravity optimum, then stronger penalties on its finest line while a
     limit is still broken (as the gravity stage's rounds: keep-out margin x4, penalty
-    weight x100; at most three rounds, each with the level's whole iteration cap: a
+    weight x100; at most three rounds of up to ``plan.max_iter`` iterations each: a
     stiffer penalty is a worse-conditioned problem).
 
     A second seed for the polish.  The gravity stage runs at gravity-normal speeds, which
