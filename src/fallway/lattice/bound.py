@@ -200,7 +200,6 @@ def _edge_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_g
     """Walk stencil edge ``kk`` from ``n`` to ``m`` from entry v² ``w`` (clamped after each
     sub-segment); ``law_on`` False: the ceiling floors alone (the corner-law case).
     Returns ``(exit v², time lower bound, ok)``."""
-    two_g = 2.0 * g
     zprev = z[n]
     te = 0.0
     w = _up(w, eps_abs)
@@ -210,19 +209,32 @@ def _edge_exit(z, n, m, kk, w, brk_start, brk_fa, brk_fb, brk_w, sub_plan, min_g
                                                     sub_plan, min_grade, max_grade)
         if not ok:
             return w, te, False
-        dt = 0.0
-        if law_on:
-            w, dt, law = law_step(w, drop, plan, length, g, mu, kdrag, v2_stall, math.inf)
-            if law != LAW_OK:
-                return w, te, False
-        else:
-            w = math.inf
-        hi = _up(min(v2_ceil, e_top - two_g * min(za, zprev)), eps_abs)
-        if hi > 0.0:
-            dt = max(dt, length / math.sqrt(hi))
-        w = _up(_clamp(w, v2_ceil, e_top, two_g, zprev), eps_abs)
+        w, dt, ok = _bound_step(w, za, zprev, drop, plan, length, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs,
+                                law_on)
+        if not ok:
+            return w, te, False
         te += dt
     return w, te, True
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _bound_step(w, za, zb, drop, plan, length, g, mu, kdrag, v2_stall, v2_ceil, e_top, eps_abs, law_on):
+    """One sub-segment of an edge walk, from height ``za`` to ``zb``: the segment law from
+    entry v² ``w`` (``law_on`` False: none, the ceiling alone), a time floor of its length
+    over the ceiling speed, the exit clamped to the ceiling.  Returns ``(exit v², time
+    lower bound, ok)``; ok False when the mover stalls or overspeeds."""
+    two_g = 2.0 * g
+    dt = 0.0
+    if law_on:
+        w, dt, law = law_step(w, drop, plan, length, g, mu, kdrag, v2_stall, math.inf)
+        if law != LAW_OK:
+            return w, dt, False
+    else:
+        w = math.inf
+    hi = _up(min(v2_ceil, e_top - two_g * min(za, zb)), eps_abs)
+    if hi > 0.0:
+        dt = max(dt, length / math.sqrt(hi))
+    return _up(_clamp(w, v2_ceil, e_top, two_g, zb), eps_abs), dt, True
 
 
 @njit(cache=True, nogil=True)
@@ -230,7 +242,6 @@ def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, m
                   eps_abs, law_on):
     """Walk virtual edge ``j`` (starting at height ``z0``) from entry v² ``w``, as
     :func:`_edge_exit`.  Returns ``(exit v², time lower bound, ok)``."""
-    two_g = 2.0 * g
     zprev = z0
     te = 0.0
     w = _up(w, eps_abs)
@@ -240,20 +251,12 @@ def _virtual_exit(j, w, z0, vsub_start, vdrop, vplan, min_grade, max_grade, g, m
         grade = d / p
         if grade < min_grade or grade > max_grade:
             return w, te, False
-        length = math.sqrt(p * p + d * d)
         za = zprev
         zprev = za - d
-        dt = 0.0
-        if law_on:
-            w, dt, law = law_step(w, d, p, length, g, mu, kdrag, v2_stall, math.inf)
-            if law != LAW_OK:
-                return w, te, False
-        else:
-            w = math.inf
-        hi = _up(min(v2_ceil, e_top - two_g * min(za, zprev)), eps_abs)
-        if hi > 0.0:
-            dt = max(dt, length / math.sqrt(hi))
-        w = _up(_clamp(w, v2_ceil, e_top, two_g, zprev), eps_abs)
+        w, dt, ok = _bound_step(w, za, zprev, d, p, math.sqrt(p * p + d * d), g, mu, kdrag, v2_stall, v2_ceil, e_top,
+                                eps_abs, law_on)
+        if not ok:
+            return w, te, False
         te += dt
     return w, te, True
 
