@@ -650,19 +650,21 @@ def _finish(found: _Found, job: _Job, *, refine: bool | None = None) -> Route:
         # can be slower than the lattice line laid the same way; the faster one that meets
         # the limits is reported
         alt = _exported(terrain, lat.points, job)
-        judged = []
+        judged = []   # (points, profile, loads, broken limits) of each, timed and judged once
         for P in (final, alt):
             prof = _timed(terrain, P, mover, "ground")
-            bad = _violated(terrain, P, prof, job.limits, found.keepout, _loads(terrain, P, prof, mover, "ground"))
-            judged.append((len(bad), prof.travel_time_s if prof.feasible else math.inf))
-        if judged[1] < judged[0]:
-            on_ground = (judged[0][1], judged[1][1])
-            final = alt
-    profile = _timed(terrain, final, mover, job.line.kind)
+            ld = _loads(terrain, P, prof, mover, "ground")
+            judged.append((P, prof, ld, _violated(terrain, P, prof, job.limits, found.keepout, ld)))
+        rank = [(len(bad), prof.travel_time_s if prof.feasible else math.inf) for _, prof, _, bad in judged]
+        if rank[1] < rank[0]:
+            on_ground = (rank[0][1], rank[1][1])
+        final, profile, loads, violated = judged[1 if on_ground is not None else 0]
+    else:
+        profile = _timed(terrain, final, mover, job.line.kind)
+        loads = _loads(terrain, final, profile, mover, job.line.kind)
+        violated = _violated(terrain, final, profile, job.limits, found.keepout, loads,
+                             clearance_m=job.line.clearance_m if job.line.kind == "raised" else None)
     lattice_profile = lat.profile if mover.normal == "gravity" else _timed(terrain, lat.points, mover, job.line.kind)
-    loads = _loads(terrain, final, profile, mover, job.line.kind)
-    violated = _violated(terrain, final, profile, job.limits, found.keepout, loads,
-                         clearance_m=job.line.clearance_m if job.line.kind == "raised" else None)
     if rr is not None and on_ground is None:
         violated += [k for k, v in (rr.limits or {}).items() if v == "violated" and k not in violated]
     d = np.diff(final, axis=0)
